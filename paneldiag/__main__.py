@@ -1,0 +1,5 @@
+import sys
+
+from paneldiag.cli import main
+
+sys.exit(main())

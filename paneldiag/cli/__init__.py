@@ -1,0 +1,81 @@
+"""The command line: parse options, call the library, print. Nothing else lives here.
+
+Exit status: 0 done, 2 bad input or usage (one line on stderr), 1 a bug in paneldiag.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+
+import click
+
+from paneldiag import __version__
+from paneldiag.errors import InputProblem
+
+
+class Progress:
+    """Stage messages on stderr, shown only on a terminal and without --quiet."""
+
+    def __init__(self, quiet: bool):
+        self.enabled = not quiet and sys.stderr.isatty()
+
+    def stage(self, text: str) -> None:
+        if self.enabled:
+            sys.stderr.write(f"\r\033[K{text}…")
+            sys.stderr.flush()
+
+    def done(self) -> None:
+        if self.enabled:
+            sys.stderr.write("\r\033[K")
+            sys.stderr.flush()
+
+
+def use_color(quiet: bool = False) -> bool:
+    return sys.stdout.isatty() and "NO_COLOR" not in os.environ
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="paneldiag")
+@click.option("--debug", is_flag=True, help="Show a full traceback on errors.")
+@click.pass_context
+def cli(ctx: click.Context, debug: bool) -> None:
+    """Screen multi-wave panel data before fitting longitudinal models."""
+    ctx.obj = {"debug": debug}
+
+
+def _register() -> None:
+    from paneldiag.cli import demo, screen
+    cli.add_command(screen.command)
+    cli.add_command(demo.command)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the console script; returns the exit status."""
+    _register()
+    args = sys.argv[1:] if argv is None else argv
+    debug = "--debug" in args
+    try:
+        cli.main(args=args, prog_name="paneldiag", standalone_mode=False)
+    except InputProblem as problem:
+        _fail(f"paneldiag: error: {problem}", 2, debug)
+    except click.exceptions.Exit as done:
+        return done.exit_code
+    except click.Abort:
+        _fail("paneldiag: error: interrupted", 2, False)
+    except click.ClickException as usage:
+        _fail(f"paneldiag: error: {usage.format_message()}", 2, debug)
+    except BrokenPipeError:
+        return 0
+    except Exception as bug:  # anything else is a bug in paneldiag
+        _fail(f"paneldiag: internal error: {type(bug).__name__}: {bug} "
+              "(please report it; --debug shows the traceback)", 1, debug)
+    return 0
+
+
+def _fail(message: str, status: int, debug: bool) -> None:
+    if debug:
+        import traceback
+        traceback.print_exc()
+    sys.stderr.write(" ".join(message.split("\n")) + "\n")
+    sys.exit(status)

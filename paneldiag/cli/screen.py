@@ -1,0 +1,123 @@
+"""paneldiag screen DATA: audit a panel and judge the process families it can support.
+
+Long data (a row per unit and wave):
+    paneldiag screen panel.csv --id person --wave year --value score [--value other ...]
+Wide data (a row per unit, a column per wave, columns in wave order):
+    paneldiag screen panel.csv --id person --wide score=s1,s2,s3 [--wave-labels 2019,2020,2022]
+DATA may be '-' for standard input. The terminal gets a summary; --json PATH gets the
+full report (see docs/json-report.md).
+"""
+
+from __future__ import annotations
+
+import sys
+
+import click
+
+from paneldiag.cli import Progress, use_color
+from paneldiag.errors import InputProblem
+from paneldiag.io.output import refuse_input_overwrite, write_atomic
+from paneldiag.io.readers import FORMATS, read_table
+from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.render.json import report_json
+from paneldiag.render.terminal import render_terminal
+from paneldiag.screen import ScreenOptions, screen
+
+
+def _wide_option(items: tuple[str, ...]) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    measures = []
+    for item in items:
+        name, _, columns = item.rpartition("=")
+        cols = tuple(c.strip() for c in columns.split(",") if c.strip())
+        if len(cols) < 2:
+            raise InputProblem(f"--wide '{item}' needs at least two columns, comma-separated")
+        measures.append((name.strip() or "value", cols))
+    return tuple(measures)
+
+
+def _list_option(text: str | None, name: str, numeric: bool = False):
+    if text is None:
+        return None
+    items = [t.strip() for t in text.split(",") if t.strip()]
+    if not numeric:
+        return tuple(items)
+    try:
+        return tuple(float(t) for t in items)
+    except ValueError:
+        raise InputProblem(f"{name} must be comma-separated numbers, got '{text}'") from None
+
+
+@click.command("screen")
+@click.argument("data", type=str)
+@click.option("--id", "id_column", metavar="COL", help="Column with the unit id.")
+@click.option("--wave", "wave_column", metavar="COL", help="Column with the wave (long data).")
+@click.option("--value", "values", metavar="COL", multiple=True,
+              help="A measure column (long data); repeat for several measures.")
+@click.option("--wide", "wide", metavar="NAME=C1,C2,..", multiple=True,
+              help="Wide data: a measure's wave columns in wave order; repeatable.")
+@click.option("--wave-labels", metavar="L1,L2,..", help="Wave labels for wide columns.")
+@click.option("--wave-times", metavar="T1,T2,..",
+              help="Numeric time of each wave (overrides times read from the labels).")
+@click.option("--wave-order", type=click.Choice(["natural", "given"]), default="natural",
+              show_default=True, help="Order of text wave labels.")
+@click.option("--weight", metavar="COL", help="Longitudinal weight, one per unit.")
+@click.option("--group", metavar="COL", help="A grouping column, constant within unit.")
+@click.option("--covariate", "covariates", metavar="COL", multiple=True,
+              help="A covariate for the dropout model; repeatable.")
+@click.option("--missing-codes", metavar="CODES",
+              help="Values meaning 'missing for a reason', e.g. -9,-8 or 'negative'.")
+@click.option("--duplicates", type=click.Choice(["error", "first", "last", "mean"]),
+              default="error", show_default=True, help="What to do with repeated unit-wave rows.")
+@click.option("--drop-bad-rows", is_flag=True,
+              help="Drop and count rows with a missing id or wave or a non-numeric or "
+                   "infinite value, instead of stopping.")
+@click.option("--format", "fmt", type=click.Choice(FORMATS), help="File format (default: by extension).")
+@click.option("--delimiter", metavar="CHAR", help="Field delimiter of a text file.")
+@click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
+@click.option("--min-cell", type=click.IntRange(1), default=5, show_default=True,
+              help="Smallest count shown on its own (disclosure control).")
+@click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
+def command(data, id_column, wave_column, values, wide, wave_labels, wave_times, wave_order,
+            weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
+            delimiter, json_path, min_cell, quiet):
+    """Audit a panel file and screen which process families it can support."""
+    progress = Progress(quiet)
+    spec = LayoutSpec(
+        id=id_column, wave=wave_column, values=tuple(values), wide=_wide_option(wide),
+        wave_labels=_list_option(wave_labels, "--wave-labels"),
+        wave_times=_list_option(wave_times, "--wave-times", numeric=True),
+        wave_order=wave_order, weight=weight, group=group, covariates=tuple(covariates),
+        missing_codes=MissingCodes.parse(missing_codes), duplicates=duplicates,
+        bad_values="drop" if drop_bad_rows else "error")
+    if not spec.measure_names():
+        raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
+    if json_path:
+        refuse_input_overwrite(json_path, [data])
+    progress.stage(f"reading {data}")
+    raw = read_table(data, fmt, columns=spec.columns(), delimiter=delimiter)
+    progress.stage("building the panel")
+    panel, ledgers = build_panel(raw, spec)
+    progress.stage("screening")
+    input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
+                  "options": _options_record(spec, fmt, delimiter, min_cell)}
+    report = screen(panel, ledgers, input_info, ScreenOptions(min_cell=min_cell))
+    progress.done()
+    if json_path:
+        write_atomic(json_path, report_json(report))
+    if not quiet:
+        sys.stdout.write(render_terminal(report, color=use_color()))
+
+
+def _options_record(spec: LayoutSpec, fmt, delimiter, min_cell) -> dict:
+    """The options that shaped the result, for the reproducibility record."""
+    record = {
+        "layout": spec.layout, "id": spec.id, "wave": spec.wave, "values": list(spec.values),
+        "wide": {name: list(cols) for name, cols in spec.wide},
+        "wave_labels": list(spec.wave_labels) if spec.wave_labels else None,
+        "wave_times": list(spec.wave_times) if spec.wave_times else None,
+        "wave_order": spec.wave_order, "weight": spec.weight, "group": spec.group,
+        "covariates": list(spec.covariates), "missing_codes": spec.missing_codes.describe(),
+        "duplicates": spec.duplicates, "drop_bad_rows": spec.bad_values == "drop",
+        "format": fmt, "delimiter": delimiter, "min_cell": min_cell,
+    }
+    return {k: v for k, v in record.items() if v not in (None, [], {}, "")}

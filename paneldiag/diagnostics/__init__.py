@@ -1,0 +1,1 @@
+"""Diagnostics: pure functions of summaries, each returning a small result object."""

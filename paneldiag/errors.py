@@ -1,0 +1,28 @@
+"""The one exception type for problems with the user's input or options."""
+
+from __future__ import annotations
+
+
+class InputProblem(Exception):
+    """A problem the user can fix: bad data, a bad option, an unreadable file.
+
+    It carries what went wrong and, where known, where: the file, the row
+    (a line number for text files, a record number otherwise) and the column.
+    The CLI prints it as one line and exits with status 2.
+    """
+
+    def __init__(self, what: str, file: str | None = None, row: int | None = None,
+                 column: str | None = None):
+        super().__init__(what)
+        self.what = what
+        self.file = file
+        self.row = row
+        self.column = column
+
+    def where(self) -> str:
+        parts = [str(p) for p in (self.file, self.row, self.column) if p is not None]
+        return ":".join(parts)
+
+    def __str__(self) -> str:
+        where = self.where()
+        return f"{self.what} ({where})" if where else self.what

@@ -1,0 +1,283 @@
+"""Readers: turn a file (or standard input) into a raw table of columns.
+
+This module and ``validate`` are the only places that look at raw input. A reader
+only parses; deciding what a row means (unit, wave, value, missing code) is the
+validator's job.
+"""
+
+from __future__ import annotations
+
+import csv
+import gzip
+import hashlib
+import io
+import os
+import sys
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from paneldiag.errors import InputProblem
+
+FORMATS = ("csv", "tsv", "parquet", "dta", "sav", "sas7bdat", "xpt")
+EXTENSIONS = {
+    ".csv": "csv", ".txt": "csv", ".tsv": "tsv", ".tab": "tsv",
+    ".parquet": "parquet", ".pq": "parquet",
+    ".dta": "dta", ".sav": "sav", ".zsav": "sav",
+    ".sas7bdat": "sas7bdat", ".xpt": "xpt",
+}
+# Cell texts that mean "no value" in exported panel files ('.' is a common
+# export of a system-missing value).
+NULL_TOKENS = ["", "NA", "N/A", "NaN", "nan", "NULL", "null", "."]
+
+
+@dataclass
+class RawTable:
+    """Parsed columns plus what the file itself declares about missing values."""
+
+    frame: pd.DataFrame
+    source: str
+    format: str
+    sha256: str
+    first_row_number: int  # row number of the first data record (a text file's line)
+    declared_ranges: dict[str, list[tuple[float, float]]] = field(default_factory=dict)
+    tagged_missing: dict[str, np.ndarray] = field(default_factory=dict)
+    value_labels: dict[str, dict[float, str]] = field(default_factory=dict)
+
+    def row_number(self, index: int) -> int:
+        return self.first_row_number + int(index)
+
+
+def detect_format(path: str, override: str | None) -> str:
+    if override:
+        if override not in FORMATS:
+            raise InputProblem(f"unknown format '{override}'; choose one of {', '.join(FORMATS)}")
+        return override
+    if path == "-":
+        return "csv"
+    name = path.lower()
+    if name.endswith(".gz"):
+        name = name[:-3]
+    ext = os.path.splitext(name)[1]
+    if ext not in EXTENSIONS:
+        raise InputProblem(
+            f"unknown file type '{ext or '(none)'}'; name a format with --format "
+            f"({', '.join(FORMATS)})", file=path)
+    return EXTENSIONS[ext]
+
+
+def read_table(path: str, fmt: str | None = None, columns: list[str] | None = None,
+               delimiter: str | None = None) -> RawTable:
+    """Read the named columns of a panel file; ``path='-'`` reads standard input."""
+    fmt = detect_format(path, fmt)
+    data = _load_bytes(path)
+    digest = hashlib.sha256(data).hexdigest() if isinstance(data, bytes) else _sha256_file(path)
+    if fmt in ("csv", "tsv"):
+        raw = data if isinstance(data, bytes) else None
+        return _read_text(path, raw, fmt, columns, delimiter, digest)
+    if fmt == "parquet":
+        return _read_parquet(path, data, columns, digest)
+    return _read_stat_file(path, data, fmt, columns, digest)
+
+
+def _load_bytes(path: str) -> bytes | None:
+    """Standard input is read whole; a file is left on disk (None)."""
+    if path == "-":
+        return sys.stdin.buffer.read()
+    if not os.path.exists(path):
+        raise InputProblem("file not found", file=path)
+    if os.path.isdir(path):
+        raise InputProblem("is a folder, not a file", file=path)
+    return None
+
+
+def _sha256_file(path: str) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 22), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def _text_head(path: str, raw: bytes | None, size: int = 1 << 16) -> bytes:
+    if raw is None:
+        with open(path, "rb") as handle:
+            raw_head = handle.read(size)
+    else:
+        raw_head = raw[:size]
+    if raw_head[:2] == b"\x1f\x8b":
+        stream = gzip.GzipFile(fileobj=io.BytesIO(raw if raw is not None else open(path, "rb").read()))
+        try:
+            return stream.read(size)
+        except (OSError, EOFError) as exc:
+            raise InputProblem(f"damaged gzip file ({exc})", file=path) from None
+    return raw_head
+
+
+def _check_text(path: str, head: bytes) -> None:
+    if not head.strip():
+        raise InputProblem("file is empty", file=path)
+    if head[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        raise InputProblem("file is UTF-16 text (it starts with a UTF-16 byte-order mark); "
+                           "save it as UTF-8", file=path)
+    if b"\x00" in head:
+        offset = head.index(b"\x00")
+        raise InputProblem(f"not a text table: binary content at byte {offset}", file=path)
+    try:
+        head.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if exc.start < len(head) - 4:  # a cut multi-byte character at the end is fine
+            raise InputProblem(f"not UTF-8 text: undecodable byte at offset {exc.start}",
+                               file=path) from None
+
+
+def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    head = _text_head(path, raw)
+    _check_text(path, head)
+    sep = delimiter or ("\t" if fmt == "tsv" else ",")
+    if len(sep) != 1:
+        raise InputProblem(f"the delimiter must be one character, got {sep!r}")
+    header_line = head.lstrip(b"\xef\xbb\xbf").split(b"\n", 1)[0].decode("utf-8", "replace")
+    header = next(csv.reader([header_line.rstrip("\r")], delimiter=sep))
+    if columns:
+        _require_columns(path, header, columns, sep, header_line)
+    source = pa.BufferReader(raw) if raw is not None else path
+    if raw is not None and raw[:2] == b"\x1f\x8b":
+        source = pa.CompressedInputStream(pa.BufferReader(raw), "gzip")
+    try:
+        table = pacsv.read_csv(
+            source,
+            parse_options=pacsv.ParseOptions(delimiter=sep),
+            convert_options=pacsv.ConvertOptions(
+                include_columns=columns, null_values=NULL_TOKENS, strings_can_be_null=True),
+            read_options=pacsv.ReadOptions(block_size=1 << 24),
+        )
+    except pa.ArrowInvalid as exc:
+        raise _text_parse_problem(path, raw, sep, str(exc)) from None
+    if table.num_rows == 0:
+        raise InputProblem("no data rows: the file has a header only", file=path)
+    frame = table.to_pandas(types_mapper=_arrow_types)
+    return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2)
+
+
+def _arrow_types(arrow_type):
+    """Keep text as pandas' Arrow-backed strings (cheap), numbers as numpy."""
+    import pyarrow as pa
+    if pa.types.is_string(arrow_type) or pa.types.is_large_string(arrow_type):
+        return pd.ArrowDtype(arrow_type)
+    return None
+
+
+def _require_columns(path, header, columns, sep, header_line) -> None:
+    missing = [c for c in columns if c not in header]
+    if not missing:
+        return
+    hint = ""
+    if len(header) == 1:
+        for other in (";", "\t", "|", ","):
+            if other != sep and other in header_line:
+                shown = "\\t" if other == "\t" else other
+                hint = f"; the header looks '{shown}'-separated: try --delimiter '{shown}'"
+                break
+    shown_header = ", ".join(header[:8]) + (", ..." if len(header) > 8 else "")
+    raise InputProblem(f"column '{missing[0]}' not found; the header has: {shown_header}{hint}",
+                       file=path, row=1)
+
+
+def _text_parse_problem(path, raw, sep, message) -> InputProblem:
+    """Translate a parser error into one line with the offending line number."""
+    first = message.splitlines()[0].replace("CSV parse error: ", "")
+    if "Expected" in first and "columns" in first:
+        line = _first_ragged_line(path, raw, sep)
+        return InputProblem(f"ragged row: {first.split(':')[0].lower()}", file=path, row=line)
+    return InputProblem(f"cannot parse the table: {first}", file=path)
+
+
+def _first_ragged_line(path, raw, sep) -> int | None:
+    if raw is not None and raw[:2] == b"\x1f\x8b":
+        raw = gzip.decompress(raw)
+    handle = io.TextIOWrapper(io.BytesIO(raw), "utf-8-sig", newline="") if raw is not None \
+        else (gzip.open(path, "rt", encoding="utf-8-sig", newline="") if path.endswith(".gz")
+              else open(path, encoding="utf-8-sig", newline=""))
+    with handle:
+        reader = csv.reader(handle, delimiter=sep)
+        width = None
+        for record in reader:
+            if width is None:
+                width = len(record)
+            elif len(record) != width and record:
+                return reader.line_num
+    return None
+
+
+def _read_parquet(path, raw, columns, digest) -> RawTable:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    source = pa.BufferReader(raw) if raw is not None else path
+    try:
+        schema = pq.read_schema(source)
+        if columns:
+            _require_columns(path, schema.names, columns, ",", "")
+        table = pq.read_table(source, columns=columns)
+    except (pa.ArrowInvalid, OSError) as exc:
+        raise InputProblem(f"not a readable Parquet file ({str(exc).splitlines()[0]})",
+                           file=path) from None
+    if table.num_rows == 0:
+        raise InputProblem("no data rows", file=path)
+    frame = table.to_pandas(types_mapper=_arrow_types)
+    return RawTable(frame=frame, source=path, format="parquet", sha256=digest, first_row_number=1)
+
+
+def _read_stat_file(path, raw, fmt, columns, digest) -> RawTable:
+    """Stata, SPSS and SAS files via pyreadstat, keeping declared missing values."""
+    import tempfile
+
+    import pyreadstat
+
+    readers = {"dta": pyreadstat.read_dta, "sav": pyreadstat.read_sav,
+               "sas7bdat": pyreadstat.read_sas7bdat, "xpt": pyreadstat.read_xport}
+    tmp = None
+    if raw is not None:  # pyreadstat reads paths only
+        tmp = tempfile.NamedTemporaryFile(suffix="." + fmt, delete=False)
+        tmp.write(raw)
+        tmp.close()
+    target = tmp.name if tmp else path
+    try:
+        try:
+            _, meta = readers[fmt](target, metadataonly=True)
+        except Exception as exc:  # pyreadstat raises its own types for damaged files
+            raise InputProblem(f"not a readable {fmt} file ({str(exc).splitlines()[0]})",
+                               file=path) from None
+        if columns:
+            _require_columns(path, list(meta.column_names), columns, ",", "")
+        options = {"usecols": columns}
+        if fmt != "xpt":
+            options["user_missing"] = True
+        frame, meta = readers[fmt](target, **options)
+    finally:
+        if tmp:
+            os.unlink(tmp.name)
+    if len(frame) == 0:
+        raise InputProblem("no data rows", file=path)
+    tagged = {}
+    if fmt in ("dta", "sas7bdat"):  # letters .a-.z are the formats' tagged missing values
+        for name in frame.columns:
+            column = frame[name]
+            if not pd.api.types.is_numeric_dtype(column):
+                letters = column.map(lambda v: isinstance(v, str) and len(v) == 1 and v.isalpha())
+                rest = pd.to_numeric(column.where(~letters), errors="coerce")
+                if letters.any() and rest.notna().sum() == column.notna().sum() - letters.sum():
+                    tagged[name] = np.where(letters, "." + column.astype(str), None)
+                    frame[name] = rest
+    ranges = {name: [(float(r["lo"]), float(r["hi"])) for r in spans]
+              for name, spans in (getattr(meta, "missing_ranges", None) or {}).items()}
+    labels = {name: {float(k): str(v) for k, v in mapping.items()
+                     if isinstance(k, (int, float))}
+              for name, mapping in (getattr(meta, "variable_value_labels", None) or {}).items()}
+    return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=1,
+                    declared_ranges=ranges, tagged_missing=tagged, value_labels=labels)

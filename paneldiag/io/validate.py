@@ -1,0 +1,550 @@
+"""Validation: the raw table becomes a Panel, and every row is entered in a ledger.
+
+This is the one place that decides what a row means. Everything downstream trusts
+the Panel it receives. The work is vectorised: ids and waves are factorised and
+values scattered into the units x waves matrix by integer indexing.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from paneldiag.errors import InputProblem
+from paneldiag.io.ledger import Ledger
+from paneldiag.io.readers import RawTable
+from paneldiag.panel import Panel
+
+DUPLICATE_POLICIES = ("error", "first", "last", "mean")
+BAD_VALUE_POLICIES = ("error", "drop")
+
+# Per-cell outcome codes, used while classifying values.
+OBSERVED, MISSING, CODED, NON_NUMERIC, INFINITE = 0, 1, 2, 3, 4
+_CELL_REASON = {MISSING: "missing_value", CODED: "declared_missing_code",
+                NON_NUMERIC: "non_numeric_value", INFINITE: "infinite_value"}
+
+
+@dataclass(frozen=True)
+class MissingCodes:
+    """Values that stand for a reason of missingness (refused, don't know, ...)."""
+
+    values: tuple[float, ...] = ()
+    negative: bool = False
+
+    @classmethod
+    def parse(cls, text: str | None) -> "MissingCodes":
+        """Parse '-9,-8,-1', 'negative', or both ('negative,99')."""
+        if not text:
+            return cls()
+        values, negative = [], False
+        for item in (part.strip() for part in text.split(",")):
+            if not item:
+                continue
+            if item.lower() in ("negative", "<0"):
+                negative = True
+                continue
+            try:
+                values.append(float(item))
+            except ValueError:
+                raise InputProblem(f"--missing-codes: '{item}' is neither a number nor "
+                                   "'negative'") from None
+        return cls(tuple(values), negative)
+
+    def describe(self) -> str:
+        parts = [_number_text(v) for v in self.values] + (["negative"] if self.negative else [])
+        return ",".join(parts)
+
+
+@dataclass(frozen=True)
+class LayoutSpec:
+    """How the file is laid out and what the user asked for."""
+
+    id: str | None = None
+    wave: str | None = None
+    values: tuple[str, ...] = ()
+    wide: tuple[tuple[str, tuple[str, ...]], ...] = ()
+    wave_labels: tuple[str, ...] | None = None
+    wave_times: tuple[float, ...] | None = None
+    wave_order: str = "natural"
+    weight: str | None = None
+    group: str | None = None
+    covariates: tuple[str, ...] = ()
+    missing_codes: MissingCodes = field(default_factory=MissingCodes)
+    duplicates: str = "error"
+    bad_values: str = "error"
+
+    @property
+    def layout(self) -> str:
+        return "wide" if self.wide else "long"
+
+    def columns(self) -> list[str]:
+        """The file columns this layout needs, in a stable order without repeats."""
+        names = [self.id, self.wave, *self.values]
+        for _, cols in self.wide:
+            names.extend(cols)
+        names += [self.weight, self.group, *self.covariates]
+        return list(dict.fromkeys(n for n in names if n))
+
+    def measure_names(self) -> list[str]:
+        return [name for name, _ in self.wide] if self.wide else list(self.values)
+
+
+def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
+    """Check the raw table against the layout and build the Panel and its ledgers."""
+    _check_spec(spec)
+    if spec.layout == "wide":
+        return _build_wide(raw, spec)
+    return _build_long(raw, spec)
+
+
+def _check_spec(spec: LayoutSpec) -> None:
+    if spec.duplicates not in DUPLICATE_POLICIES:
+        raise InputProblem(f"--duplicates must be one of {', '.join(DUPLICATE_POLICIES)}")
+    if spec.layout == "long":
+        if not spec.id or not spec.wave:
+            raise InputProblem("long data needs --id and --wave (or give --wide columns)")
+        if not spec.values:
+            raise InputProblem("name at least one measure with --value")
+    elif spec.values or spec.wave:
+        raise InputProblem("use either --wave/--value (long data) or --wide (wide data), not both")
+    names = spec.measure_names()
+    if len(set(names)) != len(names):
+        raise InputProblem("a measure is named twice")
+
+
+# ----------------------------------------------------------------------------- long
+
+def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
+    frame = raw.frame
+    n_rows = len(frame)
+    id_missing = _missing_mask(frame[spec.id])
+    wave_missing = _missing_mask(frame[spec.wave]) & ~id_missing
+    for mask, column, what in ((id_missing, spec.id, "unit id"),
+                               (wave_missing, spec.wave, "wave")):
+        if mask.any() and spec.bad_values == "error":
+            raise InputProblem(f"missing {what} in {int(mask.sum())} row(s); fix them or pass "
+                               "--drop-bad-rows to drop and count them",
+                               file=raw.source, row=raw.row_number(np.flatnonzero(mask)[0]),
+                               column=column)
+    valid_rows = np.flatnonzero(~id_missing & ~wave_missing)
+    if len(valid_rows) == 0:
+        raise InputProblem("no row has both a unit id and a wave", file=raw.source)
+    unit_index, unit_ids = _factorize_ids(frame[spec.id], valid_rows)
+    wave_index, labels, times = _parse_waves(raw, spec, valid_rows)
+    n_units, n_waves = len(unit_ids), len(labels)
+    _check_extent(raw, n_units, n_waves)
+
+    cell = unit_index * n_waves + wave_index
+    kept, n_duplicate = _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves)
+    rows = valid_rows[kept]
+    structural = {"missing_id": int(id_missing.sum()), "missing_wave": int(wave_missing.sum()),
+                  "duplicate_unit_wave": n_duplicate}
+
+    values, codes, code_labels, ledgers = {}, {}, {}, {}
+    for measure in spec.values:
+        if spec.duplicates == "mean" and n_duplicate:
+            outcome, numbers, code_text = _classify(raw, spec, measure, valid_rows)
+            matrix = _cell_means(outcome, numbers, cell, n_units, n_waves)
+            outcome_kept, code_kept, wave_kept = outcome, code_text, wave_index
+            reasons = dict(structural, duplicate_unit_wave=0)
+        else:
+            outcome_kept, numbers, code_kept = _classify(raw, spec, measure, rows)
+            wave_kept = wave_index[kept]
+            matrix = np.full((n_units, n_waves), np.nan)
+            seen = outcome_kept == OBSERVED
+            matrix[unit_index[kept][seen], wave_kept[seen]] = numbers[seen]
+            reasons = dict(structural)
+        _require_observed(raw, measure, matrix)
+        for code, reason in _CELL_REASON.items():
+            reasons[reason] = int((outcome_kept == code).sum())
+        used = int((outcome_kept == OBSERVED).sum())
+        ledgers[measure] = Ledger(rows_read=n_rows, rows_used=used, dropped_by_reason=reasons,
+                                  units=n_units, waves=n_waves, layout="long")
+        values[measure] = matrix
+        codes[measure] = _code_counts(code_kept, wave_kept, n_waves)
+        code_labels[measure] = _code_label_text(raw, measure, codes[measure])
+
+    unit_rows = unit_index[kept]
+    panel = Panel(
+        unit_ids=unit_ids, wave_labels=labels, wave_times=times, values=values,
+        codes=codes, code_labels=code_labels,
+        weights=_unit_weights(raw, spec, rows, unit_rows, unit_ids),
+        groups=_unit_groups(raw, spec, rows, unit_rows, unit_ids),
+        covariates={c: _scatter(raw, c, rows, unit_rows, wave_index[kept], n_units, n_waves)
+                    for c in spec.covariates},
+    )
+    return panel, ledgers
+
+
+def _missing_mask(column: pd.Series) -> np.ndarray:
+    mask = column.isna().to_numpy(dtype=bool).copy()
+    if not pd.api.types.is_numeric_dtype(column) and not pd.api.types.is_datetime64_any_dtype(column):
+        text = column.astype("string").str.strip()
+        mask |= (text == "").fillna(False).to_numpy(dtype=bool)
+    return mask
+
+
+def _factorize_ids(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    ids = column.iloc[rows] if len(rows) != len(column) else column
+    codes, uniques = pd.factorize(ids, sort=True)
+    uniques = np.asarray(uniques.astype(object) if not isinstance(uniques, np.ndarray) else uniques)
+    if uniques.dtype.kind == "f" and np.all(np.mod(uniques, 1) == 0):
+        uniques = uniques.astype(np.int64)
+    return codes.astype(np.int64), uniques
+
+
+def _check_extent(raw: RawTable, n_units: int, n_waves: int) -> None:
+    if n_waves < 2:
+        raise InputProblem(f"only {n_waves} wave found; a panel needs at least two waves",
+                           file=raw.source)
+    if n_units < 2:
+        raise InputProblem("only one unit found; a panel needs at least two units",
+                           file=raw.source)
+
+
+def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
+    """Wave index per row, ordered labels and numeric times."""
+    column = raw.frame[spec.wave]
+    column = column.iloc[rows] if len(rows) != len(column) else column
+    codes, uniques = pd.factorize(column, sort=False)
+    kind, keys = _wave_kind(raw, spec.wave, column, codes, uniques)
+    if kind == "text" and spec.wave_order == "given":
+        order = np.arange(len(keys))
+    elif kind == "text":
+        order = np.array(sorted(range(len(keys)), key=lambda i: _natural_key(keys[i])))
+    else:
+        order = np.argsort(keys, kind="stable")
+    rank = np.empty(len(order), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    ordered = [keys[i] for i in order]
+    if kind == "number":
+        labels = tuple(_number_text(k) for k in ordered)
+        times = np.array(ordered, dtype=float)
+    elif kind == "date":
+        stamps = pd.DatetimeIndex(ordered)
+        labels = tuple(s.strftime("%Y-%m-%d") if s == s.normalize() else s.isoformat()
+                       for s in stamps)
+        times = _decimal_years(stamps)
+    else:
+        labels = tuple(str(k) for k in ordered)
+        times = np.arange(1, len(ordered) + 1, dtype=float)
+    times = _override_times(spec, times, len(labels))
+    return rank[codes], labels, times
+
+
+def _wave_kind(raw, name, column, codes, uniques):
+    if pd.api.types.is_datetime64_any_dtype(column):
+        return "date", list(pd.DatetimeIndex(uniques))
+    if pd.api.types.is_numeric_dtype(column):
+        keys = np.asarray(uniques, dtype=float)
+        bad = ~np.isfinite(keys)
+        if bad.any():
+            row = np.flatnonzero(codes == np.flatnonzero(bad)[0])[0]
+            raise InputProblem("wave is not a finite number", file=raw.source,
+                               row=raw.row_number(row), column=name)
+        return "number", list(keys)
+    text = [str(u).strip() for u in uniques]
+    numbers = pd.to_numeric(pd.Series(text), errors="coerce")
+    if numbers.notna().all():
+        return "number", list(numbers.astype(float))
+    dates = pd.to_datetime(pd.Series(text), errors="coerce", format="ISO8601")
+    if dates.notna().all():
+        return "date", list(dates)
+    if numbers.notna().any() or dates.notna().any():
+        typed = numbers.notna() | dates.notna()
+        a, b = int(np.flatnonzero(typed)[0]), int(np.flatnonzero(~typed)[0])
+        kinds = "numbers" if numbers.notna().any() else "dates"
+        raise InputProblem(
+            f"wave column mixes {kinds} and text: '{text[a]}' and '{text[b]}'",
+            file=raw.source, row=raw.row_number(np.flatnonzero(codes == b)[0]), column=name)
+    return "text", text
+
+
+def _natural_key(text: str):
+    return [(0, int(part), "") if part.isdigit() else (1, 0, part.lower())
+            for part in re.split(r"(\d+)", text) if part]
+
+
+def _decimal_years(stamps: pd.DatetimeIndex) -> np.ndarray:
+    start = pd.DatetimeIndex([pd.Timestamp(year=s.year, month=1, day=1) for s in stamps])
+    length = np.where(stamps.is_leap_year, 366.0, 365.0)
+    return stamps.year.to_numpy(float) + (stamps - start).days.to_numpy(float) / length
+
+
+def _override_times(spec: LayoutSpec, times: np.ndarray, n_waves: int) -> np.ndarray:
+    if spec.wave_times is None:
+        return times
+    if len(spec.wave_times) != n_waves:
+        raise InputProblem(f"--wave-times gives {len(spec.wave_times)} times for {n_waves} waves")
+    given = np.array(spec.wave_times, dtype=float)
+    if not np.all(np.diff(given) > 0):
+        raise InputProblem("--wave-times must increase from wave to wave")
+    return given
+
+
+def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
+    """Positions (into valid_rows) of the rows kept, and the number of duplicates."""
+    counts = np.bincount(cell, minlength=len(unit_ids) * n_waves)
+    n_duplicate = int(len(cell) - np.count_nonzero(counts))
+    if n_duplicate == 0:
+        return np.arange(len(cell)), 0
+    if spec.duplicates == "error":
+        dup_positions = np.flatnonzero(counts[cell] > 1)
+        first = dup_positions[0]
+        same = dup_positions[cell[dup_positions] == cell[first]][:2]
+        lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
+        unit, wave = unit_ids[cell[first] // n_waves], labels[cell[first] % n_waves]
+        n_cells = int(np.count_nonzero(counts > 1))
+        raise InputProblem(
+            f"{n_cells} unit-wave pair(s) appear more than once, first unit {unit} at wave "
+            f"{wave} (rows {lines}); choose --duplicates first, last or mean",
+            file=raw.source, row=raw.row_number(valid_rows[first]), column=spec.id)
+    if spec.duplicates == "mean":
+        return np.arange(len(cell)), n_duplicate
+    order = np.argsort(cell, kind="stable")
+    sorted_cells = cell[order]
+    if spec.duplicates == "first":
+        boundary = np.r_[True, sorted_cells[1:] != sorted_cells[:-1]]
+    else:
+        boundary = np.r_[sorted_cells[1:] != sorted_cells[:-1], True]
+    return np.sort(order[boundary]), n_duplicate
+
+
+def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
+    """Outcome per row, the numeric value, and the declared code text (or None)."""
+    series = raw.frame[column]
+    series = series.iloc[rows] if len(rows) != len(series) else series
+    n = len(series)
+    outcome = np.full(n, OBSERVED, dtype=np.int8)
+    if pd.api.types.is_numeric_dtype(series) and not pd.api.types.is_bool_dtype(series):
+        numbers = series.to_numpy(dtype=float, na_value=np.nan)
+    else:
+        numbers = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        text_bad = series.notna().to_numpy(dtype=bool) & np.isnan(numbers)
+        if column in raw.tagged_missing:
+            text_bad &= pd.isna(raw.tagged_missing[column][rows])
+        outcome[text_bad] = NON_NUMERIC
+        _refuse(raw, spec, column, rows, text_bad, "non-numeric value",
+                lambda i: f" '{series.iloc[i]}'")
+    infinite = np.isinf(numbers)
+    outcome[infinite] = INFINITE
+    _refuse(raw, spec, column, rows, infinite, "infinite value", lambda i: "")
+    code_text = np.full(n, None, dtype=object)
+    coded = np.zeros(n, dtype=bool)
+    finite = np.isfinite(numbers)
+    declared = np.zeros(n, dtype=bool)
+    for lo, hi in raw.declared_ranges.get(column, []):
+        declared |= finite & (numbers >= lo) & (numbers <= hi)
+    if spec.missing_codes.values:
+        declared |= np.isin(numbers, spec.missing_codes.values)
+    if spec.missing_codes.negative:
+        declared |= finite & (numbers < 0)
+    if declared.any():
+        code_text[declared] = [_number_text(v) for v in numbers[declared]]
+        coded |= declared
+    if column in raw.tagged_missing:
+        tags = raw.tagged_missing[column][rows]
+        has_tag = ~pd.isna(tags)
+        code_text[has_tag] = tags[has_tag]
+        coded |= has_tag
+    outcome[coded] = CODED
+    outcome[(outcome == OBSERVED) & np.isnan(numbers)] = MISSING
+    return outcome, numbers, code_text
+
+
+def _refuse(raw, spec, column, rows, mask, what, detail) -> None:
+    if mask.any() and spec.bad_values == "error":
+        i = int(np.flatnonzero(mask)[0])
+        raise InputProblem(
+            f"{what}{detail(i)} in {int(mask.sum())} cell(s) of '{column}'; fix them or pass "
+            "--drop-bad-rows to drop and count them",
+            file=raw.source, row=raw.row_number(rows[i]), column=column)
+
+
+def _cell_means(outcome, numbers, cell, n_units, n_waves) -> np.ndarray:
+    seen = outcome == OBSERVED
+    size = n_units * n_waves
+    totals = np.bincount(cell[seen], weights=numbers[seen], minlength=size)
+    counts = np.bincount(cell[seen], minlength=size)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (totals / counts).reshape(n_units, n_waves)
+
+
+def _require_observed(raw, measure, matrix) -> None:
+    if not np.isfinite(matrix).any():
+        raise InputProblem(f"measure '{measure}' has no observed value", file=raw.source,
+                           column=measure)
+
+
+def _code_counts(code_text: np.ndarray, wave_index: np.ndarray, n_waves: int) -> dict:
+    present = ~pd.isna(code_text)
+    if not present.any():
+        return {}
+    codes, uniques = pd.factorize(pd.Series(code_text[present]), sort=True)
+    waves = wave_index[present]
+    counts = {}
+    for k, code in enumerate(uniques):
+        counts[str(code)] = np.bincount(waves[codes == k], minlength=n_waves)
+    return counts
+
+
+def _code_label_text(raw: RawTable, column: str, counts: dict) -> dict[str, str]:
+    labels = raw.value_labels.get(column, {})
+    by_text = {_number_text(k): v for k, v in labels.items()}
+    return {code: by_text[code] for code in counts if code in by_text}
+
+
+def _unit_weights(raw, spec, rows, unit_rows, unit_ids):
+    if not spec.weight:
+        return None
+    values = _unit_constant(raw, spec.weight, rows, unit_rows, unit_ids, numeric=True)
+    bad = ~np.isfinite(values) | (values < 0)
+    if bad.any():
+        unit = unit_ids[np.flatnonzero(bad)[0]]
+        raise InputProblem(f"weight is missing, negative or infinite for {int(bad.sum())} "
+                           f"unit(s), first unit {unit}", file=raw.source, column=spec.weight)
+    return values
+
+
+def _unit_groups(raw, spec, rows, unit_rows, unit_ids):
+    if not spec.group:
+        return None
+    return _unit_constant(raw, spec.group, rows, unit_rows, unit_ids, numeric=False)
+
+
+def _unit_constant(raw, column, rows, unit_rows, unit_ids, numeric):
+    """One value per unit from a column that must not vary within a unit."""
+    series = raw.frame[column].iloc[rows].reset_index(drop=True)
+    if numeric:
+        series = pd.to_numeric(series, errors="coerce")
+    else:
+        series = series.astype("string")
+    grouped = pd.DataFrame({"unit": unit_rows, "value": series}).groupby("unit")["value"]
+    first, distinct = grouped.first(), grouped.nunique()
+    if (distinct > 1).any():
+        unit_pos = int(distinct.index[np.flatnonzero(distinct.to_numpy() > 1)[0]])
+        row = rows[np.flatnonzero(unit_rows == unit_pos)[0]]
+        raise InputProblem(f"'{column}' varies within unit {unit_ids[unit_pos]}; it must be "
+                           "constant for a unit", file=raw.source, row=raw.row_number(row),
+                           column=column)
+    out = first.reindex(range(len(unit_ids)))
+    if numeric:
+        return out.to_numpy(dtype=float, na_value=np.nan)
+    return out.fillna("(none)").to_numpy(dtype=object).astype(str)
+
+
+def _scatter(raw, column, rows, unit_rows, wave_rows, n_units, n_waves):
+    numbers = pd.to_numeric(raw.frame[column].iloc[rows], errors="coerce").to_numpy(
+        dtype=float, na_value=np.nan)
+    matrix = np.full((n_units, n_waves), np.nan)
+    matrix[unit_rows, wave_rows] = numbers
+    return matrix
+
+
+# ----------------------------------------------------------------------------- wide
+
+def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
+    frame = raw.frame
+    n_rows = len(frame)
+    widths = {len(cols) for _, cols in spec.wide}
+    if len(widths) != 1:
+        raise InputProblem("every --wide measure must list the same number of wave columns")
+    n_waves = widths.pop()
+    all_rows = np.arange(n_rows)
+    if spec.id:
+        id_missing = _missing_mask(frame[spec.id])
+        if id_missing.any() and spec.bad_values == "error":
+            raise InputProblem("missing unit id; fix it or pass --drop-bad-rows",
+                               file=raw.source, row=raw.row_number(np.flatnonzero(id_missing)[0]),
+                               column=spec.id)
+        rows = np.flatnonzero(~id_missing)
+        unit_index, unit_ids = _factorize_ids(frame[spec.id], rows)
+    else:
+        id_missing = np.zeros(n_rows, dtype=bool)
+        rows, unit_index = all_rows, all_rows.copy()
+        unit_ids = np.arange(1, n_rows + 1)
+    labels, times = _wide_waves(spec, spec.wide[0][1])
+    _check_extent(raw, len(unit_ids), n_waves)
+    kept, n_duplicate = _resolve_duplicates(raw, spec, unit_index, rows, unit_ids, ("",), 1)
+    if spec.duplicates == "mean" and n_duplicate:
+        raise InputProblem("--duplicates mean is for long data; choose first or last for "
+                           "repeated ids in wide data", column=spec.id)
+    rows, unit_rows = rows[kept], unit_index[kept]
+    n_units = len(unit_ids)
+    structural = {"missing_id": int(id_missing.sum()), "duplicate_unit_wave": n_duplicate}
+    values, codes, code_labels, ledgers = {}, {}, {}, {}
+    for measure, columns in spec.wide:
+        matrix = np.full((n_units, n_waves), np.nan)
+        cells = {reason: 0 for reason in _CELL_REASON.values()}
+        cells["observed"] = 0
+        code_counts: dict[str, np.ndarray] = {}
+        any_observed = np.zeros(len(rows), dtype=bool)
+        for t, column in enumerate(columns):
+            outcome, numbers, code_text = _classify(raw, spec, column, rows)
+            seen = outcome == OBSERVED
+            matrix[unit_rows[seen], t] = numbers[seen]
+            any_observed |= seen
+            cells["observed"] += int(seen.sum())
+            for code, reason in _CELL_REASON.items():
+                cells[reason] += int((outcome == code).sum())
+            for code, count in _code_counts(code_text, np.zeros(len(rows), int), 1).items():
+                code_counts.setdefault(code, np.zeros(n_waves, dtype=np.int64))[t] += count[0]
+        _require_observed(raw, measure, matrix)
+        reasons = dict(structural, no_observed_value=int((~any_observed).sum()))
+        ledgers[measure] = Ledger(rows_read=n_rows, rows_used=int(any_observed.sum()),
+                                  dropped_by_reason=reasons, units=n_units, waves=n_waves,
+                                  layout="wide", cells=cells)
+        values[measure] = matrix
+        codes[measure] = dict(sorted(code_counts.items()))
+        label_source = {k: v for c in columns for k, v in raw.value_labels.get(c, {}).items()}
+        code_labels[measure] = {code: label_source[float(code)] for code in code_counts
+                                if _is_number(code) and float(code) in label_source}
+    waves_of_rows = np.zeros(len(rows), dtype=np.int64)
+    panel = Panel(
+        unit_ids=unit_ids, wave_labels=labels, wave_times=times, values=values,
+        codes=codes, code_labels=code_labels,
+        weights=_unit_weights(raw, spec, rows, unit_rows, unit_ids),
+        groups=_unit_groups(raw, spec, rows, unit_rows, unit_ids),
+        covariates={c: np.repeat(_scatter(raw, c, rows, unit_rows, waves_of_rows, n_units, 1),
+                                 n_waves, axis=1) for c in spec.covariates},
+    )
+    return panel, ledgers
+
+
+def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
+    """Labels from --wave-labels, else trailing numbers of the column names, else 1..T."""
+    n_waves = len(columns)
+    if spec.wave_labels:
+        if len(spec.wave_labels) != n_waves:
+            raise InputProblem(f"--wave-labels gives {len(spec.wave_labels)} labels for "
+                               f"{n_waves} wave columns")
+        labels = tuple(spec.wave_labels)
+    else:
+        tails = [re.search(r"(\d+)$", c) for c in columns]
+        numbers = [int(m.group(1)) for m in tails if m]
+        if len(numbers) == n_waves and all(np.diff(numbers) > 0):
+            labels = tuple(str(n) for n in numbers)
+        else:
+            labels = tuple(str(t) for t in range(1, n_waves + 1))
+    numeric = pd.to_numeric(pd.Series(labels), errors="coerce")
+    if numeric.notna().all() and np.all(np.diff(numeric.to_numpy()) > 0):
+        times = numeric.to_numpy(dtype=float)
+    else:
+        times = np.arange(1, n_waves + 1, dtype=float)
+    return labels, _override_times(spec, times, n_waves)
+
+
+def _number_text(value: float) -> str:
+    value = float(value)
+    return str(int(value)) if value.is_integer() else repr(value)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+        return True
+    except ValueError:
+        return False

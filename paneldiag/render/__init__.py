@@ -1,0 +1,1 @@
+"""Renderers: the report dictionary as terminal text, JSON and appendix files."""

@@ -1,0 +1,76 @@
+"""The terminal summary: short sections of text and small tables."""
+
+from __future__ import annotations
+
+from typing import Callable
+
+from tabulate import tabulate
+
+
+def heading(title: str, color: bool) -> str:
+    text = f"▸ {title}"
+    return f"\033[1m{text}\033[0m" if color else text
+
+
+def number(value, digits: int = 3) -> str:
+    if value is None:
+        return "–"
+    if isinstance(value, int):
+        return f"{value:,}"
+    return f"{value:.{digits}g}" if abs(value) >= 1e4 else f"{value:.{digits}f}"
+
+
+def share(value) -> str:
+    return "–" if value is None else f"{100 * value:.1f}%"
+
+
+def table(rows: list[list], headers: list[str]) -> str:
+    return tabulate(rows, headers=headers, tablefmt="plain", disable_numparse=True,
+                    stralign="right")
+
+
+def _intake(report: dict, color: bool) -> list[str]:
+    ledger, panel = report["ledger"], report["panel"]
+    dropped = ", ".join(f"{reason.replace('_', ' ')} {count:,}"
+                        for reason, count in ledger["dropped_by_reason"].items()) or "none"
+    return [heading(f"Intake · {report['measure']}", color),
+            f"  {panel['n_units']:,} units × {panel['n_waves']} waves "
+            f"({', '.join(panel['waves'])})",
+            f"  rows read {ledger['rows_read']:,}; used {ledger['rows_used']:,}; "
+            f"set aside {ledger['rows_dropped']:,} ({dropped})"]
+
+
+def _wave_profile(report: dict, color: bool) -> list[str]:
+    rows = [[r["wave"], number(r["n"]), number(r["mean"]), number(r["sd"]), number(r["min"]),
+             number(r["max"]), number(r["skewness"], 2), share(r["floor_share"]),
+             share(r["ceiling_share"]), number(r["distinct"])]
+            for r in report["wave_profile"]]
+    headers = ["wave", "n", "mean", "sd", "min", "max", "skew", "at floor", "at ceiling",
+               "distinct"]
+    body = table(rows, headers)
+    return [heading("Wave profile", color)] + ["  " + line for line in body.splitlines()]
+
+
+SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
+    ("ledger", _intake),
+    ("wave_profile", _wave_profile),
+]
+
+
+def render_measure(report: dict, color: bool = False) -> str:
+    blocks = []
+    for key, render in SECTION_RENDERERS:
+        if key in report:
+            blocks.append("\n".join(render(report, color)))
+    notes = [heading("Cautions", color)] + [f"  · {c}" for c in report.get("cautions", [])]
+    blocks.append("\n".join(notes))
+    return "\n\n".join(blocks)
+
+
+def render_terminal(report: dict, color: bool = False) -> str:
+    """The whole screen as text: one block per measure."""
+    measures = report.get("measures", {report.get("measure"): report})
+    header = (f"paneldiag {report['tool']['version']} · {report['input']['path']}"
+              f" · sha256 {report['input']['sha256'][:12]}…")
+    parts = [header] + [render_measure(r, color) for r in measures.values()]
+    return "\n\n".join(parts) + "\n"

@@ -1,0 +1,102 @@
+"""The screen: for each measure, summaries in one pass, then every diagnostic section.
+
+A section is a function of a ``MeasureContext`` returning a result object (or None
+when it does not apply). ``SECTIONS`` lists them in report order; a new diagnostic
+area adds its summary kinds to ``SUMMARY_KINDS`` and its section here.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Callable
+
+from paneldiag import SCHEMA_VERSION, __version__
+from paneldiag.diagnostics.profile import wave_profile
+from paneldiag.io.ledger import Ledger
+from paneldiag.panel import Panel
+from paneldiag.results import plain
+from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
+from paneldiag.summaries.moments import WaveMoments
+
+CAUTION_SCREENING = (
+    "Screening evidence is not proof of a model: it shows which process families the data "
+    "can support; candidate models must still be fitted and compared.")
+
+
+@dataclass(frozen=True)
+class ScreenOptions:
+    min_cell: int = 5              # smallest count ever shown (disclosure control)
+    n_replicates: int = N_REPLICATES
+    chunk_units: int = CHUNK_UNITS
+
+
+@dataclass
+class MeasureContext:
+    """What a section sees: the panel, the measure, the options and the summaries."""
+
+    panel: Panel
+    measure: str
+    options: ScreenOptions
+    ledger: Ledger
+    results: dict = field(default_factory=dict)  # earlier sections' results, by key
+
+    @cached_property
+    def summaries(self) -> dict:
+        return summarise(self.panel, self.measure, list(SUMMARY_KINDS),
+                         chunk_units=self.options.chunk_units,
+                         n_replicates=self.options.n_replicates)
+
+    def summary(self, kind: type):
+        return self.summaries[kind]
+
+    @property
+    def values(self):
+        return self.panel.values[self.measure]
+
+
+def _panel_section(ctx: MeasureContext) -> dict:
+    return {"n_units": ctx.panel.n_units, "n_waves": ctx.panel.n_waves,
+            "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
+
+
+SUMMARY_KINDS: list[type] = [WaveMoments]
+SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
+    ("panel", _panel_section),
+    ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
+]
+
+
+def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
+                   options: ScreenOptions) -> dict:
+    """The JSON-ready report for one measure."""
+    ctx = MeasureContext(panel=panel, measure=measure, options=options, ledger=ledger)
+    report = {"schema_version": SCHEMA_VERSION,
+              "tool": {"name": "paneldiag", "version": __version__},
+              "input": input_info, "measure": measure, "ledger": ledger.to_dict()}
+    for key, section in SECTIONS:
+        result = section(ctx)
+        ctx.results[key] = result
+        if result is not None:
+            report[key] = plain(result)
+    report["cautions"] = cautions(options)
+    return report
+
+
+def cautions(options: ScreenOptions) -> list[str]:
+    return [CAUTION_SCREENING,
+            f"Disclosure control: any count below {options.min_cell} units is suppressed and "
+            "never shown on its own."]
+
+
+def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
+           options: ScreenOptions | None = None) -> dict:
+    """The whole report: the measure's report itself, or ``measures {name: report}``."""
+    options = options or ScreenOptions()
+    reports = {m: screen_measure(panel, m, ledgers[m], input_info, options)
+               for m in panel.measures}
+    if len(reports) == 1:
+        return next(iter(reports.values()))
+    return {"schema_version": SCHEMA_VERSION,
+            "tool": {"name": "paneldiag", "version": __version__},
+            "input": input_info, "measures": reports}

@@ -1,0 +1,56 @@
+"""One pass over units, producing summaries that add up across chunks of units.
+
+A summary kind is a class with ``from_chunk(chunk)`` and ``merge(other)``. Because
+every kind merges, the same code serves one chunk, many chunks of a file larger than
+memory, or partitions summarised by separate workers and merged by a driver. Each
+unit also belongs to one of ``n_replicates`` replicate groups fixed by a hash of its
+id, so kinds can keep per-group copies for delete-a-group jackknife errors.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from paneldiag.panel import Panel
+
+CHUNK_UNITS = 1 << 18
+N_REPLICATES = 20
+
+
+@dataclass(frozen=True)
+class Chunk:
+    """A block of consecutive units of one measure."""
+
+    values: np.ndarray          # (n, T), NaN = missing
+    weights: np.ndarray | None  # (n,) or None
+    replicate: np.ndarray       # (n,) replicate group 0..K-1
+    times: np.ndarray           # (T,) wave times
+    n_replicates: int
+
+
+def replicate_groups(unit_ids: np.ndarray, n_replicates: int = N_REPLICATES) -> np.ndarray:
+    """Replicate group of each unit from a fixed-key hash of its id (deterministic)."""
+    text = pd.Series(unit_ids).astype(str).to_numpy(dtype=object)
+    hashed = pd.util.hash_array(text, categorize=False)
+    return (hashed % np.uint64(n_replicates)).astype(np.int64)
+
+
+def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = CHUNK_UNITS,
+              n_replicates: int = N_REPLICATES) -> dict[type, object]:
+    """Build every summary kind in one pass over chunks of units."""
+    values = panel.values[measure]
+    groups = replicate_groups(panel.unit_ids, n_replicates)
+    merged: dict[type, object] = {}
+    for start in range(0, panel.n_units, chunk_units):
+        stop = min(start + chunk_units, panel.n_units)
+        chunk = Chunk(values=values[start:stop],
+                      weights=None if panel.weights is None else panel.weights[start:stop],
+                      replicate=groups[start:stop], times=panel.wave_times,
+                      n_replicates=n_replicates)
+        for kind in kinds:
+            part = kind.from_chunk(chunk)
+            merged[kind] = part if kind not in merged else merged[kind].merge(part)
+    return merged

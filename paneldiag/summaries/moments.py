@@ -1,0 +1,89 @@
+"""Per-wave moments that merge exactly across chunks of units."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class WaveMoments:
+    """Count, mean, centred second and third power sums, extremes and distinct values
+    per wave; weighted sums alongside when the panel has weights.
+
+    Chunks combine with the pairwise update of Chan, Golub and LeVeque (1983,
+    The American Statistician) extended to the third moment by Pebay (2008, Sandia
+    report SAND2008-6212), so no sum of squares is ever formed around zero.
+    """
+
+    n: np.ndarray
+    mean: np.ndarray
+    m2: np.ndarray
+    m3: np.ndarray
+    minimum: np.ndarray
+    maximum: np.ndarray
+    n_at_min: np.ndarray
+    n_at_max: np.ndarray
+    distinct: tuple[np.ndarray, ...]
+    weight_sum: np.ndarray | None = None
+    weighted_mean: np.ndarray | None = None
+    weighted_m2: np.ndarray | None = None
+
+    @classmethod
+    def from_chunk(cls, chunk) -> "WaveMoments":
+        x = chunk.values
+        seen = ~np.isnan(x)
+        n = seen.sum(axis=0).astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.nansum(x, axis=0) / n
+            d = np.where(seen, x - mean, 0.0)
+            m2, m3 = (d * d).sum(axis=0), (d * d * d).sum(axis=0)
+        filled_lo = np.where(seen, x, np.inf)
+        filled_hi = np.where(seen, x, -np.inf)
+        lo, hi = filled_lo.min(axis=0), filled_hi.max(axis=0)
+        n_lo = (filled_lo == lo).sum(axis=0)
+        n_hi = (filled_hi == hi).sum(axis=0)
+        distinct = tuple(np.unique(x[seen[:, t], t]) for t in range(x.shape[1]))
+        extra = {}
+        if chunk.weights is not None:
+            w = np.where(seen, chunk.weights[:, None], 0.0)
+            wsum = w.sum(axis=0)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                wmean = (w * np.where(seen, x, 0.0)).sum(axis=0) / wsum
+                wd = np.where(seen, x - wmean, 0.0)
+            extra = dict(weight_sum=wsum, weighted_mean=wmean,
+                         weighted_m2=(w * wd * wd).sum(axis=0))
+        return cls(n, mean, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+
+    def merge(self, other: "WaveMoments") -> "WaveMoments":
+        mean, m2, m3 = _combine(self.n, self.mean, self.m2, self.m3,
+                                other.n, other.mean, other.m2, other.m3)
+        lo, hi = np.minimum(self.minimum, other.minimum), np.maximum(self.maximum, other.maximum)
+        n_lo = np.where(self.minimum == lo, self.n_at_min, 0) + \
+            np.where(other.minimum == lo, other.n_at_min, 0)
+        n_hi = np.where(self.maximum == hi, self.n_at_max, 0) + \
+            np.where(other.maximum == hi, other.n_at_max, 0)
+        distinct = tuple(np.union1d(a, b) for a, b in zip(self.distinct, other.distinct))
+        extra = {}
+        if self.weight_sum is not None:
+            wmean, wm2, _ = _combine(self.weight_sum, self.weighted_mean, self.weighted_m2,
+                                     np.zeros_like(self.n), other.weight_sum,
+                                     other.weighted_mean, other.weighted_m2,
+                                     np.zeros_like(other.n))
+            extra = dict(weight_sum=self.weight_sum + other.weight_sum,
+                         weighted_mean=wmean, weighted_m2=wm2)
+        return WaveMoments(self.n + other.n, mean, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+
+
+def _combine(na, mean_a, m2a, m3a, nb, mean_b, m2b, m3b):
+    """Pebay (2008) pairwise update of mean, M2 and M3; empty sides pass through."""
+    n = na + nb
+    with np.errstate(invalid="ignore", divide="ignore"):
+        delta = np.where(nb > 0, mean_b, 0.0) - np.where(na > 0, mean_a, 0.0)
+        delta = np.where((na > 0) & (nb > 0), delta, 0.0)
+        mean = np.where(na > 0, np.where(nb > 0, mean_a + delta * nb / n, mean_a), mean_b)
+        m2 = m2a + m2b + delta ** 2 * na * nb / np.where(n > 0, n, 1)
+        m3 = (m3a + m3b + delta ** 3 * na * nb * (na - nb) / np.where(n > 0, n * n, 1)
+              + 3.0 * delta * (na * m2b - nb * m2a) / np.where(n > 0, n, 1))
+    return mean, m2, m3
