@@ -18,6 +18,7 @@ from paneldiag.panel import Panel
 from paneldiag.results import plain
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.moments import WaveMoments
+from paneldiag.summaries.pairwise import PairwiseMoments
 
 CAUTION_SCREENING = (
     "Screening evidence is not proof of a model: it shows which process families the data "
@@ -60,7 +61,7 @@ def _panel_section(ctx: MeasureContext) -> dict:
             "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
 
 
-SUMMARY_KINDS: list[type] = [WaveMoments]
+SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments]
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
