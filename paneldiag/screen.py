@@ -7,11 +7,13 @@ area adds its summary kinds to ``SUMMARY_KINDS`` and its section here.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import Callable
 
 from paneldiag import SCHEMA_VERSION, __version__
+from paneldiag.diagnostics.crosslag import cross_lag_screen
+from paneldiag.diagnostics.groups import group_screen
 from paneldiag.diagnostics.profile import wave_profile
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
@@ -30,6 +32,8 @@ class ScreenOptions:
     min_cell: int = 5              # smallest count ever shown (disclosure control)
     n_replicates: int = N_REPLICATES
     chunk_units: int = CHUNK_UNITS
+    group_column: str | None = None  # name of the grouping column, for by-group screens
+    by_group: bool = True            # screen each group too when the panel has groups
 
 
 @dataclass
@@ -75,13 +79,29 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     report = {"schema_version": SCHEMA_VERSION,
               "tool": {"name": "paneldiag", "version": __version__},
               "input": input_info, "measure": measure, "ledger": ledger.to_dict()}
+    report.update(run_sections(ctx))
+    if options.by_group and panel.groups is not None:
+        report["groups"] = plain(group_screen(ctx, lambda sub: _run_group(ctx, sub)))
+    report["cautions"] = cautions(options)
+    return report
+
+
+def run_sections(ctx: MeasureContext) -> dict:
+    """Every section of ``SECTIONS`` on one context, as JSON-ready values by key."""
+    out = {}
     for key, section in SECTIONS:
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:
-            report[key] = plain(result)
-    report["cautions"] = cautions(options)
-    return report
+            out[key] = plain(result)
+    return out
+
+
+def _run_group(ctx: MeasureContext, sub: Panel) -> tuple[dict, dict]:
+    """The same sections on a group's units: (sections, summaries)."""
+    sub_ctx = MeasureContext(panel=sub, measure=ctx.measure, ledger=ctx.ledger,
+                             options=replace(ctx.options, by_group=False))
+    return run_sections(sub_ctx), sub_ctx.summaries
 
 
 def cautions(options: ScreenOptions) -> list[str]:
@@ -100,4 +120,6 @@ def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
         return next(iter(reports.values()))
     return {"schema_version": SCHEMA_VERSION,
             "tool": {"name": "paneldiag", "version": __version__},
-            "input": input_info, "measures": reports}
+            "input": input_info, "measures": reports,
+            "cross_lag": plain(cross_lag_screen(panel, options.min_cell, options.n_replicates,
+                                                options.chunk_units))}

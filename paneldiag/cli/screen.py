@@ -100,7 +100,8 @@ def command(data, id_column, wave_column, values, wide, wave_labels, wave_times,
     progress.stage("screening")
     input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
                   "options": _options_record(spec, fmt, delimiter, min_cell)}
-    report = screen(panel, ledgers, input_info, ScreenOptions(min_cell=min_cell))
+    report = screen(panel, ledgers, input_info,
+                    ScreenOptions(min_cell=min_cell, group_column=group))
     progress.done()
     if json_path:
         write_atomic(json_path, report_json(report))
