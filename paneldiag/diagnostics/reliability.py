@@ -1,0 +1,382 @@
+"""Measurement reliability: quasi-simplex estimates from three waves, and internal
+consistency of a scale's items at each wave.
+
+For every triplet of waves s < t < u the quasi-simplex (a first-order autoregression
+of true scores, each observed with independent error) identifies the reliability and
+the stabilities from the three covariances alone. Heise's version works from the
+correlations and assumes one reliability for all waves; Wiley and Wiley's works
+from the covariances and assumes one error variance for all waves, so reliabilities
+may differ by wave. Each triplet's values are computed exactly as the formulas give
+them: a value above 1 or below 0 is kept and marked with the reason, never clipped.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from itertools import combinations
+
+import numpy as np
+from scipy import optimize, stats
+
+from paneldiag.results import Result
+from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
+
+BASIS_PAIRWISE = "pairwise_complete"
+BASIS_EM = "em_missing_at_random"
+
+
+# ----------------------------------------------------------------------------- formulas
+
+def triplets(n_waves: int) -> np.ndarray:
+    """All (s, t, u) with s < t < u, as an (m, 3) integer array in lexicographic order."""
+    return np.array(list(combinations(range(n_waves), 3)), dtype=np.int64).reshape(-1, 3)
+
+
+def heise_values(corr: np.ndarray, trip: np.ndarray) -> dict[str, np.ndarray]:
+    """Heise (1969) reliability and stabilities for each triplet, from correlations.
+
+    reliability = r_st r_tu / r_su; stability s->t = r_su / r_tu; t->u = r_su / r_st;
+    s->u = r_su^2 / (r_st r_tu).
+    """
+    s, t, u = trip.T
+    r_st, r_tu, r_su = corr[s, t], corr[t, u], corr[s, u]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return {"reliability": r_st * r_tu / r_su,
+                "stability_first": r_su / r_tu,
+                "stability_second": r_su / r_st,
+                "stability_outer": r_su ** 2 / (r_st * r_tu),
+                "r_st": r_st, "r_tu": r_tu, "r_su": r_su}
+
+
+def wiley_wiley_values(cov: np.ndarray, trip: np.ndarray) -> dict[str, np.ndarray]:
+    """Wiley and Wiley (1970) estimates with one error variance for the three waves.
+
+    true variance at t: V_t = c_st c_tu / c_su; error variance theta = c_tt - V_t;
+    V_s = c_ss - theta, V_u = c_uu - theta; reliability of wave w: V_w / c_ww;
+    stabilities (true-score correlations) c_st / sqrt(V_s V_t), c_tu / sqrt(V_t V_u).
+    """
+    s, t, u = trip.T
+    c_st, c_tu, c_su = cov[s, t], cov[t, u], cov[s, u]
+    c_ss, c_tt, c_uu = cov[s, s], cov[t, t], cov[u, u]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        v_t = c_st * c_tu / c_su
+        theta = c_tt - v_t
+        v_s, v_u = c_ss - theta, c_uu - theta
+        return {"error_variance": theta,
+                "true_variance": np.stack([v_s, v_t, v_u], axis=1),
+                "reliability": np.stack([v_s / c_ss, v_t / c_tt, v_u / c_uu], axis=1),
+                "stability_first": c_st / np.sqrt(v_s * v_t),
+                "stability_second": c_tu / np.sqrt(v_t * v_u)}
+
+
+def _heise_problems(v: dict, i: int) -> list[str]:
+    r_st, r_tu, r_su = v["r_st"][i], v["r_tu"][i], v["r_su"][i]
+    if not np.all(np.isfinite([r_st, r_tu, r_su])):
+        return ["undefined: a correlation of the triplet cannot be computed"]
+    if r_su <= 0:
+        return ["undefined: the outer waves do not correlate positively (r_su <= 0), "
+                "which the quasi-simplex cannot produce"]
+    out = []
+    rel = v["reliability"][i]
+    if rel > 1:
+        out.append("reliability above 1: r_st * r_tu exceeds r_su, the outer waves correlate "
+                   "more weakly than a quasi-simplex allows")
+    if rel < 0:
+        out.append("reliability negative: an adjacent correlation is negative")
+    for key, text in (("stability_first", "first stability above 1: r_su exceeds r_tu"),
+                      ("stability_second", "second stability above 1: r_su exceeds r_st"),
+                      ("stability_outer", "outer stability above 1: r_su^2 exceeds r_st * r_tu")):
+        if v[key][i] > 1:
+            out.append(text)
+    return out
+
+
+def _wiley_problems(v: dict, i: int) -> list[str]:
+    if not np.all(np.isfinite(v["true_variance"][i])):
+        return ["undefined: a covariance of the triplet is missing or the outer covariance is 0"]
+    out = []
+    if v["error_variance"][i] < 0:
+        out.append("error variance negative: the middle wave's true variance c_st*c_tu/c_su "
+                   "exceeds its observed variance")
+    for name, value in zip(("first", "middle", "last"), v["true_variance"][i]):
+        if value < 0:
+            out.append(f"true variance of the {name} wave negative: the common error "
+                       "variance exceeds that wave's observed variance")
+    if np.any(v["reliability"][i] > 1):
+        out.append("a reliability above 1 (follows from a negative error variance)")
+    for key, text in (("stability_first", "first stability"),
+                      ("stability_second", "second stability")):
+        value = v[key][i]
+        if np.isfinite(value) and abs(value) > 1:
+            out.append(f"{text} beyond +-1: the true-score covariance exceeds what the "
+                       "true variances allow")
+    return out
+
+
+# ----------------------------------------------------------------------------- results
+
+@dataclass(frozen=True)
+class HeiseRow(Result):
+    waves: tuple[str, str, str]
+    reliability: float
+    reliability_se: float
+    stability_first: float
+    stability_second: float
+    stability_outer: float
+    impossible: bool
+    problems: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class WileyWileyRow(Result):
+    waves: tuple[str, str, str]
+    error_variance: float
+    error_variance_se: float
+    true_variance: tuple[float, float, float]
+    reliability: tuple[float, float, float]
+    reliability_se: tuple[float, float, float]
+    stability_first: float
+    stability_second: float
+    impossible: bool
+    problems: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ReliabilitySummary(Result):
+    estimate: float
+    ci_low: float
+    ci_high: float
+    se: float
+    method: str
+    n_triplets: int
+    n_impossible: int
+
+
+@dataclass(frozen=True)
+class ReliabilityScreen(Result):
+    """Quasi-simplex reliability of the measure: one row per triplet of waves."""
+
+    basis: str
+    n_replicates: int
+    heise: tuple[HeiseRow, ...]
+    wiley_wiley: tuple[WileyWileyRow, ...]
+    summary: ReliabilitySummary
+    internal_consistency: "InternalConsistency | None" = None
+
+    def to_dict(self) -> dict:
+        out = super().to_dict()
+        if self.internal_consistency is None:
+            del out["internal_consistency"]
+        return out
+
+
+def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
+                              basis: str = BASIS_PAIRWISE, level: float = 0.95
+                              ) -> ReliabilityScreen | None:
+    """Heise and Wiley-Wiley reliabilities for every triplet of waves, with a summary.
+
+    ``moments`` provides ``correlation()``, ``covariance()`` and ``leave_one_out()``
+    (each replicate group left out in turn), e.g. ``PairwiseMoments``. The summary is
+    the median of the Heise reliabilities over all triplets, impossible values
+    included as they are, with a delete-a-group jackknife confidence interval over the
+    replicate groups (t quantile with K - 1 degrees of freedom). Returns None with
+    fewer than three waves.
+
+    References
+    ----------
+    Heise, D. R. (1969). Separating reliability and stability in test-retest
+    correlation. American Sociological Review, 34(1), 93-101.
+    Wiley, D. E., and Wiley, J. A. (1970). The estimation of measurement error in
+    panel data. American Sociological Review, 35(1), 112-117.
+    Kott, P. S. (2001). The delete-a-group jackknife. Journal of Official
+    Statistics, 17(4), 521-526.
+    """
+    n_waves = len(wave_labels)
+    if n_waves < 3:
+        return None
+    trip = triplets(n_waves)
+    corr, cov = moments.correlation(), moments.covariance()
+    h, w = heise_values(corr, trip), wiley_wiley_values(cov, trip)
+    rep_h, rep_w, rep_median = [], [], []
+    for part in moments.leave_one_out():  # a loop over replicate groups
+        ph = heise_values(part.correlation(), trip)
+        rep_h.append(ph["reliability"])
+        rep_w.append(wiley_wiley_values(part.covariance(), trip))
+        rep_median.append(np.median(ph["reliability"]))
+    k = len(rep_h)
+    se_h = jackknife_se(h["reliability"], np.array(rep_h))
+    se_w_rel = jackknife_se(w["reliability"], np.array([r["reliability"] for r in rep_w]))
+    se_w_err = jackknife_se(w["error_variance"], np.array([r["error_variance"] for r in rep_w]))
+    heise_rows, wiley_rows = [], []
+    for i, (s, t, u) in enumerate(trip):
+        labels = (wave_labels[s], wave_labels[t], wave_labels[u])
+        hp, wp = _heise_problems(h, i), _wiley_problems(w, i)
+        heise_rows.append(HeiseRow(
+            waves=labels, reliability=float(h["reliability"][i]), reliability_se=float(se_h[i]),
+            stability_first=float(h["stability_first"][i]),
+            stability_second=float(h["stability_second"][i]),
+            stability_outer=float(h["stability_outer"][i]),
+            impossible=bool(hp), problems=tuple(hp)))
+        wiley_rows.append(WileyWileyRow(
+            waves=labels, error_variance=float(w["error_variance"][i]),
+            error_variance_se=float(se_w_err[i]),
+            true_variance=tuple(float(v) for v in w["true_variance"][i]),
+            reliability=tuple(float(v) for v in w["reliability"][i]),
+            reliability_se=tuple(float(v) for v in se_w_rel[i]),
+            stability_first=float(w["stability_first"][i]),
+            stability_second=float(w["stability_second"][i]),
+            impossible=bool(wp), problems=tuple(wp)))
+    estimate = float(np.median(h["reliability"]))
+    reps = np.array(rep_median)
+    low, high = jackknife_ci(estimate, reps, level) if k > 1 else (np.nan, np.nan)
+    n_bad = sum(r.impossible for r in heise_rows)
+    method = (f"median of the Heise reliabilities over {len(trip)} triplet(s) of waves "
+              f"({basis.replace('_', ' ')} correlations); {int(100 * level)}% interval from "
+              f"the delete-a-group jackknife over {k} replicate groups")
+    summary = ReliabilitySummary(
+        estimate=estimate, ci_low=float(low), ci_high=float(high),
+        se=float(jackknife_se(estimate, reps)), method=method,
+        n_triplets=len(trip), n_impossible=int(n_bad))
+    return ReliabilityScreen(basis=basis, n_replicates=k, heise=tuple(heise_rows),
+                             wiley_wiley=tuple(wiley_rows), summary=summary)
+
+
+# ----------------------------------------------------------------------------- items
+
+@dataclass(frozen=True)
+class ItemWave(Result):
+    wave: str
+    n: int
+    alpha: float
+    alpha_ci_low: float
+    alpha_ci_high: float
+    omega: float
+    loadings: tuple[float, ...]
+    unique_variances: tuple[float, ...]
+    heywood: bool
+    problems: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class InternalConsistency(Result):
+    """Cronbach's alpha and McDonald's omega of the scale's items at each wave."""
+
+    items: tuple[str, ...]
+    omega_method: str
+    waves: tuple[ItemWave, ...]
+
+
+def item_covariance(items: np.ndarray) -> tuple[np.ndarray, int]:
+    """Covariance (n - 1 divisor, centred) of the units with every item observed."""
+    complete = ~np.isnan(items).any(axis=1)
+    x = items[complete]
+    n = len(x)
+    if n < 2:
+        return np.full((items.shape[1],) * 2, np.nan), n
+    d = x - x.mean(axis=0)
+    return d.T @ d / (n - 1), n
+
+
+def cronbach_alpha(cov: np.ndarray) -> float:
+    """Cronbach (1951): alpha = k / (k - 1) * (1 - sum of item variances / total variance)."""
+    k = cov.shape[0]
+    total = cov.sum()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return float(k / (k - 1) * (1.0 - np.trace(cov) / total))
+
+
+def alpha_interval(alpha: float, n: int, k: int, level: float = 0.95) -> tuple[float, float]:
+    """Feldt (1965, Psychometrika) F-based interval: 1 - (1 - alpha) F quantiles with
+    n - 1 and (n - 1)(k - 1) degrees of freedom."""
+    if n < 3 or not np.isfinite(alpha):
+        return np.nan, np.nan
+    df1, df2 = n - 1, (n - 1) * (k - 1)
+    tail = (1 - level) / 2
+    return (1 - (1 - alpha) * stats.f.ppf(1 - tail, df1, df2),
+            1 - (1 - alpha) * stats.f.ppf(tail, df1, df2))
+
+
+def one_factor_ml(cov: np.ndarray, lower: float = 0.005) -> tuple[np.ndarray, np.ndarray, bool]:
+    """One-factor maximum-likelihood factor analysis of a covariance matrix.
+
+    Unique variances are found by minimising Joreskog's (1967) concentrated
+    discrepancy over psi in [lower * s_ii, s_ii]; the loadings follow from the
+    leading eigenvector of Psi^-1/2 S Psi^-1/2. Returns (loadings, unique variances,
+    heywood) where heywood says a unique variance ended at its lower bound.
+    """
+    sd = np.sqrt(np.diag(cov))
+    corr = cov / np.outer(sd, sd)
+    p = corr.shape[0]
+
+    def discrepancy(psi):
+        scale = 1.0 / np.sqrt(psi)
+        gamma = np.linalg.eigvalsh(corr * np.outer(scale, scale))[:-1]
+        return float(np.sum(gamma - np.log(gamma) - 1.0))
+
+    start = np.clip((1.0 - 0.5 / p) / np.diag(np.linalg.inv(corr)), lower, 1.0)
+    fit = optimize.minimize(discrepancy, start, method="L-BFGS-B",
+                            bounds=[(lower, 1.0)] * p, options={"ftol": 1e-14, "gtol": 1e-10})
+    psi = fit.x
+    scale = 1.0 / np.sqrt(psi)
+    values, vectors = np.linalg.eigh(corr * np.outer(scale, scale))
+    top = vectors[:, -1] * np.sqrt(max(values[-1] - 1.0, 0.0))
+    loadings = np.sqrt(psi) * top
+    if loadings.sum() < 0:
+        loadings = -loadings
+    heywood = bool(np.any(psi <= lower * (1 + 1e-6)))
+    return loadings * sd, psi * sd ** 2, heywood
+
+
+def mcdonald_omega(loadings: np.ndarray, unique: np.ndarray) -> float:
+    """McDonald (1999): omega = (sum lambda)^2 / ((sum lambda)^2 + sum psi)."""
+    common = loadings.sum() ** 2
+    return float(common / (common + unique.sum()))
+
+
+def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
+                         item_names: tuple[str, ...], level: float = 0.95
+                         ) -> InternalConsistency:
+    """Cronbach's alpha and McDonald's omega of a scale's items, wave by wave.
+
+    ``items`` is (n_units, n_waves, n_items); each wave uses the units with every
+    item observed at that wave. Alpha and omega refer to the unweighted sum (or mean)
+    of the raw items, so they are computed from covariances. Omega uses a one-factor
+    model fitted by maximum likelihood; a Heywood case (a unique variance at its
+    lower bound) and a negative alpha are reported with the reason, not altered.
+
+    References
+    ----------
+    Cronbach, L. J. (1951). Coefficient alpha and the internal structure of tests.
+    Psychometrika, 16(3), 297-334.
+    Feldt, L. S. (1965). The approximate sampling distribution of Kuder-Richardson
+    reliability coefficient twenty. Psychometrika, 30(3), 357-370.
+    McDonald, R. P. (1999). Test Theory: A Unified Treatment. Mahwah, NJ: Erlbaum.
+    Joreskog, K. G. (1967). Some contributions to maximum likelihood factor analysis.
+    Psychometrika, 32(4), 443-482.
+    """
+    rows = []
+    k = items.shape[2]
+    for t, label in enumerate(wave_labels):  # a loop over waves
+        cov, n = item_covariance(items[:, t, :])
+        problems = []
+        if n < k + 1 or not np.all(np.isfinite(cov)) or np.any(np.diag(cov) <= 0):
+            problems.append(f"too few complete units ({n}) or an item without variance")
+            rows.append(ItemWave(label, n, np.nan, np.nan, np.nan, np.nan, (), (), False,
+                                 tuple(problems)))
+            continue
+        alpha = cronbach_alpha(cov)
+        low, high = alpha_interval(alpha, n, k, level)
+        if alpha < 0:
+            problems.append("alpha negative: the items covary negatively on average")
+        loadings, unique, heywood = one_factor_ml(cov)
+        if heywood:
+            problems.append("Heywood case: an item's unique variance reached its lower bound "
+                            "(0.5% of its variance); omega rests on a boundary solution")
+        rows.append(ItemWave(label, n, alpha, float(low), float(high),
+                             mcdonald_omega(loadings, unique),
+                             tuple(float(v) for v in loadings),
+                             tuple(float(v) for v in unique), heywood, tuple(problems)))
+    return InternalConsistency(
+        items=tuple(item_names),
+        omega_method="one-factor maximum likelihood (Joreskog 1967), covariance metric",
+        waves=tuple(rows))

@@ -1,0 +1,215 @@
+"""Per-unit trajectory summaries: least-squares lines (and curves) fitted unit by unit.
+
+Units that share a response pattern (the set of waves observed) share one design
+matrix, so the fit of every unit in a pattern is one matrix product with a small
+pseudo-inverse: the loop runs over patterns, never over units. For every pair
+(replicate group, pattern) the summary keeps the count of units, the mean and the
+centred cross-product matrix of their coefficients, residual sums and the lag-1
+residual cross-products, and the mean and spread of the unit means. These merge
+exactly across chunks (Chan, Golub and LeVeque 1983, The American Statistician).
+
+Times are centred on the mean of all wave times (a panel constant, so every chunk
+uses the same centre): the intercept is a unit's level at the panel's mid-time,
+the slope its change per unit of time and the curvature the quadratic coefficient.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+LINEAR_MIN_WAVES = 2      # a line needs two observed waves
+QUADRATIC_MIN_WAVES = 4   # a curvature is fitted with at least four
+_MOMENT_PAIRS = (("lin_mean", "lin_m2"), ("quad_mean", "quad_m2"), ("unit_mean", "unit_mean_m2"))
+_SUM_KEYS = ("rss", "rss_sq", "lag_cross", "within_ss")
+
+
+def design(times_c: np.ndarray, degree: int) -> np.ndarray:
+    """Columns 1, t, t^2 ... (up to ``degree``) of centred times."""
+    return np.vander(times_c, degree + 1, increasing=True)
+
+
+def lag_operator(observed: np.ndarray) -> np.ndarray:
+    """Symmetric lag-1 matrix over the observed waves of a pattern: entries 1/2 link
+    two observed waves that are adjacent waves of the panel (no gap between them)."""
+    index = np.flatnonzero(observed)
+    k = len(index)
+    lag = np.zeros((k, k))
+    adjacent = np.flatnonzero(np.diff(index) == 1)
+    lag[adjacent, adjacent + 1] = 0.5
+    lag[adjacent + 1, adjacent] = 0.5
+    return lag
+
+
+@dataclass(frozen=True)
+class TrajectorySummary:
+    """Per (replicate group, response pattern) aggregates of unit-wise trajectory fits.
+
+    Arrays have a leading replicate axis K and a pattern axis P; ``patterns`` is the
+    (P, T) boolean matrix of observed waves, sorted so that merging is deterministic.
+    Linear quantities cover units with >= 2 observed waves, quadratic ones units
+    with >= 4 (zero elsewhere); unit-mean quantities cover units with >= 1.
+    """
+
+    times: np.ndarray          # (T,) wave times
+    centre: float              # the time the intercepts refer to
+    patterns: np.ndarray       # (P, T) bool
+    n: np.ndarray              # (K, P) units
+    lin_mean: np.ndarray       # (K, P, 2) mean intercept and slope
+    lin_m2: np.ndarray         # (K, P, 2, 2) centred cross-products of (intercept, slope)
+    quad_mean: np.ndarray      # (K, P, 3)
+    quad_m2: np.ndarray        # (K, P, 3, 3)
+    rss: np.ndarray            # (K, P) sum over units of the linear residual sum of squares
+    rss_sq: np.ndarray         # (K, P) sum over units of its square
+    lag_cross: np.ndarray      # (K, P) sum over units of e' L e (symmetric lag-1 form)
+    unit_mean: np.ndarray      # (K, P) mean of the unit means
+    unit_mean_m2: np.ndarray   # (K, P) centred sum of squares of the unit means
+    within_ss: np.ndarray      # (K, P) sum over units of squares around the own mean
+
+    @classmethod
+    def from_chunk(cls, chunk) -> "TrajectorySummary":
+        x = chunk.values
+        times = np.asarray(chunk.times, dtype=float)
+        centre = float(times.mean())
+        tc = times - centre
+        k_groups = chunk.n_replicates
+        seen = ~np.isnan(x)
+        patterns, pattern_of = np.unique(seen, axis=0, return_inverse=True)
+        pattern_of = pattern_of.reshape(-1)
+        n_pat = len(patterns)
+        out = _zeros(k_groups, n_pat)
+        order = np.argsort(pattern_of, kind="stable")
+        bounds = np.searchsorted(pattern_of[order], np.arange(n_pat + 1))
+        for p in range(n_pat):  # a loop over response patterns; each step is matrix algebra
+            rows = order[bounds[p]:bounds[p + 1]]
+            obs = patterns[p]
+            k = int(obs.sum())
+            if k == 0:
+                continue
+            y = x[rows][:, obs]
+            g = chunk.replicate[rows]
+            count = np.bincount(g, minlength=k_groups).astype(float)
+            out["n"][:, p] = count
+            means = y.mean(axis=1)
+            gm, gm2 = _group_moments(means[:, None], g, count, k_groups)
+            out["unit_mean"][:, p], out["unit_mean_m2"][:, p] = gm[:, 0], gm2[:, 0, 0]
+            dev = y - means[:, None]
+            out["within_ss"][:, p] = np.bincount(g, weights=(dev * dev).sum(axis=1),
+                                                 minlength=k_groups)
+            if k >= LINEAR_MIN_WAVES:
+                xd = design(tc[obs], 1)
+                coef = y @ np.linalg.pinv(xd).T
+                resid = y - coef @ xd.T
+                rss = (resid * resid).sum(axis=1)
+                lagged = np.einsum("ij,jk,ik->i", resid, lag_operator(obs), resid)
+                gm, gm2 = _group_moments(coef, g, count, k_groups)
+                out["lin_mean"][:, p], out["lin_m2"][:, p] = gm, gm2
+                out["rss"][:, p] = np.bincount(g, weights=rss, minlength=k_groups)
+                out["rss_sq"][:, p] = np.bincount(g, weights=rss * rss, minlength=k_groups)
+                out["lag_cross"][:, p] = np.bincount(g, weights=lagged, minlength=k_groups)
+            if k >= QUADRATIC_MIN_WAVES:
+                xd = design(tc[obs], 2)
+                coef = y @ np.linalg.pinv(xd).T
+                gm, gm2 = _group_moments(coef, g, count, k_groups)
+                out["quad_mean"][:, p], out["quad_m2"][:, p] = gm, gm2
+        return cls(times=times, centre=centre, patterns=patterns, **out)
+
+    def merge(self, other: "TrajectorySummary") -> "TrajectorySummary":
+        patterns = np.unique(np.concatenate([self.patterns, other.patterns]), axis=0)
+        a, b = self._aligned(patterns), other._aligned(patterns)
+        n = a["n"] + b["n"]
+        merged = {"n": n}
+        for mean_key, m2_key in _MOMENT_PAIRS:
+            merged[mean_key], merged[m2_key] = _combine(
+                a["n"], a[mean_key], a[m2_key], b["n"], b[mean_key], b[m2_key])
+        for key in _SUM_KEYS:
+            merged[key] = a[key] + b[key]
+        return TrajectorySummary(times=self.times, centre=self.centre, patterns=patterns,
+                                 **merged)
+
+    def _aligned(self, patterns: np.ndarray) -> dict:
+        """Arrays re-indexed onto a superset of patterns (zeros where absent)."""
+        k_groups = self.n.shape[0]
+        out = _zeros(k_groups, len(patterns))
+        where = _locate(patterns, self.patterns)
+        for key in out:
+            out[key][:, where] = getattr(self, key)
+        return out
+
+    def pooled(self, drop_group: int | None = None) -> "TrajectorySummary":
+        """All replicate groups combined (optionally leaving one out), K axis of 1."""
+        keep = [g for g in range(self.n.shape[0]) if g != drop_group]
+        total = {key: getattr(self, key)[keep[0]:keep[0] + 1] for key in _zeros(1, 1)}
+        for g in keep[1:]:  # a loop over replicate groups
+            part = {key: getattr(self, key)[g:g + 1] for key in total}
+            step = {"n": total["n"] + part["n"]}
+            for mean_key, m2_key in _MOMENT_PAIRS:
+                step[mean_key], step[m2_key] = _combine(
+                    total["n"], total[mean_key], total[m2_key],
+                    part["n"], part[mean_key], part[m2_key])
+            for key in _SUM_KEYS:
+                step[key] = total[key] + part[key]
+            total = step
+        return TrajectorySummary(times=self.times, centre=self.centre,
+                                 patterns=self.patterns, **total)
+
+    def leave_one_out(self):
+        """Yield the pooled summary with each replicate group left out in turn."""
+        for g in range(self.n.shape[0]):
+            yield self.pooled(drop_group=g)
+
+
+def _zeros(k: int, p: int) -> dict:
+    return {"n": np.zeros((k, p)), "lin_mean": np.zeros((k, p, 2)),
+            "lin_m2": np.zeros((k, p, 2, 2)), "quad_mean": np.zeros((k, p, 3)),
+            "quad_m2": np.zeros((k, p, 3, 3)), "rss": np.zeros((k, p)),
+            "rss_sq": np.zeros((k, p)), "lag_cross": np.zeros((k, p)),
+            "unit_mean": np.zeros((k, p)), "unit_mean_m2": np.zeros((k, p)),
+            "within_ss": np.zeros((k, p))}
+
+
+def _locate(superset: np.ndarray, subset: np.ndarray) -> np.ndarray:
+    """Row positions of ``subset``'s patterns within ``superset``."""
+    lookup = {tuple(np.flatnonzero(row)): i for i, row in enumerate(superset)}
+    return np.array([lookup[tuple(np.flatnonzero(row))] for row in subset], dtype=np.int64)
+
+
+def _group_moments(values: np.ndarray, g: np.ndarray, count: np.ndarray, k_groups: int):
+    """Per replicate group mean (K, q) and centred cross-product matrix (K, q, q)."""
+    q = values.shape[1]
+    sums = np.stack([np.bincount(g, weights=values[:, j], minlength=k_groups)
+                     for j in range(q)], axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(count[:, None] > 0, sums / np.maximum(count, 1)[:, None], 0.0)
+    dev = values - mean[g]
+    outer = dev[:, :, None] * dev[:, None, :]
+    m2 = np.zeros((k_groups, q, q))
+    np.add.at(m2, g, outer)
+    return mean, m2
+
+
+def _combine(na, mean_a, m2a, nb, mean_b, m2b):
+    """Chan, Golub and LeVeque (1983) update of means and centred cross-products.
+
+    ``na``/``nb`` are (K, P); means (K, P, q) or (K, P); m2 (K, P, q, q) or (K, P).
+    """
+    n = na + nb
+    scalar = mean_a.ndim == na.ndim
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where(n > 0, nb / np.where(n > 0, n, 1), 0.0)
+        cross = np.where(n > 0, na * nb / np.where(n > 0, n, 1), 0.0)
+    if scalar:
+        delta = mean_b - mean_a
+        both = (na > 0) & (nb > 0)
+        mean = np.where(na > 0, np.where(nb > 0, mean_a + delta * frac, mean_a), mean_b)
+        m2 = m2a + m2b + np.where(both, delta * delta * cross, 0.0)
+        return mean, m2
+    delta = mean_b - mean_a
+    both = ((na > 0) & (nb > 0))[..., None]
+    mean = np.where((na > 0)[..., None],
+                    np.where((nb > 0)[..., None], mean_a + delta * frac[..., None], mean_a),
+                    mean_b)
+    delta = np.where(both, delta, 0.0)
+    m2 = m2a + m2b + delta[..., :, None] * delta[..., None, :] * cross[..., None, None]
+    return mean, m2
