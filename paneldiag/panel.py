@@ -26,6 +26,10 @@ class Panel:
     weights: np.ndarray | None = None
     groups: np.ndarray | None = None
     covariates: dict[str, np.ndarray] = field(default_factory=dict)
+    # A scale measure's items: ``items[measure]`` is (n_units, n_waves, n_items) and
+    # ``item_columns[measure]`` names the item columns; values[measure] is their mean.
+    items: dict[str, np.ndarray] = field(default_factory=dict)
+    item_columns: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
     @property
     def n_units(self) -> int:
@@ -49,4 +53,6 @@ class Panel:
             weights=None if self.weights is None else self.weights[mask],
             groups=None if self.groups is None else self.groups[mask],
             covariates={k: v[mask] for k, v in self.covariates.items()},
+            items={k: v[mask] for k, v in self.items.items()},
+            item_columns=self.item_columns,
         )
