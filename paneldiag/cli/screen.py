@@ -4,6 +4,9 @@ Long data (a row per unit and wave):
     paneldiag screen panel.csv --id person --wave year --value score [--value other ...]
 Wide data (a row per unit, a column per wave, columns in wave order):
     paneldiag screen panel.csv --id person --wide score=s1,s2,s3 [--wave-labels 2019,2020,2022]
+A scale measured by several items at each wave (long data only):
+    paneldiag screen panel.csv --id person --wave year --items calm=c1,c2,c3,c4
+    (the measure 'calm' is the mean of its items; internal consistency is reported per wave)
 DATA may be '-' for standard input. The terminal gets a summary; --json PATH gets the
 full report (see docs/json-report.md).
 """
@@ -35,6 +38,18 @@ def _wide_option(items: tuple[str, ...]) -> tuple[tuple[str, tuple[str, ...]], .
     return tuple(measures)
 
 
+def _items_option(items: tuple[str, ...]) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    scales = []
+    for item in items:
+        name, sep, columns = item.partition("=")
+        cols = tuple(c.strip() for c in columns.split(",") if c.strip())
+        if not sep or not name.strip() or len(cols) < 2:
+            raise InputProblem(f"--items '{item}' needs NAME=COL1,COL2,... with at least two "
+                               "item columns")
+        scales.append((name.strip(), cols))
+    return tuple(scales)
+
+
 def _list_option(text: str | None, name: str, numeric: bool = False):
     if text is None:
         return None
@@ -55,6 +70,9 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
               help="A measure column (long data); repeat for several measures.")
 @click.option("--wide", "wide", metavar="NAME=C1,C2,..", multiple=True,
               help="Wide data: a measure's wave columns in wave order; repeatable.")
+@click.option("--items", "items", metavar="NAME=C1,C2,..", multiple=True,
+              help="Long data: a scale measure NAME, the mean of these item columns at each "
+                   "wave; repeatable.")
 @click.option("--wave-labels", metavar="L1,L2,..", help="Wave labels for wide columns.")
 @click.option("--wave-times", metavar="T1,T2,..",
               help="Numeric time of each wave (overrides times read from the labels).")
@@ -77,13 +95,14 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--min-cell", type=click.IntRange(1), default=5, show_default=True,
               help="Smallest count shown on its own (disclosure control).")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
-def command(data, id_column, wave_column, values, wide, wave_labels, wave_times, wave_order,
-            weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
+def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
+            wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
             delimiter, json_path, min_cell, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
         id=id_column, wave=wave_column, values=tuple(values), wide=_wide_option(wide),
+        items=_items_option(items),
         wave_labels=_list_option(wave_labels, "--wave-labels"),
         wave_times=_list_option(wave_times, "--wave-times", numeric=True),
         wave_order=wave_order, weight=weight, group=group, covariates=tuple(covariates),
@@ -114,6 +133,7 @@ def _options_record(spec: LayoutSpec, fmt, delimiter, min_cell) -> dict:
     record = {
         "layout": spec.layout, "id": spec.id, "wave": spec.wave, "values": list(spec.values),
         "wide": {name: list(cols) for name, cols in spec.wide},
+        "items": {name: list(cols) for name, cols in spec.items},
         "wave_labels": list(spec.wave_labels) if spec.wave_labels else None,
         "wave_times": list(spec.wave_times) if spec.wave_times else None,
         "wave_order": spec.wave_order, "weight": spec.weight, "group": spec.group,

@@ -75,6 +75,7 @@ class LayoutSpec:
     missing_codes: MissingCodes = field(default_factory=MissingCodes)
     duplicates: str = "error"
     bad_values: str = "error"
+    items: tuple[tuple[str, tuple[str, ...]], ...] = ()  # long data: scale NAME = item columns
 
     @property
     def layout(self) -> str:
@@ -83,13 +84,15 @@ class LayoutSpec:
     def columns(self) -> list[str]:
         """The file columns this layout needs, in a stable order without repeats."""
         names = [self.id, self.wave, *self.values]
-        for _, cols in self.wide:
+        for _, cols in (*self.wide, *self.items):
             names.extend(cols)
         names += [self.weight, self.group, *self.covariates]
         return list(dict.fromkeys(n for n in names if n))
 
     def measure_names(self) -> list[str]:
-        return [name for name, _ in self.wide] if self.wide else list(self.values)
+        if self.wide:
+            return [name for name, _ in self.wide]
+        return list(self.values) + [name for name, _ in self.items]
 
 
 def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
@@ -106,8 +109,11 @@ def _check_spec(spec: LayoutSpec) -> None:
     if spec.layout == "long":
         if not spec.id or not spec.wave:
             raise InputProblem("long data needs --id and --wave (or give --wide columns)")
-        if not spec.values:
+        if not spec.values and not spec.items:
             raise InputProblem("name at least one measure with --value")
+    elif spec.items:
+        raise InputProblem("--items is for long data (a row per unit and wave); for wide data "
+                           "reshape to long first")
     elif spec.values or spec.wave:
         raise InputProblem("use either --wave/--value (long data) or --wide (wide data), not both")
     names = spec.measure_names()
@@ -144,18 +150,30 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
                   "duplicate_unit_wave": n_duplicate}
 
     values, codes, code_labels, ledgers = {}, {}, {}, {}
-    for measure in spec.values:
+    items, item_columns = {}, {}
+    for measure in spec.measure_names():
         if spec.duplicates == "mean" and n_duplicate:
-            outcome, numbers, code_text = _classify(raw, spec, measure, valid_rows)
+            outcome, numbers, code_text, item_numbers = _classify_measure(raw, spec, measure,
+                                                                          valid_rows)
             matrix = _cell_means(outcome, numbers, cell, n_units, n_waves)
+            if item_numbers is not None:
+                items[measure] = np.stack([_cell_means(outcome, v, cell, n_units, n_waves)
+                                           for v in item_numbers], axis=2)
             outcome_kept, code_kept, wave_kept = outcome, code_text, wave_index
             reasons = dict(structural, duplicate_unit_wave=0)
         else:
-            outcome_kept, numbers, code_kept = _classify(raw, spec, measure, rows)
+            outcome_kept, numbers, code_kept, item_numbers = _classify_measure(raw, spec, measure,
+                                                                              rows)
             wave_kept = wave_index[kept]
             matrix = np.full((n_units, n_waves), np.nan)
             seen = outcome_kept == OBSERVED
             matrix[unit_index[kept][seen], wave_kept[seen]] = numbers[seen]
+            if item_numbers is not None:
+                cube = np.full((n_units, n_waves, len(item_numbers)), np.nan)
+                cube[unit_index[kept][seen], wave_kept[seen], :] = item_numbers[:, seen].T
+                items[measure] = cube
+        if measure in items:
+            item_columns[measure] = dict(spec.items)[measure]
             reasons = dict(structural)
         _require_observed(raw, measure, matrix)
         for code, reason in _CELL_REASON.items():
@@ -175,8 +193,37 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         groups=_unit_groups(raw, spec, rows, unit_rows, unit_ids),
         covariates={c: _scatter(raw, c, rows, unit_rows, wave_index[kept], n_units, n_waves)
                     for c in spec.covariates},
+        items=items, item_columns=item_columns,
     )
     return panel, ledgers
+
+
+def _classify_measure(raw: RawTable, spec: LayoutSpec, measure: str, rows: np.ndarray):
+    """Like ``_classify``, plus the item values (K, n) for a scale measure (else None).
+
+    A scale's value is the mean of its items; a row counts as observed only when every
+    item is. Otherwise the row gets one reason, the most serious among its items:
+    non-numeric, then infinite, then a declared missing code (the first item's code),
+    then an empty cell, so each row still enters the ledger exactly once.
+    """
+    columns = dict(spec.items).get(measure)
+    if columns is None:
+        return (*_classify(raw, spec, measure, rows), None)
+    parts = [_classify(raw, spec, column, rows) for column in columns]
+    outcomes = np.stack([p[0] for p in parts])
+    numbers = np.stack([p[1] for p in parts])
+    outcome = np.full(outcomes.shape[1], OBSERVED, dtype=np.int8)
+    for code in (MISSING, CODED, INFINITE, NON_NUMERIC):  # later codes take precedence
+        outcome[(outcomes == code).any(axis=0)] = code
+    code_text = np.full(outcomes.shape[1], None, dtype=object)
+    for outcome_i, _, text_i in reversed(parts):  # a loop over items: the first code wins
+        coded = outcome_i == CODED
+        code_text[coded] = text_i[coded]
+    code_text[outcome != CODED] = None
+    seen = outcome == OBSERVED
+    with np.errstate(invalid="ignore"):
+        mean = np.where(seen, numbers.mean(axis=0), np.nan)
+    return outcome, mean, code_text, np.where(seen, numbers, np.nan)
 
 
 def _missing_mask(column: pd.Series) -> np.ndarray:
