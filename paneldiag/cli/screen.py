@@ -22,6 +22,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.output import refuse_input_overwrite, write_atomic
 from paneldiag.io.readers import FORMATS, read_table
 from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.render.appendix import check_report_folder, write_report
 from paneldiag.render.json import report_json
 from paneldiag.render.terminal import render_terminal
 from paneldiag.screen import ScreenOptions, screen
@@ -94,10 +95,19 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--min-cell", type=click.IntRange(1), default=5, show_default=True,
               help="Smallest count shown on its own (disclosure control).")
+@click.option("--report", "report_dir", metavar="DIR",
+              help="Write the methods appendix (Markdown, HTML, LaTeX tables, figures, "
+                   "JSON) to this folder, replacing it whole.")
+@click.option("--trajectory-sample", type=click.IntRange(0), default=0, metavar="N",
+              help="Add a figure of N randomly drawn units' trajectories to the report "
+                   "(off by default: individual data).")
+@click.option("--trajectory-seed", type=int, default=1, show_default=True, metavar="SEED",
+              help="Seed of the trajectory sample.")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
-            delimiter, json_path, min_cell, quiet):
+            delimiter, json_path, min_cell, report_dir, trajectory_sample, trajectory_seed,
+            quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
@@ -112,6 +122,8 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
         raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
     if json_path:
         refuse_input_overwrite(json_path, [data])
+    if report_dir:
+        check_report_folder(report_dir, [data])
     progress.stage(f"reading {data}")
     raw = read_table(data, fmt, columns=spec.columns(), delimiter=delimiter)
     progress.stage("building the panel")
@@ -119,11 +131,18 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     progress.stage("screening")
     input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
                   "options": _options_record(spec, fmt, delimiter, min_cell)}
+    if report_dir and trajectory_sample:
+        input_info["options"].update(trajectory_sample=trajectory_sample,
+                                     trajectory_seed=trajectory_seed)
     report = screen(panel, ledgers, input_info,
                     ScreenOptions(min_cell=min_cell, group_column=group))
     progress.done()
     if json_path:
         write_atomic(json_path, report_json(report))
+    if report_dir:
+        progress.stage("writing the report")
+        write_report(report, report_dir, [data], panel, trajectory_sample, trajectory_seed)
+        progress.done()
     if not quiet:
         sys.stdout.write(render_terminal(report, color=use_color()))
 

@@ -1,0 +1,426 @@
+"""The methods appendix: Markdown, self-contained HTML, LaTeX tables, figures, JSON.
+
+``write_report(report, folder, ...)`` builds every file in a temporary folder beside
+``folder`` and renames it into place, so the folder is either the previous complete
+report or the new complete report, never half-written. The content is a function of
+the report (and, for the optional trajectory sample, of the panel with a fixed seed):
+the same input and options give byte-identical files.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shlex
+import shutil
+import tempfile
+from importlib import metadata
+
+
+from paneldiag.errors import InputProblem
+from paneldiag.render import figures as figs
+from paneldiag.render import prose
+from paneldiag.render.document import (Code, FigureRef, Heading, ListBlock, Note, Paragraph,
+                                       Table, to_html, to_markdown)
+from paneldiag.render.json import report_json
+from paneldiag.render.latex import to_latex
+
+FILES = ("appendix.md", "appendix.html", "tables.tex", "report.json", "figures")
+TITLE = "Methods appendix: panel screening"
+
+
+def measure_reports(report: dict) -> dict[str, dict]:
+    if "measures" in report:
+        return report["measures"]
+    return {report.get("measure", "measure"): report}
+
+
+def slug(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9]+", "-", str(text)).strip("-").lower() or "x"
+
+
+def _n(value, min_cell: int) -> str:
+    """A count, or '< min_cell' when it is below the disclosure threshold."""
+    if value is None:
+        return "–"
+    return f"< {min_cell}" if 0 < value < min_cell else f"{int(value):,}"
+
+
+def _v(value, digits: int = 2) -> str:
+    return "–" if value is None else f"{value:.{digits}f}"
+
+
+def _p(value) -> str:
+    return "–" if value is None else ("< 0.001" if value < 0.001 else f"{value:.3f}")
+
+
+def _ci(node: dict, key: str = "estimate", digits: int = 2, scale: float = 1.0) -> str:
+    est = node.get(key)
+    if est is None:
+        return "–"
+    lo, hi = node.get("ci_low"), node.get("ci_high")
+    text = f"{scale * est:.{digits}f}"
+    if lo is not None and hi is not None:
+        text += f" [{scale * lo:.{digits}f}, {scale * hi:.{digits}f}]"
+    return text
+
+
+# ----------------------------------------------------------------------------- tables
+
+def wave_table(report: dict, min_cell: int) -> Table | None:
+    rows = report.get("wave_profile")
+    if not rows:
+        return None
+    times = dict(zip(report["panel"]["waves"], report["panel"]["times"]))
+    body = tuple((r["wave"], _v(times.get(r["wave"]), 2), _n(r["n"], min_cell),
+                  _v(r["mean"]), _v(r["sd"]), _v(r["min"]), _v(r["max"]),
+                  "–" if r["floor_share"] is None else f"{100 * r['floor_share']:.1f}",
+                  "–" if r["ceiling_share"] is None else f"{100 * r['ceiling_share']:.1f}")
+                 for r in rows)
+    return Table(f"{slug(report.get('measure'))}-waves",
+                 f"{report.get('measure')}: distribution by wave",
+                 ("wave", "time", "n", "mean", "SD", "min", "max", "% at floor",
+                  "% at ceiling"), body,
+                 (f"Counts below {min_cell} are shown as '< {min_cell}' (disclosure control).",))
+
+
+def retention_table(report: dict, min_cell: int) -> Table | None:
+    rows = (report.get("attrition") or {}).get("retention")
+    if not rows:
+        return None
+    body = tuple((r["wave"], _n(r.get("n_observed"), min_cell),
+                  "–" if r.get("retained_share") is None else f"{100 * r['retained_share']:.1f}",
+                  "–" if r.get("response_share") is None else f"{100 * r['response_share']:.1f}")
+                 for r in rows)
+    return Table(f"{slug(report.get('measure'))}-retention",
+                 f"{report.get('measure')}: retention and response by wave",
+                 ("wave", "n observed", "% retained", "% responding"), body)
+
+
+def lag_table(report: dict, min_cell: int) -> Table | None:
+    rows = report.get("lag_profile")
+    if not rows:
+        return None
+    body = tuple((str(r.get("lag")), _v(r.get("time_distance")),
+                  _ci({"estimate": r.get("mean_r"), "ci_low": r.get("ci_low"),
+                       "ci_high": r.get("ci_high")}),
+                  _n(r.get("n_pairs"), min_cell)) for r in rows)
+    return Table(f"{slug(report.get('measure'))}-lags",
+                 f"{report.get('measure')}: mean correlation by lag",
+                 ("lag", "time distance", "mean r [95% CI]", "unit pairs"), body)
+
+
+def families_table(report: dict) -> Table | None:
+    fams = report.get("families")
+    if not isinstance(fams, list) or not fams:
+        return None
+    body = tuple((str(f.get("family", "")).replace("_", " "),
+                  str(f.get("verdict", "")).replace("_", " "),
+                  _v(f.get("score")) if isinstance(f.get("score"), (int, float)) else "–",
+                  "; ".join(map(str, f.get("caveats") or [])) or "–")
+                 for f in fams if isinstance(f, dict))
+    return Table(f"{slug(report.get('measure'))}-families",
+                 f"{report.get('measure')}: screening verdicts by process family",
+                 ("family", "verdict", "score", "caveats"), body,
+                 ("Verdicts summarise screening evidence; they do not select a model.",),
+                 align="llrl")
+
+
+def group_table(report: dict) -> Table | None:
+    section = report.get("groups")
+    if not isinstance(section, dict) or not section.get("comparison"):
+        return None
+    names = list(section.get("reports", {}))
+    rows = []
+    for comp in section["comparison"]:
+        by = {v["group"]: v for v in comp["by_group"]}
+        scale, digits = (100.0, 1) if comp["figure"] == "retention" else (1.0, 2)
+        cells = [_ci(by[g], digits=digits, scale=scale) if g in by else "–" for g in names]
+        test = comp["test"]
+        stat = "–" if test["statistic"] is None else \
+            f"{test['statistic']:.2f} ({test['df']})"
+        rows.append((comp["label"] + (" (%)" if comp["figure"] == "retention" else ""),
+                     *cells, stat, _p(test["pvalue"])))
+    notes = [section["note"],
+             "Tests: lag-1 autocorrelation, Cochran's Q on Fisher z with delete-a-group "
+             "jackknife SEs; retention, Pearson chi-square of the groups x retained table; "
+             "other figures, Cochran's Q with the SEs the diagnostics report. Cells show the "
+             "estimate and its 95% CI."]
+    return Table(f"{slug(report.get('measure'))}-groups",
+                 f"{report.get('measure')}: key figures by {section['column']}",
+                 ("figure", *names, "statistic (df)", "p"), tuple(rows), tuple(notes))
+
+
+def cross_lag_table(pair: dict, min_cell: int) -> Table:
+    body = []
+    for r in pair["lags"]:
+        body.append((str(r["lag"]), _v(r["time_distance"]), _ci(r["x_leads"], "r"),
+                     _ci(r["y_leads"], "r"),
+                     _ci({"estimate": r["z_difference"], "ci_low": r["z_difference_ci_low"],
+                          "ci_high": r["z_difference_ci_high"]}, digits=3),
+                     _n(min(r["x_leads"]["n_pairs"], r["y_leads"]["n_pairs"]), min_cell)))
+    return Table(f"cross-lag-{slug(pair['x'])}-{slug(pair['y'])}",
+                 f"Cross-lagged correlations of {pair['x']} and {pair['y']}",
+                 ("lag", "time distance", f"{pair['x']} → {pair['y']} r [95% CI]",
+                  f"{pair['y']} → {pair['x']} r [95% CI]", "z difference [95% CI]",
+                  "unit pairs (fewer of the two)"), tuple(body),
+                 ("An arrow reads 'earlier ... with later ...'. Fisher-z averages over wave "
+                  "pairs, weighted by n - 3; CIs from the delete-a-group jackknife over "
+                  "replicate groups.",))
+
+
+# ----------------------------------------------------------------------------- reproducibility
+
+OPTION_FLAGS = (  # options-record key -> command-line flag, in the order written
+    ("id", "--id"), ("wave", "--wave"), ("values", "--value"), ("wide", "--wide"), ("items", "--items"),
+    ("wave_labels", "--wave-labels"), ("wave_times", "--wave-times"),
+    ("wave_order", "--wave-order"), ("weight", "--weight"), ("group", "--group"),
+    ("covariates", "--covariate"), ("missing_codes", "--missing-codes"),
+    ("duplicates", "--duplicates"), ("drop_bad_rows", "--drop-bad-rows"),
+    ("format", "--format"), ("delimiter", "--delimiter"), ("min_cell", "--min-cell"),
+    ("trajectory_sample", "--trajectory-sample"), ("trajectory_seed", "--trajectory-seed"),
+)
+
+
+def _number(v) -> str:
+    return str(int(v)) if isinstance(v, float) and v.is_integer() else str(v)
+
+
+def command_line(input_info: dict) -> str:
+    """The screen command rebuilt from the options record (output paths left out)."""
+    options = input_info.get("options", {})
+    args = ["paneldiag", "screen", input_info.get("path", "-")]
+    for key, flag in OPTION_FLAGS:
+        if key not in options:
+            continue
+        value = options[key]
+        if key in ("wide", "items"):
+            args += [a for name, cols in value.items() for a in (flag, f"{name}={','.join(cols)}")]
+        elif isinstance(value, bool):
+            args += [flag] if value else []
+        elif isinstance(value, list):
+            if key in ("wave_labels", "wave_times"):
+                args += [flag, ",".join(_number(v) for v in value)]
+            else:
+                args += [a for v in value for a in (flag, str(v))]
+        else:
+            args += [flag, _number(value)]
+    return shlex.join(args)
+
+
+def _versions() -> list[str]:
+    out = []
+    for name in ("numpy", "scipy", "pandas", "matplotlib"):
+        try:
+            out.append(f"{name} {metadata.version(name)}")
+        except metadata.PackageNotFoundError:
+            continue
+    return out
+
+
+def reproducibility(report: dict) -> list:
+    info = report.get("input", {})
+    options = info.get("options", {})
+    rows = tuple((key, ", ".join(f"{k}={','.join(v)}" for k, v in value.items())
+                  if isinstance(value, dict) else
+                  ", ".join(map(_number, value)) if isinstance(value, list) else _number(value))
+                 for key, value in options.items())
+    facts = [f"paneldiag {report['tool']['version']} (JSON schema {report['schema_version']}); "
+             + "; ".join(_versions()),
+             f"Input file: {os.path.basename(str(info.get('path', '-')))}"
+             f" (format {info.get('format', 'unknown')})",
+             f"SHA-256 of the input: {info.get('sha256', 'unknown')}"]
+    return [Heading(2, "Reproducibility", "reproducibility"), ListBlock(tuple(facts)),
+            Table("options", "Options of the screen", ("option", "value"), rows,
+                  align="ll"),
+            Paragraph("The command that reproduces this screen (output paths not shown):"),
+            Code(command_line(info)),
+            Paragraph("The same input and options give byte-identical Markdown, LaTeX and "
+                      "JSON files; the figures are drawn with a fixed seed and no dates.")]
+
+
+# ----------------------------------------------------------------------------- assembly
+
+def _min_cell(report: dict) -> int:
+    return int(report.get("input", {}).get("options", {}).get("min_cell", 5))
+
+
+def cautions_note(report: dict) -> Note:
+    first = next(iter(measure_reports(report).values()))
+    items = list(first.get("cautions") or [])
+    items.append(f"Disclosure control: counts below {_min_cell(report)} are suppressed in every "
+                 "table and figure of this appendix, groups smaller than that are not "
+                 "reported, and individual trajectories are shown only when asked for.")
+    return Note("Read this first", tuple(dict.fromkeys(items)))
+
+
+def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, list[str]]:
+    """The appendix blocks, and the prose paragraphs (for checks).
+
+    ``figures`` maps a figure file stem to (caption, SVG bytes) for the figures drawn.
+    """
+    cite = prose.Citations()
+    min_cell = _min_cell(report)
+    info = report.get("input", {})
+    blocks: list = [Heading(1, TITLE),
+                    Paragraph(f"Screening of {os.path.basename(str(info.get('path', '-')))} "
+                              f"with paneldiag {report['tool']['version']}. "),
+                    cautions_note(report)]
+    paragraphs: list[str] = []
+
+    def add_prose(texts: list[str]) -> None:
+        for text in texts:
+            blocks.append(Paragraph(text, prose=True))
+            paragraphs.append(text)
+
+    def add_figure(name: str) -> None:
+        if name in figures:
+            caption, svg = figures[name]
+            blocks.append(FigureRef(name, caption, svg))
+
+    reports = measure_reports(report)
+    for measure, rep in reports.items():
+        stem = slug(measure)
+        blocks.append(Heading(2, f"Measure: {measure}", f"measure-{stem}"))
+        for title, writer in prose.MEASURE_PROSE:
+            texts = writer(rep, cite)
+            figure_names = {
+                "Sample": ["retention", "response_patterns"],
+                "Distribution by wave": ["wave_means", "trajectories"],
+                "Dependence over time": ["correlation", "lag_decay"],
+                "Reliability": ["reliability", "slopes"],
+                "Groups": ["groups"],
+            }.get(title, [])
+            tables = {
+                "Sample": [retention_table(rep, min_cell)],
+                "Distribution by wave": [wave_table(rep, min_cell)],
+                "Dependence over time": [lag_table(rep, min_cell)],
+                "Process families": [families_table(rep)],
+                "Groups": [group_table(rep)],
+            }.get(title, [])
+            drawn = [f"{stem}-{n}" for n in figure_names if f"{stem}-{n}" in figures]
+            tables = [t for t in tables if t is not None]
+            if not (texts or drawn or tables):
+                continue
+            blocks.append(Heading(3, title))
+            add_prose(texts)
+            blocks.extend(tables)
+            for name in drawn:
+                add_figure(name)
+    pairs = report.get("cross_lag") or []
+    if pairs:
+        blocks.append(Heading(2, "Cross-lagged correlations between measures", "cross-lag"))
+        for pair in pairs:
+            blocks.append(Heading(3, f"{pair['x']} and {pair['y']}"))
+            add_prose(prose.cross_lag(pair, cite))
+            blocks.append(cross_lag_table(pair, min_cell))
+            add_figure(f"cross-lag-{slug(pair['x'])}-{slug(pair['y'])}")
+    methods = ("All confidence intervals are 95% intervals. Correlations are averaged on the "
+               f"Fisher z scale {cite('fisher1921', 'hedges1985')}; their intervals come from "
+               f"the delete-a-group jackknife over replicate groups of units "
+               f"{cite('quenouille1956', 'kott2001')}. Figures use a palette that stays "
+               f"distinguishable under colour-vision deficiencies {cite('okabe2008')} and "
+               "differ by marker and line style as well.")
+    blocks += [Heading(2, "Notes on methods", "methods"), Paragraph(methods)]
+    blocks += [Heading(2, "References", "references"), ListBlock(tuple(cite.reference_list()))]
+    blocks += reproducibility(report)
+    return blocks, paragraphs
+
+
+def draw_figures(report: dict, panel=None, trajectory_sample: int = 0,
+                 trajectory_seed: int = 1) -> dict[str, tuple[str, bytes, bytes]]:
+    """Every figure whose data are present: stem -> (caption, PNG bytes, SVG bytes)."""
+    out = {}
+    for measure, rep in measure_reports(report).items():
+        stem = slug(measure)
+        for name, draw, caption in figs.MEASURE_FIGURES:
+            drawn = figs.render(draw, rep)
+            if drawn:
+                out[f"{stem}-{name}"] = (caption, *drawn)
+        if trajectory_sample and panel is not None and measure in panel.values:
+            drawn = figs.render(figs.trajectory_figure, rep, panel.values[measure],
+                                trajectory_sample, trajectory_seed)
+            if drawn:
+                out[f"{stem}-trajectories"] = (
+                    f"Observed trajectories of a random sample of units (seed "
+                    f"{trajectory_seed}); shown on request only, as individual data.", *drawn)
+    for pair in report.get("cross_lag") or []:
+        drawn = figs.render(figs.cross_lag_figure, pair)
+        if drawn:
+            out[f"cross-lag-{slug(pair['x'])}-{slug(pair['y'])}"] = (
+                f"Cross-lagged correlations of {pair['x']} and {pair['y']} by lag, both "
+                "directions, with 95% CIs.", *drawn)
+    return out
+
+
+def render_files(report: dict, panel=None, trajectory_sample: int = 0,
+                 trajectory_seed: int = 1) -> dict[str, bytes]:
+    """Every file of the report folder, by relative path."""
+    drawn = draw_figures(report, panel, trajectory_sample, trajectory_seed)
+    blocks, _ = build(report, {k: (cap, svg) for k, (cap, _png, svg) in drawn.items()})
+    files = {"appendix.md": to_markdown(blocks).encode("utf-8"),
+             "appendix.html": to_html(blocks, TITLE).encode("utf-8"),
+             "tables.tex": to_latex(blocks, TITLE).encode("utf-8"),
+             "report.json": report_json(report).encode("utf-8")}
+    for stem, (_cap, png, svg) in sorted(drawn.items()):
+        files[f"figures/{stem}.png"] = png
+        files[f"figures/{stem}.svg"] = svg
+    return files
+
+
+def check_report_folder(folder: str, inputs: list[str]) -> None:
+    """Refuse a folder that is or contains an input file, or holds files of other kinds."""
+    target = os.path.realpath(folder)
+    for path in inputs:
+        if path == "-" or not os.path.exists(path):
+            continue
+        real = os.path.realpath(path)
+        if real == target or real.startswith(target.rstrip(os.sep) + os.sep):
+            raise InputProblem("the report folder is or contains the input file; choose "
+                               "another folder", file=folder)
+    if os.path.exists(folder):
+        if not os.path.isdir(folder):
+            raise InputProblem("the report path exists and is not a folder", file=folder)
+        foreign = sorted(set(os.listdir(folder)) - set(FILES))
+        if foreign:
+            raise InputProblem(f"the report folder holds other files ({foreign[0]}, ...); "
+                               "choose a new or empty folder", file=folder)
+    parent = os.path.dirname(os.path.abspath(folder))
+    if not os.path.isdir(parent):
+        raise InputProblem("the folder that should hold the report does not exist",
+                           file=folder)
+
+
+def write_report(report: dict, folder: str, inputs: list[str], panel=None,
+                 trajectory_sample: int = 0, trajectory_seed: int = 1) -> list[str]:
+    """Write the report folder atomically; returns the relative paths written."""
+    check_report_folder(folder, inputs)
+    files = render_files(report, panel, trajectory_sample, trajectory_seed)
+    parent = os.path.dirname(os.path.abspath(folder))
+    name = os.path.basename(os.path.abspath(folder))
+    build_dir = tempfile.mkdtemp(dir=parent, prefix=f".{name}-", suffix=".part")
+    try:
+        os.makedirs(os.path.join(build_dir, "figures"))
+        for rel, payload in files.items():
+            with open(os.path.join(build_dir, rel), "wb") as stream:
+                stream.write(payload)
+                stream.flush()
+                os.fsync(stream.fileno())
+        os.chmod(build_dir, 0o755)
+        old = None
+        if os.path.exists(folder):
+            old = tempfile.mkdtemp(dir=parent, prefix=f".{name}-", suffix=".old")
+            os.rmdir(old)
+            os.replace(folder, old)
+        try:
+            os.replace(build_dir, folder)
+        except OSError:
+            if old:
+                os.replace(old, folder)
+            raise
+        if old:
+            shutil.rmtree(old, ignore_errors=True)
+    except BaseException:
+        shutil.rmtree(build_dir, ignore_errors=True)
+        raise
+    return sorted(files)

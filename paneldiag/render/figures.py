@@ -1,0 +1,439 @@
+"""Figures for the appendix, drawn only from the report dictionary.
+
+Each figure function takes a per-measure report (or the whole report for the cross-lag
+figure) and returns a matplotlib Figure, or None when the data it needs are absent. The
+one exception is the trajectory sample, which needs the panel itself and is drawn only
+when asked for (individual trajectories are a disclosure risk).
+
+Style: the Okabe-Ito palette (Okabe and Ito 2008, "Color Universal Design"), which stays
+distinguishable with the common colour-vision deficiencies; every series also differs
+by marker and line style, so the figures read in greyscale. Output is deterministic:
+the Agg backend, a fixed SVG hash salt and no dates in the file metadata.
+"""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+from scipy import stats  # noqa: E402
+
+OKABE_ITO = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00",
+             "#CC79A7")
+BLACK, ORANGE, SKY, GREEN, YELLOW, BLUE, VERMILLION, PURPLE = OKABE_ITO
+SERIES = ((BLUE, "o", "-"), (VERMILLION, "s", "--"), (GREEN, "^", "-."), (PURPLE, "D", ":"),
+          (ORANGE, "v", (0, (5, 1))), (SKY, "P", (0, (3, 1, 1, 1))), (BLACK, "X", "-"))
+RC = {
+    "svg.hashsalt": "paneldiag",
+    "svg.fonttype": "path",
+    "font.size": 9,
+    "axes.titlesize": 10,
+    "axes.labelsize": 9,
+    "legend.fontsize": 8,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "figure.dpi": 100,
+}
+PNG_DPI = 150
+
+
+def _figure(width: float = 6.0, height: float = 3.4) -> tuple[Figure, object]:
+    fig = Figure(figsize=(width, height), layout="constrained")
+    return fig, fig.add_subplot()
+
+
+def time_unit(report: dict) -> str:
+    """The unit of the wave times, for axis labels."""
+    return report.get("panel", {}).get("time_unit") or "time (wave time units)"
+
+
+def _wave_times(report: dict) -> dict[str, float]:
+    panel = report.get("panel", {})
+    return dict(zip(panel.get("waves", []), panel.get("times", [])))
+
+
+def _finite(*values) -> bool:
+    return all(v is not None and np.isfinite(v) for v in values)
+
+
+# ----------------------------------------------------------------------------- per measure
+
+def retention_figure(report: dict) -> Figure | None:
+    rows = (report.get("attrition") or {}).get("retention")
+    times = _wave_times(report)
+    if not rows or not times:
+        return None
+    fig, ax = _figure()
+    x = [times.get(r["wave"], np.nan) for r in rows]
+    for (color, marker, style), key, label in zip(
+            SERIES, ("retained_share", "response_share"),
+            ("retained (of the first wave's respondents)", "responding (of all units)")):
+        y = [100 * r[key] if r.get(key) is not None else np.nan for r in rows]
+        if np.isfinite(y).any():
+            ax.plot(x, y, color=color, marker=marker, linestyle=style, label=label)
+    ax.set_xticks(x, [r["wave"] for r in rows])
+    ax.set_ylim(0, 105)
+    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_ylabel("share of units (%)")
+    ax.set_title("Retention and response by wave")
+    ax.legend(loc="lower left", frameon=False)
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+def _pattern_rows(report: dict):
+    """(pattern string, share, count) rows of the response-pattern table, if any."""
+    patterns = (report.get("missingness") or {}).get("patterns")
+    if isinstance(patterns, dict):
+        patterns = patterns.get("rows") or patterns.get("patterns")
+    if not isinstance(patterns, list) or not patterns:
+        return None
+    out = []
+    for row in patterns:
+        text = row.get("pattern")
+        if not isinstance(text, str):
+            continue
+        out.append((text, row.get("share"), row.get("n")))
+    return out or None
+
+
+def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
+    """A grid of the most frequent response patterns: a filled square for a wave
+    answered, an open square for a wave missed, and each pattern's share as a bar."""
+    rows = _pattern_rows(report)
+    waves = report.get("panel", {}).get("waves", [])
+    if not rows or not waves:
+        return None
+    rows = [r for r in rows if r[1] is not None][:max_rows]
+    if not rows:
+        return None
+    height = 1.2 + 0.28 * len(rows)
+    fig = Figure(figsize=(6.4, height), layout="constrained")
+    grid, bars = fig.subplots(1, 2, width_ratios=[max(len(waves), 3), 3], sharey=True)
+    for i, (pattern, share, _) in enumerate(rows):
+        marks = [c for c in pattern if c not in " .-|"] if len(pattern) != len(waves) else \
+            list(pattern)
+        for j, mark in enumerate(marks[:len(waves)]):
+            seen = mark in "1xXoO+"
+            grid.scatter(j, i, s=70, marker="s", color=BLUE if seen else "white",
+                         edgecolors=BLACK, linewidths=0.8)
+        bars.barh(i, 100 * share, color=SKY, edgecolor=BLACK, linewidth=0.6, hatch="//")
+    grid.set_xticks(range(len(waves)), waves, rotation=45)
+    grid.set_yticks(range(len(rows)), [f"#{i + 1}" for i in range(len(rows))])
+    grid.invert_yaxis()
+    grid.set_xlabel("wave (filled: answered, open: missed)")
+    grid.set_ylabel("response pattern (most frequent first)")
+    for side in ("left", "bottom"):
+        grid.spines[side].set_visible(False)
+    grid.tick_params(length=0)
+    bars.set_xlabel("share of units (%)")
+    bars.grid(axis="x", color="#dddddd", linewidth=0.6)
+    fig.suptitle("Response patterns", fontsize=10)
+    return fig
+
+
+def wave_means_figure(report: dict) -> Figure | None:
+    """Wave means with a 95% t confidence interval (mean +- t_{n-1} sd / sqrt(n)) and a
+    band of +- 1 SD, against the actual wave times (so an uneven gap shows)."""
+    rows = report.get("wave_profile")
+    times = _wave_times(report)
+    if not rows or not times:
+        return None
+    keep = [r for r in rows if r.get("n", 0) > 1 and _finite(r.get("mean"), r.get("sd"))]
+    if not keep:
+        return None
+    x = np.array([times[r["wave"]] for r in keep], dtype=float)
+    mean = np.array([r["mean"] for r in keep])
+    sd = np.array([r["sd"] for r in keep])
+    n = np.array([r["n"] for r in keep], dtype=float)
+    half = stats.t.ppf(0.975, n - 1) * sd / np.sqrt(n)
+    fig, ax = _figure()
+    ax.fill_between(x, mean - sd, mean + sd, color=SKY, alpha=0.3, linewidth=0,
+                    label="mean ± 1 SD")
+    for edge in (mean - sd, mean + sd):
+        ax.plot(x, edge, color=SKY, linestyle=":", linewidth=1.0)
+    ax.errorbar(x, mean, yerr=half, color=BLUE, marker="o", linestyle="-", capsize=3,
+                label="mean with 95% CI")
+    ax.set_xticks(x, [r["wave"] for r in keep])
+    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_ylabel(f"{report.get('measure', 'measure')}")
+    ax.set_title("Wave means")
+    ax.legend(loc="best", frameon=False)
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+def _matrix(report: dict):
+    corr = report.get("correlation")
+    if isinstance(corr, dict):
+        for key in ("matrix", "r", "pearson", "values"):
+            if isinstance(corr.get(key), list):
+                return np.array(corr[key], dtype=float), corr.get("waves")
+    if isinstance(corr, list) and corr and isinstance(corr[0], list):
+        return np.array(corr, dtype=float), None
+    return None, None
+
+
+def correlation_figure(report: dict) -> Figure | None:
+    matrix, waves = _matrix(report)
+    waves = waves or report.get("panel", {}).get("waves")
+    if matrix is None or matrix.ndim != 2 or not waves or len(waves) != matrix.shape[0]:
+        return None
+    size = min(6.0, 2.2 + 0.45 * len(waves))
+    fig, ax = _figure(size + 0.9, size)
+    image = ax.imshow(np.ma.masked_invalid(matrix), cmap="cividis", vmin=min(0.0,
+                      np.nanmin(matrix)), vmax=1.0)
+    if len(waves) <= 12:
+        for i in range(len(waves)):
+            for j in range(len(waves)):
+                if np.isfinite(matrix[i, j]):
+                    light = image.norm(matrix[i, j]) > 0.6
+                    ax.text(j, i, f"{matrix[i, j]:.2f}", ha="center", va="center", fontsize=7,
+                            color=BLACK if light else "white")
+    ax.set_xticks(range(len(waves)), waves, rotation=45)
+    ax.set_yticks(range(len(waves)), waves)
+    ax.set_xlabel("wave")
+    ax.set_ylabel("wave")
+    ax.set_title("Correlations between waves")
+    fig.colorbar(image, ax=ax, shrink=0.8, label="correlation")
+    return fig
+
+
+def _decay_parts(report: dict):
+    fit = report.get("decay_fit") or {}
+
+    def value(*names):
+        for name in names:
+            node = fit.get(name)
+            if isinstance(node, dict):
+                node = node.get("estimate", node.get("value"))
+            if isinstance(node, (int, float)) and not isinstance(node, bool):
+                return float(node)
+        return None
+    return value("a", "stable"), value("b", "decaying"), value("rho", "carry_over")
+
+
+def lag_decay_figure(report: dict) -> Figure | None:
+    """Mean correlation by time distance with CIs, the fitted curve a + b rho^d, and two
+    references: flat (no decay, a + b at every distance: compound symmetry) and pure
+    decay ((a + b) rho^d, no stable part: a simplex)."""
+    rows = [r for r in (report.get("lag_profile") or []) if _finite(r.get("mean_r"))]
+    if not rows:
+        return None
+    d = np.array([r.get("time_distance", r.get("lag")) for r in rows], dtype=float)
+    r = np.array([r["mean_r"] for r in rows])
+    lo = np.array([np.nan if r_.get("ci_low") is None else r_["ci_low"] for r_ in rows])
+    hi = np.array([np.nan if r_.get("ci_high") is None else r_["ci_high"] for r_ in rows])
+    fig, ax = _figure()
+    err = np.vstack([np.where(np.isfinite(lo), r - lo, 0), np.where(np.isfinite(hi), hi - r, 0)])
+    ax.errorbar(d, r, yerr=err, color=BLACK, marker="o", linestyle="none", capsize=3,
+                label="mean correlation, 95% CI")
+    a, b, rho = _decay_parts(report)
+    if _finite(a, b, rho):
+        grid = np.linspace(0, d.max() * 1.05, 200)
+        ax.plot(grid, a + b * rho ** grid, color=BLUE, linestyle="-", label="fitted: a + b·ρ^d")
+        ax.plot(grid, np.full_like(grid, a + b), color=VERMILLION, linestyle="--",
+                label="flat reference (no decay)")
+        ax.plot(grid, (a + b) * rho ** grid, color=GREEN, linestyle=":",
+                label="pure decay (no stable part)")
+    ax.set_xlim(left=0)
+    ax.set_ylim(min(0.0, np.nanmin(lo) if np.isfinite(lo).any() else 0.0) - 0.02, 1.0)
+    ax.set_xlabel(f"time distance between waves ({time_unit(report)})")
+    ax.set_ylabel("correlation")
+    ax.set_title("Decay of correlation with time distance")
+    ax.legend(loc="lower left", frameon=False)
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+def _reliability_rows(report: dict):
+    rel = report.get("reliability") or {}
+    out = {}
+    for method in ("heise", "wiley_wiley"):
+        node = rel.get(method)
+        rows = node.get("by_wave") if isinstance(node, dict) else node
+        if isinstance(rows, list):
+            rows = [r for r in rows if isinstance(r, dict) and _finite(r.get("estimate"))]
+            if rows:
+                out[method] = rows
+    return out
+
+
+def reliability_figure(report: dict) -> Figure | None:
+    methods = _reliability_rows(report)
+    times = _wave_times(report)
+    if not methods or not times:
+        return None
+    fig, ax = _figure()
+    names = {"heise": "Heise (1969)", "wiley_wiley": "Wiley and Wiley (1970)"}
+    offsets = np.linspace(-0.08, 0.08, len(methods))
+    for (method, rows), (color, marker, style), off in zip(methods.items(), SERIES, offsets):
+        x = np.array([times.get(r.get("wave"), np.nan) for r in rows]) + off
+        y = np.array([r["estimate"] for r in rows])
+        lo = np.array([np.nan if r.get("ci_low") is None else r["ci_low"] for r in rows])
+        hi = np.array([np.nan if r.get("ci_high") is None else r["ci_high"] for r in rows])
+        err = np.vstack([np.where(np.isfinite(lo), y - lo, 0), np.where(np.isfinite(hi), hi - y, 0)])
+        ax.errorbar(x, y, yerr=err, color=color, marker=marker, linestyle=style, capsize=3,
+                    label=names.get(method, method))
+    ax.set_xticks(list(times.values()), list(times))
+    ax.set_ylim(0, 1.05)
+    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_ylabel("reliability")
+    ax.set_title("Reliability by wave, with 95% CIs")
+    ax.legend(loc="lower left", frameon=False)
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+def _slope_histogram(report: dict):
+    growth = report.get("growth") or {}
+    slopes = growth.get("slopes") or growth.get("unit_slopes") or {}
+    hist = slopes.get("histogram") if isinstance(slopes, dict) else None
+    if isinstance(hist, dict) and isinstance(hist.get("edges"), list) and \
+            isinstance(hist.get("counts"), list):
+        return np.array(hist["edges"], dtype=float), \
+            np.array([np.nan if c is None else c for c in hist["counts"]], dtype=float), slopes
+    return None, None, slopes
+
+
+def slope_figure(report: dict) -> Figure | None:
+    edges, counts, slopes = _slope_histogram(report)
+    if edges is None or len(edges) != len(counts) + 1:
+        return None
+    fig, ax = _figure()
+    widths = np.diff(edges)
+    shown = np.where(np.isfinite(counts), counts, 0)
+    ax.bar(edges[:-1], shown, width=widths, align="edge", color=SKY, edgecolor=BLACK,
+           linewidth=0.6, hatch="//", label="units per bin")
+    mean = slopes.get("mean") if isinstance(slopes, dict) else None
+    if _finite(mean):
+        ax.axvline(mean, color=VERMILLION, linestyle="--", label="mean slope")
+    ax.set_xlabel(f"per-unit slope ({report.get('measure', 'measure')} per time unit)")
+    ax.set_ylabel("units")
+    ax.set_title("Distribution of per-unit growth slopes")
+    ax.legend(loc="best", frameon=False)
+    return fig
+
+
+def group_figure(report: dict) -> Figure | None:
+    """Dot-and-whisker plot of each compared figure by group."""
+    comparison = (report.get("groups") or {}).get("comparison") or []
+    comparison = [c for c in comparison
+                  if any(_finite(v.get("estimate")) for v in c.get("by_group", []))]
+    if not comparison:
+        return None
+    fig = Figure(figsize=(6.4, 0.6 + 1.9 * len(comparison)), layout="constrained")
+    axes = np.atleast_1d(fig.subplots(len(comparison), 1))
+    for ax, comp in zip(axes, comparison):
+        values = comp["by_group"]
+        ys = np.arange(len(values))
+        for y, v, (color, marker, _) in zip(ys, values, SERIES * 4):
+            if not _finite(v.get("estimate")):
+                continue
+            lo, hi = v.get("ci_low"), v.get("ci_high")
+            if _finite(lo, hi):
+                ax.plot([lo, hi], [y, y], color=color, linewidth=1.4)
+            ax.plot([v["estimate"]], [y], color=color, marker=marker, linestyle="none")
+        ax.set_yticks(ys, [v["group"] for v in values])
+        ax.invert_yaxis()
+        ax.set_xlabel(comp["label"])
+        ax.grid(axis="x", color="#dddddd", linewidth=0.6)
+    fig.suptitle("Key figures by group, with 95% CIs", fontsize=10)
+    return fig
+
+
+def trajectory_figure(report: dict, values: np.ndarray, n_sample: int, seed: int) -> Figure | None:
+    """A seeded random sample of ``n_sample`` units' observed trajectories."""
+    times = _wave_times(report)
+    if n_sample <= 0 or values.size == 0 or not times:
+        return None
+    seen = np.flatnonzero((~np.isnan(values)).sum(axis=1) >= 2)
+    if len(seen) == 0:
+        return None
+    rng = np.random.default_rng(seed)
+    pick = np.sort(rng.choice(seen, size=min(n_sample, len(seen)), replace=False))
+    x = np.array(list(times.values()), dtype=float)
+    fig, ax = _figure()
+    for i, unit in enumerate(pick):
+        y = values[unit]
+        ok = ~np.isnan(y)
+        color, marker, style = SERIES[i % len(SERIES)]
+        ax.plot(x[ok], y[ok], color=color, marker=marker, linestyle=style, linewidth=0.9,
+                markersize=3.5, alpha=0.85)
+    ax.set_xticks(x, list(times))
+    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_ylabel(report.get("measure", "measure"))
+    ax.set_title(f"Observed trajectories of {len(pick)} randomly drawn units")
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+def cross_lag_figure(pair: dict) -> Figure | None:
+    rows = [r for r in pair.get("lags", []) if _finite(r["x_leads"]["r"]) or
+            _finite(r["y_leads"]["r"])]
+    if not rows:
+        return None
+    fig, ax = _figure()
+    for key, label, (color, marker, style), off in (
+            ("x_leads", f"{pair['x']} earlier, {pair['y']} later", SERIES[0], -0.06),
+            ("y_leads", f"{pair['y']} earlier, {pair['x']} later", SERIES[1], 0.06)):
+        pts = [(r["lag"] + off, r[key]) for r in rows if _finite(r[key]["r"])]
+        x = np.array([p[0] for p in pts])
+        y = np.array([p[1]["r"] for p in pts])
+        lo = np.array([p[1]["ci_low"] if _finite(p[1]["ci_low"]) else p[1]["r"] for p in pts])
+        hi = np.array([p[1]["ci_high"] if _finite(p[1]["ci_high"]) else p[1]["r"] for p in pts])
+        ax.errorbar(x, y, yerr=np.vstack([y - lo, hi - y]), color=color, marker=marker,
+                    linestyle=style, capsize=3, label=label)
+    ax.axhline(0, color="#999999", linewidth=0.6)
+    ax.set_xticks([r["lag"] for r in rows])
+    ax.set_xlabel("lag (waves apart)")
+    ax.set_ylabel("correlation")
+    ax.set_title(f"Cross-lagged correlations: {pair['x']} and {pair['y']}")
+    ax.legend(loc="best", frameon=False)
+    ax.grid(axis="y", color="#dddddd", linewidth=0.6)
+    return fig
+
+
+MEASURE_FIGURES = (
+    ("retention", retention_figure,
+     "Retention (share of the first wave's respondents still responding) and response "
+     "(share of all units responding) by wave."),
+    ("response_patterns", response_pattern_figure,
+     "The most frequent response patterns; filled squares mark waves answered. Patterns "
+     "held by fewer units than the minimum cell size are not shown."),
+    ("wave_means", wave_means_figure,
+     "Wave means with 95% confidence intervals and a band of one standard deviation, "
+     "placed at the actual wave times."),
+    ("correlation", correlation_figure, "Correlations between waves."),
+    ("lag_decay", lag_decay_figure,
+     "Mean correlation by time distance (95% CIs) with the fitted decay curve and two "
+     "references: flat (no decay) and pure decay (no stable part)."),
+    ("reliability", reliability_figure, "Reliability estimates by wave with 95% CIs."),
+    ("slopes", slope_figure, "Distribution of per-unit growth slopes (suppressed bins left "
+     "empty)."),
+    ("groups", group_figure, "Key figures by group with 95% confidence intervals."),
+)
+
+
+def save(fig: Figure) -> tuple[bytes, bytes]:
+    """(PNG bytes, SVG bytes), deterministic."""
+    with plt.rc_context(RC):
+        png, svg = io.BytesIO(), io.BytesIO()
+        fig.savefig(png, format="png", dpi=PNG_DPI, metadata={"Software": None})
+        fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
+    return png.getvalue(), svg.getvalue()
+
+
+def render(draw, *args) -> tuple[bytes, bytes] | None:
+    """Draw a figure under the house style and return its PNG and SVG bytes."""
+    with plt.rc_context(RC):
+        fig = draw(*args)
+        if fig is None:
+            return None
+        return save(fig)

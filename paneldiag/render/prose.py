@@ -1,0 +1,327 @@
+"""The appendix prose: short paragraphs in neutral academic English, numbers filled in.
+
+Every number written here is read from the report dictionary and printed with one of
+the formats below (counts, shares as percentages, two- or three-decimal values), so a
+reader can find each one in the JSON report. Each paragraph appears only when the
+section it describes is in the report. Methods are cited by author and year; the
+reference list holds the works cited.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+REFERENCES = {
+    "campbell1963": ("Campbell 1963", "Campbell, D. T. (1963). From description to "
+                     "experimentation: Interpreting trends as quasi-experiments. In C. W. "
+                     "Harris (Ed.), Problems in Measuring Change (pp. 212-242). University "
+                     "of Wisconsin Press."),
+    "cochran1954": ("Cochran 1954", "Cochran, W. G. (1954). The combination of estimates "
+                    "from different experiments. Biometrics, 10, 101-129."),
+    "fisher1921": ("Fisher 1921", "Fisher, R. A. (1921). On the 'probable error' of a "
+                   "coefficient of correlation deduced from a small sample. Metron, 1, 3-32."),
+    "hedges1985": ("Hedges and Olkin 1985", "Hedges, L. V., & Olkin, I. (1985). Statistical "
+                   "Methods for Meta-Analysis. Academic Press."),
+    "heise1969": ("Heise 1969", "Heise, D. R. (1969). Separating reliability and stability "
+                  "in test-retest correlation. American Sociological Review, 34, 93-101."),
+    "kenny1975": ("Kenny 1975", "Kenny, D. A. (1975). Cross-lagged panel correlation: A test "
+                  "for spuriousness. Psychological Bulletin, 82, 887-903."),
+    "kott2001": ("Kott 2001", "Kott, P. S. (2001). The delete-a-group jackknife. Journal of "
+                 "Official Statistics, 17, 521-526."),
+    "little1988": ("Little 1988", "Little, R. J. A. (1988). A test of missing completely at "
+                   "random for multivariate data with missing values. Journal of the "
+                   "American Statistical Association, 83, 1198-1202."),
+    "pearson1900": ("Pearson 1900", "Pearson, K. (1900). On the criterion that a given "
+                    "system of deviations from the probable in the case of a correlated "
+                    "system of variables is such that it can be reasonably supposed to have "
+                    "arisen from random sampling. Philosophical Magazine, 50, 157-175."),
+    "quenouille1956": ("Quenouille 1956", "Quenouille, M. H. (1956). Notes on bias in "
+                       "estimation. Biometrika, 43, 353-360."),
+    "rogosa1980": ("Rogosa 1980", "Rogosa, D. (1980). A critique of cross-lagged "
+                   "correlation. Psychological Bulletin, 88, 245-258."),
+    "rubin1976": ("Rubin 1976", "Rubin, D. B. (1976). Inference and missing data. "
+                  "Biometrika, 63, 581-592."),
+    "wiley1970": ("Wiley and Wiley 1970", "Wiley, D. E., & Wiley, J. A. (1970). The "
+                  "estimation of measurement error in panel data. American Sociological "
+                  "Review, 35, 112-117."),
+    "dempster1977": ("Dempster, Laird and Rubin 1977", "Dempster, A. P., Laird, N. M., & "
+                     "Rubin, D. B. (1977). Maximum likelihood from incomplete data via the "
+                     "EM algorithm. Journal of the Royal Statistical Society B, 39, 1-38."),
+    "kenny1995": ("Kenny and Zautra 1995", "Kenny, D. A., & Zautra, A. (1995). The "
+                  "trait-state-error model for multiwave data. Journal of Consulting and "
+                  "Clinical Psychology, 63, 52-59."),
+    "okabe2008": ("Okabe and Ito 2008", "Okabe, M., & Ito, K. (2008). Color Universal "
+                  "Design (CUD): How to make figures and presentations that are friendly "
+                  "to colorblind people. J*Fly."),
+}
+
+
+def count(v) -> str:
+    return f"{int(v):,}"
+
+
+def pct(v) -> str:
+    return f"{100 * v:.1f}%"
+
+
+def dec(v, digits: int = 2) -> str:
+    return f"{v:.{digits}f}"
+
+
+def pval(p) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def ok(*values) -> bool:
+    return all(isinstance(v, (int, float)) and not isinstance(v, bool) and v == v
+               for v in values)
+
+
+@dataclass
+class Citations:
+    """The works cited so far, in order of first citation."""
+
+    used: list[str] = field(default_factory=list)
+
+    def __call__(self, *keys: str, narrative: bool = False) -> str:
+        for key in keys:
+            if key not in self.used:
+                self.used.append(key)
+        names = [REFERENCES[k][0] for k in keys]
+        if narrative:
+            return "; ".join(f"{n.rsplit(' ', 1)[0]} ({n.rsplit(' ', 1)[1]})" for n in names)
+        return "(" + "; ".join(names) + ")"
+
+    def reference_list(self) -> list[str]:
+        return sorted(REFERENCES[k][1] for k in self.used)
+
+
+def _join(items: list[str]) -> str:
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+# ----------------------------------------------------------------------------- sections
+
+def sample(report: dict, cite: Citations) -> list[str]:
+    panel, ledger = report.get("panel"), report.get("ledger")
+    if not panel:
+        return []
+    waves = panel.get("waves", [])
+    text = (f"The panel holds {count(panel['n_units'])} units observed over "
+            f"{count(panel['n_waves'])} waves ({waves[0]} to {waves[-1]}).")
+    if ledger and ok(ledger.get("rows_read")):
+        text += (f" Of the {count(ledger['rows_read'])} input rows, "
+                 f"{count(ledger['rows_used'])} were used for {report.get('measure')} and "
+                 f"{count(ledger['rows_dropped'])} were set aside")
+        reasons = [f"{reason.replace('_', ' ')}: {count(n)}"
+                   for reason, n in (ledger.get("dropped_by_reason") or {}).items() if n]
+        text += f" ({'; '.join(reasons)})." if reasons else "."
+    times = panel.get("times") or []
+    gaps = {round(b - a, 9) for a, b in zip(times, times[1:]) if ok(a, b)}
+    if len(gaps) > 1:
+        text += (" The waves are not evenly spaced in time; the analyses of dependence use "
+                 "the actual time distances between waves.")
+    return [text]
+
+
+def wave_profile(report: dict, cite: Citations) -> list[str]:
+    rows = [r for r in report.get("wave_profile") or [] if ok(r.get("mean"))]
+    if not rows:
+        return []
+    low = min(rows, key=lambda r: r["mean"])
+    high = max(rows, key=lambda r: r["mean"])
+    text = (f"The wave means of {report.get('measure')} ranged from {dec(low['mean'])} "
+            f"(wave {low['wave']}) to {dec(high['mean'])} (wave {high['wave']}), with standard "
+            f"deviations between {dec(min(r['sd'] for r in rows if ok(r['sd'])))} and "
+            f"{dec(max(r['sd'] for r in rows if ok(r['sd'])))}.")
+    floor = max((r for r in rows if ok(r.get("floor_share"))), key=lambda r: r["floor_share"],
+                default=None)
+    ceiling = max((r for r in rows if ok(r.get("ceiling_share"))),
+                  key=lambda r: r["ceiling_share"], default=None)
+    if floor and ceiling and max(floor["floor_share"], ceiling["ceiling_share"]) >= 0.15:
+        text += (f" Scores pile up at the ends of the scale: up to {pct(floor['floor_share'])} "
+                 f"at the lowest value (wave {floor['wave']}) and up to "
+                 f"{pct(ceiling['ceiling_share'])} at the highest (wave {ceiling['wave']}).")
+    return [text]
+
+
+def attrition(report: dict, cite: Citations) -> list[str]:
+    section = report.get("attrition") or {}
+    rows = [r for r in section.get("retention") or [] if ok(r.get("retained_share"))]
+    out = []
+    if rows:
+        last = rows[-1]
+        text = (f"Of the units that responded at the first wave, {pct(last['retained_share'])} "
+                f"still responded at the last wave ({last['wave']}).")
+        resp = [r for r in section.get("retention") if ok(r.get("response_share"))]
+        if resp:
+            low = min(resp, key=lambda r: r["response_share"])
+            text += (f" The share of all units responding was lowest at wave {low['wave']} "
+                     f"({pct(low['response_share'])}).")
+        out.append(text)
+    types = section.get("unit_types")
+    if isinstance(types, list) and types:
+        parts = [f"{t.get('type', t.get('unit_type', '')).replace('_', ' ')} "
+                 f"{pct(t['share'])}" for t in types
+                 if isinstance(t, dict) and ok(t.get("share")) and
+                 (t.get("type") or t.get("unit_type"))]
+        if parts:
+            out.append("By response history, the units divide into " + _join(parts) + ".")
+    elif isinstance(types, dict):
+        parts = [f"{name.replace('_', ' ')} {pct(v['share'])}" for name, v in types.items()
+                 if isinstance(v, dict) and ok(v.get("share"))]
+        if parts:
+            out.append("By response history, the units divide into " + _join(parts) + ".")
+    return out
+
+
+def missingness(report: dict, cite: Citations) -> list[str]:
+    section = report.get("missingness") or {}
+    out = []
+    mcar = section.get("little_mcar")
+    if isinstance(mcar, dict) and ok(mcar.get("statistic"), mcar.get("df"), mcar.get("pvalue")):
+        verdict = ("the data are unlikely to be missing completely at random"
+                   if mcar["pvalue"] < 0.05 else
+                   "it gives no evidence against missingness completely at random, which "
+                   "does not establish it")
+        patterns = (f" over {count(mcar['n_patterns'])} response patterns"
+                    if ok(mcar.get("n_patterns")) else "")
+        out.append(f"Little's test of missing completely at random "
+                   f"{cite('little1988', 'rubin1976')} gave a chi-square of "
+                   f"{dec(mcar['statistic'])} on {count(mcar['df'])} degrees of freedom"
+                   f"{patterns} ({pval(mcar['pvalue'])}): {verdict}.")
+    return out
+
+
+def dependence(report: dict, cite: Citations) -> list[str]:
+    rows = [r for r in report.get("lag_profile") or [] if ok(r.get("mean_r"))]
+    if not rows:
+        return []
+    first, last = rows[0], rows[-1]
+    ci = (f" (confidence interval {dec(first['ci_low'])} to {dec(first['ci_high'])})"
+          if ok(first.get("ci_low"), first.get("ci_high")) else "")
+    text = (f"Correlations between waves {dec(first['time_distance'])} time units apart "
+            f"averaged {dec(first['mean_r'])}{ci}, and {dec(last['mean_r'])} at a distance "
+            f"of {dec(last['time_distance'])} {cite('fisher1921', 'hedges1985')}.")
+    fit = report.get("decay_fit") or {}
+    parts = []
+    for key, words in (("stable_share", "the stable share a/(a+b) was estimated at"),
+                       ("carry_over", "the carry-over per time unit at"),
+                       ("rho", "the carry-over per time unit at")):
+        node = fit.get(key)
+        value = node.get("estimate") if isinstance(node, dict) else node
+        if ok(value) and not (key == "rho" and "carry_over" in fit):
+            ci = ""
+            if isinstance(node, dict) and ok(node.get("ci_low"), node.get("ci_high")):
+                ci = f" ({dec(node['ci_low'])} to {dec(node['ci_high'])})"
+            parts.append(f"{words} {dec(value)}{ci}")
+    if parts:
+        text += (" In a fit of the decay of correlation with time distance "
+                 f"{cite('kenny1995')}, " + _join(parts) + ".")
+    return [text]
+
+
+def reliability(report: dict, cite: Citations) -> list[str]:
+    summary = (report.get("reliability") or {}).get("summary")
+    if not isinstance(summary, dict) or not ok(summary.get("estimate")):
+        return []
+    ci = (f" (confidence interval {dec(summary['ci_low'])} to {dec(summary['ci_high'])})"
+          if ok(summary.get("ci_low"), summary.get("ci_high")) else "")
+    method = str(summary.get("method") or "")
+    refs = [k for k, word in (("heise1969", "heise"), ("wiley1970", "wiley"))
+            if word in method.lower()] or ["heise1969", "wiley1970"]
+    return [f"The reliability of {report.get('measure')}, estimated from the pattern of "
+            f"correlations across three or more waves {cite(*refs)}, was "
+            f"{dec(summary['estimate'])}{ci}."]
+
+
+def verdicts(report: dict, cite: Citations) -> list[str]:
+    families = report.get("families")
+    if not isinstance(families, list) or not families:
+        return []
+    groups: dict[str, list[str]] = {}
+    for fam in families:
+        if isinstance(fam, dict) and fam.get("family") and fam.get("verdict"):
+            groups.setdefault(str(fam["verdict"]), []).append(
+                str(fam["family"]).replace("_", " "))
+    if not groups:
+        return []
+    parts = [f"{_join(names)}: {verdict.replace('_', ' ')}" for verdict, names in groups.items()]
+    text = ("The screening evidence for the process families reads as follows (" +
+            "; ".join(parts) + ").")
+    nxt = report.get("next_models")
+    if isinstance(nxt, list) and nxt:
+        names = [str(m.get("model", m.get("name", ""))) if isinstance(m, dict) else str(m)
+                 for m in nxt]
+        names = [n for n in names if n]
+        if names:
+            text += (" Candidate models to fit and compare: " + _join(names) + ".")
+    text += (" These verdicts summarise evidence; they do not select a model, and the "
+             "candidates must still be fitted and compared.")
+    return [text]
+
+
+def groups(report: dict, cite: Citations) -> list[str]:
+    section = report.get("groups")
+    if not isinstance(section, dict):
+        return []
+    out = [f"The screen was repeated within each of the {count(section['n_reported'])} groups "
+           f"of {section['column']} with at least {count(section['min_cell'])} units."]
+    if section.get("n_suppressed"):
+        out[0] += (f" {count(section['n_suppressed'])} smaller group(s) are not reported "
+                   "(disclosure control).")
+    refs = {"Cochran's Q": "cochran1954", "Pearson chi-square": "pearson1900"}
+    for comp in section.get("comparison") or []:
+        vals = [v for v in comp["by_group"] if ok(v.get("estimate"))]
+        test = comp.get("test") or {}
+        if len(vals) < 2 or not ok(test.get("statistic"), test.get("pvalue")):
+            continue
+        low = min(vals, key=lambda v: v["estimate"])
+        high = max(vals, key=lambda v: v["estimate"])
+        fmt = pct if comp["figure"] == "retention" else dec
+        ref = refs.get(test.get("method"), "cochran1954")
+        out.append(f"The {comp['label']} ranged from {fmt(low['estimate'])} ({low['group']}) "
+                   f"to {fmt(high['estimate'])} ({high['group']}); the test of equality "
+                   f"across groups {cite(ref)} gave {dec(test['statistic'])} on "
+                   f"{count(test['df'])} degrees of freedom ({pval(test['pvalue'])}).")
+    return out
+
+
+def cross_lag(pair: dict, cite: Citations) -> list[str]:
+    lag1 = next((r for r in pair.get("lags", []) if r["lag"] == 1), None)
+    sync = pair.get("synchronous") or {}
+    if not lag1 or not ok(lag1["x_leads"]["r"], lag1["y_leads"]["r"]):
+        return []
+    x, y = pair["x"], pair["y"]
+    text = ""
+    if ok(sync.get("r")):
+        text = f"Measured at the same wave, {x} and {y} correlated {dec(sync['r'])} on average. "
+    text += (f"One wave apart, earlier {x} correlated {dec(lag1['x_leads']['r'])} with later "
+             f"{y}, and earlier {y} {dec(lag1['y_leads']['r'])} with later {x} "
+             f"{cite('campbell1963', 'kenny1975')}.")
+    if ok(lag1.get("z_difference"), lag1.get("z_difference_ci_low"),
+          lag1.get("z_difference_ci_high")):
+        excludes = (lag1["z_difference_ci_low"] > 0 or lag1["z_difference_ci_high"] < 0)
+        text += (f" The difference on the Fisher z scale was {dec(lag1['z_difference'], 3)} "
+                 f"(confidence interval {dec(lag1['z_difference_ci_low'], 3)} to "
+                 f"{dec(lag1['z_difference_ci_high'], 3)}; delete-a-group jackknife "
+                 f"{cite('quenouille1956', 'kott2001')})"
+                 + (", so the two directions differ." if excludes else
+                    ", so the two directions cannot be told apart."))
+    text += (" Such differences are descriptive and do not establish a causal order "
+             f"{cite('rogosa1980')}.")
+    return [text]
+
+
+MEASURE_PROSE = (
+    ("Sample", sample),
+    ("Distribution by wave", wave_profile),
+    ("Attrition", attrition),
+    ("Missing data", missingness),
+    ("Dependence over time", dependence),
+    ("Reliability", reliability),
+    ("Process families", verdicts),
+    ("Groups", groups),
+)
