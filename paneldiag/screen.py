@@ -13,12 +13,14 @@ from typing import Callable
 
 from paneldiag import SCHEMA_VERSION, __version__
 from paneldiag.diagnostics.crosslag import cross_lag_screen
+from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
 from paneldiag.diagnostics.groups import group_screen
 from paneldiag.diagnostics.profile import wave_profile
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
+from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
 from paneldiag.summaries.pairwise import PairwiseMoments
 
@@ -32,6 +34,7 @@ class ScreenOptions:
     min_cell: int = 5              # smallest count ever shown (disclosure control)
     n_replicates: int = N_REPLICATES
     chunk_units: int = CHUNK_UNITS
+    scale: str = "auto"             # "auto", "ordinal" or "continuous" (dependence)
     group_column: str | None = None  # name of the grouping column, for by-group screens
     by_group: bool = True            # screen each group too when the panel has groups
 
@@ -65,10 +68,11 @@ def _panel_section(ctx: MeasureContext) -> dict:
             "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
 
 
-SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments]
+SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables]
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
+    *DEPENDENCE_SECTIONS,
 ]
 
 

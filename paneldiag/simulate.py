@@ -87,3 +87,94 @@ def dropout_after(scores: np.ndarray, rng: np.random.Generator, base_rate: float
         leave = rng.random(n_units) < 1.0 / (1.0 + np.exp(-logit))
         gone[:, t] = gone[:, t - 1] | leave
     return gone
+
+
+# ----------------------------------------------------------------- family processes
+# The processes the process-family verdicts are validated on (see docs/rules.md and
+# docs/validation.md). Waves are at times 0, 1, ..., T - 1; ``u = t / (T - 1)`` runs from
+# 0 to 1 over the panel, so growth effects are stated over the panel's whole span and
+# mean the same thing at 4, 6 or 10 waves. Variances are of the true score; measurement
+# error comes on top through ``reliability``.
+
+FAMILIES = ("occasion_noise", "stable_trait", "autoregressive", "trait_autoregressive",
+            "linear_growth", "quadratic_growth", "free_shape_growth", "growth_autoregressive")
+
+SLOPE_SD_OVER_SPAN = 0.8      # unit slopes spread units apart by 0.8 SD over the span
+MEAN_CHANGE_OVER_SPAN = 1.0   # the mean rises by 1 SD (of the intercept) over the span
+CURVE_OVER_SPAN = -1.5        # quadratic mean: 2.5 u - 1.5 u^2 (a rise that levels off)
+SHAPE_AMOUNT_SD = 0.5         # free shape: unit amount 1 +- 0.5 of a 1.5 SD S-curve
+SHAPE_SIZE = 1.5
+
+
+def s_curve(times) -> np.ndarray:
+    """The free-shape growth curve: a logistic rise over the span, 0 at the first wave
+    and 1 at the last (not a polynomial: its remainder after a quadratic is large)."""
+    times = np.asarray(times, dtype=float)
+    u = (times - times[0]) / (times[-1] - times[0])
+    lam = 1.0 / (1.0 + np.exp(-12.0 * (u - 0.5)))
+    return (lam - lam[0]) / (lam[-1] - lam[0])
+
+
+def family_process(family: str, times, reliability: float = 1.0) -> Process:
+    """The generating process of ``family`` at wave times ``times`` (equally spaced).
+
+    occasion_noise         iid noise (variance 1) around the wave means (flat)
+    stable_trait           trait (0.5) + occasion noise (0.5)
+    autoregressive         carry-over only: AR(1), rho 0.7 per wave, variance 1
+    trait_autoregressive   trait (0.4) + AR(1) (rho 0.6, variance 0.6)
+    linear_growth          random intercept (1) + random slope (SD 0.8 over the span,
+                           mean 1.0 over the span) + occasion noise (0.5)
+    quadratic_growth       linear growth + a mean curvature: mean 2.5 u - 1.5 u^2
+    free_shape_growth      random intercept (1) + a unit-specific amount (1 +- 0.5) of a
+                           common S-shaped curve of size 1.5 + occasion noise (0.5)
+    growth_autoregressive  linear growth with AR(1) deviations (rho 0.6, variance 0.5)
+                           in place of occasion noise
+    """
+    times = np.asarray(times, dtype=float)
+    span = float(times[-1] - times[0])
+    growth = dict(trait_var=1.0, slope_mean=MEAN_CHANGE_OVER_SPAN / span,
+                  slope_var=(SLOPE_SD_OVER_SPAN / span) ** 2)
+    if family == "occasion_noise":
+        return Process(occasion_var=1.0, reliability=reliability)
+    if family == "stable_trait":
+        return Process(trait_var=0.5, occasion_var=0.5, reliability=reliability)
+    if family == "autoregressive":
+        return Process(ar_var=1.0, rho=0.7, reliability=reliability)
+    if family == "trait_autoregressive":
+        return Process(trait_var=0.4, ar_var=0.6, rho=0.6, reliability=reliability)
+    if family == "linear_growth":
+        return Process(**growth, occasion_var=0.5, reliability=reliability)
+    if family == "quadratic_growth":
+        growth["slope_mean"] = 2.5 / span
+        return Process(**growth, curve_mean=CURVE_OVER_SPAN / span ** 2, occasion_var=0.5,
+                       reliability=reliability)
+    if family == "free_shape_growth":
+        return Process(trait_var=1.0, mean_shape=tuple(SHAPE_SIZE * s_curve(times)),
+                       shape_loading_var=SHAPE_AMOUNT_SD ** 2, occasion_var=0.5,
+                       reliability=reliability)
+    if family == "growth_autoregressive":
+        return Process(**growth, ar_var=0.5, rho=0.6, reliability=reliability)
+    raise ValueError(f"unknown family {family!r}")
+
+
+DROPOUT_HAZARD = 0.08         # per wave, after the first
+DROPOUT_LOG_ODDS_PER_SD = 0.6  # 'dependent': higher previous scores leave more often
+
+
+def family_values(family: str, n_units: int, n_waves: int, reliability: float,
+                  dropout: str, rng: np.random.Generator) -> np.ndarray:
+    """Observed (n_units, n_waves) scores of ``family`` with NaN after dropout.
+
+    ``dropout``: 'none'; 'mcar' (monotone, hazard 0.08 a wave, unrelated to anything);
+    'dependent' (monotone, the log-odds of leaving rise by 0.6 per SD of the score
+    observed at the previous wave: missing at random given the observed scores).
+    """
+    times = np.arange(n_waves, dtype=float)
+    y = simulate(family_process(family, times, reliability), n_units, times, rng)
+    if dropout == "none":
+        return y
+    if dropout not in ("mcar", "dependent"):
+        raise ValueError(f"unknown dropout {dropout!r}")
+    slope = DROPOUT_LOG_ODDS_PER_SD if dropout == "dependent" else 0.0
+    gone = dropout_after(y, rng, DROPOUT_HAZARD, slope)
+    return np.where(gone, np.nan, y)
