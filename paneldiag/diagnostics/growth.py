@@ -85,7 +85,7 @@ class SlopeReliability(Result):
     estimate: float
     ci_low: float
     ci_high: float
-    slope_variance: float          # tau: variance of true slopes (moment estimate)
+    slope_variance: float          # tau: variance of true slopes (weighted moment estimate)
     residual_variance: float       # sigma^2: pooled within-unit residual variance
     mean_sampling_variance: float  # mean of sigma^2 / SS_t over units
     pooled_slope: float            # precision-weighted mean slope
@@ -208,12 +208,13 @@ def _slope_reliability_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
         slope_mean = (n * mean[:, 1]).sum() / j
         slope_ss = (m2[:, 1, 1] * (n > 0)).sum() + (n * (mean[:, 1] - slope_mean) ** 2).sum()
         mean_v = (n * np.where(n > 0, v, 0.0)).sum() / j
-        tau = slope_ss / (j - 1) - mean_v
+        w = np.where(n > 0, 1.0 / v, 0.0)
+        sum_w, sum_w2 = (n * w).sum(), (n * w * w).sum()
+        pooled = (n * w * mean[:, 1]).sum() / sum_w
+        chi2 = (w * (m2[:, 1, 1] * (n > 0) + n * (mean[:, 1] - pooled) ** 2)).sum()
+        tau = (chi2 - (j - 1)) / (sum_w - sum_w2 / sum_w)
         lam = np.where(n > 0, tau / (tau + v), 0.0)
         reliability = (n * lam).sum() / j
-        w = np.where(n > 0, 1.0 / v, 0.0)
-        pooled = (n * w * mean[:, 1]).sum() / (n * w).sum()
-        chi2 = (w * (m2[:, 1, 1] * (n > 0) + n * (mean[:, 1] - pooled) ** 2)).sum()
     return {"n": j, "sigma2": sigma2, "tau": tau, "mean_v": mean_v, "reliability": reliability,
             "pooled": pooled, "chi2": chi2, "df_resid": df_resid}
 
@@ -289,13 +290,16 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95) -> SlopeR
 
     With sigma^2 the pooled within-unit residual variance of the linear fits and
     SS_t,j the sum of squared deviations of unit j's observed times, the sampling
-    variance of its slope is v_j = sigma^2 / SS_t,j. The variance of true slopes is
-    the moment estimate tau = (sum (b_j - mean b)^2) / (J - 1) - mean v_j, and the
-    reliability is the average of lambda_j = tau / (tau + v_j) over the J units. The
-    homogeneity test is chi^2 = sum (b_j - b_pooled)^2 / v_j on J - 1 degrees of
-    freedom, b_pooled the precision-weighted mean slope. A negative tau (slopes
-    vary less than sampling error alone would make them) is reported with the
-    reason; the reliability is then not a proportion and is not clipped.
+    variance of its slope is v_j = sigma^2 / SS_t,j. The homogeneity test is
+    chi^2 = sum (b_j - b_pooled)^2 / v_j on J - 1 degrees of freedom, b_pooled the
+    precision-weighted mean slope. The variance of true slopes is the precision-
+    weighted moment estimate that goes with that statistic, tau = (chi^2 - (J - 1)) /
+    (sum w_j - sum w_j^2 / sum w_j) with w_j = 1 / v_j (DerSimonian and Laird 1986;
+    with equal v_j it is the one-way ANOVA estimate, equal to REML when positive),
+    and the reliability is the average of lambda_j = tau / (tau + v_j) over the J
+    units. A negative tau (slopes vary less than sampling error alone would make
+    them) is reported with the reason; the reliability is then not a proportion and
+    is not clipped.
 
     Serial dependence of the residuals (carry-over) inflates the spread of OLS slopes
     beyond sigma^2 / SS_t, so a panel with carry-over and no growth can show a high
@@ -306,6 +310,8 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95) -> SlopeR
     Raudenbush, S. W., and Bryk, A. S. (2002). Hierarchical Linear Models:
     Applications and Data Analysis Methods (2nd ed.), ch. 3 (reliability of OLS
     coefficients; homogeneity test of the coefficients' variance). Thousand Oaks: Sage.
+    DerSimonian, R., and Laird, N. (1986). Meta-analysis in clinical trials.
+    Controlled Clinical Trials, 7(3), 177-188.
     """
     pooled = summary.pooled()
     pd_ = _pattern_design(pooled)
@@ -544,3 +550,11 @@ def _ci(point, reps, level) -> tuple[float, float]:
         return float("nan"), float("nan")
     low, high = jackknife_ci(point, reps, level)
     return float(low), float(high)
+
+
+def growth_section(ctx) -> GrowthScreen:
+    """The screen's ``growth`` section for one measure (see paneldiag.screen)."""
+    from paneldiag.summaries.pairwise import PairwiseMoments
+
+    return growth_screen(ctx.summary(TrajectorySummary), ctx.summary(PairwiseMoments),
+                         ctx.panel.wave_times)

@@ -12,7 +12,7 @@ them: a value above 1 or below 0 is kept and marked with the reason, never clipp
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from itertools import combinations
 
 import numpy as np
@@ -380,3 +380,18 @@ def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
         items=tuple(item_names),
         omega_method="one-factor maximum likelihood (Joreskog 1967), covariance metric",
         waves=tuple(rows))
+
+
+def reliability_section(ctx) -> ReliabilityScreen | None:
+    """The screen's ``reliability`` section for one measure (see paneldiag.screen)."""
+    from paneldiag.summaries.pairwise import PairwiseMoments
+
+    result = quasi_simplex_reliability(ctx.summary(PairwiseMoments), ctx.panel.wave_labels)
+    items = ctx.panel.items.get(ctx.measure)
+    if items is None:
+        return result
+    consistency = internal_consistency(items, ctx.panel.wave_labels,
+                                       ctx.panel.item_columns[ctx.measure])
+    if result is None:
+        return None
+    return replace(result, internal_consistency=consistency)

@@ -172,9 +172,9 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
                 cube = np.full((n_units, n_waves, len(item_numbers)), np.nan)
                 cube[unit_index[kept][seen], wave_kept[seen], :] = item_numbers[:, seen].T
                 items[measure] = cube
+            reasons = dict(structural)
         if measure in items:
             item_columns[measure] = dict(spec.items)[measure]
-            reasons = dict(structural)
         _require_observed(raw, measure, matrix)
         for code, reason in _CELL_REASON.items():
             reasons[reason] = int((outcome_kept == code).sum())
