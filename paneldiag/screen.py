@@ -15,7 +15,9 @@ from paneldiag import SCHEMA_VERSION, __version__
 from paneldiag.diagnostics.crosslag import cross_lag_screen
 from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
 from paneldiag.diagnostics.groups import group_screen
+from paneldiag.diagnostics.growth import growth_section
 from paneldiag.diagnostics.profile import wave_profile
+from paneldiag.diagnostics.reliability import reliability_section
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
@@ -23,6 +25,7 @@ from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
 from paneldiag.summaries.pairwise import PairwiseMoments
+from paneldiag.summaries.trajectories import TrajectorySummary
 
 CAUTION_SCREENING = (
     "Screening evidence is not proof of a model: it shows which process families the data "
@@ -68,11 +71,13 @@ def _panel_section(ctx: MeasureContext) -> dict:
             "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
 
 
-SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables]
+SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary]
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
     *DEPENDENCE_SECTIONS,
+    ("reliability", reliability_section),
+    ("growth", growth_section),
 ]
 
 

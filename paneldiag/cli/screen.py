@@ -95,6 +95,10 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--min-cell", type=click.IntRange(1), default=5, show_default=True,
               help="Smallest count shown on its own (disclosure control).")
+@click.option("--ordinal/--continuous", "ordinal", default=None,
+              help="Treat every measure as ordinal (polychoric correlations) or as "
+                   "continuous. Default: ordinal when all values are integers with at "
+                   "most 7 distinct values.")
 @click.option("--report", "report_dir", metavar="DIR",
               help="Write the methods appendix (Markdown, HTML, LaTeX tables, figures, "
                    "JSON) to this folder, replacing it whole.")
@@ -106,7 +110,7 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
-            delimiter, json_path, min_cell, report_dir, trajectory_sample, trajectory_seed,
+            delimiter, json_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
             quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
@@ -130,12 +134,13 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     panel, ledgers = build_panel(raw, spec)
     progress.stage("screening")
     input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
-                  "options": _options_record(spec, fmt, delimiter, min_cell)}
+                  "options": dict(_options_record(spec, fmt, delimiter, min_cell),
+                                  scale=_scale(ordinal))}
     if report_dir and trajectory_sample:
         input_info["options"].update(trajectory_sample=trajectory_sample,
                                      trajectory_seed=trajectory_seed)
     report = screen(panel, ledgers, input_info,
-                    ScreenOptions(min_cell=min_cell, group_column=group))
+                    ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group))
     progress.done()
     if json_path:
         write_atomic(json_path, report_json(report))
@@ -145,6 +150,10 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
         progress.done()
     if not quiet:
         sys.stdout.write(render_terminal(report, color=use_color()))
+
+
+def _scale(ordinal: bool | None) -> str:
+    return "auto" if ordinal is None else ("ordinal" if ordinal else "continuous")
 
 
 def _options_record(spec: LayoutSpec, fmt, delimiter, min_cell) -> dict:
