@@ -74,3 +74,8 @@ def render_terminal(report: dict, color: bool = False) -> str:
               f" · sha256 {report['input']['sha256'][:12]}…")
     parts = [header] + [render_measure(r, color) for r in measures.values()]
     return "\n\n".join(parts) + "\n"
+
+
+from paneldiag.render.text_reliability import render_growth, render_reliability  # noqa: E402
+
+SECTION_RENDERERS += [("reliability", render_reliability), ("growth", render_growth)]

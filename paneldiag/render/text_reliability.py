@@ -1,0 +1,91 @@
+"""Terminal blocks for the reliability and growth sections of a measure's report."""
+
+from __future__ import annotations
+
+import math
+
+
+def _helpers():
+    """The shared text helpers (imported late: terminal.py registers these blocks)."""
+    from paneldiag.render import terminal
+    return terminal.heading, terminal.number, terminal.share, terminal.table
+
+
+def _p(value) -> str:
+    if value is None:
+        return "p –"
+    return "p < 0.001" if value < 0.001 else f"p = {value:.3f}"
+
+
+def _interval(low, high, digits: int = 3) -> str:
+    number = _helpers()[1]
+    if low is None or high is None:
+        return ""
+    return f" [{number(low, digits)}, {number(high, digits)}]"
+
+
+def render_reliability(report: dict, color: bool) -> list[str]:
+    heading, number, _, table = _helpers()
+    rel = report["reliability"]
+    summary = rel["summary"]
+    lines = [heading("Reliability (quasi-simplex)", color)]
+    lines.append(f"  Heise reliability, median of {summary['n_triplets']} wave triplet(s): "
+                 f"{number(summary['estimate'])}"
+                 f"{_interval(summary['ci_low'], summary['ci_high'])}"
+                 f" · basis {rel['basis'].replace('_', ' ')}")
+    if summary["n_impossible"]:
+        lines.append(f"  {summary['n_impossible']} triplet(s) give impossible values "
+                     "(kept as computed; reasons in the JSON report)")
+    middle = sorted(r["reliability"][1] for r in rel["wiley_wiley"]
+                    if r["reliability"][1] is not None)
+    if middle:
+        lines.append("  Wiley-Wiley (one error variance), median middle-wave reliability: "
+                     f"{number(_median(middle))}")
+    items = rel.get("internal_consistency")
+    if items:
+        rows = [[w["wave"], number(w["n"]), number(w["alpha"]),
+                 _interval(w["alpha_ci_low"], w["alpha_ci_high"]).strip(), number(w["omega"]),
+                 "Heywood" if w["heywood"] else ""] for w in items["waves"]]
+        lines.append(f"  Internal consistency of {len(items['items'])} items "
+                     f"({', '.join(items['items'])}):")
+        body = table(rows, ["wave", "n", "alpha", "95% interval", "omega", ""])
+        lines += ["    " + line for line in body.splitlines()]
+    return lines
+
+
+def render_growth(report: dict, color: bool) -> list[str]:
+    heading, number, share, _ = _helpers()
+    g = report["growth"]
+    fits, rel, auto = g["trajectories"], g["slope_reliability"], g["residual_autocorrelation"]
+    lines = [heading("Growth", color)]
+    lines.append(f"  per-unit lines for {number(fits['n_units'])} units "
+                 f"(curvature for {number(fits['n_units_curvature'])}); mean slope "
+                 f"{number(fits['mean_slope'])} per unit of time"
+                 f"{_interval(fits['mean_slope_ci_low'], fits['mean_slope_ci_high'])}, "
+                 f"sd {number(fits['sd_slope'])}")
+    flag = " (impossible: see JSON)" if rel["impossible"] else ""
+    lines.append(f"  slope reliability {number(rel['estimate'])}"
+                 f"{_interval(rel['ci_low'], rel['ci_high'])}{flag}; slope variance test "
+                 f"chi2 {number(rel['chi_square'], 1)} on {rel['df']:,} df, {_p(rel['pvalue'])}")
+    parts = [f"{c['component']} {share(c['share_of_change'])} ({_p(c['pvalue'])})"
+             for c in g["mean_shape"]["components"]]
+    lines.append("  mean shape, share of change in wave means: " + "; ".join(parts))
+    lines.append(f"  residual lag-1 autocorrelation after own lines {number(auto['lag1'])} "
+                 f"(expected {number(auto['expected_under_independence'])} under independence; "
+                 f"excess {number(auto['excess'])}, {_p(auto['pvalue'])})")
+    trend = g["variance_trend"]
+    if trend["log_variance_slope"] is not None:
+        factor = math.exp(trend["log_variance_slope"])
+        lines.append(f"  variance changes ×{factor:.3f} per unit of time "
+                     f"(last/first {number(trend['ratio_last_first'])}, {_p(trend['pvalue'])})")
+    icc = g["icc"]
+    lines.append(f"  share of variance between units, ICC(1) {number(icc['estimate'])}"
+                 f"{_interval(icc['ci_low'], icc['ci_high'])}"
+                 + (" (impossible: negative)" if icc["impossible"] else ""))
+    return lines
+
+
+def _median(values: list[float]) -> float:
+    n = len(values)
+    mid = n // 2
+    return values[mid] if n % 2 else 0.5 * (values[mid - 1] + values[mid])
