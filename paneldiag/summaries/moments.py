@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 
 @dataclass(frozen=True)
@@ -35,16 +36,24 @@ class WaveMoments:
         x = chunk.values
         seen = ~np.isnan(x)
         n = seen.sum(axis=0).astype(float)
+        unseen = ~seen
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.nansum(x, axis=0) / n
-            d = np.where(seen, x - mean, 0.0)
-            m2, m3 = (d * d).sum(axis=0), (d * d * d).sum(axis=0)
-        filled_lo = np.where(seen, x, np.inf)
-        filled_hi = np.where(seen, x, -np.inf)
-        lo, hi = filled_lo.min(axis=0), filled_hi.max(axis=0)
-        n_lo = (filled_lo == lo).sum(axis=0)
-        n_hi = (filled_hi == hi).sum(axis=0)
-        distinct = tuple(np.unique(x[seen[:, t], t]) for t in range(x.shape[1]))
+            d = np.where(seen, x, 0.0)
+            mean = d.sum(axis=0) / n
+            np.subtract(x, mean, out=d)
+            d[unseen] = 0.0
+            dd = d * d
+            m2 = dd.sum(axis=0)
+            dd *= d
+            m3 = dd.sum(axis=0)
+        del d, dd
+        # fmin / fmax skip NaN; a wave with no value keeps +-inf and counts every row,
+        # as the extremes of +-inf-filled columns would.
+        lo = np.where(n > 0, np.fmin.reduce(x, axis=0), np.inf)
+        hi = np.where(n > 0, np.fmax.reduce(x, axis=0), -np.inf)
+        n_lo = np.where(n > 0, (x == lo).sum(axis=0), x.shape[0])
+        n_hi = np.where(n > 0, (x == hi).sum(axis=0), x.shape[0])
+        distinct = tuple(_distinct(x[:, t]) for t in range(x.shape[1]))
         extra = {}
         if chunk.weights is not None:
             w = np.where(seen, chunk.weights[:, None], 0.0)
@@ -74,6 +83,12 @@ class WaveMoments:
             extra = dict(weight_sum=self.weight_sum + other.weight_sum,
                          weighted_mean=wmean, weighted_m2=wm2)
         return WaveMoments(self.n + other.n, mean, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+
+
+def _distinct(column: np.ndarray) -> np.ndarray:
+    """Sorted distinct observed values (a hash table, then a sort of the few left)."""
+    found = pd.unique(column)
+    return np.sort(found[~np.isnan(found)])
 
 
 def _combine(na, mean_a, m2a, m3a, nb, mean_b, m2b, m3b):

@@ -33,18 +33,24 @@ class PairwiseMoments:
                 shift = np.where(counts > 0, np.nansum(x, axis=0) / np.maximum(counts, 1), 0.0)
         k, t = chunk.n_replicates, x.shape[1]
         n, sx, sxx, sxy = (np.zeros((k, t, t)) for _ in range(4))
+        # Units sorted by replicate group once, so each group is a contiguous block.
         order = np.argsort(chunk.replicate, kind="stable")
         bounds = np.searchsorted(chunk.replicate[order], np.arange(k + 1))
+        d = x[order]
+        m = ~np.isnan(d)
+        d -= shift
+        d[~m] = 0.0
+        m = m.astype(float)
+        dd = d * d
         for g in range(k):  # a loop over replicate groups; each step is matrix algebra
-            rows = order[bounds[g]:bounds[g + 1]]
-            if len(rows) == 0:
+            lo, hi = bounds[g], bounds[g + 1]
+            if hi == lo:
                 continue
-            m = seen[rows].astype(float)
-            d = np.where(seen[rows], x[rows] - shift, 0.0)
-            n[g] = m.T @ m
-            sx[g] = d.T @ m
-            sxx[g] = (d * d).T @ m
-            sxy[g] = d.T @ d
+            mg, dg = m[lo:hi], d[lo:hi]
+            n[g] = mg.T @ mg
+            sx[g] = dg.T @ mg
+            sxx[g] = dd[lo:hi].T @ mg
+            sxy[g] = dg.T @ dg
         return cls(shift, n, sx, sxx, sxy)
 
     def merge(self, other: "PairwiseMoments") -> "PairwiseMoments":
