@@ -237,7 +237,8 @@ def _missing_mask(column: pd.Series) -> np.ndarray:
 def _factorize_ids(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     ids = column.iloc[rows] if len(rows) != len(column) else column
     codes, uniques = pd.factorize(ids, sort=True)
-    uniques = np.asarray(uniques.astype(object) if not isinstance(uniques, np.ndarray) else uniques)
+    numeric = pd.api.types.is_numeric_dtype(uniques.dtype) and uniques.dtype.kind != "b"
+    uniques = np.asarray(uniques, dtype=None if numeric else object)  # int ids stay exact
     if uniques.dtype.kind == "f" and np.all(np.mod(uniques, 1) == 0):
         uniques = uniques.astype(np.int64)
     return codes.astype(np.int64), uniques
