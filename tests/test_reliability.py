@@ -1,0 +1,275 @@
+"""Quasi-simplex reliability (Heise, Wiley-Wiley) and internal consistency of items."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from conftest import run_cli
+from paneldiag.diagnostics.reliability import (
+    alpha_interval, cronbach_alpha, heise_values, internal_consistency, item_covariance,
+    mcdonald_omega, one_factor_ml, quasi_simplex_reliability, triplets, wiley_wiley_values)
+from paneldiag.simulate import carry_over
+from paneldiag.summaries import Chunk, replicate_groups
+from paneldiag.summaries.pairwise import PairwiseMoments
+
+
+# ----------------------------------------------------------------------------- population truth
+
+def quasi_simplex_covariance(true_var0: float, stabilities, innovations, error_var: float):
+    """Exact covariance of a quasi-simplex: tau_1 with variance true_var0,
+    tau_{t+1} = b_t tau_t + zeta_t, observed y_t = tau_t + e_t, Var(e_t) = error_var."""
+    n_waves = len(stabilities) + 1
+    true_var = [true_var0]
+    for b, z in zip(stabilities, innovations):
+        true_var.append(b * b * true_var[-1] + z)
+    cov = np.zeros((n_waves, n_waves))
+    for s in range(n_waves):
+        for u in range(s, n_waves):
+            cov[s, u] = cov[u, s] = true_var[s] * np.prod(stabilities[s:u])
+    return cov + error_var * np.eye(n_waves), np.array(true_var)
+
+
+class ExactMoments:
+    """Moments with a fixed covariance: every replicate left out gives the same."""
+
+    def __init__(self, cov, k=5):
+        self.cov, self.k = cov, k
+
+    def covariance(self):
+        return self.cov
+
+    def correlation(self):
+        sd = np.sqrt(np.diag(self.cov))
+        return self.cov / np.outer(sd, sd)
+
+    def leave_one_out(self):
+        for _ in range(self.k):
+            yield self
+
+
+def test_heise_exact_on_stationary_quasi_simplex():
+    # Simulation truth, computed analytically: stationary true variance 1, carry-over
+    # b = 0.85 between waves, error variance 2/3, so reliability 0.6 at every wave and
+    # stability between waves s and u of 0.85 ** (u - s) (Heise 1969, ASR, eqs. for
+    # r12 r23 / r13 and r13 / r23).
+    b, rel = 0.85, 0.6
+    cov, _ = quasi_simplex_covariance(1.0, [b] * 4, [1 - b * b] * 4, (1 - rel) / rel)
+    trip = triplets(5)
+    v = heise_values(ExactMoments(cov).correlation(), trip)
+    np.testing.assert_allclose(v["reliability"], rel, rtol=1e-12)
+    s, t, u = trip.T
+    np.testing.assert_allclose(v["stability_first"], b ** (t - s), rtol=1e-12)
+    np.testing.assert_allclose(v["stability_second"], b ** (u - t), rtol=1e-12)
+    np.testing.assert_allclose(v["stability_outer"], b ** (u - s), rtol=1e-12)
+
+
+def test_wiley_wiley_exact_with_changing_true_variance():
+    # Simulation truth, computed analytically: true variance changes wave by wave,
+    # one error variance 0.5 (Wiley and Wiley 1970, ASR): every triplet recovers the
+    # error variance, the true variances and each wave's reliability exactly.
+    stab, innov, theta = [0.9, 0.7, 1.1, 0.8], [0.3, 0.6, 0.2, 0.5], 0.5
+    cov, true_var = quasi_simplex_covariance(1.2, stab, innov, theta)
+    trip = triplets(5)
+    v = wiley_wiley_values(cov, trip)
+    np.testing.assert_allclose(v["error_variance"], theta, rtol=1e-12)
+    np.testing.assert_allclose(v["true_variance"], true_var[trip], rtol=1e-12)
+    np.testing.assert_allclose(v["reliability"], true_var[trip] / (true_var[trip] + theta),
+                               rtol=1e-12)
+    true_corr = lambda a, c: np.prod(stab[a:c]) * np.sqrt(true_var[a] / true_var[c])  # noqa: E731
+    expect = [true_corr(s, t) for s, t, _ in trip]
+    np.testing.assert_allclose(v["stability_first"], expect, rtol=1e-12)
+
+
+def test_screen_on_exact_moments_has_no_problems_and_zero_width_interval():
+    # Simulation truth as above; with identical leave-one-out moments the jackknife
+    # standard error is exactly 0.
+    cov, _ = quasi_simplex_covariance(1.0, [0.85] * 3, [1 - 0.85 ** 2] * 3, 2 / 3)
+    result = quasi_simplex_reliability(ExactMoments(cov), ("1", "2", "3", "4"))
+    assert result.summary.estimate == pytest.approx(0.6, abs=1e-12)
+    assert result.summary.ci_low == pytest.approx(0.6, abs=1e-12)
+    assert result.summary.n_triplets == 4 and result.summary.n_impossible == 0
+    assert not any(r.impossible for r in result.heise + result.wiley_wiley)
+    out = result.to_dict()
+    assert set(out) == {"basis", "n_replicates", "heise", "wiley_wiley", "summary"}
+    assert set(out["summary"]) >= {"estimate", "ci_low", "ci_high", "method"}
+
+
+def test_impossible_values_are_kept_and_explained():
+    # Constructed case: r12 r23 = 0.64 > r13 = 0.5, so the Heise reliability is
+    # 1.28 (the formula's value, Heise 1969), above 1; it must not be clipped.
+    corr = np.array([[1.0, 0.8, 0.5], [0.8, 1.0, 0.8], [0.5, 0.8, 1.0]])
+    result = quasi_simplex_reliability(ExactMoments(corr), ("a", "b", "c"))
+    row = result.heise[0]
+    assert row.reliability == pytest.approx(0.64 / 0.5)
+    assert row.impossible and any("above 1" in p for p in row.problems)
+    ww = result.wiley_wiley[0]
+    assert ww.error_variance == pytest.approx(1 - 1.28)
+    assert ww.impossible and any("error variance negative" in p for p in ww.problems)
+    # negative outer correlation: undefined, with its reason
+    corr[0, 2] = corr[2, 0] = -0.1
+    row = quasi_simplex_reliability(ExactMoments(corr), ("a", "b", "c")).heise[0]
+    assert row.impossible and "r_su <= 0" in row.problems[0]
+
+
+def _simulated_summary(rng, n_units, n_waves, rel=0.6, rho=0.85, k=20):
+    times = np.arange(n_waves, dtype=float)
+    x = carry_over(n_units, times, rho, 1.0, rng) + rng.normal(0, np.sqrt((1 - rel) / rel),
+                                                               (n_units, n_waves))
+    chunk = Chunk(x, None, replicate_groups(np.arange(n_units), k), times, k)
+    return quasi_simplex_reliability(PairwiseMoments.from_chunk(chunk),
+                                     tuple(str(t) for t in range(n_waves))).summary
+
+
+def _coverage(n_reps, seed):
+    rng = np.random.default_rng(seed)
+    hits = [(s.ci_low <= 0.6 <= s.ci_high) for s in
+            (_simulated_summary(rng, 300, 4) for _ in range(n_reps))]
+    return float(np.mean(hits))
+
+
+def test_jackknife_interval_coverage_reduced_grid():
+    # Simulation with known truth: quasi-simplex, reliability 0.6, carry-over 0.85,
+    # N = 300, T = 4, 200 replicates. Looser band here; the 93-97% band is asserted on
+    # 1000 replicates in the slow test below (200 replicates gave 94.5% when written).
+    assert 0.90 <= _coverage(200, seed=11) <= 0.99
+
+
+@pytest.mark.slow
+def test_jackknife_interval_coverage_full_grid():
+    # Simulation with known truth as above, 1000 replicates (95.1% when written).
+    assert 0.93 <= _coverage(1000, seed=11) <= 0.97
+
+
+def test_pairwise_basis_with_missing_waves():
+    # Simulation with known truth: reliability 0.6 and 25% of cells missing completely
+    # at random; the pairwise-complete estimate stays near the truth.
+    rng = np.random.default_rng(4)
+    times = np.arange(5, dtype=float)
+    x = carry_over(4000, times, 0.85, 1.0, rng) + rng.normal(0, np.sqrt(2 / 3), (4000, 5))
+    x[rng.random(x.shape) < 0.25] = np.nan
+    chunk = Chunk(x, None, replicate_groups(np.arange(4000)), times, 20)
+    result = quasi_simplex_reliability(PairwiseMoments.from_chunk(chunk), tuple("abcde"))
+    assert result.basis == "pairwise_complete"
+    assert abs(result.summary.estimate - 0.6) < 4 * result.summary.se + 0.01
+
+
+# ----------------------------------------------------------------------------- items
+
+def test_cronbach_alpha_matches_pingouin():
+    # Reference library: pingouin.cronbach_alpha on pingouin's bundled
+    # 'cronbach_alpha' dataset (complete data; Feldt interval, pingouin rounds to 3 dp).
+    import pingouin as pg
+    data = pg.read_dataset("cronbach_alpha").pivot(index="Subj", columns="Items",
+                                                    values="Scores")
+    ref_alpha, ref_ci = pg.cronbach_alpha(data=data)
+    cov, n = item_covariance(data.to_numpy(float))
+    alpha = cronbach_alpha(cov)
+    assert alpha == pytest.approx(ref_alpha, rel=1e-12)
+    low, high = alpha_interval(alpha, n, data.shape[1])
+    assert (round(low, 3), round(high, 3)) == pytest.approx(tuple(ref_ci), abs=1e-9)
+
+
+def test_omega_exact_on_population_one_factor_covariance():
+    # Simulation truth, analytic: Sigma = lambda lambda' + diag(psi) gives back the
+    # loadings and omega = (sum lambda)^2 / ((sum lambda)^2 + sum psi) (McDonald 1999).
+    lam, psi = np.array([1.0, 0.8, 1.5, 0.6, 1.2]), np.array([0.5, 0.4, 1.0, 0.3, 0.8])
+    loadings, unique, heywood = one_factor_ml(np.outer(lam, lam) + np.diag(psi))
+    np.testing.assert_allclose(loadings, lam, rtol=1e-5)
+    np.testing.assert_allclose(unique, psi, rtol=1e-5)
+    assert not heywood
+    assert mcdonald_omega(loadings, unique) == pytest.approx(
+        lam.sum() ** 2 / (lam.sum() ** 2 + psi.sum()), rel=1e-6)
+
+
+def test_one_factor_ml_matches_statsmodels():
+    # Reference library: statsmodels.multivariate.factor.Factor(method='ml'), which
+    # fits on the correlation matrix; ML is scale-invariant, so standardised
+    # loadings and uniquenesses agree.
+    from statsmodels.multivariate.factor import Factor
+    rng = np.random.default_rng(8)
+    lam = np.array([0.9, 0.7, 0.5, 0.8])
+    x = rng.normal(size=(400, 1)) * lam + rng.normal(size=(400, 4)) * 0.6
+    cov = np.cov(x.T)
+    loadings, unique, _ = one_factor_ml(cov)
+    ref = Factor(corr=np.corrcoef(x.T), n_factor=1, method="ml", nobs=400).fit()
+    sd = np.sqrt(np.diag(cov))
+    np.testing.assert_allclose(loadings / sd, np.abs(ref.loadings[:, 0]), atol=1e-5)
+    np.testing.assert_allclose(unique / sd ** 2, ref.uniqueness, atol=1e-5)
+
+
+def test_heywood_case_is_flagged():
+    # Constructed: an item without unique variance (psi_1 = 0), a boundary solution.
+    lam = np.array([1.0, 0.6, 0.5, 0.7])
+    cov = np.outer(lam, lam) + np.diag([0.0, 0.5, 0.5, 0.5])
+    z = np.random.default_rng(1).normal(size=(3000, 4))
+    z -= z.mean(axis=0)
+    # rescale so that the sample covariance equals cov exactly
+    items = z @ np.linalg.inv(np.linalg.cholesky(np.cov(z.T)).T) @ np.linalg.cholesky(cov).T
+    result = internal_consistency(items[:, None, :], ("1",), ("a", "b", "c", "d"))
+    assert result.waves[0].heywood
+    assert any("Heywood" in p for p in result.waves[0].problems)
+
+
+def test_negative_alpha_is_reported_not_clipped():
+    # Constructed: two items with negative covariance give alpha < 0 (Cronbach 1951
+    # formula), reported with its reason.
+    cov = np.array([[1.0, -0.5], [-0.5, 1.0]])
+    assert cronbach_alpha(cov) == pytest.approx(2 * (1 - 2 / 1.0))
+    rng = np.random.default_rng(2)
+    items = rng.multivariate_normal([0, 0], cov, 500)[:, None, :]
+    row = internal_consistency(items, ("1",), ("a", "b")).waves[0]
+    assert row.alpha < 0 and any("alpha negative" in p for p in row.problems)
+
+
+def _item_file(path, n_units=400, seed=3):
+    rng = np.random.default_rng(seed)
+    lam = np.array([1.0, 0.8, 0.6])
+    frames = []
+    for wave in (2019, 2020, 2021):
+        f = rng.normal(size=(n_units, 1))
+        items = f * lam + rng.normal(size=(n_units, 3)) * 0.7
+        frames.append(pd.DataFrame({"tenant": np.arange(n_units), "year": wave,
+                                    "q1": items[:, 0], "q2": items[:, 1], "q3": items[:, 2]}))
+    frame = pd.concat(frames, ignore_index=True)
+    frame.loc[5, "q2"] = np.nan
+    frame.loc[7, "q3"] = -9
+    frame.to_csv(path, index=False)
+    return frame
+
+
+def test_cli_items_report_internal_consistency(tmp_path):
+    # Simulation with known loadings (one factor); alpha compared with
+    # pingouin.cronbach_alpha on the complete rows of the first wave.
+    import pingouin as pg
+    frame = _item_file(tmp_path / "items.csv")
+    out = tmp_path / "r.json"
+    done = run_cli("screen", tmp_path / "items.csv", "--id", "tenant", "--wave", "year",
+                   "--items", "calm=q1,q2,q3", "--missing-codes", "-9", "--json", out)
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads(out.read_text())
+    ledger = report["ledger"]
+    assert ledger["rows_read"] == ledger["rows_used"] + sum(ledger["dropped_by_reason"].values())
+    assert ledger["dropped_by_reason"]["missing_value"] == 1
+    assert ledger["dropped_by_reason"]["declared_missing_code"] == 1
+    ic = report["reliability"]["internal_consistency"]
+    assert ic["items"] == ["q1", "q2", "q3"]
+    first = frame[frame.year == 2019][["q1", "q2", "q3"]]
+    first = first[(first != -9).all(axis=1)].dropna()
+    assert ic["waves"][0]["n"] == len(first)
+    assert ic["waves"][0]["alpha"] == pytest.approx(pg.cronbach_alpha(data=first)[0], rel=1e-10)
+    assert 0.5 < ic["waves"][0]["omega"] < 1
+    assert "Internal consistency of 3 items" in done.stdout.decode()
+
+
+def test_cli_items_refused_for_wide_data(tmp_path):
+    # Design rule (docs/json-report.md): --items is for long data only.
+    pd.DataFrame({"id": [1, 2], "a1": [1, 2], "a2": [2, 3]}).to_csv(tmp_path / "w.csv",
+                                                                   index=False)
+    done = run_cli("screen", tmp_path / "w.csv", "--id", "id", "--wide", "a=a1,a2",
+                   "--items", "s=a1,a2")
+    assert done.returncode == 2
+    assert "--items is for long data" in done.stderr.decode()
