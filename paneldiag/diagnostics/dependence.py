@@ -478,7 +478,9 @@ def _difference_contrasts(m: int, total: int, positions: list[int]) -> np.ndarra
 
 @dataclass(frozen=True)
 class BandTest(Result):
-    lag: int
+    basis: str                   # "lag" or "time", as in the lag profile
+    lag: int | None
+    time_distance: float | None
     wave_pairs: int
     statistic: float
     df: tuple | None
@@ -493,13 +495,15 @@ class Stationarity(Result):
     equal_variances: TestResult
 
 
-def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments) -> Stationarity:
+def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
+                       times: np.ndarray) -> Stationarity:
     """Three tests of a stationary dependence pattern.
 
     - Equal correlations at all lags (compound symmetry): Lawley (1963), on the
       pairwise-complete Pearson matrix with N the harmonic mean of the pair counts.
     - Equal correlations within each lag band (stationarity of the correlation
-      structure, a Toeplitz pattern): Fisher z of the band's wave pairs, equality of
+      structure, a Toeplitz pattern; bands of equal time distance when the waves are
+      unequally spaced, as in the lag profile): Fisher z of the band's wave pairs, equality of
       all of them by an adjusted Wald test with the jackknife covariance (Korn and
       Graubard 1990), per band and jointly (all bands at once; Bonferroni over the
       bands when there are too many contrasts for the replicate groups).
@@ -532,15 +536,18 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments) -> Sta
     # bands on Fisher z of the primary correlation
     z = fisher_z(corr.matrix[iu])
     z_reps = fisher_z(corr.replicates[:, iu[0], iu[1]])
-    lags = iu[1] - iu[0]
+    spacing, all_bands = lag_bands(times)
+    basis = "time" if spacing == "unequal" else "lag"
+    position = {pair: i for i, pair in enumerate(zip(iu[0], iu[1]))}
     bands, joint_rows = [], []
-    for k in range(1, t - 1):
-        positions = list(np.flatnonzero(lags == k))
-        if len(positions) < 2:
+    for kind, lag, dist, pairs in all_bands:  # a loop over bands
+        if kind != basis or len(pairs) < 2:
             continue
+        positions = [position[pair] for pair in pairs]
         c = _difference_contrasts(len(positions), len(z), positions)
-        res = adjusted_wald(z, z_reps, c, f"band_{k}")
-        bands.append(BandTest(k, len(positions), res.statistic, res.df, res.p_value))
+        res = adjusted_wald(z, z_reps, c, f"band_{lag}")
+        bands.append(BandTest(kind, lag, dist, len(positions), res.statistic, res.df,
+                              res.p_value))
         joint_rows.append(c)
     if joint_rows:
         joint = adjusted_wald(z, z_reps, np.vstack(joint_rows), "equal_within_lag_bands")
@@ -827,7 +834,7 @@ def stationarity_section(ctx) -> Stationarity | None:
     corr = ctx.results.get("correlation")
     if corr is None or ctx.panel.n_waves < 3:
         return None
-    return stationarity_tests(corr, ctx.summary(PairwiseMoments))
+    return stationarity_tests(corr, ctx.summary(PairwiseMoments), ctx.panel.wave_times)
 
 
 def decay_fit_section(ctx) -> DecayFit | None:

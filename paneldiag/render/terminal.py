@@ -76,6 +76,8 @@ def render_terminal(report: dict, color: bool = False) -> str:
     return "\n\n".join(parts) + "\n"
 
 
+from paneldiag.render.text_dependence import dependence_block  # noqa: E402
 from paneldiag.render.text_reliability import render_growth, render_reliability  # noqa: E402
 
+SECTION_RENDERERS += [("correlation", dependence_block)]
 SECTION_RENDERERS += [("reliability", render_reliability), ("growth", render_growth)]

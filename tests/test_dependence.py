@@ -1,0 +1,418 @@
+"""Temporal dependence: correlations, lag profile, Markov summary, tests, decay fit.
+
+Each check names its source: a reference library function, a published example, or a
+simulation from a process with known truth (paneldiag.simulate).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pingouin
+import pytest
+from scipy import stats
+
+from paneldiag.diagnostics import dependence as dep
+from paneldiag.simulate import Process, simulate
+from paneldiag.summaries import Chunk
+from paneldiag.summaries.contingency import PairwiseTables
+from paneldiag.summaries.pairwise import PairwiseMoments
+from paneldiag.summaries.ranks import rank_moments, wave_ranks
+from conftest import run_cli
+
+K = 20
+
+
+def _chunk(x, replicate=None, k=K):
+    replicate = np.arange(len(x)) % k if replicate is None else replicate
+    return Chunk(values=x, weights=None, replicate=replicate, times=np.arange(x.shape[1], dtype=float),
+                 n_replicates=k)
+
+
+def _correlations(x, ordinal=False, with_ranks=False, scale="auto"):
+    c = _chunk(x)
+    pairwise = PairwiseMoments.from_chunk(c)
+    tables = PairwiseTables.from_chunk(c)
+    ranks = rank_moments(x, c.replicate, c.times, K, 1 << 18) if with_ranks else None
+    return dep.wave_correlations(pairwise, ranks, tables,
+                                 tuple(str(i) for i in range(x.shape[1])), scale=scale), pairwise
+
+
+def _panel(process, n, times, seed, missing=0.0):
+    rng = np.random.default_rng(seed)
+    y = simulate(process, n, times, rng)
+    if missing:
+        y[rng.random(y.shape) < missing] = np.nan
+    return y
+
+
+# ------------------------------------------------------------------ summaries
+
+def test_tables_merge_across_chunks_equals_one_chunk():
+    # summary rule (DEVELOPERS.md): several chunks merged == one chunk; chunks with
+    # different category ranges are widened on merge.
+    rng = np.random.default_rng(1)
+    x = rng.integers(1, 6, (900, 4)).astype(float)
+    x[:300][x[:300] == 5] = 4          # first chunk never sees category 5
+    x[rng.random(x.shape) < 0.1] = np.nan
+    rep = rng.integers(0, K, 900)
+    one = PairwiseTables.from_chunk(_chunk(x, rep))
+    parts = PairwiseTables.from_chunk(_chunk(x[:300], rep[:300])).merge(
+        PairwiseTables.from_chunk(_chunk(x[300:], rep[300:])))
+    assert parts.low == one.low == 1
+    np.testing.assert_array_equal(parts.counts, one.counts)
+
+
+def test_tables_agree_with_pandas_crosstab():
+    # reference library: pandas.crosstab on the units seen at both waves
+    rng = np.random.default_rng(2)
+    x = rng.integers(0, 4, (500, 3)).astype(float)
+    x[rng.random(x.shape) < 0.15] = np.nan
+    pooled = PairwiseTables.from_chunk(_chunk(x)).pooled()
+    both = ~np.isnan(x[:, 0]) & ~np.isnan(x[:, 2])
+    np.testing.assert_array_equal(pooled[0, 2], pd.crosstab(x[both, 0], x[both, 2]).to_numpy())
+
+
+def test_tables_refuse_continuous_values():
+    x = np.random.default_rng(3).normal(size=(50, 3))
+    tables = PairwiseTables.from_chunk(_chunk(x))
+    assert tables.counts is None and "integers" in tables.reason
+    assert dep.decide_scale(tables)[0] == "continuous"
+
+
+def test_wave_ranks_match_scipy_rankdata():
+    # reference library: scipy.stats.rankdata(method="average") per wave, both the
+    # counting path (integers) and the sorting path (reals)
+    rng = np.random.default_rng(4)
+    x = np.column_stack([rng.integers(0, 9, 400).astype(float), rng.normal(size=400)])
+    x[rng.random(x.shape) < 0.2] = np.nan
+    ranks = wave_ranks(x)
+    for t in range(2):
+        seen = ~np.isnan(x[:, t])
+        np.testing.assert_allclose(ranks[seen, t], stats.rankdata(x[seen, t]))
+        assert np.isnan(ranks[~seen, t]).all()
+
+
+# ----------------------------------------------------------------- correlations
+
+def test_spearman_matches_scipy_on_complete_data():
+    # reference library: scipy.stats.spearmanr (with ties: integer-valued waves)
+    rng = np.random.default_rng(5)
+    y = _panel(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 600, np.arange(4.0), 5)
+    y[:, 1] = np.round(y[:, 1])
+    corr, _ = _correlations(y, with_ranks=True)
+    expected = stats.spearmanr(y).statistic
+    np.testing.assert_allclose(corr.methods["spearman"].matrix, expected, atol=1e-12)
+    assert rng is not None
+
+
+def test_pearson_pairwise_matches_pandas_corr():
+    # reference library: pandas.DataFrame.corr (pairwise-complete Pearson) and its counts
+    y = _panel(Process(trait_var=1.0, ar_var=0.5, rho=0.4), 500, np.arange(5.0), 6, missing=0.2)
+    corr, _ = _correlations(y)
+    frame = pd.DataFrame(y)
+    np.testing.assert_allclose(corr.methods["pearson_pairwise"].matrix, frame.corr(), atol=1e-12)
+    seen = (~np.isnan(y)).astype(int)
+    np.testing.assert_array_equal(corr.methods["pearson_pairwise"].n_pairs, seen.T @ seen)
+
+
+def test_partial_correlations_match_pingouin():
+    # reference library: pingouin.partial_corr (Pearson) of waves s and s + k given the
+    # waves between them, on complete data
+    y = _panel(Process(trait_var=0.6, ar_var=1.0, rho=0.6, reliability=0.8), 800,
+               np.arange(5.0), 7)
+    corr, _ = _correlations(y)
+    partial = dep.partial_beyond(corr.matrix)
+    frame = pd.DataFrame(y, columns=[f"w{i}" for i in range(5)])
+    for s, t in [(0, 2), (1, 4), (0, 4)]:
+        ref = pingouin.partial_corr(frame, x=f"w{s}", y=f"w{t}",
+                                    covar=[f"w{i}" for i in range(s + 1, t)])["r"].iloc[0]
+        assert partial[s, t] == pytest.approx(ref, abs=1e-10)
+
+
+# -------------------------------------------------------------------- polychoric
+
+def test_bivariate_normal_cdf_matches_scipy():
+    # reference library: scipy.stats.multivariate_normal.cdf, across the |r| < 0.925
+    # and |r| >= 0.925 branches and negative r
+    from scipy.stats import multivariate_normal
+    from paneldiag.diagnostics.polychoric import bivariate_normal_cdf
+    rng = np.random.default_rng(8)
+    for r in (-0.97, -0.5, 0.0, 0.3, 0.9, 0.93, 0.99):
+        h, k = rng.normal(0, 1.5, 12), rng.normal(0, 1.5, 12)
+        ref = [multivariate_normal(cov=[[1, r], [r, 1]]).cdf([a, b]) for a, b in zip(h, k)]
+        np.testing.assert_allclose(bivariate_normal_cdf(h, k, r), ref, atol=1e-7)
+
+
+def _cut(z, cuts):
+    return (z[..., None] > np.asarray(cuts)).sum(-1)
+
+
+@pytest.mark.parametrize("rho", [0.0, 0.35, 0.7, 0.9, -0.5])
+def test_polychoric_recovers_latent_correlation(rho):
+    # simulation with known truth: bivariate normal (correlation rho) cut into 5
+    # categories; the estimate is within 4 standard errors, SE taken as
+    # 1.3 (1 - rho^2) / sqrt(n) (the normal-data SE inflated for the coarsening; common practice)
+    from paneldiag.diagnostics.polychoric import polychoric
+    n = 4000
+    rng = np.random.default_rng(int(100 * (rho + 1)))
+    z = rng.multivariate_normal([0, 0], [[1, rho], [rho, 1]], n)
+    c = _cut(z, [-1.1, -0.3, 0.4, 1.2])
+    table = pd.crosstab(c[:, 0], c[:, 1]).reindex(index=range(5), columns=range(5),
+                                                   fill_value=0).to_numpy()
+    est, total = polychoric(table[None])
+    assert total[0] == n
+    assert abs(est[0] - rho) < 4 * 1.3 * (1 - rho ** 2) / np.sqrt(n) + 1e-3
+
+
+def test_polychoric_2x2_equals_tetrachoric_solved_directly():
+    # reference: the tetrachoric correlation of a 2x2 table solves
+    # Phi2(h, k; rho) = p(0, 0) with h, k the normal quantiles of the margins;
+    # solved here with scipy.stats.multivariate_normal.cdf and scipy.optimize.brentq
+    from scipy.optimize import brentq
+    from scipy.stats import multivariate_normal
+    from paneldiag.diagnostics.polychoric import polychoric
+    table = np.array([[412.0, 138.0], [97.0, 353.0]])
+    n = table.sum()
+    h = stats.norm.ppf(table[0].sum() / n)
+    k = stats.norm.ppf(table[:, 0].sum() / n)
+    target = table[0, 0] / n
+    solved = brentq(lambda r: multivariate_normal(cov=[[1, r], [r, 1]]).cdf([h, k]) - target,
+                    -0.99, 0.99, xtol=1e-12)
+    est, _ = polychoric(table[None])
+    assert est[0] == pytest.approx(solved, abs=1e-5)
+
+
+def test_ordinal_measure_uses_polychoric_and_recovers_latent_matrix():
+    # simulation with known truth: stable trait (0.6) + occasion noise (0.4) cut into 5
+    # categories (as the demo's satisfaction): latent correlation 0.6 at every lag
+    rng = np.random.default_rng(9)
+    latent = simulate(Process(trait_var=0.6, occasion_var=0.4), 3000, np.arange(4.0), rng)
+    x = (1 + _cut(latent, [-1.3, -0.5, 0.3, 1.1])).astype(float)
+    x[rng.random(x.shape) < 0.1] = np.nan
+    corr, _ = _correlations(x)
+    assert corr.scale == "ordinal" and corr.primary == "polychoric"
+    assert corr.categories == (1, 2, 3, 4, 5)
+    off = corr.matrix[np.triu_indices(4, 1)]
+    assert np.all(np.abs(off - 0.6) < 0.05)
+    # Pearson on the categories is attenuated by the coarsening
+    assert np.mean(corr.methods["pearson_pairwise"].matrix[np.triu_indices(4, 1)]) < off.mean()
+    forced, _ = _correlations(x, scale="continuous")
+    assert forced.primary == "pearson_pairwise" and "polychoric" not in forced.methods
+
+
+# ------------------------------------------------------------------------ Lawley
+
+def test_lawley_on_textbook_mice_matrix():
+    # published example, from memory: Johnson and Wichern, Applied Multivariate
+    # Statistical Analysis (test for equal correlations, Lawley 1963), the correlation
+    # matrix of n = 150 post-birth weights of female mice; T about 11.4 on 5 df.
+    r = np.array([[1.0, .7501, .6329, .6363],
+                  [.7501, 1.0, .6925, .7386],
+                  [.6329, .6925, 1.0, .6625],
+                  [.6363, .7386, .6625, 1.0]])
+    res = dep.lawley_equal_correlations(r, 150)
+    assert res.df == 5
+    assert res.statistic == pytest.approx(11.4, abs=0.15)
+
+
+def test_lawley_size_under_compound_symmetry():
+    # simulation with known truth: equicorrelated normal waves (r = 0.5), N = 300;
+    # the 5% test rejects in about 5% of 300 replicates (binomial 99.9% band)
+    rng = np.random.default_rng(10)
+    p, n, reps = 5, 300, 300
+    cov = np.full((p, p), 0.5) + 0.5 * np.eye(p)
+    chol = np.linalg.cholesky(cov)
+    reject = 0
+    for _ in range(reps):
+        x = rng.normal(size=(n, p)) @ chol.T
+        reject += dep.lawley_equal_correlations(np.corrcoef(x.T), n).p_value < 0.05
+    assert 0.015 <= reject / reps <= 0.095
+
+
+# ------------------------------------------------------------------- lag profile
+
+def _coverage(n_reps, seed):
+    # simulation with known truth: trait (1) + carry-over (1, rho = 0.5) + error
+    # (reliability 0.8), 6 waves, 10% missing completely at random, N = 300. The true
+    # correlation at lag k is 0.8 (1 + 0.5^k) / 2.
+    times = np.arange(6.0)
+    truth = 0.8 * (1 + 0.5 ** np.arange(1, 6)) / 2
+    rng = np.random.default_rng(seed)
+    hits = np.zeros(5)
+    for _ in range(n_reps):
+        y = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 300, times, rng)
+        y += rng.normal(0, np.sqrt(2.0 * 0.25), y.shape)   # error variance for reliability 0.8
+        y[rng.random(y.shape) < 0.1] = np.nan
+        corr, _ = _correlations(y)
+        rows = dep.lag_profile(corr, times).by("lag")
+        hits += [(row.ci_low <= tr <= row.ci_high) for row, tr in zip(rows, truth)]
+    return hits / n_reps
+
+
+def test_lag_profile_ci_coverage_reduced_grid():
+    # 100 replicates: nominal 95%; each lag's coverage within 0.85-1.0, the average within
+    # 0.90-0.99 (binomial sampling error of 100 replicates, plus jackknife t intervals)
+    cov = _coverage(100, 11)
+    assert np.all(cov >= 0.85)
+    assert 0.90 <= cov.mean() <= 0.99
+
+
+@pytest.mark.slow
+def test_lag_profile_ci_coverage_full_grid():
+    cov = _coverage(600, 12)
+    assert np.all(cov >= 0.91)
+    assert 0.925 <= cov.mean() <= 0.975
+
+
+def test_lag_profile_rows_under_unequal_spacing():
+    times = np.array([0.0, 1.0, 2.0, 4.0, 5.0])
+    y = _panel(Process(ar_var=1.0, rho=0.6), 2000, times, 13)
+    corr, _ = _correlations(y)
+    prof = dep.lag_profile(corr, times)
+    assert prof.spacing == "unequal"
+    by_time = {row.time_distance: row for row in prof.by("time")}
+    assert sorted(by_time) == [1.0, 2.0, 3.0, 4.0, 5.0]
+    assert by_time[2.0].lag is None and by_time[2.0].wave_pairs == 2   # (0,2) lag 2, (2,3) lag 1
+    # simulation truth: pure carry-over, corr = 0.6^d
+    for d, row in by_time.items():
+        assert row.ci_low - 0.03 <= 0.6 ** d <= row.ci_high + 0.03
+    lag1 = prof.by("lag")[0]
+    assert lag1.time_distance is None and lag1.wave_pairs == 4
+
+
+# ----------------------------------------------------------------- Markov summary
+
+def test_markov_partials_vanish_for_pure_carry_over():
+    # simulation with known truth: a first-order autoregression without error has
+    # zero partial correlation beyond lag 1; a stable trait makes it positive
+    times = np.arange(6.0)
+    ar = _panel(Process(ar_var=1.0, rho=0.6), 4000, times, 14)
+    corr, _ = _correlations(ar)
+    rows = dep.markov_summary(corr).rows
+    assert all(row.ci_low <= 0.0 <= row.ci_high or abs(row.mean_partial_r) < 0.03 for row in rows)
+    hybrid = _panel(Process(trait_var=1.0, ar_var=1.0, rho=0.6), 4000, times, 15)
+    corr, _ = _correlations(hybrid)
+    assert dep.markov_summary(corr).rows[0].ci_low > 0.05
+
+
+# ------------------------------------------------------------- stationarity tests
+
+def test_band_and_variance_tests_under_known_truth():
+    # simulation with known truth: a stationary trait + carry-over panel (equal bands,
+    # equal variances) versus one whose carry-over weakens over the waves and whose
+    # variance grows (both hypotheses false)
+    times = np.arange(5.0)
+    rng = np.random.default_rng(16)
+    size_band = size_var = 0
+    for _ in range(40):
+        y = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 400, times, rng)
+        corr, pairwise = _correlations(y)
+        res = dep.stationarity_tests(corr, pairwise, times)
+        size_band += res.lag_bands.p_value < 0.05
+        size_var += res.equal_variances.p_value < 0.05
+    assert size_band <= 7 and size_var <= 7     # about 2 of 40 expected at 5%
+    y = simulate(Process(trait_var=1.0), 2000, times, rng)
+    keep = np.array([0.9, 0.8, 0.5, 0.2])
+    a = rng.normal(size=2000)
+    ar = np.empty((2000, 5))
+    ar[:, 0] = a
+    for t in range(1, 5):
+        ar[:, t] = keep[t - 1] * ar[:, t - 1] + rng.normal(0, np.sqrt(1 - keep[t - 1] ** 2), 2000)
+    y = y + ar * np.linspace(1.0, 1.8, 5)
+    corr, pairwise = _correlations(y)
+    res = dep.stationarity_tests(corr, pairwise, times)
+    assert res.lag_bands.p_value < 0.001
+    assert res.equal_variances.p_value < 0.001
+    assert res.equal_correlations.p_value < 0.001
+
+
+# ---------------------------------------------------------------------- decay fit
+
+@pytest.mark.parametrize("trait, ar, rho, shape", [
+    (1.0, 0.0, 0.0, "flat"),              # stable trait + nothing else
+    (0.0, 1.0, 0.6, "decay_to_zero"),     # pure carry-over
+    (1.0, 1.0, 0.6, "decay_to_floor"),    # hybrid
+    (0.6, 1.4, 0.75, "decay_to_floor"),
+])
+def test_decay_fit_recovers_process(trait, ar, rho, shape):
+    # simulation with known truth: r(k) = a + b rho^k with a = trait / total,
+    # b = ar / total; occasion noise (0.5 of the true variance) lowers a + b to 2/3
+    times = np.arange(8.0)
+    occasion = 0.5 * (trait + ar)
+    y = _panel(Process(trait_var=trait, ar_var=ar, rho=rho, occasion_var=occasion), 4000, times,
+               int(17 + 10 * rho + trait), missing=0.05)
+    corr, _ = _correlations(y)
+    fit = dep.decay_fit(dep.lag_profile(corr, times))
+    total = trait + ar + occasion
+    assert fit.shape == shape
+    assert fit.a.estimate == pytest.approx(trait / total, abs=0.04)
+    if shape != "flat":
+        assert fit.b.estimate == pytest.approx(ar / total, abs=0.05)
+        assert fit.rho.estimate == pytest.approx(rho, abs=0.08)
+        assert fit.intercept.estimate == pytest.approx((trait + ar) / total, abs=0.04)
+        assert fit.rho.ci_low - 0.02 <= rho <= fit.rho.ci_high + 0.02
+    else:
+        assert fit.rho is None and not fit.identified
+
+
+def test_decay_fit_uses_time_distance_under_unequal_spacing():
+    # simulation with known truth: carry-over 0.7 per unit of time on the demo's
+    # calendar (no wave in 2020), trait 1, carry-over variance 1.2
+    times = np.array([2015, 2016, 2017, 2018, 2019, 2021, 2022, 2023], dtype=float)
+    y = _panel(Process(trait_var=1.0, ar_var=1.2, rho=0.7), 5000, times, 18)
+    corr, _ = _correlations(y)
+    fit = dep.decay_fit(dep.lag_profile(corr, times))
+    assert fit.distance == "time" and fit.shape == "decay_to_floor"
+    assert fit.rho.estimate == pytest.approx(0.7, abs=0.06)
+    assert fit.stable_share.estimate == pytest.approx(1.0 / 2.2, abs=0.06)
+
+
+# --------------------------------------------------------------------------- CLI
+
+@pytest.fixture(scope="module")
+def demo_file(tmp_path_factory):
+    data = tmp_path_factory.mktemp("demo") / "t.csv"
+    assert run_cli("demo", data).returncode == 0
+    return data
+
+
+@pytest.fixture(scope="module")
+def demo_report(demo_file):
+    out = demo_file.parent / "t.json"
+    done = run_cli("screen", demo_file, "--id", "household", "--wave", "year", "--value",
+                   "satisfaction", "--value", "trust", "--missing-codes", "-9,-8",
+                   "--json", out)
+    assert done.returncode == 0, done.stderr.decode()
+    return json.loads(out.read_text()), done.stdout.decode()
+
+
+def test_cli_demo_trust_decays_to_floor_and_satisfaction_is_ordinal(demo_report):
+    # the demo's own construction (paneldiag/demo.py): trust = trait (1) + carry-over
+    # (1.2, rho 0.7 per year) + error; satisfaction = trait + noise cut into 1..5
+    report, text = demo_report
+    trust, sat = report["measures"]["trust"], report["measures"]["satisfaction"]
+    assert trust["correlation"]["primary"] == "pearson_pairwise"
+    assert trust["decay_fit"]["shape"] == "decay_to_floor"
+    assert trust["decay_fit"]["distance"] == "time"
+    assert trust["decay_fit"]["rho"]["estimate"] == pytest.approx(0.7, abs=0.1)
+    assert sat["correlation"]["scale"] == "ordinal"
+    assert sat["correlation"]["primary"] == "polychoric"
+    assert sat["decay_fit"]["shape"] == "flat"
+    rows = trust["lag_profile"]
+    assert {"basis", "lag", "time_distance", "mean_r", "ci_low", "ci_high", "n_pairs"} <= set(rows[0])
+    assert set(sat["stationarity"]) == {"equal_correlations", "lag_bands", "bands", "equal_variances"}
+    assert "Dependence" in text
+
+
+def test_cli_continuous_option_turns_polychoric_off(demo_file, tmp_path):
+    out = tmp_path / "t.json"
+    done = run_cli("screen", demo_file, "--id", "household", "--wave", "year", "--value",
+                   "satisfaction", "--missing-codes", "-9,-8", "--continuous", "--json", out, "-q")
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads(out.read_text())
+    assert report["correlation"]["primary"] == "pearson_pairwise"
+    assert "polychoric" not in report["correlation"]["methods"]
+    assert report["input"]["options"]["scale"] == "continuous"
