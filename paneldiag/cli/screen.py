@@ -22,10 +22,6 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.output import refuse_input_overwrite, write_atomic
 from paneldiag.io.readers import FORMATS, read_table
 from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
-from paneldiag.render.appendix import check_report_folder, write_report
-from paneldiag.render.json import report_json
-from paneldiag.render.terminal import render_terminal
-from paneldiag.screen import ScreenOptions, screen
 
 
 def _wide_option(items: tuple[str, ...]) -> tuple[tuple[str, tuple[str, ...]], ...]:
@@ -127,6 +123,7 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     if json_path:
         refuse_input_overwrite(json_path, [data])
     if report_dir:
+        from paneldiag.render.appendix import check_report_folder, write_report
         check_report_folder(report_dir, [data])
     progress.stage(f"reading {data}")
     raw = read_table(data, fmt, columns=spec.columns(), delimiter=delimiter)
@@ -139,6 +136,11 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     if report_dir and trajectory_sample:
         input_info["options"].update(trajectory_sample=trajectory_sample,
                                      trajectory_seed=trajectory_seed)
+    # the diagnostics are imported only once there is data to screen, so a bad input is
+    # reported without paying for their (heavy) imports
+    from paneldiag.render.json import report_json
+    from paneldiag.render.terminal import render_terminal
+    from paneldiag.screen import ScreenOptions, screen
     report = screen(panel, ledgers, input_info,
                     ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group))
     progress.done()

@@ -54,6 +54,14 @@ def _p(value) -> str:
     return "–" if value is None else ("< 0.001" if value < 0.001 else f"{value:.3f}")
 
 
+def _share(share, n, min_cell: int) -> str:
+    """A percentage, or '<' when the count it stands for is below the threshold."""
+    if share is None or n is None:
+        return "–"
+    hidden = 0 < round(share * n) < min_cell
+    return f"< {100 * min_cell / n:.1f}" if hidden and n else f"{100 * share:.1f}"
+
+
 def _ci(node: dict, key: str = "estimate", digits: int = 2, scale: float = 1.0) -> str:
     est = node.get(key)
     if est is None:
@@ -72,10 +80,10 @@ def wave_table(report: dict, min_cell: int) -> Table | None:
     if not rows:
         return None
     times = dict(zip(report["panel"]["waves"], report["panel"]["times"]))
-    body = tuple((r["wave"], _v(times.get(r["wave"]), 2), _n(r["n"], min_cell),
+    body = tuple((r["wave"], _number(times.get(r["wave"])), _n(r["n"], min_cell),
                   _v(r["mean"]), _v(r["sd"]), _v(r["min"]), _v(r["max"]),
-                  "–" if r["floor_share"] is None else f"{100 * r['floor_share']:.1f}",
-                  "–" if r["ceiling_share"] is None else f"{100 * r['ceiling_share']:.1f}")
+                  _share(r["floor_share"], r["n"], min_cell),
+                  _share(r["ceiling_share"], r["n"], min_cell))
                  for r in rows)
     return Table(f"{slug(report.get('measure'))}-waves",
                  f"{report.get('measure')}: distribution by wave",
@@ -248,9 +256,10 @@ def _min_cell(report: dict) -> int:
 def cautions_note(report: dict) -> Note:
     first = next(iter(measure_reports(report).values()))
     items = list(first.get("cautions") or [])
-    items.append(f"Disclosure control: counts below {_min_cell(report)} are suppressed in every "
-                 "table and figure of this appendix, groups smaller than that are not "
-                 "reported, and individual trajectories are shown only when asked for.")
+    items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
+                 "and shares that would reveal them, appear as '<' the threshold; groups "
+                 "with fewer units are not reported; individual trajectories appear only "
+                 "when asked for.")
     return Note("Read this first", tuple(dict.fromkeys(items)))
 
 
@@ -288,7 +297,8 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
                 "Sample": ["retention", "response_patterns"],
                 "Distribution by wave": ["wave_means", "trajectories"],
                 "Dependence over time": ["correlation", "lag_decay"],
-                "Reliability": ["reliability", "slopes"],
+                "Reliability": ["reliability"],
+                "Growth": ["slopes"],
                 "Groups": ["groups"],
             }.get(title, [])
             tables = {

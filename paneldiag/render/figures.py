@@ -49,8 +49,20 @@ def _figure(width: float = 6.0, height: float = 3.4) -> tuple[Figure, object]:
 
 
 def time_unit(report: dict) -> str:
-    """The unit of the wave times, for axis labels."""
-    return report.get("panel", {}).get("time_unit") or "time (wave time units)"
+    """The unit of the wave times, for axis labels: the panel's own if it names one,
+    'year' when every wave time is a calendar year (or a decimal year from dates),
+    else 'time unit'."""
+    panel = report.get("panel", {})
+    if panel.get("time_unit"):
+        return str(panel["time_unit"])
+    times = [t for t in panel.get("times") or [] if t is not None]
+    if times and all(1800 <= t <= 2200 for t in times):
+        return "year"
+    return "time unit"
+
+
+def wave_axis(report: dict) -> str:
+    return f"wave, placed at its time ({time_unit(report)}s)"
 
 
 def _wave_times(report: dict) -> dict[str, float]:
@@ -79,7 +91,7 @@ def retention_figure(report: dict) -> Figure | None:
             ax.plot(x, y, color=color, marker=marker, linestyle=style, label=label)
     ax.set_xticks(x, [r["wave"] for r in rows])
     ax.set_ylim(0, 105)
-    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_xlabel(wave_axis(report))
     ax.set_ylabel("share of units (%)")
     ax.set_title("Retention and response by wave")
     ax.legend(loc="lower left", frameon=False)
@@ -161,7 +173,7 @@ def wave_means_figure(report: dict) -> Figure | None:
     ax.errorbar(x, mean, yerr=half, color=BLUE, marker="o", linestyle="-", capsize=3,
                 label="mean with 95% CI")
     ax.set_xticks(x, [r["wave"] for r in keep])
-    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_xlabel(wave_axis(report))
     ax.set_ylabel(f"{report.get('measure', 'measure')}")
     ax.set_title("Wave means")
     ax.legend(loc="best", frameon=False)
@@ -171,6 +183,12 @@ def wave_means_figure(report: dict) -> Figure | None:
 
 def _matrix(report: dict):
     corr = report.get("correlation")
+    if isinstance(corr, dict) and isinstance(corr.get("methods"), dict):
+        node = corr["methods"].get(corr.get("primary")) or next(iter(corr["methods"].values()))
+        if isinstance(node, dict) and isinstance(node.get("matrix"), list):
+            matrix = np.array([[np.nan if v is None else v for v in row]
+                               for row in node["matrix"]], dtype=float)
+            return matrix, corr.get("waves")
     if isinstance(corr, dict):
         for key in ("matrix", "r", "pearson", "values"):
             if isinstance(corr.get(key), list):
@@ -205,46 +223,55 @@ def correlation_figure(report: dict) -> Figure | None:
     return fig
 
 
-def _decay_parts(report: dict):
-    fit = report.get("decay_fit") or {}
+def decay_models(report: dict) -> dict[str, tuple[float, float, float]]:
+    """(a, b, rho) of the fitted decay models r(d) = a + b rho^d, by model name."""
+    models = (report.get("decay_fit") or {}).get("models") or {}
+    out = {}
+    for name in ("full", "flat", "pure_decay"):
+        m = models.get(name)
+        if isinstance(m, dict) and _finite(m.get("a"), m.get("b")):
+            rho = m.get("rho")
+            out[name] = (float(m["a"]), float(m["b"]), 0.0 if rho is None else float(rho))
+    return out
 
-    def value(*names):
-        for name in names:
-            node = fit.get(name)
-            if isinstance(node, dict):
-                node = node.get("estimate", node.get("value"))
-            if isinstance(node, (int, float)) and not isinstance(node, bool):
-                return float(node)
-        return None
-    return value("a", "stable"), value("b", "decaying"), value("rho", "carry_over")
+
+def lag_rows(report: dict) -> list[dict]:
+    """The lag-profile rows by time distance (or by lag when no time basis is given)."""
+    rows = [r for r in (report.get("lag_profile") or []) if _finite(r.get("mean_r"))]
+    timed = [r for r in rows if r.get("basis") == "time" and _finite(r.get("time_distance"))]
+    if timed or any(r.get("basis") for r in rows):
+        return timed
+    return [dict(r, time_distance=r.get("time_distance") or r.get("lag")) for r in rows
+            if _finite(r.get("time_distance") or r.get("lag"))]
 
 
 def lag_decay_figure(report: dict) -> Figure | None:
-    """Mean correlation by time distance with CIs, the fitted curve a + b rho^d, and two
-    references: flat (no decay, a + b at every distance: compound symmetry) and pure
-    decay ((a + b) rho^d, no stable part: a simplex)."""
-    rows = [r for r in (report.get("lag_profile") or []) if _finite(r.get("mean_r"))]
+    """Mean correlation by time distance with CIs, the fitted curve a + b rho^d, and the
+    two reference fits the decay screen reports: flat (no decay: compound symmetry) and
+    pure decay (no stable part: a simplex)."""
+    rows = lag_rows(report)
     if not rows:
         return None
-    d = np.array([r.get("time_distance", r.get("lag")) for r in rows], dtype=float)
+    d = np.array([r["time_distance"] for r in rows], dtype=float)
     r = np.array([r["mean_r"] for r in rows])
     lo = np.array([np.nan if r_.get("ci_low") is None else r_["ci_low"] for r_ in rows])
     hi = np.array([np.nan if r_.get("ci_high") is None else r_["ci_high"] for r_ in rows])
     fig, ax = _figure()
     err = np.vstack([np.where(np.isfinite(lo), r - lo, 0), np.where(np.isfinite(hi), hi - r, 0)])
     ax.errorbar(d, r, yerr=err, color=BLACK, marker="o", linestyle="none", capsize=3,
-                label="mean correlation, 95% CI")
-    a, b, rho = _decay_parts(report)
-    if _finite(a, b, rho):
-        grid = np.linspace(0, d.max() * 1.05, 200)
-        ax.plot(grid, a + b * rho ** grid, color=BLUE, linestyle="-", label="fitted: a + b·ρ^d")
-        ax.plot(grid, np.full_like(grid, a + b), color=VERMILLION, linestyle="--",
-                label="flat reference (no decay)")
-        ax.plot(grid, (a + b) * rho ** grid, color=GREEN, linestyle=":",
-                label="pure decay (no stable part)")
+                label="mean correlation, 95% CI", zorder=3)
+    grid = np.linspace(0, d.max() * 1.05, 200)
+    styles = {"full": (BLUE, "-", "fitted: a + b·ρ^d"),
+              "flat": (VERMILLION, "--", "flat reference (no decay)"),
+              "pure_decay": (GREEN, ":", "pure decay (no stable part)")}
+    for name, (a, b, rho) in decay_models(report).items():
+        color, style, label = styles[name]
+        curve = a + b * (rho ** grid if rho else (grid == 0).astype(float))
+        ax.plot(grid[1:], curve[1:], color=color, linestyle=style, label=label)
     ax.set_xlim(left=0)
-    ax.set_ylim(min(0.0, np.nanmin(lo) if np.isfinite(lo).any() else 0.0) - 0.02, 1.0)
-    ax.set_xlabel(f"time distance between waves ({time_unit(report)})")
+    low = np.nanmin(lo) if np.isfinite(lo).any() else np.nanmin(r)
+    ax.set_ylim(min(0.0, low) - 0.02, 1.0)
+    ax.set_xlabel(f"time distance between waves ({time_unit(report)}s)")
     ax.set_ylabel("correlation")
     ax.set_title("Decay of correlation with time distance")
     ax.legend(loc="lower left", frameon=False)
@@ -252,72 +279,105 @@ def lag_decay_figure(report: dict) -> Figure | None:
     return fig
 
 
-def _reliability_rows(report: dict):
-    rel = report.get("reliability") or {}
+def _consecutive(report: dict, method: str) -> dict[str, dict]:
+    """Triplets of adjacent waves from the reliability section, by their middle wave."""
+    waves = report.get("panel", {}).get("waves", [])
+    position = {w: i for i, w in enumerate(waves)}
     out = {}
-    for method in ("heise", "wiley_wiley"):
-        node = rel.get(method)
-        rows = node.get("by_wave") if isinstance(node, dict) else node
-        if isinstance(rows, list):
-            rows = [r for r in rows if isinstance(r, dict) and _finite(r.get("estimate"))]
-            if rows:
-                out[method] = rows
+    for row in (report.get("reliability") or {}).get(method) or []:
+        trip = row.get("waves") if isinstance(row, dict) else None
+        if not trip or len(trip) != 3 or row.get("impossible"):
+            continue
+        idx = [position.get(w) for w in trip]
+        if None not in idx and idx[1] == idx[0] + 1 and idx[2] == idx[1] + 1:
+            out[trip[1]] = row
+    return out
+
+
+def reliability_by_wave(report: dict) -> dict[str, list[tuple[str, float, float]]]:
+    """(wave, estimate, se) per method from the triplets of adjacent waves: Heise's
+    estimate belongs to the middle wave of its triplet; Wiley and Wiley give one per
+    wave of the triplet (the middle one is used, and the end waves take the first and
+    last triplet's)."""
+    out = {}
+    heise = _consecutive(report, "heise")
+    rows = [(w, r["reliability"], r.get("reliability_se")) for w, r in heise.items()
+            if _finite(r.get("reliability"))]
+    if rows:
+        out["heise"] = rows
+    wiley = _consecutive(report, "wiley_wiley")
+    if wiley:
+        waves = report["panel"]["waves"]
+        trips = list(wiley.items())
+        picks = [(trips[0][1], 0, waves[waves.index(trips[0][0]) - 1])]
+        picks += [(r, 1, w) for w, r in trips]
+        picks += [(trips[-1][1], 2, waves[waves.index(trips[-1][0]) + 1])]
+        rows = []
+        for row, k, wave in picks:
+            est, se = row.get("reliability"), row.get("reliability_se")
+            if isinstance(est, list) and _finite(est[k]):
+                rows.append((wave, est[k], se[k] if isinstance(se, list) else None))
+        rows = list({w: (w, e, s) for w, e, s in rows}.values())
+        if rows:
+            out["wiley_wiley"] = rows
     return out
 
 
 def reliability_figure(report: dict) -> Figure | None:
-    methods = _reliability_rows(report)
+    """Reliability by wave from triplets of adjacent waves, with +- 1.96 SE intervals."""
+    methods = reliability_by_wave(report)
     times = _wave_times(report)
     if not methods or not times:
         return None
     fig, ax = _figure()
-    names = {"heise": "Heise (1969)", "wiley_wiley": "Wiley and Wiley (1970)"}
-    offsets = np.linspace(-0.08, 0.08, len(methods))
+    names = {"heise": "Heise (1969), equal reliabilities", "wiley_wiley":
+             "Wiley and Wiley (1970), equal error variances"}
+    spacing = min(np.diff(sorted(times.values())), default=1.0)
+    offsets = np.linspace(-0.06, 0.06, len(methods)) * spacing
+    q = stats.norm.ppf(0.975)
     for (method, rows), (color, marker, style), off in zip(methods.items(), SERIES, offsets):
-        x = np.array([times.get(r.get("wave"), np.nan) for r in rows]) + off
-        y = np.array([r["estimate"] for r in rows])
-        lo = np.array([np.nan if r.get("ci_low") is None else r["ci_low"] for r in rows])
-        hi = np.array([np.nan if r.get("ci_high") is None else r["ci_high"] for r in rows])
-        err = np.vstack([np.where(np.isfinite(lo), y - lo, 0), np.where(np.isfinite(hi), hi - y, 0)])
+        x = np.array([times[w] for w, _, _ in rows]) + off
+        y = np.array([e for _, e, _ in rows])
+        se = np.array([np.nan if s is None else s for _, _, s in rows])
+        err = np.where(np.isfinite(se), q * se, 0.0)
         ax.errorbar(x, y, yerr=err, color=color, marker=marker, linestyle=style, capsize=3,
                     label=names.get(method, method))
     ax.set_xticks(list(times.values()), list(times))
     ax.set_ylim(0, 1.05)
-    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_xlabel(wave_axis(report))
     ax.set_ylabel("reliability")
-    ax.set_title("Reliability by wave, with 95% CIs")
+    ax.set_title("Reliability by wave (triplets of adjacent waves), 95% CIs")
     ax.legend(loc="lower left", frameon=False)
     ax.grid(axis="y", color="#dddddd", linewidth=0.6)
     return fig
 
 
-def _slope_histogram(report: dict):
-    growth = report.get("growth") or {}
-    slopes = growth.get("slopes") or growth.get("unit_slopes") or {}
-    hist = slopes.get("histogram") if isinstance(slopes, dict) else None
-    if isinstance(hist, dict) and isinstance(hist.get("edges"), list) and \
-            isinstance(hist.get("counts"), list):
-        return np.array(hist["edges"], dtype=float), \
-            np.array([np.nan if c is None else c for c in hist["counts"]], dtype=float), slopes
-    return None, None, slopes
-
-
 def slope_figure(report: dict) -> Figure | None:
-    edges, counts, slopes = _slope_histogram(report)
-    if edges is None or len(edges) != len(counts) + 1:
+    """The spread of per-unit slopes: the normal curve with the reported mean and SD of
+    the estimated per-unit slopes, against the one with the estimated true-slope
+    variance (after removing sampling error); their ratio is the slope reliability."""
+    growth = report.get("growth") or {}
+    traj, rel = growth.get("trajectories") or {}, growth.get("slope_reliability") or {}
+    mean, sd = traj.get("mean_slope"), traj.get("sd_slope")
+    if not _finite(mean, sd) or sd <= 0:
         return None
     fig, ax = _figure()
-    widths = np.diff(edges)
-    shown = np.where(np.isfinite(counts), counts, 0)
-    ax.bar(edges[:-1], shown, width=widths, align="edge", color=SKY, edgecolor=BLACK,
-           linewidth=0.6, hatch="//", label="units per bin")
-    mean = slopes.get("mean") if isinstance(slopes, dict) else None
-    if _finite(mean):
-        ax.axvline(mean, color=VERMILLION, linestyle="--", label="mean slope")
-    ax.set_xlabel(f"per-unit slope ({report.get('measure', 'measure')} per time unit)")
-    ax.set_ylabel("units")
-    ax.set_title("Distribution of per-unit growth slopes")
-    ax.legend(loc="best", frameon=False)
+    grid = np.linspace(mean - 3.5 * sd, mean + 3.5 * sd, 400)
+    ax.plot(grid, stats.norm.pdf(grid, mean, sd), color=BLUE, linestyle="-",
+            label="estimated per-unit slopes (mean, SD)")
+    true_var = rel.get("slope_variance")
+    if _finite(true_var) and true_var > 0:
+        centre = rel.get("pooled_slope") if _finite(rel.get("pooled_slope")) else mean
+        ax.plot(grid, stats.norm.pdf(grid, centre, np.sqrt(true_var)), color=VERMILLION,
+                linestyle="--", label="true slopes (sampling error removed)")
+    lo, hi = traj.get("mean_slope_ci_low"), traj.get("mean_slope_ci_high")
+    if _finite(lo, hi):
+        ax.axvspan(lo, hi, color=GREEN, alpha=0.25, hatch="//", label="95% CI of the mean slope")
+    ax.axvline(0, color="#999999", linewidth=0.6)
+    ax.set_xlabel(f"slope ({report.get('measure', 'measure')} per {time_unit(report)})")
+    ax.set_ylabel("density (normal curve)")
+    ax.set_title("Spread of per-unit growth slopes")
+    ax.legend(loc="upper left", frameon=False)
     return fig
 
 
@@ -367,7 +427,7 @@ def trajectory_figure(report: dict, values: np.ndarray, n_sample: int, seed: int
         ax.plot(x[ok], y[ok], color=color, marker=marker, linestyle=style, linewidth=0.9,
                 markersize=3.5, alpha=0.85)
     ax.set_xticks(x, list(times))
-    ax.set_xlabel(f"wave ({time_unit(report)})")
+    ax.set_xlabel(wave_axis(report))
     ax.set_ylabel(report.get("measure", "measure"))
     ax.set_title(f"Observed trajectories of {len(pick)} randomly drawn units")
     ax.grid(axis="y", color="#dddddd", linewidth=0.6)
@@ -414,9 +474,12 @@ MEASURE_FIGURES = (
     ("lag_decay", lag_decay_figure,
      "Mean correlation by time distance (95% CIs) with the fitted decay curve and two "
      "references: flat (no decay) and pure decay (no stable part)."),
-    ("reliability", reliability_figure, "Reliability estimates by wave with 95% CIs."),
-    ("slopes", slope_figure, "Distribution of per-unit growth slopes (suppressed bins left "
-     "empty)."),
+    ("reliability", reliability_figure,
+     "Reliability by wave from triplets of adjacent waves, with 95% CIs (1.96 jackknife "
+     "SEs)."),
+    ("slopes", slope_figure,
+     "Spread of per-unit growth slopes: normal curves with the reported mean and SD of the "
+     "estimated slopes and with the estimated true-slope variance."),
     ("groups", group_figure, "Key figures by group with 95% confidence intervals."),
 )
 

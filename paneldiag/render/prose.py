@@ -50,6 +50,15 @@ REFERENCES = {
     "kenny1995": ("Kenny and Zautra 1995", "Kenny, D. A., & Zautra, A. (1995). The "
                   "trait-state-error model for multiwave data. Journal of Consulting and "
                   "Clinical Psychology, 63, 52-59."),
+    "rogosa1982": ("Rogosa, Brandt and Zimowski 1982", "Rogosa, D., Brandt, D., & Zimowski, "
+                   "M. (1982). A growth curve approach to the measurement of change. "
+                   "Psychological Bulletin, 92, 726-748."),
+    "shrout1979": ("Shrout and Fleiss 1979", "Shrout, P. E., & Fleiss, J. L. (1979). "
+                   "Intraclass correlations: Uses in assessing rater reliability. "
+                   "Psychological Bulletin, 86, 420-428."),
+    "emerson1968": ("Emerson 1968", "Emerson, P. L. (1968). Numerical construction of "
+                    "orthogonal polynomials from a general recurrence formula. Biometrics, "
+                    "24, 695-701."),
     "okabe2008": ("Okabe and Ito 2008", "Okabe, M., & Ito, K. (2008). Color Universal "
                   "Design (CUD): How to make figures and presentations that are friendly "
                   "to colorblind people. J*Fly."),
@@ -196,31 +205,48 @@ def missingness(report: dict, cite: Citations) -> list[str]:
 
 
 def dependence(report: dict, cite: Citations) -> list[str]:
-    rows = [r for r in report.get("lag_profile") or [] if ok(r.get("mean_r"))]
+    from paneldiag.render.figures import lag_rows
+    rows = lag_rows(report)
     if not rows:
         return []
     first, last = rows[0], rows[-1]
+    unit = unit_of_time(report)
     ci = (f" (confidence interval {dec(first['ci_low'])} to {dec(first['ci_high'])})"
           if ok(first.get("ci_low"), first.get("ci_high")) else "")
-    text = (f"Correlations between waves {dec(first['time_distance'])} time units apart "
-            f"averaged {dec(first['mean_r'])}{ci}, and {dec(last['mean_r'])} at a distance "
-            f"of {dec(last['time_distance'])} {cite('fisher1921', 'hedges1985')}.")
+    text = (f"Correlations between waves {dec(first['time_distance'])} {unit}(s) apart "
+            f"averaged {dec(first['mean_r'])}{ci}, and {dec(last['mean_r'])} at "
+            f"{dec(last['time_distance'])} {unit}(s) apart {cite('fisher1921', 'hedges1985')}.")
     fit = report.get("decay_fit") or {}
-    parts = []
-    for key, words in (("stable_share", "the stable share a/(a+b) was estimated at"),
-                       ("carry_over", "the carry-over per time unit at"),
-                       ("rho", "the carry-over per time unit at")):
-        node = fit.get(key)
-        value = node.get("estimate") if isinstance(node, dict) else node
-        if ok(value) and not (key == "rho" and "carry_over" in fit):
-            ci = ""
-            if isinstance(node, dict) and ok(node.get("ci_low"), node.get("ci_high")):
-                ci = f" ({dec(node['ci_low'])} to {dec(node['ci_high'])})"
-            parts.append(f"{words} {dec(value)}{ci}")
-    if parts:
-        text += (" In a fit of the decay of correlation with time distance "
-                 f"{cite('kenny1995')}, " + _join(parts) + ".")
-    return [text]
+    if fit.get("identified"):
+        parts = []
+        for key, words in (("stable_share", "the stable share a/(a+b) was"),
+                           ("rho", f"the carry-over per {unit} was")):
+            node = fit.get(key)
+            if isinstance(node, dict) and ok(node.get("estimate")):
+                ci = (f" (confidence interval {dec(node['ci_low'])} to {dec(node['ci_high'])})"
+                      if ok(node.get("ci_low"), node.get("ci_high")) else "")
+                parts.append(f"{words} {dec(node['estimate'])}{ci}")
+        if parts:
+            text += (" Fitting a + b rho^d to the decay of correlation with time distance d "
+                     f"{cite('kenny1995')}, " + _join(parts) + ".")
+    elif fit.get("reason"):
+        text += f" The decay curve was not identified: {fit['reason']}."
+    for key, words in (("flat_vs_full", "no decay"), ("pure_decay_vs_full", "no stable part")):
+        test = fit.get(key)
+        if isinstance(test, dict) and ok(test.get("statistic"), test.get("p_value")):
+            text += (f" Against the fitted curve, the reference with {words} gave F = "
+                     f"{dec(test['statistic'])} ({pval(test['p_value'])}).")
+    out = [text]
+    markov = report.get("markov") or {}
+    lag2 = next((r for r in markov.get("rows") or [] if r.get("lag") == 2), None)
+    if lag2 and ok(lag2.get("mean_partial_r")):
+        ci = (f" (confidence interval {dec(lag2['ci_low'])} to {dec(lag2['ci_high'])})"
+              if ok(lag2.get("ci_low"), lag2.get("ci_high")) else "")
+        out.append(f"Given the wave in between, correlations two waves apart kept a mean "
+                   f"partial correlation of {dec(lag2['mean_partial_r'])}{ci}; under a "
+                   "perfectly measured first-order carry-over (a simplex) it would be zero, "
+                   "while measurement error or a stable component keep it above zero.")
+    return out
 
 
 def reliability(report: dict, cite: Citations) -> list[str]:
@@ -235,6 +261,53 @@ def reliability(report: dict, cite: Citations) -> list[str]:
     return [f"The reliability of {report.get('measure')}, estimated from the pattern of "
             f"correlations across three or more waves {cite(*refs)}, was "
             f"{dec(summary['estimate'])}{ci}."]
+
+
+def growth(report: dict, cite: Citations) -> list[str]:
+    section = report.get("growth")
+    if not isinstance(section, dict):
+        return []
+    out = []
+    traj = section.get("trajectories") or {}
+    if ok(traj.get("mean_slope"), traj.get("sd_slope"), traj.get("n_units")):
+        ci = (f" (confidence interval {dec(traj['mean_slope_ci_low'], 3)} to "
+              f"{dec(traj['mean_slope_ci_high'], 3)})"
+              if ok(traj.get("mean_slope_ci_low"), traj.get("mean_slope_ci_high")) else "")
+        text = (f"Straight lines fitted to each of the {count(traj['n_units'])} units with "
+                f"enough observed waves had a mean slope of {dec(traj['mean_slope'], 3)} per "
+                f"{unit_of_time(report)}{ci}, and the slopes had a standard deviation of "
+                f"{dec(traj['sd_slope'], 3)} {cite('rogosa1982')}.")
+        rel = section.get("slope_reliability") or {}
+        if ok(rel.get("estimate")) and not rel.get("impossible"):
+            ci = (f" (confidence interval {dec(rel['ci_low'])} to {dec(rel['ci_high'])})"
+                  if ok(rel.get("ci_low"), rel.get("ci_high")) else "")
+            text += (f" The reliability of these per-unit slopes, the share of their variance "
+                     f"that is not sampling error, was {dec(rel['estimate'])}{ci}.")
+        out.append(text)
+    icc = section.get("icc") or {}
+    parts = []
+    if ok(icc.get("estimate")) and not icc.get("impossible"):
+        ci = (f" (confidence interval {dec(icc['ci_low'])} to {dec(icc['ci_high'])})"
+              if ok(icc.get("ci_low"), icc.get("ci_high")) else "")
+        parts.append(f"The intraclass correlation of the repeated measurements was "
+                     f"{dec(icc['estimate'])}{ci} {cite('shrout1979')}.")
+    shape = section.get("mean_shape") or {}
+    comps = [c for c in shape.get("components") or []
+             if isinstance(c, dict) and ok(c.get("share_of_change"), c.get("pvalue"))]
+    if comps:
+        words = [f"the {c['component']} contrast {pct(c['share_of_change'])} "
+                 f"({pval(c['pvalue'])})" for c in comps]
+        parts.append("Of the change in the wave means, orthogonal polynomial contrasts for "
+                     f"the actual wave times {cite('emerson1968')} carried " + _join(words)
+                     + ".")
+    if parts:
+        out.append(" ".join(parts))
+    return out
+
+
+def unit_of_time(report: dict) -> str:
+    from paneldiag.render.figures import time_unit
+    return time_unit(report)
 
 
 def verdicts(report: dict, cite: Citations) -> list[str]:
@@ -282,11 +355,15 @@ def groups(report: dict, cite: Citations) -> list[str]:
         high = max(vals, key=lambda v: v["estimate"])
         fmt = pct if comp["figure"] == "retention" else dec
         ref = refs.get(test.get("method"), "cochran1954")
-        out.append(f"The {comp['label']} ranged from {fmt(low['estimate'])} ({low['group']}) "
+        label = GROUP_FIGURE_WORDS.get(comp["figure"], comp["label"])
+        out.append(f"The {label} ranged from {fmt(low['estimate'])} ({low['group']}) "
                    f"to {fmt(high['estimate'])} ({high['group']}); the test of equality "
                    f"across groups {cite(ref)} gave {dec(test['statistic'])} on "
                    f"{count(test['df'])} degrees of freedom ({pval(test['pvalue'])}).")
     return out
+
+
+GROUP_FIGURE_WORDS = {"retention": "share retained from the first to the last wave"}
 
 
 def cross_lag(pair: dict, cite: Citations) -> list[str]:
@@ -322,6 +399,7 @@ MEASURE_PROSE = (
     ("Missing data", missingness),
     ("Dependence over time", dependence),
     ("Reliability", reliability),
+    ("Growth", growth),
     ("Process families", verdicts),
     ("Groups", groups),
 )
