@@ -25,6 +25,7 @@ from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
 from paneldiag.summaries.pairwise import PairwiseMoments
+from paneldiag.summaries.patterns import PatternMoments
 from paneldiag.summaries.trajectories import TrajectorySummary
 
 CAUTION_SCREENING = (
@@ -71,7 +72,8 @@ def _panel_section(ctx: MeasureContext) -> dict:
             "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
 
 
-SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary]
+SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary,
+                             PatternMoments]
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),

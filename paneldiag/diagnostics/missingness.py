@@ -1,0 +1,247 @@
+"""Missingness: maximum-likelihood moments under MAR, Little's MCAR test, response
+patterns, pairwise coverage and declared missing codes.
+
+Everything here is a function of the per-pattern summary ``PatternMoments`` (and, for
+codes, of the code counts the reader keeps). Expectation-maximisation iterates on
+pattern statistics only: one batch of small-matrix algebra per number of observed
+waves, never a pass over units.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from paneldiag.results import Result, plain
+from paneldiag.summaries.patterns import PatternMoments
+
+
+# --------------------------------------------------------------------------- EM
+
+@dataclass(frozen=True)
+class EMResult(Result):
+    """ML mean vector and covariance of the waves under MAR (multivariate normal).
+
+    ``means`` (T,) and ``covariance`` (T, T) are NaN for waves never observed.
+    ``loglik`` is the observed-data log-likelihood at the estimates; ``n_units`` the
+    units with at least one observed wave (units with none carry no information).
+    """
+
+    converged: bool
+    iterations: int
+    means: np.ndarray
+    covariance: np.ndarray
+    loglik: float
+    n_units: int
+
+
+@dataclass(frozen=True)
+class _Group:
+    """Patterns with the same number k of observed waves, in batch form."""
+
+    n: np.ndarray        # (P_k,)
+    obs: np.ndarray      # (P_k, k) observed wave indices (into the used waves)
+    mean: np.ndarray     # (P_k, k) pattern means of the observed waves
+    m2: np.ndarray       # (P_k, k, k) centred cross-products of the observed waves
+    flat: np.ndarray     # (P_k, k, k) flat index s * T + t of each block entry
+
+
+def _groups(patterns: PatternMoments, used: np.ndarray) -> list[_Group]:
+    observed = patterns.observed[:, used]
+    count = observed.sum(axis=1)
+    t = int(used.sum())
+    waves = np.flatnonzero(used)
+    out = []
+    for k in range(1, t + 1):  # a loop over numbers of observed waves
+        rows = np.flatnonzero((count == k) & (patterns.n > 0))
+        if len(rows) == 0:
+            continue
+        # stable argsort of "not observed" lists the observed waves first, in order
+        obs = np.argsort(~observed[rows], axis=1, kind="stable")[:, :k]
+        full = waves[obs]
+        mean = np.take_along_axis(patterns.mean[rows], full, axis=1)
+        m2 = patterns.m2[rows[:, None, None], full[:, :, None], full[:, None, :]]
+        out.append(_Group(patterns.n[rows], obs, mean, m2, obs[:, :, None] * t + obs[:, None, :]))
+    return out
+
+
+def _scatter(values: np.ndarray, index: np.ndarray, size: int) -> np.ndarray:
+    """Sum per-pattern entries into a flat array of ``size`` by their wave indices."""
+    return np.bincount(index.ravel(), weights=values.ravel(), minlength=size)
+
+
+def _block_inverse(sigma: np.ndarray, g: _Group) -> np.ndarray:
+    """Inverse of each pattern's observed block of sigma, (P_k, k, k)."""
+    s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
+    return np.linalg.inv(s_oo)
+
+
+def _em_step(groups: list[_Group], mu: np.ndarray, sigma: np.ndarray, n_total: float):
+    """One EM iteration.
+
+    With Q_p the inverse of the observed block of sigma embedded in T x T (zero
+    elsewhere) and d the deviations of the observed waves from mu (zero at missing
+    waves), the conditional mean of a unit's waves is mu + sigma Q_p d and the
+    conditional covariance is sigma - sigma Q_p sigma. Summed over units:
+      sum E[x - mu]              = sigma sum_p Q_p (n_p dbar_p)
+      sum E[(x - mu)(x - mu)']   = sigma (sum_p Q_p D_p Q_p - n_p Q_p) sigma + N sigma
+    with D_p = W_p + n_p dbar_p dbar_p' the cross-products around mu, so every
+    pattern only needs k x k algebra on its observed block.
+    """
+    t = len(mu)
+    first = np.zeros(t)
+    second = np.zeros(t * t)
+    for g in groups:
+        q = _block_inverse(sigma, g)
+        dev = g.mean - mu[g.obs]
+        qd = np.einsum("pij,pj->pi", q, dev)
+        qwq = q @ g.m2 @ q
+        part = qwq + g.n[:, None, None] * (qd[:, :, None] * qd[:, None, :] - q)
+        first += _scatter(g.n[:, None] * qd, g.obs, t)
+        second += _scatter(part, g.flat, t * t)
+    shift = sigma @ first / n_total
+    cross = sigma @ second.reshape(t, t) @ sigma / n_total + sigma
+    new_sigma = cross - np.outer(shift, shift)
+    return mu + shift, 0.5 * (new_sigma + new_sigma.T)
+
+
+def _observed_loglik(groups: list[_Group], mu: np.ndarray, sigma: np.ndarray) -> float:
+    total = 0.0
+    for g in groups:
+        k = g.obs.shape[1]
+        s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
+        sign, logdet = np.linalg.slogdet(s_oo)
+        if np.any(sign <= 0):
+            return -np.inf
+        q = np.linalg.inv(s_oo)
+        dev = g.mean - mu[g.obs]
+        trace = np.einsum("pij,pji->p", q, g.m2)
+        quad = np.einsum("pi,pij,pj->p", dev, q, dev)
+        total += float(np.sum(-0.5 * (g.n * (k * np.log(2 * np.pi) + logdet)
+                                      + trace + g.n * quad)))
+    return total
+
+
+def _start(patterns: PatternMoments, used: np.ndarray):
+    """Available-case means and variances, zero covariances."""
+    n = patterns.n[:, None] * patterns.observed
+    count = n.sum(axis=0)
+    mean = (n * patterns.mean).sum(axis=0) / np.maximum(count, 1)
+    diag = np.einsum("ptt->pt", patterns.m2)
+    var = (diag + n * (patterns.mean - mean) ** 2 * patterns.observed).sum(axis=0)
+    var = var / np.maximum(count, 1)
+    var = np.where(var > 0, var, 1.0)
+    return mean[used], np.diag(var[used])
+
+
+def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8,
+               ) -> EMResult:
+    """ML estimates of the wave means and covariance under missing at random.
+
+    Multivariate normal model for the T waves; every response pattern allowed.
+    Each iteration computes, per pattern, the conditional expectation of the missing
+    waves given the observed ones (the E-step, on pattern means and centred
+    cross-products, so the cost is O(P k^3) per iteration for patterns with k observed
+    waves, independent of N), and the new mean and covariance (ML divisor N) from the
+    completed sums (the M-step). Patterns with the same number of observed waves are
+    handled as one batch of small matrices.
+    Iteration stops when no mean or covariance entry changes by more than ``tol``
+    relative to the scale of the waves involved. Waves never observed are left out
+    (NaN). Unweighted.
+
+    Parameters
+    ----------
+    patterns : PatternMoments
+        The per-pattern summary of one measure.
+    max_iter : int
+        Most iterations before giving up (``converged`` is then False).
+    tol : float
+        Largest relative change of any parameter counted as converged.
+
+    Returns
+    -------
+    EMResult
+        ``converged``, ``iterations``, ``means``, ``covariance``, ``loglik``, ``n_units``.
+
+    References
+    ----------
+    Dempster, A. P., Laird, N. M. and Rubin, D. B. (1977). Maximum likelihood from
+    incomplete data via the EM algorithm. Journal of the Royal Statistical Society B,
+    39(1), 1-38.
+    Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
+    2nd ed., chapter 11 (the multivariate normal with any pattern). Wiley.
+    """
+    t_all = patterns.n_waves
+    wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
+    used = wave_n > 0
+    means = np.full(t_all, np.nan)
+    covariance = np.full((t_all, t_all), np.nan)
+    if not used.any():
+        return EMResult(False, 0, means, covariance, np.nan, 0)
+    groups = _groups(patterns, used)
+    mu, sigma = _start(patterns, used)
+    n_total = float(sum(g.n.sum() for g in groups))
+    converged, iteration = False, 0
+    for iteration in range(1, max_iter + 1):
+        new_mu, new_sigma = _em_step(groups, mu, sigma, n_total)
+        scale = np.sqrt(np.maximum(np.diag(new_sigma), np.finfo(float).tiny))
+        change = max(np.max(np.abs(new_mu - mu) / scale),
+                     np.max(np.abs(new_sigma - sigma) / np.outer(scale, scale)))
+        mu, sigma = new_mu, new_sigma
+        if change <= tol:
+            converged = True
+            break
+    means[used] = mu
+    covariance[np.ix_(used, used)] = sigma
+    loglik = _observed_loglik(groups, mu, sigma)
+    return EMResult(converged, iteration, means, covariance, loglik,
+                    int(sum(g.n.sum() for g in groups)))
+
+
+# ------------------------------------------------------------------ Little's test
+
+@dataclass(frozen=True)
+class LittleMCAR(Result):
+    """Little's chi-square statistic for missing completely at random."""
+
+    statistic: float
+    df: int
+    pvalue: float
+    n_patterns: int
+
+
+def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> LittleMCAR:
+    """Little's test that the waves are missing completely at random (MCAR).
+
+    d^2 = sum_j n_j (ybar_j - mu_j)' Sigma_j^-1 (ybar_j - mu_j) over response
+    patterns j with at least one observed wave, where ybar_j is the mean of the
+    observed waves of pattern j and mu_j, Sigma_j are the matching parts of the ML
+    estimates under MAR (``em_moments``). Under MCAR d^2 is asymptotically
+    chi-square with sum_j k_j - T degrees of freedom (k_j observed waves of pattern j,
+    T waves observed at all).
+
+    References
+    ----------
+    Little, R. J. A. (1988). A test of missing completely at random for multivariate
+    data with missing values. Journal of the American Statistical Association,
+    83(404), 1198-1202.
+    """
+    em = em if em is not None else em_moments(patterns)
+    wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
+    used = wave_n > 0
+    groups = _groups(patterns, used)
+    n_patterns = sum(len(g.n) for g in groups)
+    df = int(sum(len(g.n) * g.obs.shape[1] for g in groups) - used.sum())
+    if df <= 0 or not np.all(np.isfinite(em.covariance[np.ix_(used, used)])):
+        return LittleMCAR(np.nan, max(df, 0), np.nan, n_patterns)
+    mu = em.means[used]
+    sigma = em.covariance[np.ix_(used, used)]
+    d2 = 0.0
+    for g in groups:
+        s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
+        dev = g.mean - mu[g.obs]
+        sol = np.linalg.solve(s_oo, dev[:, :, None])[:, :, 0]
+        d2 += float(np.sum(g.n * np.einsum("pk,pk->p", dev, sol)))
+    return LittleMCAR(d2, df, float(stats.chi2.sf(d2, df)), n_patterns)
