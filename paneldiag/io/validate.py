@@ -135,7 +135,10 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
                                "--drop-bad-rows to drop and count them",
                                file=raw.source, row=raw.row_number(np.flatnonzero(mask)[0]),
                                column=column)
-    valid_rows = np.flatnonzero(~id_missing & ~wave_missing)
+    if id_missing.any() or wave_missing.any():
+        valid_rows = np.flatnonzero(~id_missing & ~wave_missing)
+    else:
+        valid_rows = np.arange(n_rows)
     if len(valid_rows) == 0:
         raise InputProblem("no row has both a unit id and a wave", file=raw.source)
     unit_index, unit_ids = _factorize_ids(frame[spec.id], valid_rows)
@@ -145,6 +148,8 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
 
     cell = unit_index * n_waves + wave_index
     kept, n_duplicate = _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves)
+    if n_duplicate == 0:  # every row is kept: index with views, not copies
+        kept = slice(None)
     rows = valid_rows[kept]
     structural = {"missing_id": int(id_missing.sum()), "missing_wave": int(wave_missing.sum()),
                   "duplicate_unit_wave": n_duplicate}
@@ -167,7 +172,10 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
             wave_kept = wave_index[kept]
             matrix = np.full((n_units, n_waves), np.nan)
             seen = outcome_kept == OBSERVED
-            matrix[unit_index[kept][seen], wave_kept[seen]] = numbers[seen]
+            if seen.all():  # scatter by flat cell number, without masked copies
+                matrix.reshape(-1)[cell[kept]] = numbers
+            else:
+                matrix.reshape(-1)[cell[kept][seen]] = numbers[seen]
             if item_numbers is not None:
                 cube = np.full((n_units, n_waves, len(item_numbers)), np.nan)
                 cube[unit_index[kept][seen], wave_kept[seen], :] = item_numbers[:, seen].T
@@ -236,12 +244,34 @@ def _missing_mask(column: pd.Series) -> np.ndarray:
 
 def _factorize_ids(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     ids = column.iloc[rows] if len(rows) != len(column) else column
+    dense = _dense_integer_codes(ids)
+    if dense is not None:
+        return dense
     codes, uniques = pd.factorize(ids, sort=True)
     numeric = pd.api.types.is_numeric_dtype(uniques.dtype) and uniques.dtype.kind != "b"
     uniques = np.asarray(uniques, dtype=None if numeric else object)  # int ids stay exact
     if uniques.dtype.kind == "f" and np.all(np.mod(uniques, 1) == 0):
         uniques = uniques.astype(np.int64)
     return codes.astype(np.int64), uniques
+
+
+def _dense_integer_codes(column: pd.Series):
+    """Sorted factorisation of a plain integer column whose range is not much wider than
+    its length, by direct addressing: (codes int64, sorted uniques int64), as
+    ``pd.factorize(sort=True)`` gives; None for any other column."""
+    if not (isinstance(column.dtype, np.dtype) and column.dtype.kind == "i") or len(column) == 0:
+        return None
+    values = column.to_numpy()
+    lo, hi = int(values.min()), int(values.max())
+    span = hi - lo + 1
+    if span > 4 * len(values) + 1024:
+        return None
+    offset = (values - lo) if lo else values
+    present = np.zeros(span, dtype=bool)
+    present[offset] = True
+    rank = np.cumsum(present, dtype=np.int64)
+    rank -= 1
+    return rank[offset], (np.flatnonzero(present) + lo).astype(np.int64)
 
 
 def _check_extent(raw: RawTable, n_units: int, n_waves: int) -> None:
@@ -257,7 +287,8 @@ def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
     """Wave index per row, ordered labels and numeric times."""
     column = raw.frame[spec.wave]
     column = column.iloc[rows] if len(rows) != len(column) else column
-    codes, uniques = pd.factorize(column, sort=False)
+    dense = _dense_integer_codes(column)  # integer waves: codes already in sorted order
+    codes, uniques = dense if dense is not None else pd.factorize(column, sort=False)
     kind, keys = _wave_kind(raw, spec.wave, column, codes, uniques)
     if kind == "text" and spec.wave_order == "given":
         order = np.arange(len(keys))
@@ -335,6 +366,8 @@ def _override_times(spec: LayoutSpec, times: np.ndarray, n_waves: int) -> np.nda
 
 def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     """Positions (into valid_rows) of the rows kept, and the number of duplicates."""
+    if len(cell) < 2 or bool(np.all(cell[1:] > cell[:-1])):  # sorted rows: no repeats
+        return np.arange(len(cell)), 0
     counts = np.bincount(cell, minlength=len(unit_ids) * n_waves)
     n_duplicate = int(len(cell) - np.count_nonzero(counts))
     if n_duplicate == 0:
