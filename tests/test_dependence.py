@@ -416,3 +416,37 @@ def test_cli_continuous_option_turns_polychoric_off(demo_file, tmp_path):
     assert report["correlation"]["primary"] == "pearson_pairwise"
     assert "polychoric" not in report["correlation"]["methods"]
     assert report["input"]["options"]["scale"] == "continuous"
+
+
+def test_em_correlations_undo_selection_by_dropout():
+    # simulation with known truth: a first-order autoregression (rho 0.7, so the true
+    # lag-1 correlation is 0.7) with dropout that depends on the last observed score
+    # (missing at random). Units observed at both waves are selected on the earlier
+    # wave, which attenuates the pairwise correlation; the ML (EM) correlation is not.
+    from types import SimpleNamespace
+
+    from paneldiag.panel import Panel
+    from paneldiag.simulate import dropout_after
+    from paneldiag.summaries import summarise
+    from paneldiag.summaries.patterns import PatternMoments
+    rng = np.random.default_rng(21)
+    times = np.arange(4.0)
+    y = simulate(Process(ar_var=1.0, rho=0.7), 6000, times, rng)
+    gone = dropout_after(y, rng, base_rate=0.35, log_odds_per_sd=-1.5)
+    y[gone] = np.nan
+    panel = Panel(unit_ids=np.arange(6000), wave_labels=("1", "2", "3", "4"), wave_times=times,
+                  values={"y": y})
+    kinds = [PairwiseMoments, PairwiseTables, PatternMoments]
+    summaries = summarise(panel, "y", kinds)
+    ctx = SimpleNamespace(panel=panel, values=y, summaries=summaries,
+                          summary=lambda kind: summaries[kind], results={},
+                          options=SimpleNamespace(n_replicates=20, chunk_units=1 << 18,
+                                                  scale="auto"))
+    corr = dep.correlation_section(ctx)
+    assert corr.partial_basis == "pearson_em"
+    em = corr.methods["pearson_em"].matrix
+    pairwise = corr.methods["pearson_pairwise"].matrix
+    lag1 = np.array([0.7] * 3)
+    idx = (np.arange(3), np.arange(1, 4))
+    assert np.all(np.abs(em[idx] - lag1) < 0.03)
+    assert np.mean(np.abs(pairwise[idx] - lag1)) > 2 * np.mean(np.abs(em[idx] - lag1))

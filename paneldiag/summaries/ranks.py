@@ -17,8 +17,6 @@ mergeable per-wave quantile sketch.
 from __future__ import annotations
 
 import numpy as np
-from scipy.stats import rankdata
-
 from paneldiag.summaries import Chunk
 from paneldiag.summaries.pairwise import PairwiseMoments
 
@@ -41,8 +39,22 @@ def wave_ranks(values: np.ndarray) -> np.ndarray:
             below = np.cumsum(counts) - counts
             ranks[seen, t] = (below + (counts + 1) / 2.0)[index]
         else:
-            ranks[seen, t] = rankdata(observed, method="average")
+            ranks[seen, t] = _midranks(observed)
     return ranks
+
+
+def _midranks(values: np.ndarray) -> np.ndarray:
+    """Midranks (1-based, ties averaged) by one argsort; as scipy.stats.rankdata."""
+    order = np.argsort(values)
+    ordered = values[order]
+    new = np.empty(len(values), dtype=bool)
+    new[0] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=new[1:])
+    starts = np.flatnonzero(new)
+    counts = np.diff(np.append(starts, len(values)))
+    out = np.empty(len(values))
+    out[order] = (starts + (counts + 1) / 2.0)[np.cumsum(new) - 1]
+    return out
 
 
 def rank_moments(values: np.ndarray, replicate: np.ndarray, times: np.ndarray,
