@@ -12,10 +12,12 @@ from functools import cached_property
 from typing import Callable
 
 from paneldiag import SCHEMA_VERSION, __version__
+from paneldiag.diagnostics.attrition import attrition_section
 from paneldiag.diagnostics.crosslag import cross_lag_screen
 from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
 from paneldiag.diagnostics.groups import group_screen
 from paneldiag.diagnostics.growth import growth_section
+from paneldiag.diagnostics.missingness import missingness_section
 from paneldiag.diagnostics.profile import wave_profile
 from paneldiag.diagnostics.reliability import reliability_section
 from paneldiag.io.ledger import Ledger
@@ -77,6 +79,8 @@ SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, Traje
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
+    ("attrition", attrition_section),
+    ("missingness", missingness_section),
     *DEPENDENCE_SECTIONS,
     ("reliability", reliability_section),
     ("growth", growth_section),

@@ -9,7 +9,8 @@ waves, never a pass over units.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import weakref
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import stats
@@ -136,6 +137,9 @@ def _start(patterns: PatternMoments, used: np.ndarray):
     return mean[used], np.diag(var[used])
 
 
+_EM_CACHE: dict[tuple, tuple[weakref.ref, EMResult]] = {}
+
+
 def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8,
                ) -> EMResult:
     """ML estimates of the wave means and covariance under missing at random.
@@ -173,6 +177,19 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
     2nd ed., chapter 11 (the multivariate normal with any pattern). Wiley.
     """
+    # several sections ask for the same estimates: compute them once per summary
+    key = (id(patterns), max_iter, tol)
+    cached = _EM_CACHE.get(key)
+    if cached is not None and cached[0]() is patterns:
+        return cached[1]
+    result = _em(patterns, max_iter, tol)
+    for stale in [k for k, (ref, _) in _EM_CACHE.items() if ref() is None]:
+        del _EM_CACHE[stale]
+    _EM_CACHE[key] = (weakref.ref(patterns), result)
+    return result
+
+
+def _em(patterns: PatternMoments, max_iter: int, tol: float) -> EMResult:
     t_all = patterns.n_waves
     wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
@@ -245,3 +262,190 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
         sol = np.linalg.solve(s_oo, dev[:, :, None])[:, :, 0]
         d2 += float(np.sum(g.n * np.einsum("pk,pk->p", dev, sol)))
     return LittleMCAR(d2, df, float(stats.chi2.sf(d2, df)), n_patterns)
+
+
+# ------------------------------------------------------------- response patterns
+
+OBSERVED_MARK, MISSING_MARK = "o", "."
+
+
+def pattern_text(observed: np.ndarray) -> np.ndarray:
+    """Patterns as text, one character per wave: 'o' observed, '.' missing.
+    ``observed`` is (P, T) boolean; returns P strings (an object array)."""
+    observed = np.atleast_2d(np.asarray(observed, dtype=bool))
+    marks = np.where(observed, ord(OBSERVED_MARK), ord(MISSING_MARK)).astype(np.uint8)
+    text = np.ascontiguousarray(marks).view(f"S{observed.shape[1]}")[:, 0]
+    return text.astype(str).astype(object)
+
+
+@dataclass(frozen=True)
+class PatternRow(Result):
+    pattern: str
+    n: int
+    share: float
+    n_observed_waves: int
+
+
+@dataclass(frozen=True)
+class ResponsePatterns(Result):
+    """The most frequent response patterns and a pooled remainder.
+
+    ``rows``: at most ``top`` patterns, each with at least ``min_cell`` units, most
+    frequent first (ties by pattern text). ``remainder``: every other pattern
+    pooled; its unit count is 0 or at least ``min_cell`` (the smallest listed
+    patterns are moved into it when needed), so nothing can be recovered by
+    subtraction from the total. ``n_small_patterns`` patterns had fewer than
+    ``min_cell`` units each; their units together (``n_small_units``) are shown only
+    when that total is itself at least ``min_cell``.
+    """
+
+    legend: str
+    n_patterns: int
+    n_units: int
+    rows: tuple[PatternRow, ...]
+    remainder_patterns: int
+    remainder_units: int
+    remainder_share: float
+    n_small_patterns: int
+    n_small_units: int | None
+
+    def to_dict(self) -> dict:
+        return {"legend": self.legend, "n_patterns": self.n_patterns, "n_units": self.n_units,
+                "rows": [r.to_dict() for r in self.rows],
+                "remainder": {"n_patterns": self.remainder_patterns,
+                              "n_units": self.remainder_units,
+                              "share": plain(self.remainder_share),
+                              "n_small_patterns": self.n_small_patterns,
+                              "n_small_units": self.n_small_units}}
+
+
+def response_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10,
+                      ) -> ResponsePatterns:
+    """Distinct observed/missing patterns of the waves with their unit counts.
+
+    The tabulation of response patterns for monotone and non-monotone missingness
+    follows Little and Rubin (2002, Statistical Analysis with Missing Data, 2nd ed.,
+    Wiley, sec. 1.3); the display and the pooling rules are paneldiag's own.
+    """
+    total = float(patterns.n.sum())
+    text = pattern_text(patterns.observed)
+    order = np.lexsort((text, -patterns.n)) if len(text) else np.zeros(0, dtype=int)
+    counts = patterns.n[order]
+    big = counts >= min_cell
+    listed = list(np.flatnonzero(big)[:top])
+    small = counts[~big].sum()
+    remainder = total - counts[listed].sum()
+    while 0 < remainder < min_cell and listed:
+        remainder += counts[listed.pop()]
+    rows = tuple(PatternRow(text[order[i]], int(counts[i]), float(counts[i] / total),
+                            int(patterns.observed[order[i]].sum())) for i in listed)
+    return ResponsePatterns(
+        legend=f"one character per wave: '{OBSERVED_MARK}' observed, '{MISSING_MARK}' missing",
+        n_patterns=int(patterns.n_patterns), n_units=int(total), rows=rows,
+        remainder_patterns=int(patterns.n_patterns - len(rows)),
+        remainder_units=int(remainder), remainder_share=remainder / total if total else np.nan,
+        n_small_patterns=int((~big).sum()),
+        n_small_units=int(small) if small >= min_cell else None)
+
+
+# ------------------------------------------------------------------- coverage
+
+@dataclass(frozen=True)
+class Coverage(Result):
+    """Units observed at both waves s and t (``n``) and their share of all units;
+    cells below ``min_cell`` are null. The diagonal is the response at each wave."""
+
+    waves: tuple[str, ...]
+    n: np.ndarray
+    share: np.ndarray
+    lowest_pair: tuple[str, str] | None
+    lowest_share: float | None
+
+    def to_dict(self) -> dict:
+        return {"waves": list(self.waves), "n": _int_matrix(self.n),
+                "share": plain(self.share),
+                "lowest": None if self.lowest_pair is None else
+                {"waves": list(self.lowest_pair), "share": plain(self.lowest_share)}}
+
+
+def _int_matrix(a):
+    return [[None if not np.isfinite(v) else int(v) for v in row] for row in a]
+
+
+def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Coverage:
+    """Pairwise coverage: the share of units observed at both waves of each pair,
+    the quantity behind pairwise-available estimates (the covariance coverage of
+    Enders 2010, Applied Missing Data Analysis, Guilford, ch. 1; from memory)."""
+    obs = patterns.observed.astype(float)
+    both = (obs * patterns.n[:, None]).T @ obs
+    total = patterns.n.sum()
+    show = both >= min_cell
+    n = np.where(show, both, np.nan)
+    share = np.where(show, both / total if total else np.nan, np.nan)
+    labels = tuple(str(w) for w in wave_labels)
+    off = np.where(~np.eye(len(labels), dtype=bool) & show, share, np.inf)
+    if np.isfinite(off).any():
+        i, j = np.unravel_index(np.argmin(off), off.shape)
+        return Coverage(labels, n, share, (labels[i], labels[j]), float(off[i, j]))
+    return Coverage(labels, n, share, None, None)
+
+
+# ------------------------------------------------------------ declared codes
+
+@dataclass(frozen=True)
+class CodeRow(Result):
+    code: str
+    label: str | None
+    counts: tuple[int | None, ...]   # per wave; None where below min_cell
+
+
+@dataclass(frozen=True)
+class DeclaredCodes(Result):
+    waves: tuple[str, ...]
+    rows: tuple[CodeRow, ...]
+
+    def to_dict(self) -> dict:
+        return {"waves": list(self.waves), "rows": [r.to_dict() for r in self.rows]}
+
+
+def declared_codes(codes: dict, labels: dict, wave_labels, min_cell: int = 5,
+                   ) -> DeclaredCodes:
+    """Counts of each declared missing code (refusal, don't know, ...) per wave, with
+    the file's value label where it declares one. Counts below ``min_cell`` are null;
+    no totals are given, so none can be recovered by subtraction. Item nonresponse
+    reasons in the sense of de Leeuw, Hox and Huisman (2003, J. Official Statistics)."""
+    rows = tuple(CodeRow(str(code), labels.get(code),
+                         tuple(int(c) if c >= min_cell else None for c in np.asarray(counts)))
+                 for code, counts in codes.items())
+    return DeclaredCodes(tuple(str(w) for w in wave_labels), rows)
+
+
+# -------------------------------------------------------------------- section
+
+@dataclass(frozen=True)
+class Missingness(Result):
+    patterns: ResponsePatterns
+    coverage: Coverage
+    em: EMResult
+    little_mcar: LittleMCAR
+    codes: DeclaredCodes
+
+    def to_dict(self) -> dict:
+        em = self.em.to_dict()
+        em["waves"] = list(self.coverage.waves)
+        return {"patterns": self.patterns.to_dict(), "coverage": self.coverage.to_dict(),
+                "em": em, "little_mcar": self.little_mcar.to_dict(),
+                "codes": self.codes.to_dict()}
+
+
+def missingness_section(ctx) -> Missingness:
+    """The ``missingness`` block of the report for one measure."""
+    patterns = ctx.summary(PatternMoments)
+    labels = ctx.panel.wave_labels
+    m = ctx.options.min_cell
+    em = em_moments(patterns)
+    shown_em = em if em.n_units >= m else replace(em, n_units=None)
+    codes = declared_codes(ctx.panel.codes.get(ctx.measure, {}),
+                           ctx.panel.code_labels.get(ctx.measure, {}), labels, m)
+    return Missingness(response_patterns(patterns, m), coverage(patterns, labels, m), shown_em,
+                       little_mcar_test(patterns, em), codes)

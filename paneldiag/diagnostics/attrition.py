@@ -1,0 +1,430 @@
+"""Attrition: retention by wave, unit types by response history, and whether dropout
+is selective on the measure (standardised mean differences and a discrete-time
+dropout model).
+
+Retention, unit types and the mean differences are functions of the per-pattern
+summary ``PatternMoments``. The dropout model needs each unit's value at each wave
+(and covariates), so it works on the panel's N x T matrices, vectorised.
+
+Disclosure control: every count below ``min_cell`` is suppressed (null in JSON),
+together with any share or mean that would reveal it; in a list of counts that adds
+up to a shown total, further cells are suppressed until the suppressed ones together
+hold at least ``min_cell`` units, so no suppressed count can be recovered by
+subtraction.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special, stats
+
+from paneldiag.results import Result
+from paneldiag.summaries.patterns import PatternMoments
+
+Z95 = float(stats.norm.ppf(0.975))
+
+
+# --------------------------------------------------------------- disclosure control
+
+def shown_mask(counts, min_cell: int, additive: bool = False) -> np.ndarray:
+    """True where a count may be shown.
+
+    A count below ``min_cell`` is never shown (primary suppression). With
+    ``additive`` (the counts add up to a total that is shown), the smallest shown
+    counts are suppressed too until the suppressed cells hold ``min_cell`` units or
+    more together (secondary suppression), so none can be recovered by subtraction.
+    """
+    counts = np.asarray(counts, dtype=float)
+    show = counts >= min_cell
+    if additive and (~show).any():
+        for i in np.argsort(counts, kind="stable"):  # a loop over cells of a small table
+            if counts[~show].sum() >= min_cell or show.sum() == 0:
+                break
+            if show[i]:
+                show[i] = False
+    return show
+
+
+def _count(value: float, shown: bool):
+    return int(value) if shown else None
+
+
+# ------------------------------------------------------------------------ retention
+
+@dataclass(frozen=True)
+class RetentionRow(Result):
+    wave: str
+    n_observed: int | None
+    retained_share: float | None
+    response_share: float | None
+    suppressed: bool
+
+
+@dataclass(frozen=True)
+class Retention(Result):
+    rows: tuple[RetentionRow, ...]
+
+    def to_dict(self) -> list[dict]:
+        return [row.to_dict() for row in self.rows]
+
+
+def wave_observed(patterns: PatternMoments) -> np.ndarray:
+    """Units observed at each wave, (T,)."""
+    return patterns.n @ patterns.observed
+
+
+def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Retention:
+    """Units observed at each wave, the share of the first wave's respondents still
+    observed (retention) and the share of all units observed (response).
+
+    Retention and response rates as defined for panel studies by Lynn (2009, ed.,
+    Methodology of Longitudinal Surveys, Wiley, ch. 1); a unit counts as observed
+    at a wave when the measure has a value there (declared missing codes count as
+    missing).
+    """
+    n_all = patterns.n.sum()
+    observed = wave_observed(patterns)
+    first = patterns.observed[:, 0]
+    base = patterns.n[first].sum()
+    still = patterns.n[first] @ patterns.observed[first]
+    rows = []
+    for t, label in enumerate(wave_labels):
+        ok = observed[t] >= min_cell
+        keep_ret = ok and base >= min_cell and still[t] >= min_cell
+        rows.append(RetentionRow(
+            wave=str(label), n_observed=_count(observed[t], ok),
+            retained_share=float(still[t] / base) if keep_ret else None,
+            response_share=float(observed[t] / n_all) if ok and n_all > 0 else None,
+            suppressed=not ok))
+    return Retention(tuple(rows))
+
+
+# ----------------------------------------------------------------------- unit types
+
+UNIT_TYPES = ("complete", "monotone_dropout", "late_entry", "late_entry_then_dropout",
+              "intermittent", "never_observed")
+
+
+def response_history(observed: np.ndarray):
+    """First and last observed wave, observed count and a gap flag per pattern row."""
+    t = observed.shape[1]
+    k = observed.sum(axis=1)
+    first = np.where(k > 0, observed.argmax(axis=1), -1)
+    last = np.where(k > 0, t - 1 - observed[:, ::-1].argmax(axis=1), -1)
+    gap = (k > 0) & (last - first + 1 > k)
+    return first, last, k, gap
+
+
+def unit_type_codes(observed: np.ndarray) -> np.ndarray:
+    """Index into ``UNIT_TYPES`` for each pattern row (see ``unit_types``)."""
+    t = observed.shape[1]
+    first, last, k, gap = response_history(observed)
+    code = np.full(len(observed), 4)                        # intermittent
+    code[~gap & (first == 0) & (last == t - 1)] = 0         # complete
+    code[~gap & (first == 0) & (last < t - 1)] = 1          # monotone dropout
+    code[~gap & (first > 0) & (last == t - 1)] = 2          # late entry, stays
+    code[~gap & (first > 0) & (last < t - 1)] = 3           # late entry, then leaves
+    code[k == 0] = 5                                        # never observed
+    return code
+
+
+@dataclass(frozen=True)
+class TypeRow(Result):
+    type: str
+    n: int | None
+    share: float | None
+
+
+@dataclass(frozen=True)
+class DropoutWave(Result):
+    wave: str
+    n: int | None
+    share: float | None
+
+
+@dataclass(frozen=True)
+class UnitTypes(Result):
+    types: tuple[TypeRow, ...]
+    dropout_last_wave: tuple[DropoutWave, ...]
+
+    def to_dict(self) -> dict:
+        return {"types": [r.to_dict() for r in self.types],
+                "dropout_last_wave": [r.to_dict() for r in self.dropout_last_wave]}
+
+
+def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> UnitTypes:
+    """Units by response history; the types are exclusive and add up to all units.
+
+    - complete: observed at every wave;
+    - monotone_dropout: observed from the first wave without a gap up to a last
+      observed wave before the final wave, never after (``dropout_last_wave`` gives
+      the wave of last observation);
+    - late_entry: first observed after the first wave, then without a gap to the
+      final wave; late_entry_then_dropout: the same but leaving before the final wave;
+    - intermittent: at least one missing wave between the first and the last
+      observed wave (whatever the entry and exit: a return after a gap);
+    - never_observed: no observed wave.
+    Monotone versus intermittent (non-monotone) missingness follows Little and
+    Rubin (2002, Statistical Analysis with Missing Data, 2nd ed., Wiley, sec. 1.3).
+    Shares are of all units.
+    """
+    codes = unit_type_codes(patterns.observed)
+    n_type = np.bincount(codes, weights=patterns.n, minlength=len(UNIT_TYPES))
+    total = patterns.n.sum()
+    show = shown_mask(n_type, min_cell, additive=True)
+    types = tuple(TypeRow(name, _count(n_type[i], show[i]),
+                          float(n_type[i] / total) if show[i] else None)
+                  for i, name in enumerate(UNIT_TYPES))
+    _, last, _, _ = response_history(patterns.observed)
+    t = patterns.n_waves
+    drop = codes == 1
+    by_wave = np.bincount(last[drop], weights=patterns.n[drop], minlength=t)[:t - 1]
+    show_w = shown_mask(by_wave, min_cell, additive=True) & show[1]
+    waves = tuple(DropoutWave(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
+                              float(by_wave[i] / total) if show_w[i] else None)
+                  for i in range(t - 1))
+    return UnitTypes(types, waves)
+
+
+# ---------------------------------------------------------------- selective dropout
+
+@dataclass(frozen=True)
+class DropoutDifference(Result):
+    """Units observed at ``wave``: those who leave after it against those observed
+    at the next wave, on the measure at ``wave``."""
+
+    wave: str
+    n_continuing: int | None
+    n_dropping: int | None
+    mean_continuing: float | None
+    mean_dropping: float | None
+    smd: float | None
+    ci_low: float | None
+    ci_high: float | None
+
+
+def _group_moments(patterns: PatternMoments, rows: np.ndarray, t: int):
+    n = patterns.n[rows]
+    total = n.sum()
+    if total == 0:
+        return 0.0, np.nan, np.nan
+    mean = n @ patterns.mean[rows, t] / total
+    ss = patterns.m2[rows, t, t].sum() + n @ (patterns.mean[rows, t] - mean) ** 2
+    return float(total), float(mean), float(ss)
+
+
+def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5,
+                        ) -> tuple[DropoutDifference, ...]:
+    """Standardised mean difference at each wave (but the last) between the units
+    who drop out after it (last observed there) and those observed again at the
+    next wave: Hedges' g = J (mean_dropping - mean_continuing) / s_pooled with
+    J = 1 - 3 / (4 (n1 + n2) - 9), and a 95% interval g +- 1.96 sqrt(v) with
+    v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)). Negative g: the leavers scored
+    lower. Units who skip the next wave but return later are in neither group.
+    Groups below ``min_cell`` units are suppressed with their means and g.
+
+    References
+    ----------
+    Hedges, L. V. (1981). Distribution theory for Glass's estimator of effect size
+    and related estimators. Journal of Educational Statistics, 6(2), 107-128.
+    Hedges, L. V. and Olkin, I. (1985). Statistical Methods for Meta-Analysis,
+    Academic Press, ch. 5 (the large-sample variance of g).
+    """
+    _, last, _, _ = response_history(patterns.observed)
+    out = []
+    for t in range(patterns.n_waves - 1):  # a loop over waves
+        stay = patterns.observed[:, t] & patterns.observed[:, t + 1]
+        leave = last == t
+        n1, m1, ss1 = _group_moments(patterns, stay, t)
+        n2, m2, ss2 = _group_moments(patterns, leave, t)
+        ok1, ok2 = n1 >= min_cell, n2 >= min_cell
+        g = lo = hi = None
+        if ok1 and ok2 and n1 + n2 > 2:
+            sd = np.sqrt((ss1 + ss2) / (n1 + n2 - 2))
+            if sd > 0:
+                g = float((1 - 3 / (4 * (n1 + n2) - 9)) * (m2 - m1) / sd)
+                half = Z95 * np.sqrt((n1 + n2) / (n1 * n2) + g * g / (2 * (n1 + n2)))
+                lo, hi = g - half, g + half
+        out.append(DropoutDifference(
+            str(wave_labels[t]), _count(n1, ok1), _count(n2, ok2),
+            m1 if ok1 else None, m2 if ok2 else None, g, lo, hi))
+    return tuple(out)
+
+
+@dataclass(frozen=True)
+class DropoutModel(Result):
+    """Discrete-time logit of dropping out after a wave."""
+
+    fitted: bool
+    note: str
+    n_person_periods: int | None
+    n_events: int | None
+    n_units: int | None
+    waves_in_model: tuple[str, ...]
+    odds_ratio_per_sd: float | None
+    ci_low: float | None
+    ci_high: float | None
+    pvalue: float | None
+    covariates: tuple[dict, ...]
+    iterations: int
+
+
+def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = None,
+                  min_cell: int = 5, max_iter: int = 50, tol: float = 1e-10,
+                  ) -> DropoutModel:
+    """Discrete-time hazard of dropping out after wave t, as a logit with one
+    intercept per wave and the measure at t, standardised within the wave:
+
+        logit P(last observed at t | observed at t) = a_t + b z_t + c' w_t
+
+    Person-periods are the (unit, wave) cells with an observed value before the final
+    wave; the event is that the unit is never observed after t (so a unit that
+    skips and returns is not an event). Covariates ``w_t`` (value at wave t) are
+    standardised over the person-periods; cells with a missing covariate are left
+    out. Waves without events (or without non-events) are left out, which is their
+    exact maximum-likelihood limit. The fit is Newton-Raphson on the whole cell
+    arrays, using the block structure of the wave intercepts (no person-period
+    design matrix with wave dummies is built); Wald intervals from the inverse
+    information. ``odds_ratio_per_sd`` is exp(b). Unweighted.
+
+    References
+    ----------
+    Allison, P. D. (1982). Discrete-time methods for the analysis of event histories.
+    Sociological Methodology, 13, 61-98.
+    Singer, J. D. and Willett, J. B. (1993). It's about time: using discrete-time
+    survival analysis to study duration and the timing of events. Journal of
+    Educational Statistics, 18(2), 155-195.
+    """
+    covariates = covariates or {}
+    labels = [str(w) for w in wave_labels]
+    n_units, t = values.shape
+    seen = ~np.isnan(values)
+    later = np.zeros_like(seen)
+    later[:, :-1] = np.flip(np.logical_or.accumulate(np.flip(seen[:, 1:], axis=1), axis=1),
+                            axis=1)
+    risk = seen[:, :-1].copy()
+    event = risk & ~later[:, :-1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.nanmean(np.where(seen, values, np.nan), axis=0)
+        sd = np.nanstd(np.where(seen, values, np.nan), axis=0, ddof=1)
+        z = (values - mean) / sd
+    risk &= np.isfinite(z[:, :-1])
+    columns = [z[:, :-1]]
+    names = list(covariates)
+    for name in names:
+        w = np.asarray(covariates[name], dtype=float)[:, :-1]
+        risk &= np.isfinite(w)
+        columns.append(w)
+    events_t = (event & risk).sum(axis=0)
+    risk_t = risk.sum(axis=0)
+    waves_used = (events_t > 0) & (events_t < risk_t)
+    risk &= waves_used[None, :]
+    unit, wave = np.nonzero(risk)
+    y = event[unit, wave].astype(float)
+    n_pp, n_ev = len(y), int(y.sum())
+    base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
+                n_events=_count(n_ev, n_ev >= min_cell),
+                n_units=_count(len(np.unique(unit)), len(np.unique(unit)) >= min_cell),
+                waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
+
+    def empty(note, iterations=0):
+        return DropoutModel(False, note, **base, odds_ratio_per_sd=None, ci_low=None,
+                            ci_high=None, pvalue=None, covariates=(), iterations=iterations)
+
+    if n_ev < min_cell or n_pp - n_ev < min_cell:
+        return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
+    x = np.column_stack([c[unit, wave] for c in columns])
+    x[:, 1:] = (x[:, 1:] - x[:, 1:].mean(axis=0)) / np.where(x[:, 1:].std(axis=0) > 0,
+                                                               x[:, 1:].std(axis=0), 1.0)
+    if np.any(x.std(axis=0) == 0):
+        return empty("a predictor is constant over the person-periods: not fitted")
+    level = np.searchsorted(np.flatnonzero(waves_used), wave)   # intercept index per row
+    fit = _newton_logit(y, x, level, int(waves_used.sum()), max_iter, tol)
+    if fit is None:
+        return empty("the dropout model did not converge (separation or a singular "
+                     "information matrix)")
+    beta, se, iterations = fit
+    zstat = beta / se
+    p = 2 * stats.norm.sf(np.abs(zstat))
+    lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
+    extra = tuple({"name": name, "odds_ratio_per_sd": float(np.exp(beta[j + 1])),
+                   "ci_low": float(lo[j + 1]), "ci_high": float(hi[j + 1]),
+                   "pvalue": float(p[j + 1])} for j, name in enumerate(names))
+    return DropoutModel(True, "fitted", **base, odds_ratio_per_sd=float(np.exp(beta[0])),
+                        ci_low=float(lo[0]), ci_high=float(hi[0]), pvalue=float(p[0]),
+                        covariates=extra, iterations=iterations)
+
+
+def _newton_logit(y, x, level, n_levels, max_iter, tol):
+    """Logit with one intercept per level and slopes on x by Newton-Raphson;
+    returns (slopes, their standard errors, iterations) or None."""
+    k = x.shape[1]
+    events = np.bincount(level, weights=y, minlength=n_levels)
+    size = np.bincount(level, minlength=n_levels)
+    alpha = np.log(events / (size - events))
+    beta = np.zeros(k)
+    for iteration in range(1, max_iter + 1):
+        eta = alpha[level] + x @ beta
+        prob = special.expit(eta)
+        w = prob * (1 - prob)
+        r = y - prob
+        grad = np.r_[np.bincount(level, weights=r, minlength=n_levels), x.T @ r]
+        h_aa = np.bincount(level, weights=w, minlength=n_levels)
+        h_ab = np.column_stack([np.bincount(level, weights=w * x[:, j], minlength=n_levels)
+                                for j in range(k)])  # a loop over predictors
+        h_bb = x.T @ (w[:, None] * x)
+        info = np.block([[np.diag(h_aa), h_ab], [h_ab.T, h_bb]])
+        try:
+            step = np.linalg.solve(info, grad)
+        except np.linalg.LinAlgError:
+            return None
+        if not np.all(np.isfinite(step)):
+            return None
+        alpha = alpha + step[:n_levels]
+        beta = beta + step[n_levels:]
+        if np.max(np.abs(step)) < tol:
+            break
+    else:
+        return None
+    eta = alpha[level] + x @ beta
+    prob = special.expit(eta)
+    w = prob * (1 - prob)
+    h_aa = np.bincount(level, weights=w, minlength=n_levels)
+    h_ab = np.column_stack([np.bincount(level, weights=w * x[:, j], minlength=n_levels)
+                            for j in range(k)])
+    info = np.block([[np.diag(h_aa), h_ab], [h_ab.T, x.T @ (w[:, None] * x)]])
+    cov = np.linalg.inv(info)
+    se = np.sqrt(np.diag(cov)[n_levels:])
+    if np.max(np.abs(beta)) > 20 or not np.all(np.isfinite(se)):
+        return None
+    return beta, se, iteration
+
+
+@dataclass(frozen=True)
+class Selective(Result):
+    by_wave: tuple[DropoutDifference, ...]
+    model: DropoutModel
+
+    def to_dict(self) -> dict:
+        return {"by_wave": [r.to_dict() for r in self.by_wave], "model": self.model.to_dict()}
+
+
+# -------------------------------------------------------------------------- section
+
+@dataclass(frozen=True)
+class Attrition(Result):
+    retention: Retention
+    unit_types: UnitTypes
+    selective: Selective
+
+
+def attrition_section(ctx) -> Attrition:
+    """The ``attrition`` block of the report for one measure."""
+    patterns = ctx.summary(PatternMoments)
+    labels = ctx.panel.wave_labels
+    m = ctx.options.min_cell
+    model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m)
+    return Attrition(retention(patterns, labels, m), unit_types(patterns, labels, m),
+                     Selective(dropout_differences(patterns, labels, m), model))
