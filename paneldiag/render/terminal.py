@@ -76,8 +76,10 @@ def render_terminal(report: dict, color: bool = False) -> str:
     return "\n\n".join(parts) + "\n"
 
 
+from paneldiag.render.text_attrition import attrition_block, missingness_block  # noqa: E402
 from paneldiag.render.text_dependence import dependence_block  # noqa: E402
 from paneldiag.render.text_reliability import render_growth, render_reliability  # noqa: E402
 
+SECTION_RENDERERS[2:2] = [("attrition", attrition_block), ("missingness", missingness_block)]
 SECTION_RENDERERS += [("correlation", dependence_block)]
 SECTION_RENDERERS += [("reliability", render_reliability), ("growth", render_growth)]
