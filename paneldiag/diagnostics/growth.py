@@ -254,7 +254,8 @@ def _icc_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
 
 # ----------------------------------------------------------------------------- the sections
 
-def trajectory_fits(summary: TrajectorySummary, level: float = 0.95) -> TrajectoryFits:
+def trajectory_fits(summary: TrajectorySummary, level: float = 0.95,
+                    prepared=None) -> TrajectoryFits:
     """Means and spreads of the per-unit least-squares lines on centred wave times.
 
     Each unit with at least two observed waves gets an ordinary least-squares line
@@ -268,10 +269,9 @@ def trajectory_fits(summary: TrajectorySummary, level: float = 0.95) -> Trajecto
     Rogosa, D., Brandt, D., and Zimowski, M. (1982). A growth curve approach to the
     measurement of change. Psychological Bulletin, 92(3), 726-748.
     """
-    pooled = summary.pooled()
-    pd_ = _pattern_design(pooled)
+    pooled, parts, pd_ = prepared or prepare(summary)
     point = _trajectory_point(pooled, pd_)
-    reps = [_trajectory_point(part, pd_) for part in _aligned_leave_one_out(summary)]
+    reps = [_trajectory_point(part, pd_) for part in parts]
     slope_ci = _ci(point["mean_slope"], [r["mean_slope"] for r in reps], level)
     curve_ci = _ci(point["mean_curvature"], [r["mean_curvature"] for r in reps], level)
     return TrajectoryFits(
@@ -285,7 +285,8 @@ def trajectory_fits(summary: TrajectorySummary, level: float = 0.95) -> Trajecto
         mean_curvature_ci_high=curve_ci[1])
 
 
-def slope_reliability(summary: TrajectorySummary, level: float = 0.95) -> SlopeReliability:
+def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
+                      prepared=None) -> SlopeReliability:
     """Reliability of the per-unit least-squares slopes, and the test of slope variance.
 
     With sigma^2 the pooled within-unit residual variance of the linear fits and
@@ -313,11 +314,9 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95) -> SlopeR
     DerSimonian, R., and Laird, N. (1986). Meta-analysis in clinical trials.
     Controlled Clinical Trials, 7(3), 177-188.
     """
-    pooled = summary.pooled()
-    pd_ = _pattern_design(pooled)
+    pooled, parts, pd_ = prepared or prepare(summary)
     point = _slope_reliability_point(pooled, pd_)
-    reps = [_slope_reliability_point(part, pd_)["reliability"]
-            for part in _aligned_leave_one_out(summary)]
+    reps = [_slope_reliability_point(part, pd_)["reliability"] for part in parts]
     low, high = _ci(point["reliability"], reps, level)
     df = int(point["n"]) - 1
     problem = None
@@ -335,8 +334,8 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95) -> SlopeR
         n_units=int(point["n"]), impossible=problem is not None, problem=problem)
 
 
-def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95
-                             ) -> ResidualAutocorrelation:
+def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95,
+                             prepared=None) -> ResidualAutocorrelation:
     """Lag-1 autocorrelation of within-unit residuals after each unit's own line.
 
     The pooled statistic is r = sum_j e_j' L e_j / sum_j e_j' e_j over units with at
@@ -359,10 +358,9 @@ def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95
     Nickell, S. (1981). Biases in dynamic models with fixed effects. Econometrica,
     49(6), 1417-1426.
     """
-    pooled = summary.pooled()
-    pd_ = _pattern_design(pooled)
+    pooled, parts, pd_ = prepared or prepare(summary)
     point = _autocorrelation_point(pooled, pd_)
-    reps = [_autocorrelation_point(part, pd_)["r"] for part in _aligned_leave_one_out(summary)]
+    reps = [_autocorrelation_point(part, pd_)["r"] for part in parts]
     low, high = _ci(point["r"], reps, level)
     z = float(point["z"])
     return ResidualAutocorrelation(
@@ -372,8 +370,8 @@ def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95
         n_units=int(point["n"]), n_pairs=int(point["pairs"]))
 
 
-def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95
-                           ) -> IntraclassCorrelation:
+def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95,
+                           prepared=None) -> IntraclassCorrelation:
     """ICC(1): share of variance between units, one-way random-effects ANOVA.
 
     Units are the classes and their observed waves the replicates: MSB and MSW are
@@ -390,10 +388,9 @@ def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95
     Snedecor, G. W., and Cochran, W. G. (1989). Statistical Methods (8th ed.),
     Iowa State University Press (n0 for unequal class sizes).
     """
-    pooled = summary.pooled()
-    pd_ = _pattern_design(pooled)
+    pooled, parts, pd_ = prepared or prepare(summary)
     point = _icc_point(pooled, pd_)
-    reps = [_icc_point(part, pd_)["icc"] for part in _aligned_leave_one_out(summary)]
+    reps = [_icc_point(part, pd_)["icc"] for part in parts]
     low, high = _ci(point["icc"], reps, level)
     f = point["msb"] / point["msw"] if point["msw"] > 0 else float("nan")
     problem = None
@@ -528,20 +525,23 @@ def variance_trend(moments, times: np.ndarray) -> VarianceTrend:
 def growth_screen(trajectories: TrajectorySummary, moments, times: np.ndarray,
                   level: float = 0.95) -> GrowthScreen:
     """Every part of the growth screen (see the functions for methods and references)."""
+    prepared = prepare(trajectories)
     return GrowthScreen(
-        trajectories=trajectory_fits(trajectories, level),
-        slope_reliability=slope_reliability(trajectories, level),
-        residual_autocorrelation=residual_autocorrelation(trajectories, level),
+        trajectories=trajectory_fits(trajectories, level, prepared),
+        slope_reliability=slope_reliability(trajectories, level, prepared),
+        residual_autocorrelation=residual_autocorrelation(trajectories, level, prepared),
         mean_shape=mean_shape(moments, times),
         variance_trend=variance_trend(moments, times),
-        icc=intraclass_correlation(trajectories, level))
+        icc=intraclass_correlation(trajectories, level, prepared))
 
 
 # ----------------------------------------------------------------------------- helpers
 
-def _aligned_leave_one_out(summary: TrajectorySummary):
-    """Leave-one-group-out pooled summaries on the full pattern list (same order)."""
-    return summary.leave_one_out()
+def prepare(summary: TrajectorySummary):
+    """(pooled summary, leave-one-group-out summaries, pattern constants), shared by
+    the sections so the pooling and the per-pattern algebra are done once."""
+    pooled = summary.pooled()
+    return pooled, list(summary.leave_one_out()), _pattern_design(pooled)
 
 
 def _ci(point, reps, level) -> tuple[float, float]:

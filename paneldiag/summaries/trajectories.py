@@ -139,25 +139,44 @@ class TrajectorySummary:
 
     def pooled(self, drop_group: int | None = None) -> "TrajectorySummary":
         """All replicate groups combined (optionally leaving one out), K axis of 1."""
-        keep = [g for g in range(self.n.shape[0]) if g != drop_group]
-        total = {key: getattr(self, key)[keep[0]:keep[0] + 1] for key in _zeros(1, 1)}
-        for g in keep[1:]:  # a loop over replicate groups
-            part = {key: getattr(self, key)[g:g + 1] for key in total}
-            step = {"n": total["n"] + part["n"]}
-            for mean_key, m2_key in _MOMENT_PAIRS:
-                step[mean_key], step[m2_key] = _combine(
-                    total["n"], total[mean_key], total[m2_key],
-                    part["n"], part[mean_key], part[m2_key])
-            for key in _SUM_KEYS:
-                step[key] = total[key] + part[key]
-            total = step
-        return TrajectorySummary(times=self.times, centre=self.centre,
-                                 patterns=self.patterns, **total)
+        keep = np.ones((1, self.n.shape[0]))
+        if drop_group is not None:
+            keep[0, drop_group] = 0.0
+        return self._pool(keep)[0]
 
     def leave_one_out(self):
         """Yield the pooled summary with each replicate group left out in turn."""
-        for g in range(self.n.shape[0]):
-            yield self.pooled(drop_group=g)
+        k = self.n.shape[0]
+        yield from self._pool(1.0 - np.eye(k))
+
+    def _pool(self, keep: np.ndarray) -> list["TrajectorySummary"]:
+        """Pooled summaries, one per row of the 0/1 matrix ``keep`` (rows x K groups).
+
+        Exact and centred: n = sum n_h, mean = sum n_h m_h / n and
+        M2 = sum (M2_h + n_h (m_h - mean)(m_h - mean)') over the kept groups h.
+        """
+        n = np.einsum("oh,hp->op", keep, self.n)
+        out = {"n": n}
+        safe = np.where(n > 0, n, 1.0)
+        for mean_key, m2_key in _MOMENT_PAIRS:
+            m, m2 = getattr(self, mean_key), getattr(self, m2_key)
+            if m.ndim == 2:  # scalar moments: (K, P)
+                mean = np.einsum("oh,hp,hp->op", keep, self.n, m) / safe
+                dev = m[None] - mean[:, None]
+                out[mean_key] = mean
+                out[m2_key] = np.einsum("oh,hp->op", keep, m2) + \
+                    np.einsum("oh,hp,ohp->op", keep, self.n, dev * dev)
+            else:  # vector moments: (K, P, q)
+                mean = np.einsum("oh,hp,hpq->opq", keep, self.n, m) / safe[..., None]
+                dev = m[None] - mean[:, None]
+                out[mean_key] = mean
+                out[m2_key] = np.einsum("oh,hpqr->opqr", keep, m2) + \
+                    np.einsum("oh,hp,ohpq,ohpr->opqr", keep, self.n, dev, dev)
+        for key in _SUM_KEYS:
+            out[key] = np.einsum("oh,hp->op", keep, getattr(self, key))
+        return [TrajectorySummary(times=self.times, centre=self.centre, patterns=self.patterns,
+                                  **{key: value[o:o + 1] for key, value in out.items()})
+                for o in range(keep.shape[0])]
 
 
 def _zeros(k: int, p: int) -> dict:
@@ -183,9 +202,11 @@ def _group_moments(values: np.ndarray, g: np.ndarray, count: np.ndarray, k_group
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(count[:, None] > 0, sums / np.maximum(count, 1)[:, None], 0.0)
     dev = values - mean[g]
-    outer = dev[:, :, None] * dev[:, None, :]
-    m2 = np.zeros((k_groups, q, q))
-    np.add.at(m2, g, outer)
+    m2 = np.empty((k_groups, q, q))
+    for a in range(q):  # a loop over coefficients (at most 3)
+        for b in range(a, q):
+            m2[:, a, b] = m2[:, b, a] = np.bincount(g, weights=dev[:, a] * dev[:, b],
+                                                    minlength=k_groups)
     return mean, m2
 
 
