@@ -9,7 +9,10 @@ from paneldiag.errors import InputProblem
 
 
 def refuse_input_overwrite(output: str, inputs: list[str]) -> None:
-    """Stop before writing if an output path names one of the input files."""
+    """Stop before any work if an output path names one of the input files, or its
+    folder does not exist (so a long screen never ends in an unwritable path)."""
+    if not os.path.isdir(os.path.dirname(os.path.abspath(output))):
+        raise InputProblem("the output folder does not exist", file=output)
     out = os.path.realpath(output)
     for path in inputs:
         if path != "-" and os.path.exists(path) and os.path.realpath(path) == out:

@@ -128,8 +128,9 @@ def _check_text(path: str, head: bytes) -> None:
         head.decode("utf-8")
     except UnicodeDecodeError as exc:
         if exc.start < len(head) - 4:  # a cut multi-byte character at the end is fine
-            raise InputProblem(f"not UTF-8 text: undecodable byte at offset {exc.start}",
-                               file=path) from None
+            line = head[:exc.start].count(b"\n") + 1
+            raise InputProblem(f"not UTF-8 text: undecodable byte at offset {exc.start}; "
+                               "save the file as UTF-8", file=path, row=line) from None
 
 
 def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:

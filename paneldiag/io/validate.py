@@ -375,13 +375,19 @@ def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     if spec.duplicates == "error":
         dup_positions = np.flatnonzero(counts[cell] > 1)
         first = dup_positions[0]
-        same = dup_positions[cell[dup_positions] == cell[first]][:2]
-        lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
-        unit, wave = unit_ids[cell[first] // n_waves], labels[cell[first] % n_waves]
+        shown = []
+        for c in pd.unique(cell[dup_positions])[:3]:  # name the first few repeated pairs
+            same = dup_positions[cell[dup_positions] == c][:2]
+            lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
+            where = "" if labels == ("",) else f" at wave {labels[c % n_waves]}"
+            shown.append(f"{unit_ids[c // n_waves]}{where} (rows {lines})")
         n_cells = int(np.count_nonzero(counts > 1))
+        what = "unit id(s) appear in more than one row" if labels == ("",) else \
+            "unit-wave pair(s) appear more than once"
+        more = ", ..." if n_cells > len(shown) else ""
         raise InputProblem(
-            f"{n_cells} unit-wave pair(s) appear more than once, first unit {unit} at wave "
-            f"{wave} (rows {lines}); choose --duplicates first, last or mean",
+            f"{n_cells} {what}: {', '.join(shown)}{more}; choose --duplicates first"
+            f"{' or last' if labels == ('',) else ', last or mean'}",
             file=raw.source, row=raw.row_number(valid_rows[first]), column=spec.id)
     if spec.duplicates == "mean":
         return np.arange(len(cell)), n_duplicate
@@ -484,9 +490,11 @@ def _unit_weights(raw, spec, rows, unit_rows, unit_ids):
     values = _unit_constant(raw, spec.weight, rows, unit_rows, unit_ids, numeric=True)
     bad = ~np.isfinite(values) | (values < 0)
     if bad.any():
-        unit = unit_ids[np.flatnonzero(bad)[0]]
+        first = int(np.flatnonzero(bad)[0])
+        row = raw.row_number(rows[np.flatnonzero(unit_rows == first)[0]])
         raise InputProblem(f"weight is missing, negative or infinite for {int(bad.sum())} "
-                           f"unit(s), first unit {unit}", file=raw.source, column=spec.weight)
+                           f"unit(s), first unit {unit_ids[first]}", file=raw.source, row=row,
+                           column=spec.weight)
     return values
 
 

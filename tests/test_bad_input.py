@@ -1,0 +1,173 @@
+"""The bad-input corpus, run through the real command line in subprocesses.
+
+Every file in fixtures/bad/ is one case; fixtures/bad/expected.txt gives the options, the
+expected message fragment and the expected location. Each run must exit with status 2,
+print exactly one line on stderr (``paneldiag: error: WHAT (FILE:ROW:COLUMN)``), show no
+traceback, write nothing and leave the input byte for byte as it was.
+
+Each case runs in its own child process. To keep the corpus fast, the child is forked
+from the test process (which has already imported paneldiag) and runs the command line's
+``main`` with the case's arguments, its own working folder, no standard input, and stdout
+and stderr on files, then exits with main's status. A few cases also go through the full
+``python -m paneldiag`` start to cover the entry point itself.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import os
+import shlex
+import sys
+import tempfile
+
+import pytest
+
+from conftest import FIXTURES, run_cli
+
+BAD = FIXTURES / "bad"
+
+
+def load_cases() -> list[tuple[str, list[str], str, str]]:
+    cases = []
+    for line in (BAD / "expected.txt").read_text(encoding="utf-8").splitlines():
+        if not line.strip() or line.startswith("#"):
+            continue
+        name, options, fragment, location = (part.strip() for part in line.split(" | "))
+        cases.append((name, shlex.split(options), fragment, location))
+    return cases
+
+
+CASES = load_cases()
+
+
+def digest(path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+class Outcome:
+    def __init__(self, returncode: int, stdout: bytes, stderr: bytes):
+        self.returncode, self.stdout, self.stderr = returncode, stdout, stderr
+
+
+def run_forked(args: list[str], cwd) -> Outcome:
+    """Run ``paneldiag.cli.main(args)`` in a forked child process, as the console would."""
+    import pyarrow.csv, pyarrow.parquet, pyreadstat  # noqa: F401  (imported once, here)
+
+    import paneldiag.cli.demo, paneldiag.cli.screen  # noqa: F401
+    from paneldiag.cli import main
+
+    with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
+        pid = os.fork()
+        if pid == 0:  # the child: never returns into pytest
+            status = 1
+            try:
+                os.chdir(cwd)
+                null = os.open(os.devnull, os.O_RDONLY)
+                os.dup2(null, 0)
+                os.dup2(out.fileno(), 1)
+                os.dup2(err.fileno(), 2)
+                sys.stdin = io.TextIOWrapper(io.FileIO(0, "r", closefd=False))
+                sys.stdout = io.TextIOWrapper(io.FileIO(1, "w", closefd=False), "utf-8")
+                sys.stderr = io.TextIOWrapper(io.FileIO(2, "w", closefd=False), "utf-8")
+                try:
+                    status = main([str(a) for a in args]) or 0
+                except SystemExit as done:
+                    status = done.code if isinstance(done.code, int) else 1
+            finally:
+                for stream in (sys.stdout, sys.stderr):
+                    try:
+                        stream.flush()
+                    except Exception:
+                        pass
+                os._exit(status)
+        _, wait_status = os.waitpid(pid, 0)
+        out.seek(0)
+        err.seek(0)
+        return Outcome(os.waitstatus_to_exitcode(wait_status), out.read(), err.read())
+
+
+@pytest.fixture(scope="module")
+def outcomes(tmp_path_factory):
+    """Run every case once, recording what it did."""
+    results = {}
+    for name, options, _, _ in CASES:
+        out = tmp_path_factory.mktemp(name.replace(".", "_"))
+        source = BAD / name
+        before = digest(source)
+        result = run_forked(["screen", source, *options, "--json", out / "report.json"], out)
+        results[name] = (result, before, digest(source), sorted(p.name for p in out.iterdir()))
+    return results
+
+
+ENTRY_POINT_CASES = ["semicolons.csv", "duplicate_unit_wave.csv", "damaged.parquet"]
+
+
+@pytest.mark.parametrize("name", ENTRY_POINT_CASES)
+def test_entry_point_agrees(outcomes, tmp_path, name):
+    """The full ``python -m paneldiag`` start prints the same line as the forked run."""
+    case = next(c for c in CASES if c[0] == name)
+    result = run_cli("screen", BAD / name, *case[1], "--json", tmp_path / "report.json")
+    assert result.returncode == 2
+    assert result.stderr == outcomes[name][0].stderr
+    assert not (tmp_path / "report.json").exists()
+
+
+def test_corpus_is_complete():
+    listed = {case[0] for case in CASES}
+    present = {p.name for p in BAD.iterdir() if p.name != "expected.txt"}
+    assert listed == present
+    assert len(listed) >= 15
+
+
+@pytest.mark.parametrize("name,options,fragment,location", CASES, ids=[c[0] for c in CASES])
+def test_bad_input(outcomes, name, options, fragment, location):
+    result, before, after, written = outcomes[name]
+    stderr = result.stderr.decode("utf-8")
+    assert result.returncode == 2, stderr
+    assert "Traceback" not in stderr
+    lines = stderr.splitlines()
+    assert len(lines) == 1, stderr
+    line = lines[0]
+    assert line.startswith("paneldiag: error: ")
+    assert fragment in line
+    source = str(BAD / name)
+    if location == "none":
+        assert source not in line
+    elif location == "-":
+        assert line.endswith(f"({source})")
+    else:
+        assert line.endswith(f"({source}:{location})")
+    assert result.stdout == b""
+    assert written == []            # no report, no stray temporary file
+    assert before == after          # the input is untouched
+
+
+def test_output_path_equal_to_input_is_refused(tmp_path):
+    source = tmp_path / "tenants.csv"
+    source.write_text("household,year,trust\nH1,2015,5\nH1,2016,6\nH2,2015,4\nH2,2016,4\n")
+    before = digest(source)
+    result = run_cli("screen", source, "--id", "household", "--wave", "year", "--value",
+                     "trust", "--json", source)
+    lines = result.stderr.decode().splitlines()
+    assert result.returncode == 2 and len(lines) == 1
+    assert "the output path is the input file" in lines[0]
+    assert digest(source) == before
+    # the same file reached through another name is refused as well
+    link = tmp_path / "alias.csv"
+    link.symlink_to(source)
+    result = run_cli("screen", source, "--id", "household", "--wave", "year", "--value",
+                     "trust", "--json", link)
+    assert result.returncode == 2 and digest(source) == before
+
+
+def test_output_folder_missing(tmp_path):
+    source = tmp_path / "tenants.csv"
+    source.write_text("household,year,trust\n" + "".join(
+        f"H{u},{2015 + w},{(u * 7 + w * 3) % 10}\n" for u in range(12) for w in range(3)))
+    result = run_cli("screen", source, "--id", "household", "--wave", "year", "--value",
+                     "trust", "--json", tmp_path / "no" / "such" / "report.json")
+    lines = result.stderr.decode().splitlines()
+    assert result.returncode == 2 and len(lines) == 1
+    assert "output folder does not exist" in lines[0]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["tenants.csv"]
