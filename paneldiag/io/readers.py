@@ -13,6 +13,7 @@ import hashlib
 import io
 import os
 import sys
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -72,13 +73,42 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
     """Read the named columns of a panel file; ``path='-'`` reads standard input."""
     fmt = detect_format(path, fmt)
     data = _load_bytes(path)
-    digest = hashlib.sha256(data).hexdigest() if isinstance(data, bytes) else _sha256_file(path)
+    if isinstance(data, bytes):
+        hashing, digest = None, hashlib.sha256(data).hexdigest()
+    else:  # the file's digest is taken on a second thread while the parser runs
+        hashing, digest = _Background(_sha256_file, path), ""
     if fmt in ("csv", "tsv"):
         raw = data if isinstance(data, bytes) else None
-        return _read_text(path, raw, fmt, columns, delimiter, digest)
-    if fmt == "parquet":
-        return _read_parquet(path, data, columns, digest)
-    return _read_stat_file(path, data, fmt, columns, digest)
+        table = _read_text(path, raw, fmt, columns, delimiter, digest)
+    elif fmt == "parquet":
+        table = _read_parquet(path, data, columns, digest)
+    else:
+        table = _read_stat_file(path, data, fmt, columns, digest)
+    if hashing is not None:
+        table.sha256 = hashing.result()
+    return table
+
+
+class _Background:
+    """A function run on a daemon thread (hashlib and file reads release the GIL)."""
+
+    def __init__(self, function, *args):
+        self._outcome: list = []
+        self._thread = threading.Thread(target=self._run, args=(function, args), daemon=True)
+        self._thread.start()
+
+    def _run(self, function, args) -> None:
+        try:
+            self._outcome.append((True, function(*args)))
+        except BaseException as exc:  # handed to the caller by result()
+            self._outcome.append((False, exc))
+
+    def result(self):
+        self._thread.join()
+        ok, value = self._outcome[0]
+        if not ok:
+            raise value
+        return value
 
 
 def _load_bytes(path: str) -> bytes | None:
@@ -161,8 +191,14 @@ def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
         raise _text_parse_problem(path, raw, sep, str(exc)) from None
     if table.num_rows == 0:
         raise InputProblem("no data rows: the file has a header only", file=path)
-    frame = table.to_pandas(types_mapper=_arrow_types)
+    frame = _to_frame(table)
     return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2)
+
+
+def _to_frame(table) -> pd.DataFrame:
+    """An Arrow table as a DataFrame, one block per column (no consolidating copy),
+    freeing each Arrow column once converted, so the table is not held twice."""
+    return table.to_pandas(types_mapper=_arrow_types, split_blocks=True, self_destruct=True)
 
 
 def _arrow_types(arrow_type):
@@ -230,7 +266,7 @@ def _read_parquet(path, raw, columns, digest) -> RawTable:
                            file=path) from None
     if table.num_rows == 0:
         raise InputProblem("no data rows", file=path)
-    frame = table.to_pandas(types_mapper=_arrow_types)
+    frame = _to_frame(table)
     return RawTable(frame=frame, source=path, format="parquet", sha256=digest, first_row_number=1)
 
 
