@@ -23,11 +23,13 @@ from paneldiag.diagnostics.reliability import reliability_section
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
+from paneldiag.rules import RULE_SECTIONS
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
 from paneldiag.summaries.pairwise import PairwiseMoments
 from paneldiag.summaries.patterns import PatternMoments
+from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
 from paneldiag.summaries.trajectories import TrajectorySummary
 
 CAUTION_SCREENING = (
@@ -43,6 +45,7 @@ class ScreenOptions:
     scale: str = "auto"             # "auto", "ordinal" or "continuous" (dependence)
     group_column: str | None = None  # name of the grouping column, for by-group screens
     by_group: bool = True            # screen each group too when the panel has groups
+    rules: object = None             # paneldiag.rules.Thresholds (None: the defaults)
 
 
 @dataclass
@@ -75,7 +78,7 @@ def _panel_section(ctx: MeasureContext) -> dict:
 
 
 SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary,
-                             PatternMoments]
+                             PatternMoments, ReplicatePatternMoments]
 SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
@@ -85,6 +88,7 @@ SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("reliability", reliability_section),
     ("growth", growth_section),
 ]
+SECTIONS += RULE_SECTIONS  # always last: the verdicts read every earlier section
 
 
 def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,

@@ -273,3 +273,71 @@ def test_cli_items_refused_for_wide_data(tmp_path):
                    "--items", "s=a1,a2")
     assert done.returncode == 2
     assert "--items is for long data" in done.stderr.decode()
+
+
+# ----------------------------------------------------------------------------- basis under MAR
+
+def _context(x, times):
+    from paneldiag.panel import Panel
+    from paneldiag.screen import MeasureContext, ScreenOptions
+    panel = Panel(unit_ids=np.arange(len(x)), wave_labels=tuple(str(t) for t in range(len(times))),
+                  wave_times=np.asarray(times, float), values={"y": x})
+    return MeasureContext(panel=panel, measure="y", options=ScreenOptions(), ledger=None)
+
+
+def test_em_basis_under_dropout_that_depends_on_the_last_value():
+    # Simulation with known truth: quasi-simplex, reliability 0.6, carry-over 0.85,
+    # monotone dropout whose odds fall with the last observed value (missing at
+    # random). With missing cells the section uses the EM moments and says so; the
+    # pairwise-complete summary is given beside it.
+    from paneldiag.diagnostics.reliability import reliability_section
+    from paneldiag.simulate import dropout_after
+    rng = np.random.default_rng(3)
+    times = np.arange(5, dtype=float)
+    x = carry_over(6000, times, 0.85, 1.0, rng) + rng.normal(0, np.sqrt(2 / 3), (6000, 5))
+    x[dropout_after(x, rng, 0.15, -1.5)] = np.nan
+    result = reliability_section(_context(x, times))
+    assert result.basis == "em_missing_at_random"
+    assert result.alternative_basis == "pairwise_complete"
+    assert result.summary.ci_low <= 0.6 <= result.summary.ci_high
+    assert "EM" in result.basis_note and "em missing at random" in result.summary.method
+    out = result.to_dict()
+    assert out["alternative_summary"]["estimate"] == pytest.approx(
+        result.alternative_summary.estimate)
+
+
+def test_complete_data_uses_pairwise_basis():
+    # Simulation with known truth as above without missing cells.
+    from paneldiag.diagnostics.reliability import reliability_section
+    rng = np.random.default_rng(4)
+    times = np.arange(4, dtype=float)
+    x = carry_over(500, times, 0.85, 1.0, rng) + rng.normal(0, np.sqrt(2 / 3), (500, 4))
+    result = reliability_section(_context(x, times))
+    assert result.basis == "pairwise_complete"
+    assert "alternative_summary" not in result.to_dict()
+
+
+def test_replicate_pattern_moments_pool_to_pattern_moments():
+    # Algebra: the per-group pattern moments merged over groups equal the pooled
+    # pattern moments (Chan, Golub and LeVeque 1983 update), and leaving a group out
+    # equals summarising the other groups' units.
+    from paneldiag.summaries.patterns import PatternMoments
+    from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
+    rng = np.random.default_rng(6)
+    x = rng.normal(size=(700, 5))
+    x[rng.random(x.shape) < 0.3] = np.nan
+    groups = replicate_groups(np.arange(700))
+    chunk = Chunk(x, None, groups, np.arange(5.0), 20)
+    reps = ReplicatePatternMoments.from_chunk(chunk)
+    whole = PatternMoments.from_chunk(chunk)
+    pooled = reps.pooled()
+    assert np.array_equal(pooled.observed, whole.observed)
+    np.testing.assert_allclose(pooled.m2, whole.m2, atol=1e-9)
+    keep = groups != 3
+    other = PatternMoments.from_chunk(Chunk(x[keep], None, groups[keep], np.arange(5.0), 20))
+    left = list(reps.leave_one_out())[3]
+    np.testing.assert_allclose(left.n, other.n)
+    np.testing.assert_allclose(left.mean, other.mean, atol=1e-12)
+    half = [ReplicatePatternMoments.from_chunk(Chunk(x[a:b], None, groups[a:b], np.arange(5.0),
+                                                     20)) for a, b in ((0, 300), (300, 700))]
+    np.testing.assert_allclose(half[0].merge(half[1]).pooled().m2, whole.m2, atol=1e-9)

@@ -162,11 +162,16 @@ class ReliabilityScreen(Result):
     wiley_wiley: tuple[WileyWileyRow, ...]
     summary: ReliabilitySummary
     internal_consistency: "InternalConsistency | None" = None
+    alternative_basis: str | None = None          # the other basis, when both were computed
+    alternative_summary: ReliabilitySummary | None = None
+    basis_note: str | None = None                 # why this basis was chosen
 
     def to_dict(self) -> dict:
         out = super().to_dict()
-        if self.internal_consistency is None:
-            del out["internal_consistency"]
+        for key in ("internal_consistency", "alternative_basis", "alternative_summary",
+                    "basis_note"):
+            if out[key] is None:
+                del out[key]
         return out
 
 
@@ -382,11 +387,79 @@ def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
         waves=tuple(rows))
 
 
-def reliability_section(ctx) -> ReliabilityScreen | None:
-    """The screen's ``reliability`` section for one measure (see paneldiag.screen)."""
-    from paneldiag.summaries.pairwise import PairwiseMoments
+class EMBasis:
+    """ML covariance under missing at random, with its leave-one-group-out copies, in
+    the interface ``quasi_simplex_reliability`` expects."""
 
-    result = quasi_simplex_reliability(ctx.summary(PairwiseMoments), ctx.panel.wave_labels)
+    def __init__(self, cov: np.ndarray, parts: list[np.ndarray]):
+        self.cov, self.parts = cov, parts
+
+    def covariance(self) -> np.ndarray:
+        return self.cov
+
+    def correlation(self) -> np.ndarray:
+        sd = np.sqrt(np.diag(self.cov))
+        return self.cov / np.outer(sd, sd)
+
+    def leave_one_out(self):
+        for part in self.parts:
+            yield EMBasis(part, [])
+
+
+def em_basis(replicates, full_covariance: np.ndarray | None = None) -> EMBasis | None:
+    """EM moments (Dempster, Laird and Rubin 1977, JRSS B; paneldiag.diagnostics.
+    missingness.em_moments) of all units and of each leave-one-group-out set, from
+    per-group pattern moments; None when any fit fails to converge."""
+    from paneldiag.diagnostics.missingness import em_moments
+
+    def fit(patterns):
+        try:
+            em = em_moments(patterns)
+        except np.linalg.LinAlgError:
+            return None
+        ok = em.converged and np.all(np.isfinite(em.covariance))
+        return em.covariance if ok else None
+
+    full = full_covariance if full_covariance is not None else fit(replicates.pooled())
+    if full is None or not np.all(np.isfinite(full)):
+        return None
+    parts = []
+    for patterns in replicates.leave_one_out():  # a loop over replicate groups
+        cov = fit(patterns)
+        if cov is None:
+            return None
+        parts.append(cov)
+    return EMBasis(full, parts)
+
+
+def reliability_section(ctx) -> ReliabilityScreen | None:
+    """The screen's ``reliability`` section for one measure (see paneldiag.screen).
+
+    With missing cells and converging EM fits, the basis is the ML covariance under
+    missing at random (EM), and the pairwise-complete summary is given beside it;
+    with complete data, or when EM fails, the basis is the pairwise-complete moments.
+    """
+    from paneldiag.summaries.pairwise import PairwiseMoments
+    from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
+
+    labels = ctx.panel.wave_labels
+    result = quasi_simplex_reliability(ctx.summary(PairwiseMoments), labels)
+    if result is not None and np.isnan(ctx.values).any():
+        em = None
+        if ReplicatePatternMoments in ctx.summaries:
+            earlier = getattr(ctx.results.get("missingness"), "em", None)
+            full = earlier.covariance if earlier is not None and earlier.converged else None
+            em = em_basis(ctx.summary(ReplicatePatternMoments), full)
+        if em is not None:
+            em_result = quasi_simplex_reliability(em, labels, basis=BASIS_EM)
+            result = replace(em_result, alternative_basis=BASIS_PAIRWISE,
+                             alternative_summary=result.summary,
+                             basis_note="missing cells present: ML moments under missing at "
+                                        "random (EM); pairwise-complete summary beside it")
+        else:
+            result = replace(result, basis_note="missing cells present but no converging EM "
+                                                "fit for every replicate group: "
+                                                "pairwise-complete moments")
     items = ctx.panel.items.get(ctx.measure)
     if items is None:
         return result

@@ -33,6 +33,10 @@ def render_reliability(report: dict, color: bool) -> list[str]:
                  f"{number(summary['estimate'])}"
                  f"{_interval(summary['ci_low'], summary['ci_high'])}"
                  f" · basis {rel['basis'].replace('_', ' ')}")
+    other = rel.get("alternative_summary")
+    if other:
+        lines.append(f"  on {rel['alternative_basis'].replace('_', ' ')} moments: "
+                     f"{number(other['estimate'])}{_interval(other['ci_low'], other['ci_high'])}")
     if summary["n_impossible"]:
         lines.append(f"  {summary['n_impossible']} triplet(s) give impossible values "
                      "(kept as computed; reasons in the JSON report)")
