@@ -125,8 +125,29 @@ json.dump({{"read": t1 - t0, "pivot": t2 - t1, "stats": t3 - t2}}, sys.stdout)
 """.format(id=ID, wave=WAVE, value=VALUE)
 
 
-def run_child(argv: list[str]) -> tuple[float, float, str]:
-    """Wall seconds, peak RSS in MiB (this child's own, via wait4), and stdout."""
+CORE = r"""
+import sys
+from paneldiag.diagnostics.profile import wave_profile
+from paneldiag.io.readers import read_table
+from paneldiag.io.validate import LayoutSpec, build_panel
+from paneldiag.render.json import report_json
+from paneldiag.summaries import summarise
+from paneldiag.summaries.moments import WaveMoments
+spec = LayoutSpec(id="{id}", wave="{wave}", values=("{value}",))
+raw = read_table(sys.argv[1], None, columns=spec.columns())
+panel, ledgers = build_panel(raw, spec)
+del raw
+moments = summarise(panel, "{value}", [WaveMoments])[WaveMoments]
+report = {{"sha256": "", "ledger": ledgers["{value}"].to_dict(),
+          "wave_profile": wave_profile(moments, panel.wave_labels)}}
+with open(sys.argv[2], "w") as handle:
+    handle.write(report_json(report))
+""".format(id=ID, wave=WAVE, value=VALUE)
+
+
+def run_child(argv: list[str]) -> tuple[float, float, float, str]:
+    """Wall seconds, peak RSS in MiB and CPU seconds (this child's own, via wait4), and
+    its standard output."""
     with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:
         start = time.perf_counter()
         child = subprocess.Popen(argv, stdout=out, stderr=err, cwd=ROOT)
@@ -137,20 +158,26 @@ def run_child(argv: list[str]) -> tuple[float, float, str]:
         if child.returncode != 0:
             raise SystemExit(f"{argv[:4]} failed ({child.returncode}):\n"
                              + err.read().decode(errors="replace")[-3000:])
-        return wall, usage.ru_maxrss / 1024.0, out.read().decode()
+        cpu = usage.ru_utime + usage.ru_stime
+        return wall, usage.ru_maxrss / 1024.0, cpu, out.read().decode()
 
 
-def measure(name: str, argv: list[str], repeat: int) -> dict:
-    walls, peaks = [], []
+def measure(commands: dict[str, list[str]], repeat: int) -> dict[str, dict]:
+    """Median wall time, peak memory and CPU time of each command; the runs of the
+    commands are interleaved, so a busy machine slows all of them alike."""
+    runs = {name: [] for name in commands}
     for _ in range(repeat):
-        wall, peak, _ = run_child(argv)
-        walls.append(wall)
-        peaks.append(peak)
-    row = {"name": name, "wall": statistics.median(walls), "peak": statistics.median(peaks),
-           "walls": walls}
-    print(f"  {name:<22} {row['wall']:7.2f} s  {row['peak']:8.0f} MiB   "
-          f"(runs: {', '.join(f'{w:.2f}' for w in walls)})", flush=True)
-    return row
+        for name, argv in commands.items():
+            runs[name].append(run_child(argv)[:3])
+    rows = {}
+    for name, found in runs.items():
+        walls, peaks, cpus = zip(*found)
+        rows[name] = {"wall": statistics.median(walls), "peak": statistics.median(peaks),
+                      "cpu": statistics.median(cpus), "walls": walls}
+        print(f"  {name:<18} {rows[name]['wall']:7.2f} s  {rows[name]['peak']:7.0f} MiB  "
+              f"{rows[name]['cpu']:7.2f} s CPU   (wall of runs: "
+              f"{', '.join(f'{w:.2f}' for w in walls)})", flush=True)
+    return rows
 
 
 # ----------------------------------------------------------------------------- stages
@@ -234,38 +261,35 @@ def main(argv: list[str] | None = None) -> int:
         out = os.path.join(tmp, "out.json")
         for fmt in args.formats.split(","):
             path = str(files[fmt])
-            print(f"\n{fmt}: median of {args.repeat} runs, wall time and peak memory")
-            rows = {
-                "paneldiag": measure("paneldiag screen", [
+            print(f"\n{fmt}: median of {args.repeat} interleaved runs: wall time, peak "
+                  "memory, CPU time")
+            results[fmt] = measure({
+                "paneldiag screen": [
                     sys.executable, "-m", "paneldiag", "screen", path, "--id", ID,
-                    "--wave", WAVE, "--value", VALUE, "--json", out, "--quiet"], args.repeat),
-                "plain": measure("pandas plain", [sys.executable, "-c", BASELINE, path, fmt,
-                                                  out, "0"], args.repeat),
-                "extended": measure("pandas extended", [sys.executable, "-c", BASELINE, path,
-                                                        fmt, out, "1"], args.repeat),
-            }
-            results[fmt] = rows
-            for base in ("plain", "extended"):
-                b = rows[base]
-                print(f"  paneldiag / {base:<9} time {rows['paneldiag']['wall'] / b['wall']:5.2f}"
-                      f"   memory {rows['paneldiag']['peak'] / b['peak']:5.2f}")
-    print("\nsummary (paneldiag / baseline; targets: plain <= 1.3 time now; "
-          "later <= 2.0 time, <= 1.5 memory vs extended)")
-    print(f"  {'format':<8} {'vs plain: time':>15} {'memory':>7} {'vs extended: time':>18} "
-          f"{'memory':>7}")
+                    "--wave", WAVE, "--value", VALUE, "--json", out, "--quiet"],
+                "paneldiag core": [sys.executable, "-c", CORE, path, out],
+                "pandas plain": [sys.executable, "-c", BASELINE, path, fmt, out, "0"],
+                "pandas extended": [sys.executable, "-c", BASELINE, path, fmt, out, "1"],
+            }, args.repeat)
+    print("\nratios paneldiag / pandas (wall time, peak memory, CPU time)")
+    print("  core = read + ledger + panel + wave profile; screen = the whole screen command")
+    print(f"  {'format':<8} {'run':<7} {'baseline':<9} {'time':>6} {'memory':>7} {'CPU':>6}")
     for fmt, rows in results.items():
-        p = rows["paneldiag"]
-        print(f"  {fmt:<8} {p['wall'] / rows['plain']['wall']:15.2f} "
-              f"{p['peak'] / rows['plain']['peak']:7.2f} "
-              f"{p['wall'] / rows['extended']['wall']:18.2f} "
-              f"{p['peak'] / rows['extended']['peak']:7.2f}")
+        for run in ("core", "screen"):
+            p = rows[f"paneldiag {run}"]
+            for base in ("plain", "extended"):
+                b = rows[f"pandas {base}"]
+                print(f"  {fmt:<8} {run:<7} {base:<9} {p['wall'] / b['wall']:6.2f} "
+                      f"{p['peak'] / b['peak']:7.2f} {p['cpu'] / b['cpu']:6.2f}")
+    print("  targets: core / plain <= 1.3 time; screen / extended <= 2.0 time and "
+          "<= 1.5 memory")
     if not args.no_stages:
         for fmt in args.formats.split(","):
             print(f"\nstages of paneldiag, in process ({fmt}): seconds, peak MiB so far")
             code = ("import json, sys; sys.path.insert(0, %r); import bench_screen as b; "
                     "print(json.dumps(b.stage_profile(%r)))" % (str(Path(__file__).parent),
                                                                  str(files[fmt])))
-            _, _, text = run_child([sys.executable, "-c", code])
+            text = run_child([sys.executable, "-c", code])[3]
             stages = json.loads(text.strip().splitlines()[-1])
             for name, seconds, peak_mib in stages:
                 print(f"  {name:<32} {seconds:7.2f} s  {peak_mib:8.0f} MiB")
