@@ -121,7 +121,7 @@ def family_process(family: str, times, reliability: float = 1.0) -> Process:
     occasion_noise         iid noise (variance 1) around the wave means (flat)
     stable_trait           trait (0.5) + occasion noise (0.5)
     autoregressive         carry-over only: AR(1), rho 0.7 per wave, variance 1
-    trait_autoregressive   trait (0.4) + AR(1) (rho 0.6, variance 0.6)
+    trait_autoregressive   trait (0.5) + AR(1) (rho 0.5, variance 0.5)
     linear_growth          random intercept (1) + random slope (SD 0.8 over the span,
                            mean 1.0 over the span) + occasion noise (0.5)
     quadratic_growth       linear growth + a mean curvature: mean 2.5 u - 1.5 u^2
@@ -141,7 +141,7 @@ def family_process(family: str, times, reliability: float = 1.0) -> Process:
     if family == "autoregressive":
         return Process(ar_var=1.0, rho=0.7, reliability=reliability)
     if family == "trait_autoregressive":
-        return Process(trait_var=0.4, ar_var=0.6, rho=0.6, reliability=reliability)
+        return Process(trait_var=0.5, ar_var=0.5, rho=0.5, reliability=reliability)
     if family == "linear_growth":
         return Process(**growth, occasion_var=0.5, reliability=reliability)
     if family == "quadratic_growth":

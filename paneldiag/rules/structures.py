@@ -3,15 +3,17 @@
 Each family implies a structure for the T x T covariance matrix of the waves (wave means
 are left free, except where the mean's shape is itself the question):
 
-    occasion noise   Sigma = diag(e)
-    stable trait     Sigma = a 11' + diag(e)
-    carry-over       Sigma = b K(rho) + diag(e),          K_st = rho ** |t_s - t_t|
-    trait + carry    Sigma = a 11' + b K(rho) + diag(e)
-    growth           Sigma = L Psi L' + diag(e),          L = [1, lambda]
-    growth + carry   Sigma = L Psi L' + b K(rho) + diag(e)
+    occasion noise   Sigma = e I
+    stable trait     Sigma = a 11' + e I
+    carry-over       Sigma = b K(rho) + e I,              K_st = rho ** |t_s - t_t|
+    trait + carry    Sigma = a 11' + b K(rho) + e I
+    growth           Sigma = L Psi L' + e I,              L = [1, lambda]
+    growth + carry   Sigma = L Psi L' + b K(rho) + e I
 
-with one error variance per wave in ``e`` (occasion-specific variance and measurement
-error, which no covariance structure can tell apart), ``lambda`` the growth basis
+with one error variance ``e`` common to all waves (occasion-specific variance and
+measurement error, which no covariance structure can tell apart; equal across waves as
+in Wiley and Wiley 1970, so that variances fanning out over waves count against the
+stationary structures), ``lambda`` the growth basis
 (the wave times scaled to run from 0 to 1 over the span, or the shape of the mean),
 and ``Psi`` the 2 x 2 covariance of the unit intercepts and slopes. Fitting is by the
 normal-theory maximum-likelihood discrepancy F = log|Sigma| + tr(S Sigma^-1) with
@@ -22,6 +24,8 @@ conservative choice for a two-stage fit to EM moments, Savalei and Bentler 2009)
 
 References
 ----------
+Wiley, D. E. and Wiley, J. A. (1970). The estimation of measurement error in panel
+data. American Sociological Review, 35, 112-117.
 Joreskog, K. G. (1970). Estimation and testing of simplex models. British Journal of
 Mathematical and Statistical Psychology, 23, 121-145.
 Kenny, D. A. and Zautra, A. (1995). The trait-state-error model for multiwave data.
@@ -53,7 +57,7 @@ class Structure:
     basis: np.ndarray | None = None
 
     def names(self, n_waves: int) -> list[str]:
-        out = [f"e{t + 1}" for t in range(n_waves)]
+        out = ["error_var"]
         if self.basis is not None:
             out += ["intercept_var", "intercept_slope_cov", "slope_var"]
         elif self.trait:
@@ -82,7 +86,7 @@ class Fit:
 
     def derived(self, fn) -> tuple[float, float, float]:
         """(estimate, ci_low, ci_high) of fn(params) by the delta method."""
-        est = float(fn(self.params))
+        est = _safe(fn, self.params)
         if self.theta_cov is None or not np.isfinite(est):
             return est, np.nan, np.nan
         keys = list(self.params)
@@ -92,7 +96,7 @@ class Fit:
             up, down = dict(self.params), dict(self.params)
             up[key] += h
             down[key] -= h
-            grad[i] = (fn(up) - fn(down)) / (2 * h)
+            grad[i] = (_safe(fn, up) - _safe(fn, down)) / (2 * h)
         var = float(grad @ self.theta_cov @ grad)
         if not np.isfinite(var) or var < 0:
             return est, np.nan, np.nan
@@ -100,16 +104,23 @@ class Fit:
         return est, est - Z95 * se, est + Z95 * se
 
 
+def _safe(fn, params: dict) -> float:
+    """fn(params) as a float; NaN where it is undefined (a zero share denominator)."""
+    with np.errstate(all="ignore"):
+        try:
+            value = fn({k: np.float64(v) for k, v in params.items()})
+        except ZeroDivisionError:
+            return np.nan
+    value = np.real_if_close(value)
+    return float(value) if np.isrealobj(value) else np.nan
+
+
 def _build(structure: Structure, theta: np.ndarray, times: np.ndarray):
     """Sigma(theta) and the list of dSigma/dtheta_k."""
     t = len(times)
-    sigma = np.diag(theta[:t]).astype(float)
-    grads = []
-    for k in range(t):
-        g = np.zeros((t, t))
-        g[k, k] = 1.0
-        grads.append(g)
-    i = t
+    sigma = theta[0] * np.eye(t)
+    grads = [np.eye(t)]
+    i = 1
     ones = np.ones(t)
     if structure.basis is not None:
         lam = structure.basis
@@ -154,7 +165,7 @@ def _starts(structure: Structure, s: np.ndarray) -> list[np.ndarray]:
     var = np.diag(s)
     off = s[~np.eye(t, dtype=bool)]
     level = max(float(np.mean(off)) if off.size else 0.0, 0.05 * float(np.mean(var)))
-    base = list(0.5 * var)
+    base = [0.5 * float(np.mean(var))]
     starts = []
     rhos = (0.3, 0.6, 0.9) if structure.carry else (None,)
     for rho in rhos:
@@ -172,7 +183,7 @@ def _starts(structure: Structure, s: np.ndarray) -> list[np.ndarray]:
 def _bounds(structure: Structure, s: np.ndarray) -> list[tuple]:
     t = s.shape[0]
     floor = 1e-6 * float(np.mean(np.diag(s)))
-    out = [(floor, None)] * t
+    out = [(floor, None)]
     if structure.basis is not None:
         out += [(0.0, None), (None, None), (0.0, None)]
     elif structure.trait:
@@ -235,12 +246,12 @@ def fit_structure(structure: Structure, s: np.ndarray, times: np.ndarray,
 
 
 def fit_noise(s: np.ndarray, n_eff: float) -> Fit:
-    """The occasion-noise structure diag(e) in closed form (e = the wave variances)."""
+    """The occasion-noise structure e I in closed form (e = the mean wave variance)."""
     t = s.shape[0]
-    e = np.diag(s).copy()
-    value = float(np.log(e).sum() + t)
+    e = float(np.mean(np.diag(s)))
+    value = float(t * np.log(e) + t)
     sign, logdet_s = np.linalg.slogdet(s)
-    df = t * (t + 1) // 2 - t
+    df = t * (t + 1) // 2 - 1
     chi2 = rmsea = p_value = None
     if sign > 0 and n_eff > t:
         chi2 = max(0.0, (n_eff - 1) * (value - logdet_s - t))
@@ -248,9 +259,9 @@ def fit_noise(s: np.ndarray, n_eff: float) -> Fit:
             rmsea = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n_eff - 1))))
             p_value = float(stats.chi2.sf(chi2, df))
     structure = Structure("occasion_noise")
-    params = {f"e{k + 1}": float(v) for k, v in enumerate(e)}
-    cov = np.diag(2.0 * e ** 2 / (n_eff - 1))
-    return Fit(structure, params, e, value, chi2, df, rmsea, p_value, cov, np.diag(e))
+    cov = np.array([[2.0 * e ** 2 / (t * (n_eff - 1))]])
+    return Fit(structure, {"error_var": e}, np.array([e]), value, chi2, df, rmsea, p_value,
+               cov, e * np.eye(t))
 
 
 def likelihood_ratio(simple: Fit, rich: Fit, n_eff: float, df: int,
@@ -351,3 +362,8 @@ def mean_basis(mu: np.ndarray, times: np.ndarray) -> np.ndarray | None:
 def time_basis(times: np.ndarray) -> np.ndarray:
     tau = times - times[0]
     return tau / tau[-1]
+
+
+def implied(structure: Structure, theta: np.ndarray, times: np.ndarray) -> np.ndarray:
+    """The covariance matrix a structure implies at parameters ``theta``."""
+    return _build(structure, np.asarray(theta, dtype=float), times)[0]

@@ -33,6 +33,7 @@ RANGES = {
     "max_dropout_smd": (0.0, 10.0, False),
     "min_categories": (2, 1000, True),
     "max_spacing_ratio": (1.0, 100.0, False),
+    "max_flat_decline": (0.0, 1.0, False),
 }
 
 

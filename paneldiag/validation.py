@@ -1,0 +1,210 @@
+"""The validation study of the process-family verdicts: panels of known truth.
+
+    python -m paneldiag.validation [--grid full|reduced] [--reps R] [--seed S]
+                                   [--workers W] [--out docs/validation-table.md]
+    paneldiag check-verdicts ...     (the same, as a paneldiag command)
+
+For every family of ``paneldiag.simulate.FAMILIES`` and every condition of the grid
+(units N, waves T, reliability, dropout), R panels are simulated with
+``simulate.family_values`` and screened in-process: the Panel goes straight to the
+rule sections of the screen (no file round trip). Each panel's supported family (if
+any) is recorded. The confusion table gives, per true family, the recall (the true
+family is supported) and the false support of every other family (that family is
+supported instead). Panels run on a process pool; every panel has its own seed drawn
+from one ``numpy.random.SeedSequence``, so the table is the same whatever the number
+of workers.
+"""
+
+from __future__ import annotations
+
+import argparse
+import itertools
+import os
+import sys
+from dataclasses import dataclass
+
+import numpy as np
+
+from paneldiag.simulate import FAMILIES
+
+FULL_GRID = {"n_units": (300, 1000, 3000), "n_waves": (4, 6, 10),
+             "reliability": (1.0, 0.6), "dropout": ("none", "mcar", "dependent")}
+REDUCED_GRID = {"n_units": (1000,), "n_waves": (6,), "reliability": (1.0, 0.6),
+                "dropout": ("none", "dependent")}
+SEED = 20240611
+
+
+@dataclass(frozen=True)
+class Condition:
+    family: str
+    n_units: int
+    n_waves: int
+    reliability: float
+    dropout: str
+
+    def in_target(self) -> bool:
+        """The region the targets are set for: N >= 1000 and T >= 6."""
+        return self.n_units >= 1000 and self.n_waves >= 6
+
+
+def panel_of(values: np.ndarray):
+    from paneldiag.panel import Panel
+    n, t = values.shape
+    return Panel(unit_ids=np.array([f"u{i}" for i in range(n)]),
+                 wave_labels=tuple(str(k) for k in range(t)),
+                 wave_times=np.arange(t, dtype=float), values={"score": values})
+
+
+def verdicts_for_panel(panel, measure: str = "score", options=None) -> list[dict]:
+    """The families section of a screen of ``panel``: the rule sections run on a
+    measure context exactly as ``paneldiag.screen`` runs them."""
+    from paneldiag.io.ledger import Ledger
+    from paneldiag.rules import RULE_SECTIONS
+    from paneldiag.results import plain
+    from paneldiag.screen import MeasureContext, ScreenOptions
+
+    ctx = MeasureContext(panel=panel, measure=measure, options=options or ScreenOptions(),
+                         ledger=Ledger(rows_read=0, rows_used=0))
+    report = {}
+    for key, section in RULE_SECTIONS:
+        result = section(ctx)
+        ctx.results[key] = result
+        if result is not None:
+            report[key] = plain(result)
+    return report["families"]
+
+
+def _one(task) -> tuple[Condition, str | None]:
+    condition, seed = task
+    rng = np.random.default_rng(seed)
+    from paneldiag.simulate import family_values
+    values = family_values(condition.family, condition.n_units, condition.n_waves,
+                           condition.reliability, condition.dropout, rng)
+    families = verdicts_for_panel(panel_of(values))
+    supported = [f["family"] for f in families if f["verdict"] == "supported"]
+    return condition, (supported[0] if supported else None)
+
+
+def tasks(grid: dict, reps: int, seed: int = SEED):
+    conditions = [Condition(f, n, t, r, d) for f in FAMILIES
+                  for n, t, r, d in itertools.product(grid["n_units"], grid["n_waves"],
+                                                      grid["reliability"], grid["dropout"])]
+    seeds = np.random.SeedSequence(seed).spawn(len(conditions) * reps)
+    return [(c, seeds[i * reps + k]) for i, c in enumerate(conditions) for k in range(reps)]
+
+
+def _init_worker():
+    try:
+        from threadpoolctl import threadpool_limits
+        threadpool_limits(limits=1)
+    except ImportError:  # pragma: no cover
+        pass
+
+
+def run(grid: dict, reps: int, seed: int = SEED, workers: int = 2) -> list[tuple]:
+    """Every panel's (condition, supported family or None), in task order."""
+    work = tasks(grid, reps, seed)
+    if workers <= 1:
+        _init_worker()
+        return [_one(task) for task in work]
+    import multiprocessing as mp
+    ctx = mp.get_context("spawn")
+    with ctx.Pool(workers, initializer=_init_worker) as pool:
+        return pool.map(_one, work, chunksize=max(1, len(work) // (8 * workers)))
+
+
+@dataclass(frozen=True)
+class Rates:
+    n: int
+    recall: float
+    false_support: dict   # other family -> share of panels where it was supported
+    none_supported: float
+
+
+def confusion(results, select=lambda c: True) -> dict[str, Rates]:
+    """Per true family: recall, false support per other family, share with none."""
+    out = {}
+    for fam in FAMILIES:
+        picked = [s for c, s in results if c.family == fam and select(c)]
+        n = len(picked)
+        if n == 0:
+            continue
+        counts = {g: sum(1 for s in picked if s == g) / n for g in FAMILIES if g != fam}
+        out[fam] = Rates(n, sum(1 for s in picked if s == fam) / n, counts,
+                         sum(1 for s in picked if s is None) / n)
+    return out
+
+
+def by_condition(results) -> list[tuple]:
+    """(N, T, reliability, dropout, family, n, recall, worst false support, to which)."""
+    groups: dict = {}
+    for c, s in results:
+        groups.setdefault((c.n_units, c.n_waves, c.reliability, c.dropout, c.family),
+                          []).append(s)
+    rows = []
+    for key, picked in sorted(groups.items()):
+        fam = key[-1]
+        n = len(picked)
+        others = {g: sum(1 for s in picked if s == g) / n for g in FAMILIES if g != fam}
+        worst = max(others, key=others.get)
+        rows.append((*key, n, sum(1 for s in picked if s == fam) / n, others[worst], worst))
+    return rows
+
+
+SHORT = {"occasion_noise": "noise", "stable_trait": "trait", "autoregressive": "AR",
+         "trait_autoregressive": "trait+AR", "linear_growth": "lin", "quadratic_growth": "quad",
+         "free_shape_growth": "free", "growth_autoregressive": "growth+AR"}
+
+
+def confusion_markdown(rates: dict[str, Rates], title: str) -> str:
+    head = ["true family", "panels", "recall", "none supported"] + \
+        [f"→ {SHORT[g]}" for g in FAMILIES]
+    lines = [f"**{title}**", "", "| " + " | ".join(head) + " |",
+             "|" + "---|" * len(head)]
+    for fam, r in rates.items():
+        cells = [fam, str(r.n), f"{r.recall:.3f}", f"{r.none_supported:.3f}"]
+        cells += ["·" if g == fam else f"{r.false_support[g]:.3f}" for g in FAMILIES]
+        lines.append("| " + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
+def report_markdown(results, grid: dict, reps: int, seed: int) -> str:
+    parts = [f"Grid: N {list(grid['n_units'])}, T {list(grid['n_waves'])}, reliability "
+             f"{list(grid['reliability'])}, dropout {list(grid['dropout'])}; {reps} panels "
+             f"per cell; seed {seed}.", ""]
+    parts.append(confusion_markdown(confusion(results, lambda c: c.in_target()),
+                                    "Target region: N >= 1000 and T >= 6"))
+    parts += ["", confusion_markdown(confusion(results), "Whole grid"), ""]
+    parts.append("**Per condition** (recall of the true family; the largest false support "
+                 "and the family it went to)")
+    parts += ["", "| N | T | reliability | dropout | true family | panels | recall | "
+                  "worst false support | to |", "|---|---|---|---|---|---|---|---|---|"]
+    for n, t, rel, drop, fam, k, rec, worst, to in by_condition(results):
+        parts.append(f"| {n} | {t} | {rel} | {drop} | {fam} | {k} | {rec:.2f} | "
+                     f"{worst:.2f} | {SHORT[to] if worst > 0 else '–'} |")
+    return "\n".join(parts) + "\n"
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m paneldiag.validation",
+                                     description="Validate the process-family verdicts on "
+                                                 "simulated panels of known truth.")
+    parser.add_argument("--grid", choices=["full", "reduced"], default="full")
+    parser.add_argument("--reps", type=int, default=20, help="panels per cell")
+    parser.add_argument("--seed", type=int, default=SEED)
+    parser.add_argument("--workers", type=int, default=min(2, os.cpu_count() or 1))
+    parser.add_argument("--out", help="write the Markdown tables here (else stdout)")
+    args = parser.parse_args(argv)
+    grid = FULL_GRID if args.grid == "full" else REDUCED_GRID
+    results = run(grid, args.reps, args.seed, args.workers)
+    text = report_markdown(results, grid, args.reps, args.seed)
+    if args.out:
+        from paneldiag.io.output import write_atomic
+        write_atomic(args.out, text)
+    else:
+        sys.stdout.write(text)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
