@@ -228,3 +228,16 @@ def test_missing_codes_through_reader(tmp_path):
     panel, ledgers = build_panel(read_table(str(path)), spec)
     assert {k: v.tolist() for k, v in panel.codes["score"].items()} == {"-8": [0, 0, 2]}
     assert ledgers["score"].dropped_by_reason["declared_missing_code"] == 2
+
+
+def test_stata_letter_strings_are_not_tagged_missing(tmp_path):
+    # a text column whose values are single letters (district codes) stays text; only
+    # numeric Stata variables carry tagged missing values (pyreadstat variable types)
+    frame = tenant_frame().assign(district=np.repeat(list("ABCAB"), 3)).astype({"score": object})
+    frame.loc[[1], "score"] = "a"
+    path = tmp_path / "panel.dta"
+    pyreadstat.write_dta(frame, str(path), missing_user_values={"score": ["a"]})
+    spec = LayoutSpec(id="unit", wave="wave", values=("score",), group="district")
+    panel, _ = build_panel(read_table(str(path), columns=spec.columns()), spec)
+    assert panel.groups.tolist() == ["A", "B", "C", "A", "B"]
+    assert {k: v.tolist() for k, v in panel.codes["score"].items()} == {".a": [0, 1, 0]}

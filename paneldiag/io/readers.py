@@ -303,10 +303,12 @@ def _read_stat_file(path, raw, fmt, columns, digest) -> RawTable:
         raise InputProblem("no data rows", file=path)
     tagged = {}
     if fmt in ("dta", "sas7bdat"):  # letters .a-.z are the formats' tagged missing values
+        kinds = getattr(meta, "readstat_variable_types", None) or {}
         for name in frame.columns:
             column = frame[name]
-            if not pd.api.types.is_numeric_dtype(column):
-                letters = column.map(lambda v: isinstance(v, str) and len(v) == 1 and v.isalpha())
+            if kinds.get(name) != "string" and not pd.api.types.is_numeric_dtype(column):
+                letters = column.astype("string").str.fullmatch(r"[A-Za-z]").fillna(False)
+                letters = letters.to_numpy(dtype=bool)
                 rest = pd.to_numeric(column.where(~letters), errors="coerce")
                 if letters.any() and rest.notna().sum() == column.notna().sum() - letters.sum():
                     tagged[name] = np.where(letters, "." + column.astype(str), None)

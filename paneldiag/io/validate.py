@@ -98,6 +98,11 @@ class LayoutSpec:
 def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
     """Check the raw table against the layout and build the Panel and its ledgers."""
     _check_spec(spec)
+    absent = [c for c in spec.columns() if c not in raw.frame.columns]
+    if absent:  # the CLI's reader already checks; this guards direct library calls
+        shown = ", ".join(map(str, raw.frame.columns[:8]))
+        raise InputProblem(f"column '{absent[0]}' not found; the table has: {shown}",
+                           file=raw.source, row=1 if raw.first_row_number == 2 else None)
     if spec.layout == "wide":
         return _build_wide(raw, spec)
     return _build_long(raw, spec)
@@ -430,7 +435,9 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
     if spec.missing_codes.negative:
         declared |= finite & (numbers < 0)
     if declared.any():
-        code_text[declared] = [_number_text(v) for v in numbers[declared]]
+        distinct, position = np.unique(numbers[declared], return_inverse=True)
+        texts = np.array([_number_text(v) for v in distinct], dtype=object)  # per code
+        code_text[declared] = texts[position]
         coded |= declared
     if column in raw.tagged_missing:
         tags = raw.tagged_missing[column][rows]
