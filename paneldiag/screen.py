@@ -23,6 +23,7 @@ from paneldiag.diagnostics.reliability import reliability_section
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
+from paneldiag.rules import RULE_SECTIONS
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
@@ -44,6 +45,7 @@ class ScreenOptions:
     scale: str = "auto"             # "auto", "ordinal" or "continuous" (dependence)
     group_column: str | None = None  # name of the grouping column, for by-group screens
     by_group: bool = True            # screen each group too when the panel has groups
+    rules: object = None             # paneldiag.rules.Thresholds (None: the defaults)
 
 
 @dataclass
@@ -86,6 +88,7 @@ SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("reliability", reliability_section),
     ("growth", growth_section),
 ]
+SECTIONS += RULE_SECTIONS  # always last: the verdicts read every earlier section
 
 
 def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
