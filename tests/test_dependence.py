@@ -450,3 +450,52 @@ def test_em_correlations_undo_selection_by_dropout():
     idx = (np.arange(3), np.arange(1, 4))
     assert np.all(np.abs(em[idx] - lag1) < 0.03)
     assert np.mean(np.abs(pairwise[idx] - lag1)) > 2 * np.mean(np.abs(em[idx] - lag1))
+
+
+def _polychoric_coverage(n_reps, seed):
+    # simulation with known truth: latent trait (1) + carry-over (1, rho 0.5), 5 waves,
+    # cut into 5 categories, 10% missing completely at random, N = 400; the latent
+    # correlation at lag k is (1 + 0.5^k) / 2
+    times = np.arange(5.0)
+    truth = (1 + 0.5 ** np.arange(1, 5)) / 2
+    rng = np.random.default_rng(seed)
+    hits = np.zeros(4)
+    for _ in range(n_reps):
+        latent = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 400, times, rng)
+        x = (1 + _cut(latent / np.sqrt(2), [-1.1, -0.3, 0.4, 1.2])).astype(float)
+        x[rng.random(x.shape) < 0.1] = np.nan
+        corr, _ = _correlations(x)
+        rows = dep.lag_profile(corr, times).by("lag")
+        hits += [(row.ci_low <= tr <= row.ci_high) for row, tr in zip(rows, truth)]
+    return hits / n_reps
+
+
+def test_polychoric_lag_profile_coverage_reduced_grid():
+    # 40 replicates: nominal 95%; average coverage at least 0.85 (binomial noise)
+    assert _polychoric_coverage(40, 22).mean() >= 0.85
+
+
+@pytest.mark.slow
+def test_polychoric_lag_profile_coverage_full_grid():
+    cov = _polychoric_coverage(300, 23)
+    assert np.all(cov >= 0.9) and 0.92 <= cov.mean() <= 0.98
+
+
+@pytest.mark.slow
+def test_decay_fit_hybrid_unbiased_and_covered_full_grid():
+    # simulation with known truth: trait 1, carry-over 1 (rho 0.6), occasion noise 1,
+    # 7 waves, N = 2000, 60 replicates: a = b = 1/3, rho = 0.6
+    times = np.arange(7.0)
+    rng = np.random.default_rng(24)
+    est, hit = [], 0
+    for _ in range(60):
+        y = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.6, occasion_var=1.0), 2000,
+                     times, rng)
+        corr, _ = _correlations(y)
+        fit = dep.decay_fit(dep.lag_profile(corr, times))
+        assert fit.shape == "decay_to_floor"
+        est.append((fit.a.estimate, fit.b.estimate, fit.rho.estimate))
+        hit += fit.rho.ci_low <= 0.6 <= fit.rho.ci_high
+    mean = np.mean(est, axis=0)
+    np.testing.assert_allclose(mean, [1 / 3, 1 / 3, 0.6], atol=0.02)
+    assert hit / 60 >= 0.85

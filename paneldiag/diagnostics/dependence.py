@@ -33,7 +33,6 @@ R_CLIP = 1 - 1e-9            # Fisher z of |r| = 1 is infinite; clip just inside
 FLAT_MIN_B = 0.02            # decay fit: below this b (or rho) the decay is not identified
 FLAT_MIN_RHO = 0.05
 FLOOR_MIN_A = 0.02
-TEST_ALPHA = 0.05
 
 
 # --------------------------------------------------------------------- correlations
@@ -100,6 +99,8 @@ def decide_scale(tables: PairwiseTables | None, scale: str = "auto") -> tuple[st
     if tabulated and 2 <= n_cat <= ORDINAL_MAX_CATEGORIES:
         return "ordinal", (f"auto: {n_cat} distinct integer values "
                            f"(at most {ORDINAL_MAX_CATEGORIES} counts as ordinal)")
+    if tabulated and n_cat < 2:
+        return "continuous", "auto: fewer than 2 distinct values"
     if tabulated:
         return "continuous", (f"auto: {n_cat} distinct integer values "
                               f"(more than {ORDINAL_MAX_CATEGORIES})")
@@ -364,6 +365,7 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
     Kott, P. S. (2001). The delete-a-group jackknife. J. Official Statistics 17, 521-526.
     """
     point = partial_beyond(corr.methods[corr.partial_basis].matrix)
+    own = partial_beyond(corr.matrix)
     reps = partial_beyond(corr.replicates)
     t = point.shape[-1]
     k_groups = reps.shape[0]
@@ -374,7 +376,7 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
         vals = point[s_idx, s_idx + k]
         z_point = np.nanmean(fisher_z(vals)) if np.isfinite(vals).any() else np.nan
         z_reps = np.array([np.mean(fisher_z(rep[s_idx, s_idx + k])) for rep in reps])
-        z_own = np.mean(fisher_z(partial_beyond(corr.matrix)[s_idx, s_idx + k]))
+        z_own = np.mean(fisher_z(own[s_idx, s_idx + k]))
         se = jackknife_se(z_own, z_reps)
         rows.append(MarkovRow(lag=k, wave_pairs=len(s_idx), mean_partial_r=float(np.tanh(z_point)),
                               min_partial_r=float(np.nanmin(vals)) if np.isfinite(vals).any() else np.nan,
@@ -413,7 +415,8 @@ def lawley_equal_correlations(r: np.ndarray, n: float) -> TestResult:
     """
     p = r.shape[0]
     if p < 3 or not np.all(np.isfinite(r)) or not n > 1:
-        return TestResult("lawley_1963", np.nan, None, np.nan, "needs 3 or more waves")
+        return TestResult("lawley_1963", np.nan, None, np.nan,
+                          "needs 3 or more waves and every correlation defined")
     iu = np.triu_indices(p, 1)
     rbar = r[iu].mean()
     off = r - np.eye(p)
@@ -531,7 +534,7 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
     lawley = lawley_equal_correlations(r_p, n_h)
     lawley = TestResult(lawley.test, lawley.statistic, lawley.df, lawley.p_value,
                         "pearson_pairwise matrix; N = harmonic mean of pair counts "
-                        f"({n_h:.1f})" if np.isfinite(n_h) else lawley.note)
+                        f"({n_h:.1f})" if np.isfinite(lawley.statistic) else lawley.note)
 
     # bands on Fisher z of the primary correlation
     z = fisher_z(corr.matrix[iu])
@@ -704,8 +707,12 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
     and with pure decay (a = 0) by F ratios of weighted sums of squares (nested
     least squares; approximate, because neighbouring lags share units) and by AIC.
     Intervals: the delete-a-group jackknife, refitting each leave-one-group-out
-    profile (Kott 2001). When b or rho is near 0 (or the flat profile is not
-    rejected) b and rho are not identified and the profile is reported as flat.
+    profile (Kott 2001). The shape: flat when b or rho is near 0 or b's jackknife
+    interval reaches 0 (then b and rho are not identified); decay to zero when a is
+    near 0 or its interval reaches 0; otherwise decay to a floor. The jackknife
+    intervals decide rather than the F ratios: the profile has few points, so the F
+    ratios have few residual degrees of freedom, while the jackknife uses the spread
+    over all replicate groups.
 
     References
     ----------
@@ -764,7 +771,10 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
         return Estimate(float(value), float(np.clip(value - q * se, low, high)),
                         float(np.clip(value + q * se, low, high)))
 
-    flat_shape = b < FLAT_MIN_B or rho < FLAT_MIN_RHO or t_flat.p_value >= TEST_ALPHA
+    se_a, se_b = jackknife_se(a, fits[:, 0]), jackknife_se(b, fits[:, 1])
+    b_above_zero = bool(b - q * se_b > 0)   # NaN compares False: not shown to be above 0
+    a_above_zero = bool(a - q * se_a > 0)
+    flat_shape = b < FLAT_MIN_B or rho < FLAT_MIN_RHO or not b_above_zero
     if flat_shape:
         level_a = flat[0]
         flat_reps = np.array([fit_decay(d, rep, w, "b0")[0] if np.all(np.isfinite(rep))
@@ -772,14 +782,14 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
         a_est = est(level_a, flat_reps)
         return DecayFit(basis, m, "flat", False,
                         "carry-over not identified: the correlations do not decay with "
-                        "distance (b or rho near 0, or the flat profile fits as well)",
+                        "distance (b or rho near 0, or b's interval reaches 0)",
                         a=a_est, b=None, rho=None, stable_share=Estimate(1.0, np.nan, np.nan),
                         intercept=a_est, models=models, flat_vs_full=t_flat,
                         pure_decay_vs_full=t_pure, weights=weights_note)
-    to_zero = a < FLOOR_MIN_A or t_pure.p_value >= TEST_ALPHA
+    to_zero = a < FLOOR_MIN_A or not a_above_zero
     shape = "decay_to_zero" if to_zero else "decay_to_floor"
-    reason = ("the correlations decay towards zero (no stable floor needed)" if to_zero else
-              "the correlations decay to a floor above zero")
+    reason = ("the correlations decay towards zero (the floor a is near 0 or its interval "
+              "reaches 0)" if to_zero else "the correlations decay to a floor above zero")
     with np.errstate(invalid="ignore", divide="ignore"):
         share = a / (a + b)
     return DecayFit(basis, m, shape, True, reason, a=est(a, fits[:, 0]), b=est(b, fits[:, 1]),
@@ -799,7 +809,10 @@ def _em_covariance(ctx) -> np.ndarray | None:
         return None
     if PatternMoments not in ctx.summaries:
         return None
-    em = em_moments(ctx.summary(PatternMoments))
+    try:
+        em = em_moments(ctx.summary(PatternMoments))
+    except np.linalg.LinAlgError:   # too few units for the waves: no ML moments
+        return None
     if not em.converged or not np.all(np.isfinite(np.diag(em.covariance))):
         return None
     return em.covariance
