@@ -499,3 +499,40 @@ def test_decay_fit_hybrid_unbiased_and_covered_full_grid():
     mean = np.mean(est, axis=0)
     np.testing.assert_allclose(mean, [1 / 3, 1 / 3, 0.6], atol=0.02)
     assert hit / 60 >= 0.85
+
+
+def test_dependence_sections_do_not_depend_on_chunking():
+    # summary rule (DEVELOPERS.md): many small chunks merged give the same report as one
+    # chunk (up to rounding of the merged sums), for an ordinal and a continuous measure
+    from types import SimpleNamespace
+
+    from paneldiag.panel import Panel
+    from paneldiag.results import plain
+    from paneldiag.summaries import summarise
+    rng = np.random.default_rng(25)
+    latent = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 700, np.arange(5.0), rng)
+    ordinal = (1 + _cut(latent / np.sqrt(2), [-1.0, 0.0, 1.0])).astype(float)
+    ordinal[rng.random(ordinal.shape) < 0.1] = np.nan
+    for values in (ordinal, latent):
+        panel = Panel(unit_ids=np.arange(700), wave_labels=tuple("abcde"),
+                      wave_times=np.arange(5.0), values={"y": values})
+        reports = []
+        for chunk_units in (1 << 18, 97):
+            summaries = summarise(panel, "y", [PairwiseMoments, PairwiseTables],
+                                  chunk_units=chunk_units)
+            ctx = SimpleNamespace(panel=panel, values=values, summaries=summaries,
+                                  summary=lambda kind, s=summaries: s[kind], results={},
+                                  options=SimpleNamespace(n_replicates=K, chunk_units=chunk_units,
+                                                          scale="auto"))
+            for key, section in dep.SECTIONS:
+                ctx.results[key] = section(ctx)
+            reports.append({key: plain(ctx.results[key]) for key, _ in dep.SECTIONS})
+        one, many = reports
+        assert one["correlation"]["primary"] == many["correlation"]["primary"]
+        for method, block in one["correlation"]["methods"].items():
+            np.testing.assert_allclose(np.array(block["matrix"], dtype=float),
+                                       np.array(many["correlation"]["methods"][method]["matrix"],
+                                                dtype=float), atol=1e-10)
+        for a, b in zip(one["lag_profile"], many["lag_profile"]):
+            assert a["mean_r"] == pytest.approx(b["mean_r"], abs=1e-10)
+            assert a["ci_low"] == pytest.approx(b["ci_low"], abs=1e-9)
