@@ -9,8 +9,8 @@ summary ``PatternMoments``. The dropout model needs each unit's value at each wa
 Disclosure control: every count below ``min_cell`` is suppressed (null in JSON),
 together with any share or mean that would reveal it; in a list of counts that adds
 up to a shown total, further cells are suppressed until the suppressed ones together
-hold at least ``min_cell`` units, so no suppressed count can be recovered by
-subtraction.
+hold at least ``min_cell`` units (or none at all), so no suppressed count of one or
+more units can be recovered by subtraction.
 """
 
 from __future__ import annotations
@@ -35,12 +35,15 @@ def shown_mask(counts, min_cell: int, additive: bool = False) -> np.ndarray:
     ``additive`` (the counts add up to a total that is shown), the smallest shown
     counts are suppressed too until the suppressed cells hold ``min_cell`` units or
     more together (secondary suppression), so none can be recovered by subtraction.
+    When the suppressed cells are all zero nothing more is withheld: a zero that can
+    be recovered identifies no unit.
     """
     counts = np.asarray(counts, dtype=float)
     show = counts >= min_cell
     if additive and (~show).any():
         for i in np.argsort(counts, kind="stable"):  # a loop over cells of a small table
-            if counts[~show].sum() >= min_cell or show.sum() == 0:
+            hidden = counts[~show].sum()
+            if hidden == 0 or hidden >= min_cell or show.sum() == 0:
                 break
             if show[i]:
                 show[i] = False
@@ -220,8 +223,9 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     """Standardised mean difference at each wave (but the last) between the units
     who drop out after it (last observed there) and those observed again at the
     next wave: Hedges' g = J (mean_dropping - mean_continuing) / s_pooled with
-    J = 1 - 3 / (4 (n1 + n2) - 9), and a 95% interval g +- 1.96 sqrt(v) with
-    v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)). Negative g: the leavers scored
+    J = 1 - 3 / (4 (n1 + n2) - 9), and a 95% interval g +- q sqrt(v) with the
+    large-sample variance v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)) and q the
+    0.975 quantile of Student's t on n1 + n2 - 2 df (close to 1.96 for large groups). Negative g: the leavers scored
     lower. Units who skip the next wave but return later are in neither group.
     Groups below ``min_cell`` units are suppressed with their means and g.
 
@@ -245,7 +249,8 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
             sd = np.sqrt((ss1 + ss2) / (n1 + n2 - 2))
             if sd > 0:
                 g = float((1 - 3 / (4 * (n1 + n2) - 9)) * (m2 - m1) / sd)
-                half = Z95 * np.sqrt((n1 + n2) / (n1 * n2) + g * g / (2 * (n1 + n2)))
+                q = stats.t.ppf(0.975, n1 + n2 - 2)
+                half = q * np.sqrt((n1 + n2) / (n1 * n2) + g * g / (2 * (n1 + n2)))
                 lo, hi = g - half, g + half
         out.append(DropoutDifference(
             str(wave_labels[t]), _count(n1, ok1), _count(n2, ok2),
