@@ -162,43 +162,49 @@ def polychoric(tables: np.ndarray, tol: float = 1e-10, max_iter: int = 100):
     Biometrika 41, 351-360.
     """
     n = np.asarray(tables, dtype=float)
+    lead = n.shape[:-2]
+    n = n.reshape((-1,) + n.shape[-2:])
     total = n.sum(axis=(-2, -1))
     rows, cols = n.sum(axis=-1), n.sum(axis=-2)
     a, b = thresholds(rows), thresholds(cols)
     usable = (total >= 3) & ((rows > 0).sum(-1) > 1) & ((cols > 0).sum(-1) > 1)
-    rho = _start(n, rows, cols, total)
-    rho = np.where(usable, rho, 0.0)
-    hit = n > 0
+    rho = np.where(usable, _start(n, rows, cols, total), 0.0)
 
-    def loglik(r):
-        p = _cells(a, b, r, bivariate_normal_cdf)
+    def loglik(i, r):
+        p = _cells(a[i], b[i], r, bivariate_normal_cdf)
+        hit = n[i] > 0
         with np.errstate(divide="ignore"):
-            return np.where(hit, n * np.log(np.where(hit, p, 1.0)), 0.0).sum((-2, -1)), p
+            return np.where(hit, n[i] * np.log(np.where(hit, p, 1.0)), 0.0).sum((-2, -1)), p
 
-    ll, p = loglik(rho)
-    for _ in range(max_iter):
-        dp = _cells(a, b, rho, bivariate_normal_pdf)
+    active = np.flatnonzero(usable)
+    ll = np.zeros(len(n))
+    ll[active], p_act = loglik(active, rho[active])
+    for _ in range(max_iter):  # Fisher scoring on the tables not yet converged
+        if len(active) == 0:
+            break
+        i = active
+        dp = _cells(a[i], b[i], rho[i], bivariate_normal_pdf)
         with np.errstate(invalid="ignore", divide="ignore"):
-            safe = np.where(p > 0, p, np.inf)
-            score = (n * dp / safe).sum((-2, -1))
-            info = total * (dp * dp / safe).sum((-2, -1))
-            step = np.where(usable & (info > 0), score / info, 0.0)
+            safe = np.where(p_act > 0, p_act, np.inf)
+            score = (n[i] * dp / safe).sum((-2, -1))
+            info = total[i] * (dp * dp / safe).sum((-2, -1))
+            step = np.where(info > 0, score / info, 0.0)
         step = np.clip(step, -0.5, 0.5)
         for _ in range(30):  # step halving where the likelihood would fall
-            trial = np.clip(rho + step, -RHO_LIMIT, RHO_LIMIT)
-            ll_new, p_new = loglik(trial)
-            worse = ll_new < ll - 1e-12 * np.abs(ll)
+            trial = np.clip(rho[i] + step, -RHO_LIMIT, RHO_LIMIT)
+            ll_new, p_new = loglik(i, trial)
+            worse = ll_new < ll[i] - 1e-12 * np.abs(ll[i])
             if not worse.any():
                 break
             step = np.where(worse, step / 2, step)
-        moved = np.abs(trial - rho)
-        keep = ll_new >= ll - 1e-12 * np.abs(ll)
-        rho = np.where(keep, trial, rho)
-        ll = np.where(keep, ll_new, ll)
-        p = np.where(keep[..., None, None], p_new, p)
-        if np.all(moved[usable] < tol) if usable.any() else True:
-            break
-    return np.where(usable, rho, np.nan), total
+        keep = ~worse
+        moved = np.where(keep, np.abs(trial - rho[i]), 0.0)
+        rho[i] = np.where(keep, trial, rho[i])
+        ll[i] = np.where(keep, ll_new, ll[i])
+        p_act = np.where(keep[:, None, None], p_new, p_act)
+        going = moved >= tol
+        active, p_act = i[going], p_act[going]
+    return np.where(usable, rho, np.nan).reshape(lead), total.reshape(lead)
 
 
 def _start(n, rows, cols, total):
