@@ -3,7 +3,10 @@ response patterns and declared codes."""
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import optimize, stats
 
@@ -87,10 +90,13 @@ def test_em_on_complete_data_is_the_sample_moments():
 
 def _direct_ml(x):
     """Observed-data likelihood maximised with scipy.optimize (independent route):
-    a loop over units, scipy.stats.multivariate_normal on each unit's observed waves."""
+    scipy.stats.multivariate_normal on the observed waves, group by group of units
+    with the same pattern (found with numpy, not with paneldiag)."""
     t = x.shape[1]
     seen = ~np.isnan(x)
     tril = np.tril_indices(t)
+    groups = [(obs, x[np.all(seen == obs, axis=1)][:, obs])
+              for obs in np.unique(seen, axis=0) if obs.any()]
 
     def unpack(theta):
         mu = theta[:t]
@@ -100,25 +106,27 @@ def _direct_ml(x):
 
     def negative(theta):
         mu, sigma = unpack(theta)
-        total = 0.0
-        for row, obs in zip(x, seen):
-            if obs.any():
-                total += stats.multivariate_normal.logpdf(row[obs], mu[obs],
-                                                          sigma[np.ix_(obs, obs)])
-        return -total
+        return -sum(np.sum(stats.multivariate_normal.logpdf(rows, mu[obs],
+                                                            sigma[np.ix_(obs, obs)]))
+                    for obs, rows in groups)
 
     start = np.r_[np.nanmean(x, axis=0), np.eye(t)[tril]]
     fit = optimize.minimize(negative, start, method="BFGS", options={"gtol": 1e-7})
     return unpack(fit.x), -fit.fun
 
 
-def test_em_agrees_with_direct_maximisation_of_the_observed_likelihood():
+@pytest.fixture(scope="module")
+def small_gappy():
+    """80 units, 3 waves, 30% of cells missing; every unit has an observed wave."""
+    x = _with_gaps(np.random.default_rng(5), n=80, t=3, share=0.3)
+    x[np.isnan(x).all(axis=1), 0] = 0.0
+    return x, _direct_ml(x)
+
+
+def test_em_agrees_with_direct_maximisation_of_the_observed_likelihood(small_gappy):
     # reference: scipy.optimize.minimize (BFGS) of the observed-data log-likelihood
-    rng = np.random.default_rng(5)
-    x = _with_gaps(rng, n=80, t=3, share=0.3)
-    x[np.isnan(x).all(axis=1), 0] = 0.0  # keep every unit informative
+    x, ((mu, sigma), loglik) = small_gappy
     em = em_moments(_summary(x), tol=1e-11, max_iter=20000)
-    (mu, sigma), loglik = _direct_ml(x)
     assert em.converged
     assert np.allclose(em.means, mu, atol=1e-4)
     assert np.allclose(em.covariance, sigma, atol=1e-4)
@@ -149,3 +157,156 @@ def test_em_leaves_out_a_wave_nobody_answered():
     em = em_moments(_summary(x))
     assert np.isnan(em.means[1]) and np.isnan(em.covariance[1]).all()
     assert np.isfinite(em.means[[0, 2]]).all()
+
+
+# -------------------------------------------------------------- Little's test
+
+def _little_by_hand(x, mu, sigma):
+    """Little (1988, JASA, eq. 2) computed unit by unit with pandas groups of the
+    missingness pattern, independently of paneldiag's pattern summary."""
+    frame = pd.DataFrame(x)
+    key = frame.notna().apply(lambda r: "".join("1" if v else "0" for v in r), axis=1)
+    d2, pj, used = 0.0, 0, 0
+    for pattern, rows in frame.groupby(key):
+        obs = np.array([c == "1" for c in pattern])
+        if not obs.any():
+            continue
+        diff = rows.to_numpy()[:, obs].mean(axis=0) - mu[obs]
+        d2 += len(rows) * diff @ np.linalg.solve(sigma[np.ix_(obs, obs)], diff)
+        pj += obs.sum()
+        used += 1
+    df = pj - x.shape[1]
+    return d2, df, stats.chi2.sf(d2, df), used
+
+
+def test_little_statistic_matches_a_unit_by_unit_computation_at_direct_ml(small_gappy):
+    # reference: the statistic by hand (pandas groups) at ML estimates found by
+    # scipy.optimize (not by paneldiag's EM)
+    x, ((mu, sigma), _) = small_gappy
+    summary = _summary(x, pieces=2)
+    result = little_mcar_test(summary, em_moments(summary, tol=1e-11, max_iter=20000))
+    d2, df, p, used = _little_by_hand(x, mu, sigma)
+    assert result.df == df and result.n_patterns == used
+    assert result.statistic == pytest.approx(d2, rel=1e-4)
+    assert result.pvalue == pytest.approx(p, rel=1e-3)
+
+
+def _mcar_pvalues(n_reps, n, seed):
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(n_reps):  # a loop over simulation replicates
+        x = _with_gaps(rng, n=n, t=3, share=0.2)
+        out.append(little_mcar_test(_summary(x)).pvalue)
+    return np.array(out)
+
+
+def test_little_pvalues_are_uniform_under_mcar():
+    # simulation with known truth: values missing completely at random (20% per cell);
+    # Kolmogorov-Smirnov test of the p-values against U(0, 1), 200 replicates
+    p = _mcar_pvalues(200, n=300, seed=9)
+    assert stats.kstest(p, "uniform").pvalue > 0.01
+    assert 0.02 <= np.mean(p < 0.05) <= 0.09
+
+
+@pytest.mark.slow
+def test_little_pvalues_are_uniform_under_mcar_full_grid():
+    # the same with 1,000 replicates and smaller panels (asymptotics under strain)
+    for n in (100, 400):
+        p = _mcar_pvalues(1000, n=n, seed=10 + n)
+        assert stats.kstest(p, "uniform").pvalue > 0.001
+        assert 0.03 <= np.mean(p < 0.05) <= 0.07
+
+
+def _dropout_detection(n_reps, seed, log_odds=-0.5):
+    from paneldiag.simulate import dropout_after
+    rng = np.random.default_rng(seed)
+    t = 4
+    cov = 0.5 + 0.5 * np.eye(t)
+    hits = 0
+    for _ in range(n_reps):  # a loop over simulation replicates
+        x = rng.multivariate_normal(np.zeros(t), cov, 1000)
+        x[dropout_after(x, rng, base_rate=0.15, log_odds_per_sd=log_odds)] = np.nan
+        hits += little_mcar_test(_summary(x)).pvalue < 0.05
+    return hits / n_reps
+
+
+def test_little_detects_dropout_driven_by_the_previous_score():
+    # simulation with known truth: dropout after wave t with log-odds -0.5 per SD of
+    # the score at t (paneldiag.simulate.dropout_after), N = 1,000, 30 replicates
+    assert _dropout_detection(30, seed=11) >= 0.8
+
+
+@pytest.mark.slow
+def test_little_detects_dropout_full_grid():
+    assert _dropout_detection(300, seed=12) >= 0.9
+    assert _dropout_detection(300, seed=13, log_odds=-0.25) >= 0.5
+
+
+# ------------------------------------------------- patterns, coverage and codes
+
+def test_response_patterns_never_show_a_small_pattern():
+    # disclosure rule (common practice: minimum cell size 5): hand-made counts
+    from paneldiag.diagnostics.missingness import response_patterns
+    counts = {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 4, ".oo": 2, "..o": 1}
+    rows = [[1.0 if c == "o" else np.nan for c in p] for p, n in counts.items()
+            for _ in range(n)]
+    table = response_patterns(_summary(np.array(rows)), min_cell=5, top=10).to_dict()
+    shown = {r["pattern"]: r["n"] for r in table["rows"]}
+    # 4 + 2 + 1 = 7 small units pooled: the remainder holds 7 >= 5, so it is shown
+    assert shown == {"ooo": 40, "oo.": 12, "o..": 6}
+    assert table["remainder"]["n_units"] == 7 and table["remainder"]["n_small_units"] == 7
+    # with a top of 1 the remainder is 29, and with min cell 8 nothing under 8 is listed
+    table = response_patterns(_summary(np.array(rows)), min_cell=8, top=10).to_dict()
+    assert all(r["n"] >= 8 for r in table["rows"])
+    assert table["remainder"]["n_units"] in (0,) or table["remainder"]["n_units"] >= 8
+    assert table["remainder"]["n_small_units"] is None or \
+        table["remainder"]["n_small_units"] >= 8
+
+
+def test_lone_small_remainder_absorbs_the_smallest_listed_pattern():
+    from paneldiag.diagnostics.missingness import response_patterns
+    counts = {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 3}
+    rows = [[1.0 if c == "o" else np.nan for c in p] for p, n in counts.items()
+            for _ in range(n)]
+    table = response_patterns(_summary(np.array(rows)), min_cell=5).to_dict()
+    assert [r["pattern"] for r in table["rows"]] == ["ooo", "oo."]
+    assert table["remainder"]["n_units"] == 9 and table["remainder"]["n_small_units"] is None
+
+
+def test_declared_codes_suppress_small_cells_and_keep_labels():
+    from paneldiag.diagnostics.missingness import declared_codes
+    codes = {"-9": np.array([12, 3, 0]), "-8": np.array([5, 7, 4])}
+    result = declared_codes(codes, {"-9": "refused"}, ["a", "b", "c"], min_cell=5).to_dict()
+    assert result["rows"] == [{"code": "-9", "label": "refused", "counts": [12, None, None]},
+                              {"code": "-8", "label": None, "counts": [5, 7, None]}]
+
+
+def test_demo_report_shows_no_count_below_min_cell(tmp_path):
+    # disclosure: every count in the attrition and missingness blocks, JSON and terminal
+    from conftest import run_cli
+    data = tmp_path / "t.csv"
+    assert run_cli("demo", data).returncode == 0
+    out = tmp_path / "t.json"
+    done = run_cli("screen", data, "--id", "household", "--wave", "year", "--value", "trust",
+                   "--missing-codes", "-9,-8", "--min-cell", "12", "--json", out)
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads(out.read_text())
+    counts = []
+    att, mis = report["attrition"], report["missingness"]
+    counts += [r["n_observed"] for r in att["retention"]]
+    counts += [t["n"] for t in att["unit_types"]["types"]]
+    counts += [t["n"] for t in att["unit_types"]["dropout_last_wave"]]
+    counts += [r[k] for r in att["selective"]["by_wave"] for k in ("n_continuing", "n_dropping")]
+    counts += [r["n"] for r in mis["patterns"]["rows"]]
+    counts += [mis["patterns"]["remainder"]["n_units"] or 12,
+               mis["patterns"]["remainder"]["n_small_units"]]
+    counts += [c for row in mis["coverage"]["n"] for c in row]
+    counts += [c for row in mis["codes"]["rows"] for c in row["counts"]]
+    assert all(c is None or c >= 12 for c in counts)
+    assert any(c is None for c in counts)   # the demo does have small cells
+    # the terminal never prints a pattern the JSON withholds
+    text = done.stdout.decode()
+    shown = {r["pattern"] for r in mis["patterns"]["rows"]}
+    listed = [line.split()[0] for line in text.splitlines()
+              if line.startswith("    ") and set(line.split()[0]) <= {"o", "."}]
+    assert listed and set(listed) <= shown
