@@ -198,7 +198,10 @@ def command_line(input_info: dict) -> str:
     """The screen command rebuilt from the options record (output paths left out)."""
     options = input_info.get("options", {})
     args = ["paneldiag", "screen", input_info.get("path", "-")]
-    for key, flag in OPTION_FLAGS:
+    known = dict(OPTION_FLAGS)
+    flags = list(OPTION_FLAGS) + [(k, "--" + k.replace("_", "-")) for k in options
+                                  if k not in known and k != "layout"]
+    for key, flag in flags:
         if key not in options:
             continue
         value = options[key]

@@ -261,7 +261,7 @@ def lag_decay_figure(report: dict) -> Figure | None:
     ax.errorbar(d, r, yerr=err, color=BLACK, marker="o", linestyle="none", capsize=3,
                 label="mean correlation, 95% CI", zorder=3)
     grid = np.linspace(0, d.max() * 1.05, 200)
-    styles = {"full": (BLUE, "-", "fitted: a + b·ρ^d"),
+    styles = {"full": (BLUE, "-", r"fitted: $a + b\,\rho^{d}$"),
               "flat": (VERMILLION, "--", "flat reference (no decay)"),
               "pure_decay": (GREEN, ":", "pure decay (no stable part)")}
     for name, (a, b, rho) in decay_models(report).items():
@@ -489,6 +489,7 @@ def save(fig: Figure) -> tuple[bytes, bytes]:
     with plt.rc_context(RC):
         png, svg = io.BytesIO(), io.BytesIO()
         fig.savefig(png, format="png", dpi=PNG_DPI, metadata={"Software": None})
+        fig.set_layout_engine("none")  # keep the layout just computed for the SVG
         fig.savefig(svg, format="svg", metadata={"Date": None, "Creator": None})
     return png.getvalue(), svg.getvalue()
 
