@@ -54,7 +54,7 @@ def wave_profile(moments: WaveMoments, wave_labels: tuple[str, ...]) -> WaveProf
     floor = float(np.min(moments.minimum))
     ceiling = float(np.max(moments.maximum))
     with np.errstate(invalid="ignore", divide="ignore"):
-        sd = np.sqrt(moments.m2 / (n - 1))
+        sd = np.where(n > 1, np.sqrt(moments.m2 / (n - 1)), np.nan)  # none below 2
         skew = np.where(moments.m2 > 0, (moments.m3 / n) / (moments.m2 / n) ** 1.5, np.nan)
         floor_share = np.where(moments.minimum == floor, moments.n_at_min, 0) / n
         ceiling_share = np.where(moments.maximum == ceiling, moments.n_at_max, 0) / n

@@ -15,11 +15,16 @@ class WaveMoments:
 
     Chunks combine with the pairwise update of Chan, Golub and LeVeque (1983,
     The American Statistician) extended to the third moment by Pebay (2008, Sandia
-    report SAND2008-6212), so no sum of squares is ever formed around zero.
+    report SAND2008-6212), so no sum of squares is ever formed around zero. The mean is
+    kept as ``shift + offset``, the shift being an observed value of the wave: the
+    differences of chunk means that the update needs are then taken between small,
+    exactly shifted numbers, so merging many chunks of data with a large mean and a
+    small spread loses no more digits than one chunk does.
     """
 
     n: np.ndarray
-    mean: np.ndarray
+    shift: np.ndarray
+    offset: np.ndarray
     m2: np.ndarray
     m3: np.ndarray
     minimum: np.ndarray
@@ -31,16 +36,24 @@ class WaveMoments:
     weighted_mean: np.ndarray | None = None
     weighted_m2: np.ndarray | None = None
 
+    @property
+    def mean(self) -> np.ndarray:
+        return self.shift + self.offset
+
     @classmethod
     def from_chunk(cls, chunk) -> "WaveMoments":
         x = chunk.values
         seen = ~np.isnan(x)
         n = seen.sum(axis=0).astype(float)
         unseen = ~seen
+        # the shift: each wave's first observed value in the chunk (0 when it has none)
+        first = x[seen.argmax(axis=0), np.arange(x.shape[1])] if x.shape[0] else n
+        shift = np.where(n > 0, first, 0.0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            d = np.where(seen, x, 0.0)
-            mean = d.sum(axis=0) / n
-            np.subtract(x, mean, out=d)
+            d = np.subtract(x, shift)
+            d[unseen] = 0.0
+            offset = d.sum(axis=0) / n
+            np.subtract(d, offset, out=d)
             d[unseen] = 0.0
             dd = d * d
             m2 = dd.sum(axis=0)
@@ -63,11 +76,14 @@ class WaveMoments:
                 wd = np.where(seen, x - wmean, 0.0)
             extra = dict(weight_sum=wsum, weighted_mean=wmean,
                          weighted_m2=(w * wd * wd).sum(axis=0))
-        return cls(n, mean, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+        return cls(n, shift, offset, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
 
     def merge(self, other: "WaveMoments") -> "WaveMoments":
-        mean, m2, m3 = _combine(self.n, self.mean, self.m2, self.m3,
-                                other.n, other.mean, other.m2, other.m3)
+        mine = self.n > 0  # keep this side's shift; the other's offset is moved onto it
+        shift = np.where(mine, self.shift, other.shift)
+        moved = np.where(mine, (other.shift - self.shift) + other.offset, other.offset)
+        offset, m2, m3 = _combine(self.n, np.where(mine, self.offset, 0.0), self.m2, self.m3,
+                                  other.n, moved, other.m2, other.m3)
         lo, hi = np.minimum(self.minimum, other.minimum), np.maximum(self.maximum, other.maximum)
         n_lo = np.where(self.minimum == lo, self.n_at_min, 0) + \
             np.where(other.minimum == lo, other.n_at_min, 0)
@@ -82,7 +98,8 @@ class WaveMoments:
                                      np.zeros_like(other.n))
             extra = dict(weight_sum=self.weight_sum + other.weight_sum,
                          weighted_mean=wmean, weighted_m2=wm2)
-        return WaveMoments(self.n + other.n, mean, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+        return WaveMoments(self.n + other.n, shift, offset, m2, m3, lo, hi, n_lo, n_hi,
+                           distinct, **extra)
 
 
 def _distinct(column: np.ndarray) -> np.ndarray:
