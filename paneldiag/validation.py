@@ -75,22 +75,26 @@ def verdicts_for_panel(panel, measure: str = "score", options=None) -> list[dict
 
 
 def _one(task) -> tuple[Condition, str | None]:
-    condition, seed = task
+    condition, seed, rules_path = task
     rng = np.random.default_rng(seed)
+    from paneldiag.rules import load_thresholds
+    from paneldiag.screen import ScreenOptions
     from paneldiag.simulate import family_values
     values = family_values(condition.family, condition.n_units, condition.n_waves,
                            condition.reliability, condition.dropout, rng)
-    families = verdicts_for_panel(panel_of(values))
+    options = ScreenOptions(rules=load_thresholds(rules_path)) if rules_path else None
+    families = verdicts_for_panel(panel_of(values), options=options)
     supported = [f["family"] for f in families if f["verdict"] == "supported"]
     return condition, (supported[0] if supported else None)
 
 
-def tasks(grid: dict, reps: int, seed: int = SEED):
+def tasks(grid: dict, reps: int, seed: int = SEED, rules_path: str | None = None):
     conditions = [Condition(f, n, t, r, d) for f in FAMILIES
                   for n, t, r, d in itertools.product(grid["n_units"], grid["n_waves"],
                                                       grid["reliability"], grid["dropout"])]
     seeds = np.random.SeedSequence(seed).spawn(len(conditions) * reps)
-    return [(c, seeds[i * reps + k]) for i, c in enumerate(conditions) for k in range(reps)]
+    return [(c, seeds[i * reps + k], rules_path) for i, c in enumerate(conditions)
+            for k in range(reps)]
 
 
 def _init_worker():
@@ -101,9 +105,10 @@ def _init_worker():
         pass
 
 
-def run(grid: dict, reps: int, seed: int = SEED, workers: int = 2) -> list[tuple]:
+def run(grid: dict, reps: int, seed: int = SEED, workers: int = 2,
+        rules_path: str | None = None) -> list[tuple]:
     """Every panel's (condition, supported family or None), in task order."""
-    work = tasks(grid, reps, seed)
+    work = tasks(grid, reps, seed, rules_path)
     if workers <= 1:
         _init_worker()
         return [_one(task) for task in work]
@@ -194,9 +199,13 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=SEED)
     parser.add_argument("--workers", type=int, default=min(2, os.cpu_count() or 1))
     parser.add_argument("--out", help="write the Markdown tables here (else stdout)")
+    parser.add_argument("--rules", help="a thresholds file, as for paneldiag screen --rules")
     args = parser.parse_args(argv)
     grid = FULL_GRID if args.grid == "full" else REDUCED_GRID
-    results = run(grid, args.reps, args.seed, args.workers)
+    if args.rules:
+        from paneldiag.rules import load_thresholds
+        load_thresholds(args.rules)  # refuse a bad file before any work
+    results = run(grid, args.reps, args.seed, args.workers, args.rules)
     text = report_markdown(results, grid, args.reps, args.seed)
     if args.out:
         from paneldiag.io.output import write_atomic

@@ -122,7 +122,7 @@ def load_thresholds(path: str) -> Thresholds:
         checked = _check(name, value, path)
         rows[name] = Threshold(name, checked, base.table[name].reason if name in base.table
                                else "", f"override from {path}")
-    if rows["reliability_substantial"] > rows["reliability_negligible"]:
+    if rows["reliability_substantial"].value > rows["reliability_negligible"].value:
         raise InputProblem("reliability_substantial must not exceed reliability_negligible",
                            file=path, column="reliability_substantial")
     return Thresholds(MappingProxyType(rows), origin=path)
