@@ -393,3 +393,29 @@ def test_demo_energy_use_reliability(demo_report):
     assert 0.85 < summary["estimate"] < 0.96
     assert summary["ci_low"] < summary["estimate"] < summary["ci_high"]
     assert "jackknife" in summary["method"]
+
+
+def test_mean_shape_on_em_means_under_dropout():
+    # Simulation with known truth: a stable trait plus noise with a constant mean (no
+    # change at all) and monotone dropout whose odds fall with the last observed value
+    # (missing at random). The available-case wave means drift upwards; the ML means
+    # under MAR (EM, with a jackknife covariance) show no linear change.
+    from paneldiag.diagnostics.growth import growth_section
+    from paneldiag.panel import Panel
+    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.simulate import dropout_after
+    rng = np.random.default_rng(21)
+    times = np.arange(6, dtype=float)
+    x = rng.normal(0, 1, (5000, 1)) + rng.normal(0, 0.8, (5000, 6))
+    x[dropout_after(x, rng, 0.15, -1.0)] = np.nan
+    _, moments = summaries(x, times)
+    drift = mean_shape(moments, times).components[0]
+    assert drift.pvalue < 1e-6  # the available-case means are biased by the dropout
+    panel = Panel(unit_ids=np.arange(5000), wave_labels=tuple(map(str, range(6))),
+                  wave_times=times, values={"y": x})
+    result = growth_section(MeasureContext(panel=panel, measure="y", options=ScreenOptions(),
+                                           ledger=None))
+    shape = result.mean_shape
+    assert shape.basis == "em_missing_at_random" and shape.covariance_basis == "jackknife"
+    assert shape.components[0].pvalue > 0.001
+    assert result.variance_trend.basis == "em_missing_at_random"

@@ -127,7 +127,8 @@ class MeanShape(Result):
     mean_change_per_time: float
     components: tuple[ShapeComponent, ...]
     any_change: ShapeComponent
-    covariance_basis: str
+    covariance_basis: str   # "pairwise_complete" or "jackknife" (over replicate groups)
+    basis: str = "available_case"  # the wave means: "available_case" or "em_missing_at_random"
 
 
 @dataclass(frozen=True)
@@ -139,6 +140,7 @@ class VarianceTrend(Result):
     df: int
     pvalue: float
     ratio_last_first: float
+    basis: str = "pairwise_complete"  # the variances: or "em_missing_at_random"
 
 
 @dataclass(frozen=True)
@@ -432,12 +434,15 @@ def _wave_means_and_covariance(moments) -> tuple[np.ndarray, np.ndarray]:
     return means, np.where(n > 1, mean_cov, 0.0)
 
 
-def mean_shape(moments, times: np.ndarray) -> MeanShape:
+def mean_shape(moments, times: np.ndarray, em=None) -> MeanShape:
     """Shape of the mean trajectory by orthogonal polynomial contrasts of the wave means.
 
-    The wave means are the available-case means; their covariance is
+    The wave means are the available-case means, with covariance
     Cov(mean_s, mean_t) = S_st n_st / (n_s n_t), S_st the pairwise-complete covariance
-    and n_st the units seen at both waves. Each component (linear, quadratic, and the
+    and n_st the units seen at both waves; or, given ``em`` (an EM basis with
+    leave-one-group-out copies, see ``paneldiag.diagnostics.reliability.em_basis``), the
+    ML means under missing at random with their delete-a-group jackknife covariance.
+    Each component (linear, quadratic, and the
     remainder of higher powers together) is tested by a Wald chi-square; the share of
     change is its part of the squared deviations of the wave means from their mean.
 
@@ -449,7 +454,16 @@ def mean_shape(moments, times: np.ndarray) -> MeanShape:
     when the number of observations is large. Transactions of the American
     Mathematical Society, 54(3), 426-482.
     """
-    means, cov = _wave_means_and_covariance(moments)
+    if em is not None and em.means is not None and len(em.part_means) > 1:
+        means = np.asarray(em.means, dtype=float)
+        reps = np.asarray(em.part_means, dtype=float)
+        k = len(reps)
+        dev = reps - reps.mean(axis=0)
+        cov = (k - 1) / k * dev.T @ dev
+        basis, cov_basis = "em_missing_at_random", "jackknife"
+    else:
+        means, cov = _wave_means_and_covariance(moments)
+        basis, cov_basis = "available_case", "pairwise_complete"
     poly = orthogonal_polynomials(times)
     contrast = poly.T @ means
     total = float((contrast[1:] ** 2).sum())
@@ -463,7 +477,7 @@ def mean_shape(moments, times: np.ndarray) -> MeanShape:
                      components=tuple(components),
                      any_change=_wald("any_change", list(range(1, n_waves)), poly, means, cov,
                                       total),
-                     covariance_basis="pairwise_complete")
+                     covariance_basis=cov_basis, basis=basis)
 
 
 def _wald(name, cols, poly, means, cov, total) -> ShapeComponent:
@@ -484,7 +498,7 @@ def _wald(name, cols, poly, means, cov, total) -> ShapeComponent:
 
 
 def _log_variance_slope(moments, times) -> tuple[float, np.ndarray]:
-    var = np.diag(moments.covariance())
+    var = np.diag(moments.covariance() if hasattr(moments, "covariance") else moments)
     t = np.asarray(times, dtype=float) - np.mean(times)
     with np.errstate(invalid="ignore", divide="ignore"):
         y = np.log(var)
@@ -493,14 +507,15 @@ def _log_variance_slope(moments, times) -> tuple[float, np.ndarray]:
     return float((tt * y[ok]).sum() / (tt ** 2).sum()), var
 
 
-def variance_trend(moments, times: np.ndarray) -> VarianceTrend:
+def variance_trend(moments, times: np.ndarray, em=None) -> VarianceTrend:
     """Fanning: the trend of the measure's variance over time.
 
     The least-squares slope of the log variance on time (Bartlett and Kendall 1946:
     the log of a sample variance has nearly constant sampling variance), so
     exp(slope) is the factor by which the variance changes per unit of time. Waves
     share units, so the standard error is the delete-a-group jackknife over
-    replicate groups (Kott 2001), with a t test on K - 1 degrees of freedom.
+    replicate groups (Kott 2001), with a t test on K - 1 degrees of freedom. Given
+    ``em`` (see ``mean_shape``), the variances are the ML ones under missing at random.
 
     References
     ----------
@@ -510,8 +525,9 @@ def variance_trend(moments, times: np.ndarray) -> VarianceTrend:
     Kott, P. S. (2001). The delete-a-group jackknife. Journal of Official Statistics,
     17(4), 521-526.
     """
-    slope, var = _log_variance_slope(moments, times)
-    reps = np.array([_log_variance_slope(part, times)[0] for part in moments.leave_one_out()])
+    source = moments if em is None else em
+    slope, var = _log_variance_slope(source, times)
+    reps = np.array([_log_variance_slope(part, times)[0] for part in source.leave_one_out()])
     k = len(reps)
     se = float(jackknife_se(slope, reps))
     t_stat = slope / se if se > 0 else float("nan")
@@ -519,19 +535,20 @@ def variance_trend(moments, times: np.ndarray) -> VarianceTrend:
     return VarianceTrend(
         variances=tuple(float(v) for v in var), log_variance_slope=slope, se=se, t=t_stat,
         df=k - 1, pvalue=float(2 * stats.t.sf(abs(t_stat), k - 1)) if k > 1 else float("nan"),
-        ratio_last_first=float(finite[-1] / finite[0]) if len(finite) > 1 else float("nan"))
+        ratio_last_first=float(finite[-1] / finite[0]) if len(finite) > 1 else float("nan"),
+        basis="pairwise_complete" if em is None else "em_missing_at_random")
 
 
 def growth_screen(trajectories: TrajectorySummary, moments, times: np.ndarray,
-                  level: float = 0.95) -> GrowthScreen:
+                  level: float = 0.95, em=None) -> GrowthScreen:
     """Every part of the growth screen (see the functions for methods and references)."""
     prepared = prepare(trajectories)
     return GrowthScreen(
         trajectories=trajectory_fits(trajectories, level, prepared),
         slope_reliability=slope_reliability(trajectories, level, prepared),
         residual_autocorrelation=residual_autocorrelation(trajectories, level, prepared),
-        mean_shape=mean_shape(moments, times),
-        variance_trend=variance_trend(moments, times),
+        mean_shape=mean_shape(moments, times, em),
+        variance_trend=variance_trend(moments, times, em),
         icc=intraclass_correlation(trajectories, level, prepared))
 
 
@@ -553,8 +570,19 @@ def _ci(point, reps, level) -> tuple[float, float]:
 
 
 def growth_section(ctx) -> GrowthScreen:
-    """The screen's ``growth`` section for one measure (see paneldiag.screen)."""
-    from paneldiag.summaries.pairwise import PairwiseMoments
+    """The screen's ``growth`` section for one measure (see paneldiag.screen).
 
+    With missing cells and converging EM fits, the mean shape and the variance trend
+    use the ML moments under missing at random (as the reliability section does); the
+    per-unit trajectories use each unit's observed waves.
+    """
+    from paneldiag.diagnostics.reliability import em_basis
+    from paneldiag.summaries.pairwise import PairwiseMoments
+    from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
+
+    em = None
+    if np.isnan(ctx.values).any() and ReplicatePatternMoments in ctx.summaries:
+        em = em_basis(ctx.summary(ReplicatePatternMoments),
+                      getattr(ctx.results.get("missingness"), "em", None))
     return growth_screen(ctx.summary(TrajectorySummary), ctx.summary(PairwiseMoments),
-                         ctx.panel.wave_times)
+                         ctx.panel.wave_times, em=em)

@@ -12,6 +12,7 @@ them: a value above 1 or below 0 is kept and marked with the reason, never clipp
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass, replace
 from itertools import combinations
 
@@ -388,11 +389,13 @@ def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
 
 
 class EMBasis:
-    """ML covariance under missing at random, with its leave-one-group-out copies, in
-    the interface ``quasi_simplex_reliability`` expects."""
+    """ML means and covariance under missing at random, with leave-one-group-out
+    copies, in the interface ``quasi_simplex_reliability`` expects."""
 
-    def __init__(self, cov: np.ndarray, parts: list[np.ndarray]):
+    def __init__(self, cov: np.ndarray, parts: list[np.ndarray], means: np.ndarray | None = None,
+                 part_means: list[np.ndarray] | None = None):
         self.cov, self.parts = cov, parts
+        self.means, self.part_means = means, part_means or []
 
     def covariance(self) -> np.ndarray:
         return self.cov
@@ -406,10 +409,25 @@ class EMBasis:
             yield EMBasis(part, [])
 
 
-def em_basis(replicates, full_covariance: np.ndarray | None = None) -> EMBasis | None:
+_EM_BASIS_CACHE: dict[int, tuple[weakref.ref, EMBasis | None]] = {}
+
+
+def em_basis(replicates, full=None) -> EMBasis | None:
     """EM moments (Dempster, Laird and Rubin 1977, JRSS B; paneldiag.diagnostics.
     missingness.em_moments) of all units and of each leave-one-group-out set, from
-    per-group pattern moments; None when any fit fails to converge."""
+    per-group pattern moments; None when any fit fails to converge. ``full`` may give
+    an EMResult already fitted to all units. Computed once per summary object."""
+    cached = _EM_BASIS_CACHE.get(id(replicates))
+    if cached is not None and cached[0]() is replicates:
+        return cached[1]
+    result = _em_basis(replicates, full)
+    for stale in [k for k, (ref, _) in _EM_BASIS_CACHE.items() if ref() is None]:
+        del _EM_BASIS_CACHE[stale]
+    _EM_BASIS_CACHE[id(replicates)] = (weakref.ref(replicates), result)
+    return result
+
+
+def _em_basis(replicates, full) -> EMBasis | None:
     from paneldiag.diagnostics.missingness import em_moments
 
     def fit(patterns, tol=1e-8):
@@ -417,21 +435,23 @@ def em_basis(replicates, full_covariance: np.ndarray | None = None) -> EMBasis |
             em = em_moments(patterns, tol=tol)
         except np.linalg.LinAlgError:
             return None
-        ok = em.converged and np.all(np.isfinite(em.covariance))
-        return em.covariance if ok else None
+        ok = em.converged and np.all(np.isfinite(em.covariance)) and \
+            np.all(np.isfinite(em.means))
+        return em if ok else None
 
-    full = full_covariance if full_covariance is not None else fit(replicates.pooled())
-    if full is None or not np.all(np.isfinite(full)):
+    full = full if full is not None and full.converged else fit(replicates.pooled())
+    if full is None or not np.all(np.isfinite(full.covariance)):
         return None
     parts = []
     for patterns in replicates.leave_one_out():  # a loop over replicate groups
         # a looser stopping rule for the copies: their changes from the full fit are of
         # the order of the standard error, far above 1e-6 of the waves' scale
-        cov = fit(patterns, tol=1e-6)
-        if cov is None:
+        em = fit(patterns, tol=1e-6)
+        if em is None:
             return None
-        parts.append(cov)
-    return EMBasis(full, parts)
+        parts.append(em)
+    return EMBasis(full.covariance, [p.covariance for p in parts], full.means,
+                   [p.means for p in parts])
 
 
 def reliability_section(ctx) -> ReliabilityScreen | None:
@@ -449,9 +469,8 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
     if result is not None and np.isnan(ctx.values).any():
         em = None
         if ReplicatePatternMoments in ctx.summaries:
-            earlier = getattr(ctx.results.get("missingness"), "em", None)
-            full = earlier.covariance if earlier is not None and earlier.converged else None
-            em = em_basis(ctx.summary(ReplicatePatternMoments), full)
+            em = em_basis(ctx.summary(ReplicatePatternMoments),
+                          getattr(ctx.results.get("missingness"), "em", None))
         if em is not None:
             em_result = quasi_simplex_reliability(em, labels, basis=BASIS_EM)
             result = replace(em_result, alternative_basis=BASIS_PAIRWISE,

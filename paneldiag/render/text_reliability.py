@@ -73,7 +73,9 @@ def render_growth(report: dict, color: bool) -> list[str]:
                  f"chi2 {number(rel['chi_square'], 1)} on {rel['df']:,} df, {_p(rel['pvalue'])}")
     parts = [f"{c['component']} {share(c['share_of_change'])} ({_p(c['pvalue'])})"
              for c in g["mean_shape"]["components"]]
-    lines.append("  mean shape, share of change in wave means: " + "; ".join(parts))
+    basis = "ML means under MAR" if g["mean_shape"].get("basis") == "em_missing_at_random" \
+        else "available-case means"
+    lines.append(f"  mean shape ({basis}), share of change: " + "; ".join(parts))
     lines.append(f"  residual lag-1 autocorrelation after own lines {number(auto['lag1'])} "
                  f"(expected {number(auto['expected_under_independence'])} under independence; "
                  f"excess {number(auto['excess'])}, {_p(auto['pvalue'])})")
