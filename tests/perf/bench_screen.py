@@ -196,8 +196,12 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
 
     stages = []
 
+    clock = [time.process_time()]
+
     def mark(name, start):
-        stages.append((name, time.perf_counter() - start, peak()))
+        cpu = time.process_time()
+        stages.append((name, time.perf_counter() - start, cpu - clock[0], peak()))
+        clock[0] = cpu
         return time.perf_counter()
 
     spec = LayoutSpec(id=ID, wave=WAVE, values=(VALUE,))
@@ -285,15 +289,16 @@ def main(argv: list[str] | None = None) -> int:
           "<= 1.5 memory")
     if not args.no_stages:
         for fmt in args.formats.split(","):
-            print(f"\nstages of paneldiag, in process ({fmt}): seconds, peak MiB so far")
+            print(f"\nstages of paneldiag, in process ({fmt}): wall, CPU, peak memory so far")
             code = ("import json, sys; sys.path.insert(0, %r); import bench_screen as b; "
                     "print(json.dumps(b.stage_profile(%r)))" % (str(Path(__file__).parent),
                                                                  str(files[fmt])))
             text = run_child([sys.executable, "-c", code])[3]
             stages = json.loads(text.strip().splitlines()[-1])
-            for name, seconds, peak_mib in stages:
-                print(f"  {name:<32} {seconds:7.2f} s  {peak_mib:8.0f} MiB")
-            print(f"  {'total':<32} {sum(s[1] for s in stages):7.2f} s")
+            for name, seconds, cpu, peak_mib in stages:
+                print(f"  {name:<32} {seconds:7.2f} s  {cpu:7.2f} s CPU  {peak_mib:7.0f} MiB")
+            print(f"  {'total':<32} {sum(s[1] for s in stages):7.2f} s  "
+                  f"{sum(s[2] for s in stages):7.2f} s CPU")
     return 0
 
 
