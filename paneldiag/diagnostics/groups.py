@@ -120,6 +120,8 @@ def _estimate_from(section, path: tuple[str, ...]):
     ``se`` or a CI; an SE missing is derived from a symmetric normal CI,
     (high - low) / (2 z_0.975).
     """
+    if isinstance(section.get(path[0]), dict) and section[path[0]].get("identified") is False:
+        return None  # the diagnostic says this figure is not identified here
     node = section
     for key in path:
         if not isinstance(node, dict) or key not in node:

@@ -109,29 +109,51 @@ def lag_table(report: dict, min_cell: int) -> Table | None:
     rows = report.get("lag_profile")
     if not rows:
         return None
-    body = tuple((str(r.get("lag")), _v(r.get("time_distance")),
+    basis = {"lag": "waves apart", "time": "time apart"}
+    body = tuple((basis.get(r.get("basis"), "waves apart"),
+                  "–" if r.get("lag") is None else str(r["lag"]),
+                  "–" if r.get("time_distance") is None else _number(r["time_distance"]),
                   _ci({"estimate": r.get("mean_r"), "ci_low": r.get("ci_low"),
                        "ci_high": r.get("ci_high")}),
-                  _n(r.get("n_pairs"), min_cell)) for r in rows)
+                  _n(r.get("wave_pairs"), 0), _n(r.get("n_pairs"), min_cell)) for r in rows)
     return Table(f"{slug(report.get('measure'))}-lags",
-                 f"{report.get('measure')}: mean correlation by lag",
-                 ("lag", "time distance", "mean r [95% CI]", "unit pairs"), body)
+                 f"{report.get('measure')}: mean correlation by lag and by time distance",
+                 ("grouped by", "lag (waves)", "time distance", "mean r [95% CI]",
+                  "wave pairs", "unit pairs"), body,
+                 ("Fisher-z averages weighted by n - 3; '–': the band mixes lags or time "
+                  "distances. Unit pairs count a unit once per wave pair.",), align="lrrrrr")
 
 
 def families_table(report: dict) -> Table | None:
-    fams = report.get("families")
-    if not isinstance(fams, list) or not fams:
+    fams = [f for f in report.get("families") or [] if isinstance(f, dict)]
+    if not fams:
         return None
+    lists = [list(map(str, f.get("caveats") or [])) for f in fams]
+    common = [c for c in lists[0] if all(c in other for other in lists[1:])]
     body = tuple((str(f.get("family", "")).replace("_", " "),
                   str(f.get("verdict", "")).replace("_", " "),
                   _v(f.get("score")) if isinstance(f.get("score"), (int, float)) else "–",
-                  "; ".join(map(str, f.get("caveats") or [])) or "–")
-                 for f in fams if isinstance(f, dict))
+                  " ".join(c for c in own if c not in common) or "–")
+                 for f, own in zip(fams, lists))
+    notes = ["Verdicts summarise screening evidence; they do not select a model."]
+    if common:
+        notes.append("For every family: " + " ".join(common))
     return Table(f"{slug(report.get('measure'))}-families",
                  f"{report.get('measure')}: screening verdicts by process family",
-                 ("family", "verdict", "score", "caveats"), body,
-                 ("Verdicts summarise screening evidence; they do not select a model.",),
+                 ("family", "verdict", "score", "caveats"), body, tuple(notes),
                  align="llrl")
+
+
+def family_evidence(report: dict) -> ListBlock | None:
+    """The evidence behind the families the screen supports or finds plausible."""
+    items = []
+    for fam in report.get("families") or []:
+        if isinstance(fam, dict) and fam.get("verdict") in ("supported", "plausible"):
+            evidence = " ".join(map(str, fam.get("evidence") or []))
+            if evidence:
+                items.append(f"{str(fam['family']).replace('_', ' ')} ({fam['verdict']}): "
+                             f"{evidence}")
+    return ListBlock(tuple(items)) if items else None
 
 
 def group_table(report: dict) -> Table | None:
@@ -149,7 +171,7 @@ def group_table(report: dict) -> Table | None:
             f"{test['statistic']:.2f} ({test['df']})"
         rows.append((comp["label"] + (" (%)" if comp["figure"] == "retention" else ""),
                      *cells, stat, _p(test["pvalue"])))
-    notes = [section["note"],
+    notes = [section["note"], "'–': not identified or not reported for that group.",
              "Tests: lag-1 autocorrelation, Cochran's Q on Fisher z with delete-a-group "
              "jackknife SEs; retention, Pearson chi-square of the groups x retained table; "
              "other figures, Cochran's Q with the SEs the diagnostics report. Cells show the "
@@ -297,7 +319,8 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
         for title, writer in prose.MEASURE_PROSE:
             texts = writer(rep, cite)
             figure_names = {
-                "Sample": ["retention", "response_patterns"],
+                "Attrition": ["retention"],
+                "Missing data": ["response_patterns"],
                 "Distribution by wave": ["wave_means", "trajectories"],
                 "Dependence over time": ["correlation", "lag_decay"],
                 "Reliability": ["reliability"],
@@ -305,10 +328,10 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
                 "Groups": ["groups"],
             }.get(title, [])
             tables = {
-                "Sample": [retention_table(rep, min_cell)],
+                "Attrition": [retention_table(rep, min_cell)],
                 "Distribution by wave": [wave_table(rep, min_cell)],
                 "Dependence over time": [lag_table(rep, min_cell)],
-                "Process families": [families_table(rep)],
+                "Process families": [families_table(rep), family_evidence(rep)],
                 "Groups": [group_table(rep)],
             }.get(title, [])
             drawn = [f"{stem}-{n}" for n in figure_names if f"{stem}-{n}" in figures]

@@ -120,7 +120,7 @@ td.r, th.r { text-align: right; } td.l, th.l { text-align: left; } td.c, th.c { 
 .caution { border: 2px solid #D55E00; background: #fff6ef; padding: .6rem 1rem;
            margin: 1rem 0; }
 .caution strong { display: block; margin-bottom: .3rem; }
-figure { margin: 1rem 0 1.6rem; } figure img { max-width: 100%; height: auto; }
+figure { margin: 1rem 0 1.6rem; } figure img { width: 100%; max-width: 48rem; height: auto; }
 figcaption { font-size: .9rem; }
 pre { background: #f3f3f3; padding: .6rem; overflow-x: auto; font-size: .85rem;
       white-space: pre-wrap; word-break: break-all; }

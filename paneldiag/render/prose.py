@@ -59,6 +59,16 @@ REFERENCES = {
     "emerson1968": ("Emerson 1968", "Emerson, P. L. (1968). Numerical construction of "
                     "orthogonal polynomials from a general recurrence formula. Biometrics, "
                     "24, 695-701."),
+    "allison1982": ("Allison 1982", "Allison, P. D. (1982). Discrete-time methods for the "
+                    "analysis of event histories. Sociological Methodology, 13, 61-98."),
+    "singer1993": ("Singer and Willett 1993", "Singer, J. D., & Willett, J. B. (1993). It's "
+                   "about time: Using discrete-time survival analysis to study duration and "
+                   "the timing of events. Journal of Educational Statistics, 18, 155-195."),
+    "hedges1981": ("Hedges 1981", "Hedges, L. V. (1981). Distribution theory for Glass's "
+                   "estimator of effect size and related estimators. Journal of Educational "
+                   "Statistics, 6, 107-128."),
+    "little2002": ("Little and Rubin 2002", "Little, R. J. A., & Rubin, D. B. (2002). "
+                   "Statistical Analysis with Missing Data (2nd ed.). Wiley."),
     "okabe2008": ("Okabe and Ito 2008", "Okabe, M., & Ito, K. (2008). Color Universal "
                   "Design (CUD): How to make figures and presentations that are friendly "
                   "to colorblind people. J*Fly."),
@@ -75,6 +85,11 @@ def pct(v) -> str:
 
 def dec(v, digits: int = 2) -> str:
     return f"{v:.{digits}f}"
+
+
+def num(v) -> str:
+    """A whole number as a count, anything else with two decimals."""
+    return count(v) if float(v).is_integer() else dec(v)
 
 
 def pval(p) -> str:
@@ -170,37 +185,79 @@ def attrition(report: dict, cite: Citations) -> list[str]:
             text += (f" The share of all units responding was lowest at wave {low['wave']} "
                      f"({pct(low['response_share'])}).")
         out.append(text)
-    types = section.get("unit_types")
+    types = section.get("unit_types") or {}
+    types = types.get("types") if isinstance(types, dict) else types
     if isinstance(types, list) and types:
-        parts = [f"{t.get('type', t.get('unit_type', '')).replace('_', ' ')} "
-                 f"{pct(t['share'])}" for t in types
-                 if isinstance(t, dict) and ok(t.get("share")) and
-                 (t.get("type") or t.get("unit_type"))]
-        if parts:
-            out.append("By response history, the units divide into " + _join(parts) + ".")
-    elif isinstance(types, dict):
-        parts = [f"{name.replace('_', ' ')} {pct(v['share'])}" for name, v in types.items()
-                 if isinstance(v, dict) and ok(v.get("share"))]
-        if parts:
-            out.append("By response history, the units divide into " + _join(parts) + ".")
+        shown = [f"{str(t['type']).replace('_', ' ')} {pct(t['share'])}" for t in types
+                 if isinstance(t, dict) and t.get("type") and ok(t.get("share")) and t["share"]]
+        hidden = [str(t["type"]).replace("_", " ") for t in types
+                  if isinstance(t, dict) and t.get("type") and t.get("share") is None]
+        if shown:
+            text = "By response history, the units were " + _join(shown) + "."
+            if hidden:
+                text += (f" Types held by fewer units than the minimum cell size "
+                         f"({_join(hidden)}) are not shown (disclosure control).")
+            out.append(text)
+    model = (section.get("selective") or {}).get("model") or {}
+    if model.get("fitted") and ok(model.get("odds_ratio_per_sd"), model.get("pvalue")):
+        ci = (f"confidence interval {dec(model['ci_low'])} to {dec(model['ci_high'])}; "
+              if ok(model.get("ci_low"), model.get("ci_high")) else "")
+        verdict = ("dropout depended on the measure" if model["pvalue"] < 0.05 else
+                   "there was no clear sign that dropout depended on the measure")
+        out.append(f"In a discrete-time hazard model of dropping out after a wave "
+                   f"{cite('allison1982', 'singer1993')}, one standard deviation more "
+                   f"{report.get('measure')} at the last wave observed went with an odds ratio "
+                   f"of {dec(model['odds_ratio_per_sd'])} ({ci}{pval(model['pvalue'])}): "
+                   f"{verdict}. Dropout that depends on the measure is not missing "
+                   "completely at random; whether it is missing at random cannot be told "
+                   f"from the data alone {cite('rubin1976')}.")
     return out
 
 
 def missingness(report: dict, cite: Citations) -> list[str]:
     section = report.get("missingness") or {}
     out = []
+    patterns = section.get("patterns") or {}
+    rows = [r for r in patterns.get("rows") or [] if ok(r.get("share"))]
+    if rows and ok(patterns.get("n_patterns")):
+        top = rows[0]
+        kind = "every wave answered" if "." not in str(top.get("pattern")) else \
+            f"{count(top['n_observed_waves'])} waves answered"
+        text = (f"The units showed {count(patterns['n_patterns'])} distinct response patterns; "
+                f"the most frequent ({kind}) covered {pct(top['share'])} of the units "
+                f"{cite('little2002')}.")
+        rest = patterns.get("remainder") or {}
+        if ok(rest.get("n_small_patterns")) and rest["n_small_patterns"]:
+            text += (f" {count(rest['n_small_patterns'])} patterns held fewer units than the "
+                     "minimum cell size and are shown only in total (disclosure control).")
+        out.append(text)
     mcar = section.get("little_mcar")
     if isinstance(mcar, dict) and ok(mcar.get("statistic"), mcar.get("df"), mcar.get("pvalue")):
         verdict = ("the data are unlikely to be missing completely at random"
                    if mcar["pvalue"] < 0.05 else
                    "it gives no evidence against missingness completely at random, which "
                    "does not establish it")
-        patterns = (f" over {count(mcar['n_patterns'])} response patterns"
-                    if ok(mcar.get("n_patterns")) else "")
+        patterns_used = (f" over {count(mcar['n_patterns'])} response patterns"
+                         if ok(mcar.get("n_patterns")) else "")
+        em = section.get("em") or {}
+        basis = (" The means and covariances under missing at random come from the EM "
+                 f"algorithm {cite('dempster1977')}." if em.get("converged") else "")
         out.append(f"Little's test of missing completely at random "
                    f"{cite('little1988', 'rubin1976')} gave a chi-square of "
                    f"{dec(mcar['statistic'])} on {count(mcar['df'])} degrees of freedom"
-                   f"{patterns} ({pval(mcar['pvalue'])}): {verdict}.")
+                   f"{patterns_used} ({pval(mcar['pvalue'])}): {verdict}.{basis}")
+    codes = (section.get("codes") or {}).get("rows")
+    if isinstance(codes, list) and codes:
+        parts = []
+        for row in codes:
+            shown = [c for c in row.get("counts") or [] if ok(c)]
+            if shown and row.get("code") is not None:
+                name = f"{row['code']}" + (f" ({row['label']})" if row.get("label") else "")
+                parts.append(f"code {name} at {count(len(shown))} wave(s)")
+        if parts:
+            out.append("Declared missing-value codes were counted separately from plain "
+                       "missing values: " + _join(parts) + "; counts below the minimum cell "
+                       "size are not shown.")
     return out
 
 
@@ -213,9 +270,9 @@ def dependence(report: dict, cite: Citations) -> list[str]:
     unit = unit_of_time(report)
     ci = (f" (confidence interval {dec(first['ci_low'])} to {dec(first['ci_high'])})"
           if ok(first.get("ci_low"), first.get("ci_high")) else "")
-    text = (f"Correlations between waves {dec(first['time_distance'])} {unit}(s) apart "
+    text = (f"Correlations between waves {num(first['time_distance'])} {unit}(s) apart "
             f"averaged {dec(first['mean_r'])}{ci}, and {dec(last['mean_r'])} at "
-            f"{dec(last['time_distance'])} {unit}(s) apart {cite('fisher1921', 'hedges1985')}.")
+            f"{num(last['time_distance'])} {unit}(s) apart {cite('fisher1921', 'hedges1985')}.")
     fit = report.get("decay_fit") or {}
     if fit.get("identified"):
         parts = []
@@ -231,11 +288,14 @@ def dependence(report: dict, cite: Citations) -> list[str]:
                      f"{cite('kenny1995')}, " + _join(parts) + ".")
     elif fit.get("reason"):
         text += f" The decay curve was not identified: {fit['reason']}."
+    refs = []
     for key, words in (("flat_vs_full", "no decay"), ("pure_decay_vs_full", "no stable part")):
         test = fit.get(key)
         if isinstance(test, dict) and ok(test.get("statistic"), test.get("p_value")):
-            text += (f" Against the fitted curve, the reference with {words} gave F = "
-                     f"{dec(test['statistic'])} ({pval(test['p_value'])}).")
+            refs.append(f"the reference with {words} gave F = {dec(test['statistic'])} "
+                        f"({pval(test['p_value'])})")
+    if refs:
+        text += " Against the fitted curve, " + _join(refs) + "."
     out = [text]
     markov = report.get("markov") or {}
     lag2 = next((r for r in markov.get("rows") or [] if r.get("lag") == 2), None)
@@ -312,28 +372,41 @@ def unit_of_time(report: dict) -> str:
 
 def verdicts(report: dict, cite: Citations) -> list[str]:
     families = report.get("families")
-    if not isinstance(families, list) or not families:
-        return []
-    groups: dict[str, list[str]] = {}
-    for fam in families:
-        if isinstance(fam, dict) and fam.get("family") and fam.get("verdict"):
-            groups.setdefault(str(fam["verdict"]), []).append(
-                str(fam["family"]).replace("_", " "))
-    if not groups:
-        return []
-    parts = [f"{_join(names)}: {verdict.replace('_', ' ')}" for verdict, names in groups.items()]
-    text = ("The screening evidence for the process families reads as follows (" +
-            "; ".join(parts) + ").")
-    nxt = report.get("next_models")
-    if isinstance(nxt, list) and nxt:
-        names = [str(m.get("model", m.get("name", ""))) if isinstance(m, dict) else str(m)
-                 for m in nxt]
-        names = [n for n in names if n]
-        if names:
-            text += (" Candidate models to fit and compare: " + _join(names) + ".")
-    text += (" These verdicts summarise evidence; they do not select a model, and the "
-             "candidates must still be fitted and compared.")
-    return [text]
+    out = []
+    if isinstance(families, list) and families:
+        grouped: dict[str, list[str]] = {}
+        for fam in families:
+            if isinstance(fam, dict) and fam.get("family") and fam.get("verdict"):
+                grouped.setdefault(str(fam["verdict"]), []).append(
+                    str(fam["family"]).replace("_", " "))
+        if grouped:
+            parts = [f"{verdict.replace('_', ' ')}: {_join(names)}"
+                     for verdict, names in grouped.items()]
+            text = ("On the screening evidence, the process families read as follows: "
+                    + "; ".join(parts) + ".")
+            nxt = report.get("next_models")
+            if isinstance(nxt, list) and nxt:
+                names = [str(m.get("model") or m.get("family") or "") if isinstance(m, dict)
+                         else str(m) for m in nxt]
+                names = [n for n in names if n]
+                if names:
+                    text += (" Candidate models to fit and compare: " + "; ".join(names) + ".")
+            text += (" These verdicts summarise evidence; they do not select a model, and "
+                     "the candidates must still be fitted and compared.")
+            out.append(text)
+    measurement = report.get("measurement")
+    if isinstance(measurement, dict) and ok(measurement.get("reliability")):
+        ci = (f" (confidence interval {dec(measurement['ci_low'])} to "
+              f"{dec(measurement['ci_high'])})"
+              if ok(measurement.get("ci_low"), measurement.get("ci_high")) else "")
+        text = (f"The share of each wave's variance not due to measurement error was "
+                f"{dec(measurement['reliability'])}{ci}")
+        text += (f", which the screen rates as {measurement['verdict']}."
+                 if measurement.get("verdict") else ".")
+        if measurement.get("advice"):
+            text += f" {measurement['advice']}"
+        out.append(text)
+    return out
 
 
 def groups(report: dict, cite: Citations) -> list[str]:
