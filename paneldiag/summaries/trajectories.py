@@ -75,8 +75,7 @@ class TrajectorySummary:
         tc = times - centre
         k_groups = chunk.n_replicates
         seen = ~np.isnan(x)
-        patterns, pattern_of = np.unique(seen, axis=0, return_inverse=True)
-        pattern_of = pattern_of.reshape(-1)
+        patterns, pattern_of = _response_patterns(seen)
         n_pat = len(patterns)
         out = _zeros(k_groups, n_pat)
         order = np.argsort(pattern_of, kind="stable")
@@ -177,6 +176,21 @@ class TrajectorySummary:
         return [TrajectorySummary(times=self.times, centre=self.centre, patterns=self.patterns,
                                   **{key: value[o:o + 1] for key, value in out.items()})
                 for o in range(keep.shape[0])]
+
+
+def _response_patterns(seen: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct rows of a boolean (n, T) matrix in lexicographic order (as np.unique
+    with axis=0 gives them) and each row's pattern index; integer codes make the
+    grouping a sort of n integers rather than of n byte strings."""
+    n_waves = seen.shape[1]
+    if n_waves > 62:
+        patterns, inverse = np.unique(seen, axis=0, return_inverse=True)
+        return patterns, inverse.reshape(-1)
+    weights = np.left_shift(np.int64(1), np.arange(n_waves - 1, -1, -1, dtype=np.int64))
+    codes = seen.astype(np.int64) @ weights   # first wave is the most significant bit
+    unique, inverse = np.unique(codes, return_inverse=True)
+    patterns = ((unique[:, None] & weights[None, :]) > 0)
+    return patterns, inverse.reshape(-1)
 
 
 def _zeros(k: int, p: int) -> dict:
