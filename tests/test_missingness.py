@@ -310,3 +310,23 @@ def test_demo_report_shows_no_count_below_min_cell(tmp_path):
     listed = [line.split()[0] for line in text.splitlines()
               if line.startswith("    ") and set(line.split()[0]) <= {"o", "."}]
     assert listed and set(listed) <= shown
+
+
+def test_code_labels_from_a_labelled_file_reach_the_report(tmp_path):
+    # a .sav file (written with pyreadstat) declaring value labels for -9 and -8
+    pyreadstat = pytest.importorskip("pyreadstat")
+    from conftest import run_cli
+    from paneldiag.demo import tenant_panel
+    frame = tenant_panel(300)[["household", "year", "satisfaction"]]
+    path = tmp_path / "tenants.sav"
+    pyreadstat.write_sav(frame, path, variable_value_labels={
+        "satisfaction": {-9: "refused", -8: "don't know"}})
+    out = tmp_path / "t.json"
+    done = run_cli("screen", path, "--id", "household", "--wave", "year", "--value",
+                   "satisfaction", "--missing-codes", "-9,-8", "--json", out, "-q")
+    assert done.returncode == 0, done.stderr.decode()
+    rows = {r["code"]: r for r in json.loads(out.read_text())["missingness"]["codes"]["rows"]}
+    assert rows["-9"]["label"] == "refused" and rows["-8"]["label"] == "don't know"
+    wide = frame.pivot(index="household", columns="year", values="satisfaction")
+    expected = [(n if n >= 5 else None) for n in (wide == -9).sum().tolist()]
+    assert rows["-9"]["counts"] == expected   # pandas count of -9 per year, 5+ only

@@ -329,9 +329,10 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     unit, wave = np.nonzero(risk)
     y = event[unit, wave].astype(float)
     n_pp, n_ev = len(y), int(y.sum())
+    n_at_risk = int(risk.any(axis=1).sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
                 n_events=_count(n_ev, n_ev >= min_cell),
-                n_units=_count(len(np.unique(unit)), len(np.unique(unit)) >= min_cell),
+                n_units=_count(n_at_risk, n_at_risk >= min_cell),
                 waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
 
     def empty(note, iterations=0):
@@ -345,7 +346,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                                                                x[:, 1:].std(axis=0), 1.0)
     if np.any(x.std(axis=0) == 0):
         return empty("a predictor is constant over the person-periods: not fitted")
-    level = np.searchsorted(np.flatnonzero(waves_used), wave)   # intercept index per row
+    level = (np.cumsum(waves_used) - 1)[wave]                    # intercept index per row
     fit = _newton_logit(y, x, level, int(waves_used.sum()), max_iter, tol)
     if fit is None:
         return empty("the dropout model did not converge (separation or a singular "
