@@ -45,9 +45,10 @@ def cli(ctx: click.Context, debug: bool) -> None:
 
 
 def _register() -> None:
-    from paneldiag.cli import demo, screen
+    from paneldiag.cli import check_verdicts, demo, screen
     cli.add_command(screen.command)
     cli.add_command(demo.command)
+    cli.add_command(check_verdicts.command)
 
 
 def main(argv: list[str] | None = None) -> int:

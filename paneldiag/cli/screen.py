@@ -103,11 +103,14 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
                    "(off by default: individual data).")
 @click.option("--trajectory-seed", type=int, default=1, show_default=True, metavar="SEED",
               help="Seed of the trajectory sample.")
+@click.option("--rules", "rules_path", metavar="FILE",
+              help="A TOML file of verdict thresholds replacing the defaults "
+                   "(see docs/rules.md).")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
             delimiter, json_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
-            quiet):
+            rules_path, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
@@ -120,6 +123,10 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
         bad_values="drop" if drop_bad_rows else "error")
     if not spec.measure_names():
         raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
+    thresholds = None
+    if rules_path:
+        from paneldiag.rules.thresholds import load_thresholds
+        thresholds = load_thresholds(rules_path)
     if json_path:
         refuse_input_overwrite(json_path, [data])
     if report_dir:
@@ -133,6 +140,8 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
                   "options": dict(_options_record(spec, fmt, delimiter, min_cell),
                                   scale=_scale(ordinal))}
+    if rules_path:
+        input_info["options"]["rules"] = rules_path
     if report_dir and trajectory_sample:
         input_info["options"].update(trajectory_sample=trajectory_sample,
                                      trajectory_seed=trajectory_seed)
@@ -142,7 +151,8 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     from paneldiag.render.terminal import render_terminal
     from paneldiag.screen import ScreenOptions, screen
     report = screen(panel, ledgers, input_info,
-                    ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group))
+                    ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group,
+                                  rules=thresholds))
     progress.done()
     if json_path:
         write_atomic(json_path, report_json(report))

@@ -83,3 +83,7 @@ from paneldiag.render.text_reliability import render_growth, render_reliability 
 SECTION_RENDERERS[2:2] = [("attrition", attrition_block), ("missingness", missingness_block)]
 SECTION_RENDERERS += [("correlation", dependence_block)]
 SECTION_RENDERERS += [("reliability", render_reliability), ("growth", render_growth)]
+
+from paneldiag.render.text_verdicts import verdicts_block  # noqa: E402
+
+SECTION_RENDERERS.insert(0, ("families", verdicts_block))

@@ -289,6 +289,11 @@ def _reliability_fn(fit: st.Fit, times: np.ndarray):
     return fn
 
 
+def _clip(triple, low=0.0, high=1.0):
+    """An estimate and its interval kept inside the natural range of a share."""
+    return tuple(float(np.clip(v, low, high)) if np.isfinite(v) else v for v in triple)
+
+
 def _phi(z):
     return float(stats.norm.cdf(z)) if np.isfinite(z) else 0.5
 
@@ -371,7 +376,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     slope = (np.nan, np.nan, np.nan)
     gfit = f.get("growth_ar") or f.get("growth")
     if gfit is not None:
-        slope = gfit.derived(_slope_share_fn(gfit, inp.times))
+        slope = _clip(gfit.derived(_slope_share_fn(gfit, inp.times)))
         slope_text = led.estimate("slope_share", *slope)
         basis_words = ("the shape of the mean" if ev.basis_name == "mean"
                        else "the wave times")
@@ -392,8 +397,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     flat = False
     trait_sentence = carry_sentence = None
     if ta is not None:
-        share = ta.derived(_stable_share)
-        rho = ta.derived(lambda p: p["rho"])
+        share = _clip(ta.derived(_stable_share))
+        rho = _clip(ta.derived(lambda p: p["rho"]))
         share_text = led.estimate("stable_share", *share)
         rho_text = led.estimate("carry_rho", *rho)
         flat = rho[0] < th["min_rho"]
@@ -418,8 +423,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
             S = p_trait < alpha and share[0] >= th["min_stable_share"]
         elif "stable_trait" in f and tests.get("dependence") is not None:
             tfit = f["stable_trait"]
-            icc = tfit.derived(lambda p: p["trait_var"] / (
-                p["trait_var"] + p["error_var"]))
+            icc = _clip(tfit.derived(lambda p: p["trait_var"] / (
+                p["trait_var"] + p["error_var"])))
             share = icc
             icc_text = led.estimate("trait_share", *icc)
             _, dep_test_text = part_test("dependence", "dependence")
@@ -447,8 +452,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     ga = f.get("growth_ar")
     grho = dshare = (np.nan, np.nan, np.nan)
     if ga is not None and p_gcarry is not None:
-        grho = ga.derived(lambda p: p["rho"])
-        dshare = ga.derived(_dev_carry_share_fn(t))
+        grho = _clip(ga.derived(lambda p: p["rho"]))
+        dshare = _clip(ga.derived(_dev_carry_share_fn(t)))
         grho_text = led.estimate("growth_carry_rho", *grho)
         dshare_text = led.estimate("growth_carry_share", *dshare)
         gcarry_sentence = (f"Carry-over in the deviations from growth: rho {grho_text}, "
@@ -742,7 +747,7 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                                "judge measurement error after the candidate models are "
                                "fitted.", "none")
         fam, fit = lower_fit
-        est, lo, hi = fit.derived(_reliability_fn(fit, inp.times))
+        est, lo, hi = _clip(fit.derived(_reliability_fn(fit, inp.times)))
         led.estimate("reliability_lower_bound", est, lo, hi)
         verdict_m = "negligible" if est >= th["reliability_negligible"] else None
         return Measurement(_r(est), _r(lo), _r(hi), verdict_m,
@@ -752,7 +757,7 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                            "second indicator or a known error variance is available.",
                            f"lower bound from the {DISPLAY[fam]} structure")
     fam, fit = source
-    est, lo, hi = fit.derived(_reliability_fn(fit, inp.times))
+    est, lo, hi = _clip(fit.derived(_reliability_fn(fit, inp.times)))
     led.estimate("reliability", est, lo, hi)
     if est >= th["reliability_negligible"]:
         v, advice = "negligible", "Measurement error is small; observed scores can be used."
