@@ -9,6 +9,7 @@ id, so kinds can keep per-group copies for delete-a-group jackknife errors.
 
 from __future__ import annotations
 
+import weakref
 from dataclasses import dataclass
 
 import numpy as np
@@ -32,10 +33,31 @@ class Chunk:
 
 
 def replicate_groups(unit_ids: np.ndarray, n_replicates: int = N_REPLICATES) -> np.ndarray:
-    """Replicate group of each unit from a fixed-key hash of its id (deterministic)."""
-    text = pd.Series(unit_ids).astype(str).to_numpy(dtype=object)
+    """Replicate group of each unit from a fixed-key hash of its id (deterministic).
+
+    The groups of the last id array seen are kept (read-only), since every measure and
+    several sections of one screen ask for them.
+    """
+    for ref, k, groups in _LAST_GROUPS:
+        if k == n_replicates and ref() is unit_ids:
+            return groups
+    ids = np.asarray(unit_ids)
+    if ids.dtype.kind == "i":  # Arrow writes integers as text as str() does, but faster
+        import pyarrow as pa
+        text = pa.array(ids).cast(pa.string()).to_numpy(zero_copy_only=False)
+    else:
+        text = pd.Series(unit_ids).astype(str).to_numpy(dtype=object)
     hashed = pd.util.hash_array(text, categorize=False)
-    return (hashed % np.uint64(n_replicates)).astype(np.int64)
+    groups = (hashed % np.uint64(n_replicates)).astype(np.int64)
+    groups.flags.writeable = False
+    try:
+        _LAST_GROUPS[:] = [(weakref.ref(unit_ids), n_replicates, groups)]
+    except TypeError:  # not weakly referable (a list): nothing kept
+        pass
+    return groups
+
+
+_LAST_GROUPS: list = []
 
 
 def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = CHUNK_UNITS,
