@@ -330,3 +330,24 @@ def test_code_labels_from_a_labelled_file_reach_the_report(tmp_path):
     wide = frame.pivot(index="household", columns="year", values="satisfaction")
     expected = [(n if n >= 5 else None) for n in (wide == -9).sum().tolist()]
     assert rows["-9"]["counts"] == expected   # pandas count of -9 per year, 5+ only
+
+
+@pytest.mark.parametrize("case", ["constant", "collinear", "fewer_units_than_waves",
+                                  "all_missing"])
+def test_degenerate_panels_report_no_convergence_instead_of_failing(case):
+    rng = np.random.default_rng(14)
+    x = rng.normal(size=(40, 3))
+    if case == "constant":
+        x[:] = 1.0
+    elif case == "collinear":
+        x[:, 2] = 2 * x[:, 0] + 1
+        x[rng.random(x.shape) < 0.2] = np.nan
+    elif case == "fewer_units_than_waves":
+        x = x[:2]
+    else:
+        x[:] = np.nan
+    summary = _summary(x)
+    em = em_moments(summary)
+    assert not em.converged and em.iterations < 50
+    little = little_mcar_test(summary, em)
+    assert np.isnan(little.statistic) and np.isnan(little.pvalue)

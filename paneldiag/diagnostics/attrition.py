@@ -312,9 +312,11 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     risk = seen[:, :-1].copy()
     event = risk & ~later[:, :-1]
     with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.nanmean(np.where(seen, values, np.nan), axis=0)
-        sd = np.nanstd(np.where(seen, values, np.nan), axis=0, ddof=1)
-        z = (values - mean) / sd
+        count = seen.sum(axis=0)
+        mean = np.where(seen, values, 0.0).sum(axis=0) / count
+        dev = np.where(seen, values - mean, 0.0)
+        sd = np.sqrt((dev * dev).sum(axis=0) / (count - 1))
+        z = np.where(sd > 0, (values - mean) / sd, np.nan)
     risk &= np.isfinite(z[:, :-1])
     columns = [z[:, :-1]]
     names = list(covariates)
@@ -428,7 +430,8 @@ class Attrition(Result):
 
 def attrition_section(ctx) -> Attrition:
     """The ``attrition`` block of the report for one measure."""
-    patterns = ctx.summary(PatternMoments)
+    patterns = ctx.summaries.get(PatternMoments) or PatternMoments.empty(
+        ctx.panel.n_waves, ctx.options.n_replicates)
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
     model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m)

@@ -153,7 +153,10 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     handled as one batch of small matrices.
     Iteration stops when no mean or covariance entry changes by more than ``tol``
     relative to the scale of the waves involved. Waves never observed are left out
-    (NaN). Unweighted.
+    (NaN). When the covariance becomes singular (a constant or collinear wave, or
+    fewer units than waves) iteration stops with ``converged`` False and the last
+    estimates.
+    Unweighted.
 
     Parameters
     ----------
@@ -202,17 +205,34 @@ def _em(patterns: PatternMoments, max_iter: int, tol: float) -> EMResult:
     n_total = float(sum(g.n.sum() for g in groups))
     converged, iteration = False, 0
     for iteration in range(1, max_iter + 1):
-        new_mu, new_sigma = _em_step(groups, mu, sigma, n_total)
-        scale = np.sqrt(np.maximum(np.diag(new_sigma), np.finfo(float).tiny))
-        change = max(np.max(np.abs(new_mu - mu) / scale),
-                     np.max(np.abs(new_sigma - sigma) / np.outer(scale, scale)))
+        try:
+            with np.errstate(all="ignore"):
+                new_mu, new_sigma = _em_step(groups, mu, sigma, n_total)
+        except np.linalg.LinAlgError:   # a singular block: the ML estimate is degenerate
+            break
+        if not (np.all(np.isfinite(new_mu)) and np.all(np.isfinite(new_sigma))):
+            break
+        with np.errstate(all="ignore"):
+            sd = np.sqrt(np.diag(new_sigma))
+            if not np.all(sd > 0) or \
+                    np.linalg.eigvalsh(new_sigma / np.outer(sd, sd)).min() < 1e-10:
+                mu, sigma = new_mu, new_sigma   # degenerate: a constant or collinear wave
+                break
+        with np.errstate(all="ignore"):
+            scale = np.sqrt(np.maximum(np.diag(new_sigma), np.finfo(float).tiny))
+            change = max(np.max(np.abs(new_mu - mu) / scale),
+                         np.max(np.abs(new_sigma - sigma) / np.outer(scale, scale)))
         mu, sigma = new_mu, new_sigma
         if change <= tol:
             converged = True
             break
     means[used] = mu
     covariance[np.ix_(used, used)] = sigma
-    loglik = _observed_loglik(groups, mu, sigma)
+    try:
+        with np.errstate(all="ignore"):
+            loglik = _observed_loglik(groups, mu, sigma) if converged else np.nan
+    except np.linalg.LinAlgError:
+        loglik = np.nan
     return EMResult(converged, iteration, means, covariance, loglik,
                     int(sum(g.n.sum() for g in groups)))
 
@@ -251,16 +271,20 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
     groups = _groups(patterns, used)
     n_patterns = sum(len(g.n) for g in groups)
     df = int(sum(len(g.n) * g.obs.shape[1] for g in groups) - used.sum())
-    if df <= 0 or not np.all(np.isfinite(em.covariance[np.ix_(used, used)])):
+    if (df <= 0 or not em.converged
+            or not np.all(np.isfinite(em.covariance[np.ix_(used, used)]))):
         return LittleMCAR(np.nan, max(df, 0), np.nan, n_patterns)
     mu = em.means[used]
     sigma = em.covariance[np.ix_(used, used)]
     d2 = 0.0
-    for g in groups:
-        s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
-        dev = g.mean - mu[g.obs]
-        sol = np.linalg.solve(s_oo, dev[:, :, None])[:, :, 0]
-        d2 += float(np.sum(g.n * np.einsum("pk,pk->p", dev, sol)))
+    try:
+        for g in groups:
+            s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
+            dev = g.mean - mu[g.obs]
+            sol = np.linalg.solve(s_oo, dev[:, :, None])[:, :, 0]
+            d2 += float(np.sum(g.n * np.einsum("pk,pk->p", dev, sol)))
+    except np.linalg.LinAlgError:
+        return LittleMCAR(np.nan, df, np.nan, n_patterns)
     return LittleMCAR(d2, df, float(stats.chi2.sf(d2, df)), n_patterns)
 
 
@@ -440,7 +464,8 @@ class Missingness(Result):
 
 def missingness_section(ctx) -> Missingness:
     """The ``missingness`` block of the report for one measure."""
-    patterns = ctx.summary(PatternMoments)
+    patterns = ctx.summaries.get(PatternMoments) or PatternMoments.empty(
+        ctx.panel.n_waves, ctx.options.n_replicates)
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
     em = em_moments(patterns)
