@@ -246,7 +246,7 @@ def test_negative_slope_variance_is_reported():
     assert "negative" in rel.problem
 
 
-# ----------------------------------------------------------------------------- residual autocorrelation
+# ------------------------------------------------------------------------- residual autocorrelation
 
 def test_residual_autocorrelation_exact_for_three_equally_spaced_waves():
     # Algebra: the residual of a line through three equally spaced points is
@@ -280,7 +280,7 @@ def test_residual_autocorrelation_expectation_matches_simulation():
     assert abs(np.mean(z)) < 0.35 and 0.8 < np.std(z) < 1.2
 
 
-# ----------------------------------------------------------------------------- mean shape and fanning
+# ------------------------------------------------------------------------- mean shape and fanning
 
 def test_orthogonal_polynomials_equal_spacing_table_values():
     # Published tables of orthogonal polynomial coefficients for four equally spaced
@@ -419,3 +419,13 @@ def test_mean_shape_on_em_means_under_dropout():
     assert shape.basis == "em_missing_at_random" and shape.covariance_basis == "jackknife"
     assert shape.components[0].pvalue > 0.001
     assert result.variance_trend.basis == "em_missing_at_random"
+
+
+def test_two_waves_leave_slope_reliability_not_estimable():
+    # Constructed: with two waves every unit's line fits exactly, so there is no
+    # residual variance; the figures are null with the reason, not a fake 1.
+    rng = np.random.default_rng(22)
+    traj, _ = summaries(rng.normal(size=(100, 2)), [0.0, 1.0])
+    rel = slope_reliability(traj)
+    assert np.isnan(rel.estimate) and not rel.impossible
+    assert "three or more" in rel.problem

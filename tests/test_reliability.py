@@ -341,3 +341,26 @@ def test_replicate_pattern_moments_pool_to_pattern_moments():
     half = [ReplicatePatternMoments.from_chunk(Chunk(x[a:b], None, groups[a:b], np.arange(5.0),
                                                      20)) for a, b in ((0, 300), (300, 700))]
     np.testing.assert_allclose(half[0].merge(half[1]).pooled().m2, whole.m2, atol=1e-9)
+
+
+def test_two_waves_with_items_keep_internal_consistency():
+    # Simulation with known loadings (one factor, two waves): no wave triplet exists,
+    # so the quasi-simplex summary is null with its reason, while alpha per wave is
+    # still reported (checked against pingouin.cronbach_alpha).
+    import pingouin as pg
+    from paneldiag.diagnostics.reliability import reliability_section
+    from paneldiag.panel import Panel
+    from paneldiag.screen import MeasureContext, ScreenOptions
+    rng = np.random.default_rng(5)
+    f = rng.normal(size=(300, 2, 1))
+    items = f * np.array([1.0, 0.7, 0.9]) + rng.normal(size=(300, 2, 3))
+    panel = Panel(unit_ids=np.arange(300), wave_labels=("1", "2"), wave_times=np.array([1.0, 2]),
+                  values={"s": items.mean(axis=2)}, items={"s": items},
+                  item_columns={"s": ("a", "b", "c")})
+    result = reliability_section(MeasureContext(panel=panel, measure="s",
+                                                options=ScreenOptions(), ledger=None))
+    assert result.summary.n_triplets == 0 and np.isnan(result.summary.estimate)
+    assert "fewer than three waves" in result.summary.method
+    second = result.internal_consistency.waves[1]
+    assert second.alpha == pytest.approx(pg.cronbach_alpha(data=pd.DataFrame(items[:, 1]))[0],
+                                         rel=1e-10)

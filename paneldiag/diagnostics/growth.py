@@ -49,7 +49,7 @@ def _pattern_design(summary: TrajectorySummary) -> _PatternDesign:
         x = design(t_obs, 1)
         m = np.eye(k) - x @ np.linalg.pinv(x)
         lag = lag_operator(obs)
-        tr_m = float(np.trace(m))
+        tr_m = float(k - np.linalg.matrix_rank(x))  # exact: the residual degrees of freedom
         out["tr_m"][p] = tr_m
         out["n_pairs"][p] = float(2 * lag.sum())
         if tr_m > 0.5:
@@ -207,8 +207,6 @@ def _slope_reliability_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma2 = s.rss[0].sum() / df_resid
         v = np.where(n > 0, sigma2 / pd_.ss_t, np.inf)
-        slope_mean = (n * mean[:, 1]).sum() / j
-        slope_ss = (m2[:, 1, 1] * (n > 0)).sum() + (n * (mean[:, 1] - slope_mean) ** 2).sum()
         mean_v = (n * np.where(n > 0, v, 0.0)).sum() / j
         w = np.where(n > 0, 1.0 / v, 0.0)
         sum_w, sum_w2 = (n * w).sum(), (n * w * w).sum()
@@ -321,10 +319,11 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
     reps = [_slope_reliability_point(part, pd_)["reliability"] for part in parts]
     low, high = _ci(point["reliability"], reps, level)
     df = int(point["n"]) - 1
-    problem = None
+    problem, impossible = None, False
     if not np.isfinite(point["sigma2"]):
         problem = "no unit has three or more observed waves, so the residual variance is unknown"
     elif point["tau"] < 0:
+        impossible = True
         problem = ("slope variance estimate negative: the per-unit slopes vary less than their "
                    "sampling error alone would make them; the reliability is not a proportion")
     return SlopeReliability(
@@ -333,7 +332,7 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
         mean_sampling_variance=float(point["mean_v"]), pooled_slope=float(point["pooled"]),
         chi_square=float(point["chi2"]), df=df,
         pvalue=float(stats.chi2.sf(point["chi2"], df)) if df > 0 else float("nan"),
-        n_units=int(point["n"]), impossible=problem is not None, problem=problem)
+        n_units=int(point["n"]), impossible=impossible, problem=problem)
 
 
 def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95,

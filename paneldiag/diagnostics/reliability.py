@@ -486,6 +486,12 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
         return result
     consistency = internal_consistency(items, ctx.panel.wave_labels,
                                        ctx.panel.item_columns[ctx.measure])
-    if result is None:
-        return None
+    if result is None:  # two waves: no triplet, but the items still say something
+        empty = ReliabilitySummary(
+            estimate=float("nan"), ci_low=float("nan"), ci_high=float("nan"), se=float("nan"),
+            method="fewer than three waves: no quasi-simplex estimate", n_triplets=0,
+            n_impossible=0)
+        return ReliabilityScreen(basis=BASIS_PAIRWISE, n_replicates=ctx.options.n_replicates,
+                                 heise=(), wiley_wiley=(), summary=empty,
+                                 internal_consistency=consistency)
     return replace(result, internal_consistency=consistency)

@@ -67,7 +67,8 @@ def render_growth(report: dict, color: bool) -> list[str]:
                  f"{number(fits['mean_slope'])} per unit of time"
                  f"{_interval(fits['mean_slope_ci_low'], fits['mean_slope_ci_high'])}, "
                  f"sd {number(fits['sd_slope'])}")
-    flag = " (impossible: see JSON)" if rel["impossible"] else ""
+    flag = " (impossible: negative slope variance)" if rel["impossible"] else \
+        (" (not estimable: no unit has three waves)" if rel["estimate"] is None else "")
     lines.append(f"  slope reliability {number(rel['estimate'])}"
                  f"{_interval(rel['ci_low'], rel['ci_high'])}{flag}; slope variance test "
                  f"chi2 {number(rel['chi_square'], 1)} on {rel['df']:,} df, {_p(rel['pvalue'])}")
