@@ -106,11 +106,13 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--rules", "rules_path", metavar="FILE",
               help="A TOML file of verdict thresholds replacing the defaults "
                    "(see docs/rules.md).")
+@click.option("--details", is_flag=True,
+              help="Show every area in full in the terminal summary, not just key figures.")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
             delimiter, json_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
-            rules_path, quiet):
+            rules_path, details, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
@@ -161,7 +163,7 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
         write_report(report, report_dir, [data], panel, trajectory_sample, trajectory_seed)
         progress.done()
     if not quiet:
-        sys.stdout.write(render_terminal(report, color=use_color()))
+        sys.stdout.write(render_terminal(report, color=use_color(), details=details))
 
 
 def _scale(ordinal: bool | None) -> str:

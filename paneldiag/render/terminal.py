@@ -57,23 +57,40 @@ SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
 ]
 
 
-def render_measure(report: dict, color: bool = False) -> str:
+SUMMARY_KEYS = ("families",)  # blocks of SECTION_RENDERERS shown without --details
+
+
+def render_measure(report: dict, color: bool = False, details: bool = False) -> str:
+    """One measure: the verdict block first, then key figures (or, with ``details``,
+    every area's full block) and the by-group comparison."""
+    from paneldiag.render.text_summary import groups_block, key_figures
+    head = lambda title: heading(title, color)  # noqa: E731
     blocks = []
     for key, render in SECTION_RENDERERS:
-        if key in report:
+        if key in report and (details or key in SUMMARY_KEYS):
             blocks.append("\n".join(render(report, color)))
-    notes = [heading("Cautions", color)] + [f"  · {c}" for c in report.get("cautions", [])]
-    blocks.append("\n".join(notes))
-    return "\n\n".join(blocks)
+    if not details:
+        blocks.append("\n".join(key_figures(report, head)))
+    blocks.append("\n".join(groups_block(report, head)))
+    return "\n\n".join(b for b in blocks if b)
 
 
-def render_terminal(report: dict, color: bool = False) -> str:
-    """The whole screen as text: one block per measure."""
+def render_terminal(report: dict, color: bool = False, details: bool = False) -> str:
+    """The whole screen as text: one block per measure, the cross-lag screen, cautions."""
+    from paneldiag.render.text_summary import cross_lag_block
     measures = report.get("measures", {report.get("measure"): report})
     header = (f"paneldiag {report['tool']['version']} · {report['input']['path']}"
               f" · sha256 {report['input']['sha256'][:12]}…")
-    parts = [header] + [render_measure(r, color) for r in measures.values()]
-    return "\n\n".join(parts) + "\n"
+    several = len(measures) > 1
+    parts = [header] + [(heading(f"═══ {name}", color) + "\n\n" if several else "")
+                        + render_measure(r, color, details) for name, r in measures.items()]
+    parts.append("\n".join(cross_lag_block(report, lambda t: heading(t, color))))
+    first = next(iter(measures.values()))
+    notes = [heading("Cautions", color)] + [f"  · {c}" for c in first.get("cautions", [])]
+    if not details:
+        notes.append("  (every area in full: --details; the methods appendix: --report DIR)")
+    parts.append("\n".join(notes))
+    return "\n\n".join(p for p in parts if p) + "\n"
 
 
 from paneldiag.render.text_attrition import attrition_block, missingness_block  # noqa: E402

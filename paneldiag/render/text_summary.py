@@ -1,0 +1,127 @@
+"""The concise terminal summary: key figures of each area on a few lines, the by-group
+comparison and the cross-lag screen. Each area's full block stays in its own module
+and is shown with --details."""
+
+from __future__ import annotations
+
+from paneldiag.render.figures import lag_rows, time_unit
+
+
+def _ok(*values) -> bool:
+    return all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
+
+
+def _est(node, digits: int = 2, key: str = "estimate") -> str | None:
+    if not isinstance(node, dict) or not _ok(node.get(key)):
+        return None
+    text = f"{node[key]:.{digits}f}"
+    if _ok(node.get("ci_low"), node.get("ci_high")):
+        text += f" [{node['ci_low']:.{digits}f}, {node['ci_high']:.{digits}f}]"
+    return text
+
+
+def _p(p) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def key_figures(report: dict, heading) -> list[str]:
+    """A few lines with the figures a reader looks at first, each only when present."""
+    lines = []
+    panel, ledger = report.get("panel") or {}, report.get("ledger") or {}
+    if panel:
+        text = f"{panel['n_units']:,} units × {panel['n_waves']} waves"
+        if _ok(ledger.get("rows_read"), ledger.get("rows_used")):
+            text += f"; rows used {ledger['rows_used']:,} of {ledger['rows_read']:,}"
+        lines.append(text)
+    parts = []
+    retention = [r for r in (report.get("attrition") or {}).get("retention") or []
+                 if _ok(r.get("retained_share"))]
+    if retention:
+        parts.append(f"retained to {retention[-1]['wave']} "
+                     f"{100 * retention[-1]['retained_share']:.1f}%")
+    model = ((report.get("attrition") or {}).get("selective") or {}).get("model") or {}
+    if model.get("fitted") and _ok(model.get("pvalue")):
+        parts.append(f"dropout odds ratio per SD {_est(model, key='odds_ratio_per_sd')}, "
+                     f"{_p(model['pvalue'])}")
+    mcar = (report.get("missingness") or {}).get("little_mcar") or {}
+    if _ok(mcar.get("pvalue")):
+        parts.append(f"Little's MCAR {_p(mcar['pvalue'])}")
+    if parts:
+        lines.append(" · ".join(parts))
+    parts = []
+    rows = lag_rows(report)
+    if rows:
+        node = {"estimate": rows[0]["mean_r"], "ci_low": rows[0].get("ci_low"),
+                "ci_high": rows[0].get("ci_high")}
+        d = rows[0]["time_distance"]
+        parts.append(f"r at distance {d:g}: {_est(node)}")
+    fit = report.get("decay_fit") or {}
+    if fit.get("identified"):
+        for key, label in (("stable_share", "stable share"),
+                           ("rho", f"carry-over per {time_unit(report)}")):
+            if _est(fit.get(key)):
+                parts.append(f"{label} {_est(fit.get(key))}")
+    elif fit.get("shape"):
+        parts.append(f"decay shape: {str(fit['shape']).replace('_', ' ')}")
+    if parts:
+        lines.append(" · ".join(parts))
+    parts = []
+    rel = (report.get("reliability") or {}).get("summary")
+    if _est(rel):
+        parts.append(f"reliability {_est(rel)}")
+    growth = report.get("growth") or {}
+    traj = growth.get("trajectories") or {}
+    if _ok(traj.get("mean_slope")):
+        node = {"estimate": traj["mean_slope"], "ci_low": traj.get("mean_slope_ci_low"),
+                "ci_high": traj.get("mean_slope_ci_high")}
+        parts.append(f"mean slope {_est(node, 3)} per {time_unit(report)}")
+    if _est(growth.get("slope_reliability")):
+        parts.append(f"slope reliability {_est(growth['slope_reliability'])}")
+    if _est(growth.get("icc")):
+        parts.append(f"ICC {_est(growth['icc'])}")
+    if parts:
+        lines.append(" · ".join(parts))
+    if not lines:
+        return []
+    return [heading(f"Key figures · {report.get('measure')}")] + ["  " + line for line in lines]
+
+
+def groups_block(report: dict, heading) -> list[str]:
+    section = report.get("groups")
+    if not isinstance(section, dict):
+        return []
+    title = (f"By {section['column']} · {section['n_reported']} of {section['n_groups']} "
+             "groups reported")
+    lines = [heading(title)]
+    for comp in section.get("comparison") or []:
+        values = [v for v in comp["by_group"] if _ok(v.get("estimate"))]
+        test = comp.get("test") or {}
+        if not values:
+            continue
+        scale, unit = (100.0, "%") if comp["figure"] == "retention" else (1.0, "")
+        low = min(v["estimate"] for v in values) * scale
+        high = max(v["estimate"] for v in values) * scale
+        digits = 1 if unit else 2
+        text = f"  {comp['label']}: {low:.{digits}f}{unit} to {high:.{digits}f}{unit}"
+        if _ok(test.get("statistic"), test.get("pvalue")):
+            text += (f"; equal across groups: {test['method']} {test['statistic']:.2f} on "
+                     f"{test['df']} df, {_p(test['pvalue'])}")
+        lines.append(text)
+    lines.append(f"  {section['note']}")
+    return lines
+
+
+def cross_lag_block(report: dict, heading) -> list[str]:
+    pairs = report.get("cross_lag") or []
+    if not pairs:
+        return []
+    lines = [heading("Cross-lagged correlations, one wave apart (descriptive, not causal)")]
+    for pair in pairs:
+        lag1 = next((r for r in pair["lags"] if r["lag"] == 1), None)
+        if not lag1:
+            continue
+        xl, yl = _est(lag1["x_leads"], key="r"), _est(lag1["y_leads"], key="r")
+        if not (xl and yl):
+            continue
+        lines.append(f"  {pair['x']} → {pair['y']} {xl} · {pair['y']} → {pair['x']} {yl}")
+    return lines if len(lines) > 1 else []
