@@ -139,7 +139,9 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     progress.stage("building the panel")
     panel, ledgers = build_panel(raw, spec)
     progress.stage("screening")
-    input_info = {"path": data, "sha256": raw.sha256, "format": raw.format,
+    sha256, file_format = raw.sha256, raw.format
+    del raw  # the parsed columns are in the panel now: free them before the screen
+    input_info = {"path": data, "sha256": sha256, "format": file_format,
                   "options": dict(_options_record(spec, fmt, delimiter, min_cell),
                                   scale=_scale(ordinal))}
     if rules_path:
