@@ -69,7 +69,7 @@ def test_btheb_unit_types_and_disclosure(btheb, btheb_report):
     k = seen.sum(axis=1)
     monotone = np.array([row[:n].all() and not row[n:].any() for row, n in zip(seen, k)])
     assert monotone.all()
-    types = {t["type"]: t for t in btheb_report["attrition"]["unit_types"]["types"]}
+    types = {t["type"]: t for t in btheb_report["attrition"]["unit_types"]}
     assert types["complete"]["n"] == int((k == 5).sum()) == 52
     assert types["monotone_dropout"]["n"] == int((k < 5).sum()) == 48
     assert types["complete"]["share"] == pytest.approx(0.52)
@@ -79,7 +79,7 @@ def test_btheb_unit_types_and_disclosure(btheb, btheb_report):
     # below 5 and the 6 is withheld with it, so that the 3 cannot be recovered
     last = pd.Series(k[k < 5]).value_counts().sort_index()
     assert last.tolist() == [3, 24, 15, 6]
-    shown = [r["n"] for r in btheb_report["attrition"]["unit_types"]["dropout_last_wave"]]
+    shown = [r["n"] for r in types["monotone_dropout"]["last_wave"]]
     assert shown == [None, 24, 15, None]
 
 
@@ -152,7 +152,7 @@ def test_muscatine_types_patterns_and_coverage_match_pandas(muscatine):
     rows = {r["pattern"]: r["n"] for r in report["missingness"]["patterns"]["rows"]}
     assert rows == {p: int(n) for p, n in counts.items() if p in rows}
     assert len(rows) == min(10, int((counts >= 5).sum()))
-    types = {t["type"]: t["n"] for t in report["attrition"]["unit_types"]["types"]}
+    types = {t["type"]: t["n"] for t in report["attrition"]["unit_types"]}
     assert types["complete"] == int(counts.get("ooo", 0))
     assert types["monotone_dropout"] == int(counts.get("o..", 0) + counts.get("oo.", 0))
     assert types["late_entry"] == int(counts.get(".oo", 0) + counts.get("..o", 0))
@@ -286,7 +286,7 @@ def test_demo_shows_dropout_depends_on_satisfaction(tmp_path):
         at = hint.index(other)
         del hint[at - 1:at + 1]
     out = tmp_path / "t.json"
-    done = run_cli(*hint[1:], "--json", out)
+    done = run_cli(*hint[1:], "--json", out, "--details")
     assert done.returncode == 0, done.stderr.decode()
     report = json.loads(out.read_text())
     assert report["measure"] == "satisfaction"

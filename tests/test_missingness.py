@@ -288,14 +288,14 @@ def test_demo_report_shows_no_count_below_min_cell(tmp_path):
     assert run_cli("demo", data).returncode == 0
     out = tmp_path / "t.json"
     done = run_cli("screen", data, "--id", "household", "--wave", "year", "--value", "trust",
-                   "--missing-codes", "-9,-8", "--min-cell", "12", "--json", out)
+                   "--missing-codes", "-9,-8", "--min-cell", "12", "--json", out, "--details")
     assert done.returncode == 0, done.stderr.decode()
     report = json.loads(out.read_text())
     counts = []
     att, mis = report["attrition"], report["missingness"]
     counts += [r["n_observed"] for r in att["retention"]]
-    counts += [t["n"] for t in att["unit_types"]["types"]]
-    counts += [t["n"] for t in att["unit_types"]["dropout_last_wave"]]
+    counts += [t["n"] for t in att["unit_types"]]
+    counts += [r["n"] for t in att["unit_types"] for r in t.get("last_wave", [])]
     counts += [r[k] for r in att["selective"]["by_wave"] for k in ("n_continuing", "n_dropping")]
     counts += [r["n"] for r in mis["patterns"]["rows"]]
     counts += [mis["patterns"]["remainder"]["n_units"] or 12,

@@ -152,9 +152,12 @@ class UnitTypes(Result):
     types: tuple[TypeRow, ...]
     dropout_last_wave: tuple[DropoutWave, ...]
 
-    def to_dict(self) -> dict:
-        return {"types": [r.to_dict() for r in self.types],
-                "dropout_last_wave": [r.to_dict() for r in self.dropout_last_wave]}
+    def to_dict(self) -> list[dict]:
+        rows = [r.to_dict() for r in self.types]
+        for row in rows:
+            if row["type"] == "monotone_dropout":
+                row["last_wave"] = [r.to_dict() for r in self.dropout_last_wave]
+        return rows
 
 
 def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> UnitTypes:
@@ -162,8 +165,8 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Unit
 
     - complete: observed at every wave;
     - monotone_dropout: observed from the first wave without a gap up to a last
-      observed wave before the final wave, never after (``dropout_last_wave`` gives
-      the wave of last observation);
+      observed wave before the final wave, never after (``dropout_last_wave``, in
+      JSON the row's ``last_wave`` list, gives the wave of last observation);
     - late_entry: first observed after the first wave, then without a gap to the
       final wave; late_entry_then_dropout: the same but leaving before the final wave;
     - intermittent: at least one missing wave between the first and the last

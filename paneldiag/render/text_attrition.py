@@ -40,7 +40,7 @@ def attrition_block(report: dict, color: bool) -> list[str]:
              + "  of first-wave respondents",
              "  responding   " + " ".join(f"{_pct(r['response_share']):>5}" for r in rows)
              + (f"  of all {n_units:,} units" if isinstance(n_units, int) else "")]
-    types = section["unit_types"]["types"]
+    types = section["unit_types"]
     shown = [f"{t['type'].replace('_', ' ')} {share(t['share'])}" for t in types
              if t["n"] is not None]
     hidden = [t["type"].replace("_", " ") for t in types if t["n"] is None]
