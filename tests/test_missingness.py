@@ -351,3 +351,18 @@ def test_degenerate_panels_report_no_convergence_instead_of_failing(case):
     assert not em.converged and em.iterations < 50
     little = little_mcar_test(summary, em)
     assert np.isnan(little.statistic) and np.isnan(little.pvalue)
+
+
+def test_little_statistic_matches_mcartest_at_the_same_plug_in_estimates():
+    # reference: mcartest.MCARTest.little_mcar_test (PyPI), which plugs in the
+    # available-case means and pairwise covariances rather than the ML estimates;
+    # given the same plug-in moments the two statistics must agree exactly
+    mcartest = pytest.importorskip("mcartest.mcar_stats_tests")
+    from paneldiag.diagnostics.missingness import EMResult
+    x = _with_gaps(np.random.default_rng(3), n=300, t=4, share=0.25)
+    frame = pd.DataFrame(x)
+    ref = mcartest.MCARTest.little_mcar_test(frame, return_stats=True)
+    plug_in = EMResult(True, 1, frame.mean().to_numpy(), frame.cov().to_numpy(), np.nan, 300)
+    ours = little_mcar_test(_summary(x), plug_in)
+    assert ours.statistic == pytest.approx(ref["statistic"], rel=1e-10)
+    assert ours.df == ref["df"] and ours.pvalue == pytest.approx(ref["pvalue"], rel=1e-8)
