@@ -175,7 +175,7 @@ ID_TOKENS = st.sampled_from(["A", "B", "C", "D", None, " "])
 WAVE_TOKENS = st.sampled_from(["1", "2", "3", None])
 VALUE_TOKENS = st.sampled_from(["1.5", "2", "7", "-9", "-8", None, "NA", ".", "x", "inf",
                                 "-inf", "0"])
-PROPERTY = settings(max_examples=60, deadline=None,
+PROPERTY = settings(max_examples=40, deadline=None,
                     suppress_health_check=[HealthCheck.too_slow])
 
 
