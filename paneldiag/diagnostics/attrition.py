@@ -82,10 +82,14 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
     """Units observed at each wave, the share of the first wave's respondents still
     observed (retention) and the share of all units observed (response).
 
-    Retention and response rates as defined for panel studies by Lynn (2009, ed.,
-    Methodology of Longitudinal Surveys, Wiley, ch. 1); a unit counts as observed
-    at a wave when the measure has a value there (declared missing codes count as
-    missing).
+    A unit counts as observed at a wave when the measure has a value there
+    (declared missing codes count as missing). Waves below ``min_cell`` observed
+    units are suppressed with their shares.
+
+    References
+    ----------
+    Lynn, P. (ed.) (2009). Methodology of Longitudinal Surveys, ch. 1 (retention and
+    response in panel studies). Wiley.
     """
     n_all = patterns.n.sum()
     observed = wave_observed(patterns)
@@ -172,9 +176,13 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Unit
     - intermittent: at least one missing wave between the first and the last
       observed wave (whatever the entry and exit: a return after a gap);
     - never_observed: no observed wave.
-    Monotone versus intermittent (non-monotone) missingness follows Little and
-    Rubin (2002, Statistical Analysis with Missing Data, 2nd ed., Wiley, sec. 1.3).
-    Shares are of all units.
+    Shares are of all units. Counts below ``min_cell`` are withheld, with secondary
+    suppression (see ``shown_mask``).
+
+    References
+    ----------
+    Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
+    2nd ed., sec. 1.3 (monotone and non-monotone patterns). Wiley.
     """
     codes = unit_type_codes(patterns.observed)
     n_type = np.bincount(codes, weights=patterns.n, minlength=len(UNIT_TYPES))

@@ -347,9 +347,12 @@ def response_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10
                       ) -> ResponsePatterns:
     """Distinct observed/missing patterns of the waves with their unit counts.
 
-    The tabulation of response patterns for monotone and non-monotone missingness
-    follows Little and Rubin (2002, Statistical Analysis with Missing Data, 2nd ed.,
-    Wiley, sec. 1.3); the display and the pooling rules are paneldiag's own.
+    The display (one character per wave) and the pooling rules are paneldiag's own.
+
+    References
+    ----------
+    Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
+    2nd ed., sec. 1.3 (missing-data patterns). Wiley.
     """
     total = float(patterns.n.sum())
     text = pattern_text(patterns.observed)
@@ -398,8 +401,14 @@ def _int_matrix(a):
 
 def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Coverage:
     """Pairwise coverage: the share of units observed at both waves of each pair,
-    the quantity behind pairwise-available estimates (the covariance coverage of
-    Enders 2010, Applied Missing Data Analysis, Guilford, ch. 1; from memory)."""
+    the quantity behind pairwise-available estimates. Cells below ``min_cell``
+    are null.
+
+    References
+    ----------
+    Enders, C. K. (2010). Applied Missing Data Analysis, ch. 1 (covariance coverage).
+    Guilford Press. (Chapter from memory.)
+    """
     obs = patterns.observed.astype(float)
     both = (obs * patterns.n[:, None]).T @ obs
     total = patterns.n.sum()
@@ -436,8 +445,13 @@ def declared_codes(codes: dict, labels: dict, wave_labels, min_cell: int = 5,
                    ) -> DeclaredCodes:
     """Counts of each declared missing code (refusal, don't know, ...) per wave, with
     the file's value label where it declares one. Counts below ``min_cell`` are null;
-    no totals are given, so none can be recovered by subtraction. Item nonresponse
-    reasons in the sense of de Leeuw, Hox and Huisman (2003, J. Official Statistics)."""
+    no totals are given, so none can be recovered by subtraction.
+
+    References
+    ----------
+    de Leeuw, E. D., Hox, J. J. and Huisman, M. (2003). Prevention and treatment of
+    item nonresponse. Journal of Official Statistics, 19(2), 153-176.
+    """
     rows = tuple(CodeRow(str(code), labels.get(code),
                          tuple(int(c) if c >= min_cell else None for c in np.asarray(counts)))
                  for code, counts in codes.items())
