@@ -17,6 +17,7 @@ import re
 import shlex
 import shutil
 import subprocess
+import sys
 
 import html5lib
 import numpy as np
@@ -283,3 +284,34 @@ def test_html_renders_in_headless_chromium(runs, tmp_path):
     assert len(colours) > 200  # text, the caution box and figures, not a blank page
     assert (flat != 255).any(axis=1).mean() > 0.02
     shutil.copy(shot, runs / "screenshot.png")  # kept for a person to look at
+
+
+def test_terminal_summary_is_concise_with_verdicts_first(runs):
+    from paneldiag.render.terminal import render_terminal
+    report = json.loads(_read(runs, "one", "report.json"))
+    text = render_terminal(report, color=False)
+    assert "\033[" not in text
+    lines = text.splitlines()
+    assert len(lines) <= 40 * len(report["measures"]) + 10
+    families = [i for i, line in enumerate(lines) if line.startswith("▸ Process families")]
+    figures = [i for i, line in enumerate(lines) if line.startswith("▸ Key figures")]
+    assert len(families) == len(figures) == len(report["measures"])
+    assert all(f < k for f, k in zip(families, figures))  # the verdict table comes first
+    assert "not proof of a model" in text and "suppressed" in text
+    full = render_terminal(report, color=False, details=True)
+    assert len(full.splitlines()) > len(lines)
+    coloured = render_terminal(report, color=True)
+    assert "\033[1m" in coloured
+
+
+def test_quiet_prints_nothing_and_no_color_is_honoured(runs):
+    done = run_cli("screen", "tenants.csv", "--id", "household", "--wave", "year", "--value",
+                   "trust", "--quiet", cwd=runs)
+    assert done.returncode == 0 and done.stdout == b""
+    import os as _os
+    env = dict(_os.environ, NO_COLOR="1")
+    shown = subprocess.run([sys.executable, "-m", "paneldiag", "screen", "tenants.csv",
+                            "--id", "household", "--wave", "year", "--value", "trust"],
+                           capture_output=True, cwd=runs, env=env)
+    assert shown.returncode == 0 and b"\033[" not in shown.stdout
+    assert b"Key figures" in shown.stdout

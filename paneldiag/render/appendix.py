@@ -209,6 +209,7 @@ OPTION_FLAGS = (  # options-record key -> command-line flag, in the order writte
     ("duplicates", "--duplicates"), ("drop_bad_rows", "--drop-bad-rows"),
     ("format", "--format"), ("delimiter", "--delimiter"), ("min_cell", "--min-cell"),
     ("trajectory_sample", "--trajectory-sample"), ("trajectory_seed", "--trajectory-seed"),
+    ("scale", "--scale"), ("rules", "--rules"),
 )
 
 
@@ -227,7 +228,9 @@ def command_line(input_info: dict) -> str:
         if key not in options:
             continue
         value = options[key]
-        if key in ("wide", "items"):
+        if key == "scale":  # recorded as auto / ordinal / continuous
+            args += [f"--{value}"] if value in ("ordinal", "continuous") else []
+        elif key in ("wide", "items"):
             args += [a for name, cols in value.items() for a in (flag, f"{name}={','.join(cols)}")]
         elif isinstance(value, bool):
             args += [flag] if value else []
