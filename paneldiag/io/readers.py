@@ -15,6 +15,7 @@ import os
 import sys
 import threading
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -45,8 +46,13 @@ class RawTable:
     declared_ranges: dict[str, list[tuple[float, float]]] = field(default_factory=dict)
     tagged_missing: dict[str, np.ndarray] = field(default_factory=dict)
     value_labels: dict[str, dict[float, str]] = field(default_factory=dict)
+    # text files: record index -> line number, worked out only when a message needs it
+    # (blank lines and quoted line breaks move records off first_row_number + index)
+    locate: Callable[[int], int] | None = None
 
     def row_number(self, index: int) -> int:
+        if self.locate is not None:
+            return self.locate(int(index))
         return self.first_row_number + int(index)
 
 
@@ -191,8 +197,69 @@ def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
         raise _text_parse_problem(path, raw, sep, str(exc)) from None
     if table.num_rows == 0:
         raise InputProblem("no data rows: the file has a header only", file=path)
+    locate = _line_locator(path, raw, sep)
+    _refuse_binary_columns(path, table, locate)
     frame = _to_frame(table)
-    return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2)
+    return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2,
+                    locate=locate)
+
+
+def _refuse_binary_columns(path, table, locate) -> None:
+    """The parser leaves a column as bytes when it holds text that is not UTF-8."""
+    import pyarrow as pa
+
+    for name, column in zip(table.column_names, table.columns):
+        if pa.types.is_binary(column.type) or pa.types.is_large_binary(column.type):
+            values = column.to_pylist()  # only on the way to an error
+            index = next(i for i, v in enumerate(values) if v is not None and not _is_utf8(v))
+            raise InputProblem("not UTF-8 text; save the file as UTF-8", file=path,
+                               row=locate(index), column=name)
+
+
+def _is_utf8(value: bytes) -> bool:
+    try:
+        value.decode("utf-8")
+        return True
+    except UnicodeDecodeError:
+        return False
+
+
+def _line_locator(path, raw, sep) -> Callable[[int], int]:
+    """Line number of each data record, computed once on first use.
+
+    Without quote characters the line starts are found with numpy and blank lines (which
+    the parser skips) are left out; with quotes, the csv module follows quoted line breaks.
+    """
+    lines: list[np.ndarray] = []
+
+    def locate(index: int) -> int:
+        if not lines:
+            lines.append(_record_lines(path, raw, sep))
+        found = lines[0]
+        return int(found[index]) if index < len(found) else index + 2
+
+    return locate
+
+
+def _record_lines(path, raw, sep) -> np.ndarray:
+    if raw is None:
+        with open(path, "rb") as handle:
+            raw = handle.read()
+    data = raw
+    if data[:2] == b"\x1f\x8b":
+        data = gzip.decompress(data)
+    if b'"' not in data:
+        buf = np.frombuffer(data, dtype=np.uint8)
+        breaks = np.flatnonzero(buf == 10)
+        starts = np.r_[0, breaks + 1]
+        ends = np.r_[breaks, len(buf)]
+        carriage = (ends > starts) & (buf[np.maximum(ends - 1, 0)] == 13)
+        filled = (ends - starts - carriage) > 0
+        return (np.flatnonzero(filled) + 1)[1:]
+    reader = csv.reader(io.TextIOWrapper(io.BytesIO(data), "utf-8-sig", errors="replace",
+                                         newline=""), delimiter=sep)
+    ends = [reader.line_num for record in reader if record]  # only on the way to an error
+    return np.array(ends[1:], dtype=np.int64)
 
 
 def _to_frame(table) -> pd.DataFrame:
