@@ -384,7 +384,7 @@ def demo_report(demo_file):
     out = demo_file.parent / "t.json"
     done = run_cli("screen", demo_file, "--id", "household", "--wave", "year", "--value",
                    "satisfaction", "--value", "trust", "--missing-codes", "-9,-8",
-                   "--json", out)
+                   "--details", "--json", out)
     assert done.returncode == 0, done.stderr.decode()
     return json.loads(out.read_text()), done.stdout.decode()
 
@@ -536,3 +536,19 @@ def test_dependence_sections_do_not_depend_on_chunking():
         for a, b in zip(one["lag_profile"], many["lag_profile"]):
             assert a["mean_r"] == pytest.approx(b["mean_r"], abs=1e-10)
             assert a["ci_low"] == pytest.approx(b["ci_low"], abs=1e-9)
+
+
+def test_scale_decision_rules():
+    # the documented rule (common practice): <= 7 distinct integer values is ordinal;
+    # the options force either reading where the data allow it
+    rng = np.random.default_rng(26)
+    seven = rng.integers(0, 7, (300, 3)).astype(float)
+    eleven = rng.integers(0, 11, (300, 3)).astype(float)
+    wide = rng.integers(0, 40, (300, 3)).astype(float)
+    t7, t11, t40 = (PairwiseTables.from_chunk(_chunk(x)) for x in (seven, eleven, wide))
+    assert dep.decide_scale(t7)[0] == "ordinal"
+    assert dep.decide_scale(t11)[0] == "continuous"
+    assert dep.decide_scale(t11, "ordinal")[0] == "ordinal"
+    kind, why = dep.decide_scale(t40, "ordinal")
+    assert kind == "continuous" and "not possible" in why
+    assert dep.decide_scale(t7, "continuous") == ("continuous", "set by option")

@@ -41,6 +41,8 @@ def dependence_block(report: dict, color: bool) -> list[str]:
     if shown:
         label = "time distance" if basis == "time" else "lag"
         parts = [f"{_distance(r)}: {number(r['mean_r'], 2)}" for r in shown]
+        if len(parts) > 10:   # long panels: the first lags and the longest one
+            parts = parts[:8] + ["…", parts[-1]]
         lines.append(f"  mean r by {label}: " + " · ".join(parts))
         first, last = shown[0], shown[-1]
         lines.append(f"    95% intervals (jackknife): {_distance(first)}: "
