@@ -336,7 +336,7 @@ def mean_shape(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndar
     else:
         bend, remainder = nan3, np.nan
     r_chi2, r_df, r_p = np.nan, max(t - 3, 0), np.nan
-    if t >= 4:
+    if t >= 4 and np.min(n_diag) > t + 1:  # else the means' covariance is (near) singular
         q, _ = np.linalg.qr(np.vander(u, t, increasing=True))
         c = q[:, 3:].T
         est = c @ mu

@@ -605,6 +605,16 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         strength["growth_autoregressive"] = min(strength["linear_growth"],
                                                 strength["autoregressive"])
 
+    # with a singular covariance of the waves (fewer effective units than waves) no
+    # structure can be tested against the data: nothing is more than plausible
+    if f["occasion_noise"].chi2 is None:
+        general.append(f"The covariance of the waves is singular (about "
+                       f"{led.value('n_effective', float(ev.n_eff), 1)} units with data for "
+                       f"{led.value('n_waves', int(t))} waves): no family can be tested "
+                       "against it, so none is rated above plausible.")
+        for fam in FAMILY_IDS:
+            if verdict.get(fam) == "supported":
+                verdict[fam] = "plausible"
     # a supported family must also reproduce the covariances acceptably
     cov_key = {"linear_growth": "growth", "quadratic_growth": "growth",
                "free_shape_growth": "growth", "growth_autoregressive": "growth_ar"}
