@@ -241,3 +241,32 @@ def test_stata_letter_strings_are_not_tagged_missing(tmp_path):
     panel, _ = build_panel(read_table(str(path), columns=spec.columns()), spec)
     assert panel.groups.tolist() == ["A", "B", "C", "A", "B"]
     assert {k: v.tolist() for k, v in panel.codes["score"].items()} == {".a": [0, 1, 0]}
+
+
+def test_standard_input_parquet_with_format(monkeypatch):
+    buffer = io.BytesIO()
+    tenant_frame().to_parquet(buffer, index=False)
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(buffer.getvalue())))
+    raw = read_table("-", "parquet", columns=SPEC.columns())
+    panel, _ = build_panel(raw, SPEC)
+    np.testing.assert_array_equal(panel.values["score"], expected_matrix(tenant_frame()))
+
+
+def test_date_waves_from_stata(tmp_path):
+    frame = pd.DataFrame({"unit": np.repeat(["H1", "H2"], 2),
+                          "wave": pd.to_datetime(["2020-01-01", "2020-07-02"] * 2),
+                          "score": [1.0, 2.0, 3.0, 4.0]})
+    path = tmp_path / "panel.dta"
+    pyreadstat.write_dta(frame, str(path))
+    panel, _ = build_panel(read_table(str(path), columns=SPEC.columns()), SPEC)
+    assert panel.wave_labels == ("2020-01-01", "2020-07-02")
+    # 2020 is a leap year: 1 July 2020 ends day 183 of 366 (pandas day_of_year)
+    np.testing.assert_array_equal(panel.wave_times, [2020.0, 2020.5])
+
+
+def test_blank_lines_and_quoted_breaks_keep_line_numbers(tmp_path):
+    path = tmp_path / "panel.csv"
+    path.write_text('unit,wave,score\nA,1,1\n\nA,2,2\n"B",1,"3\n"\nB,2,bad\n')
+    with pytest.raises(InputProblem) as info:
+        build_panel(read_table(str(path), columns=SPEC.columns()), SPEC)
+    assert (info.value.row, info.value.column) == (7, "score")
