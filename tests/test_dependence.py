@@ -450,6 +450,16 @@ def test_em_correlations_undo_selection_by_dropout():
     idx = (np.arange(3), np.arange(1, 4))
     assert np.all(np.abs(em[idx] - lag1) < 0.03)
     assert np.mean(np.abs(pairwise[idx] - lag1)) > 2 * np.mean(np.abs(em[idx] - lag1))
+    # with per-group pattern moments the Markov intervals come from EM refits; a
+    # first-order autoregression has zero partial correlation beyond lag 1
+    from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
+    summaries.update(summarise(panel, "y", [ReplicatePatternMoments]))
+    corr = dep.correlation_section(ctx)
+    assert corr.partial_replicates is not None
+    markov = dep.markov_summary(corr)
+    assert markov.interval_basis.endswith("pearson_em estimate")
+    for row in markov.rows:
+        assert row.ci_low - 0.01 <= 0.0 <= row.ci_high + 0.01
 
 
 def _polychoric_coverage(n_reps, seed):

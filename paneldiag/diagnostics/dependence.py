@@ -51,8 +51,9 @@ class WaveCorrelations(Result):
 
     ``replicates`` and ``replicate_n`` are the primary method's leave-one-group-out
     matrices and pair counts (K, T, T); ``partial_basis`` is the matrix the Markov
-    summary conditions on. These three are kept for the other sections and left out
-    of the JSON.
+    summary conditions on, and ``partial_replicates`` its leave-one-group-out copies
+    when they exist (EM fitted per left-out group). These are kept for the other
+    sections and left out of the JSON.
     """
 
     waves: tuple[str, ...]
@@ -65,6 +66,7 @@ class WaveCorrelations(Result):
     replicates: np.ndarray = field(repr=False, compare=False)
     replicate_n: np.ndarray = field(repr=False, compare=False)
     partial_basis: str = "pearson_pairwise"
+    partial_replicates: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     def to_dict(self) -> dict:
         return {"waves": list(self.waves), "scale": self.scale, "scale_basis": self.scale_basis,
@@ -137,7 +139,7 @@ def _polychoric_matrices(tables: PairwiseTables) -> tuple[np.ndarray, np.ndarray
 def wave_correlations(pairwise: PairwiseMoments, ranks: PairwiseMoments | None,
                       tables: PairwiseTables | None, wave_labels: tuple[str, ...],
                       em_covariance: np.ndarray | None = None, scale: str = "auto",
-                      ) -> WaveCorrelations:
+                      em_replicates: np.ndarray | None = None) -> WaveCorrelations:
     """Correlations between every pair of waves, by method.
 
     - ``pearson_pairwise``: Pearson's r over the units observed at both waves.
@@ -182,10 +184,11 @@ def wave_correlations(pairwise: PairwiseMoments, ranks: PairwiseMoments | None,
         reps, rep_n = _pearson_replicates(pairwise)
         primary = "pearson_pairwise"
     partial_basis = primary if kind == "ordinal" or em_covariance is None else "pearson_em"
+    partial_reps = em_replicates if partial_basis == "pearson_em" else None
     return WaveCorrelations(waves=tuple(wave_labels), scale=kind, scale_basis=basis,
                             categories=categories, primary=primary, methods=methods,
                             notes=tuple(notes), replicates=reps, replicate_n=rep_n,
-                            partial_basis=partial_basis)
+                            partial_basis=partial_basis, partial_replicates=partial_reps)
 
 
 # ---------------------------------------------------------------------- lag profile
@@ -353,8 +356,9 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
     Under a first-order (Markov, simplex) process without measurement error these
     partial correlations are zero (Guttman 1954; Joreskog 1970); a stable trait, or
     error in the measure, leaves them positive. The interval for each mean is the
-    delete-a-group jackknife (Kott 2001) of the same mean computed from the primary
-    correlation's leave-one-group-out matrices, centred on the point estimate.
+    delete-a-group jackknife (Kott 2001) of the same mean, from the basis matrix's own
+    leave-one-group-out copies when they exist (EM refitted without each group), else
+    from the primary correlation's copies, centred on the point estimate.
 
     References
     ----------
@@ -365,8 +369,11 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
     Kott, P. S. (2001). The delete-a-group jackknife. J. Official Statistics 17, 521-526.
     """
     point = partial_beyond(corr.methods[corr.partial_basis].matrix)
-    own = partial_beyond(corr.matrix)
-    reps = partial_beyond(corr.replicates)
+    if corr.partial_replicates is not None:
+        own, reps, source = point, partial_beyond(corr.partial_replicates), corr.partial_basis
+    else:
+        own, reps, source = partial_beyond(corr.matrix), partial_beyond(corr.replicates), \
+            corr.primary
     t = point.shape[-1]
     k_groups = reps.shape[0]
     q = stats.t.ppf(0.5 + level / 2, k_groups - 1) if k_groups > 1 else np.nan
@@ -383,7 +390,7 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
                               max_partial_r=float(np.nanmax(vals)) if np.isfinite(vals).any() else np.nan,
                               ci_low=float(np.tanh(z_point - q * se)),
                               ci_high=float(np.tanh(z_point + q * se))))
-    interval = f"jackknife over replicate groups of the {corr.primary} estimate"
+    interval = f"jackknife over replicate groups of the {source} estimate"
     return MarkovSummary(basis=corr.partial_basis, interval_basis=interval, rows=tuple(rows),
                          partial_matrix=point)
 
@@ -800,6 +807,27 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
 
 # ------------------------------------------------------------------ screen sections
 
+def _em_replicates(ctx) -> tuple[np.ndarray, np.ndarray] | None:
+    """ML covariance under MAR of all units and leave-one-group-out EM correlations
+    (K, T, T), from the per-group pattern summary, when the screen keeps one and the
+    measure has missing values. Uses the shared, cached EM basis of the reliability
+    area, so the fits are made once per measure."""
+    try:
+        from paneldiag.diagnostics.reliability import em_basis
+        from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
+    except ImportError:
+        return None
+    if ReplicatePatternMoments not in ctx.summaries or not np.isnan(ctx.values).any():
+        return None
+    basis = em_basis(ctx.summary(ReplicatePatternMoments),
+                     getattr(ctx.results.get("missingness"), "em", None))
+    if basis is None:
+        return None
+    with np.errstate(invalid="ignore", divide="ignore"):
+        reps = np.array([part.correlation() for part in basis.leave_one_out()])
+    return basis.covariance(), reps
+
+
 def _em_covariance(ctx) -> np.ndarray | None:
     """The ML covariance under MAR from the pattern summary, when the screen keeps one."""
     try:
@@ -828,8 +856,10 @@ def correlation_section(ctx) -> WaveCorrelations | None:
     groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
     ranks = rank_moments(ctx.values, groups, ctx.panel.wave_times, ctx.options.n_replicates,
                          ctx.options.chunk_units)
+    with_reps = _em_replicates(ctx)
+    em_cov, em_reps = with_reps if with_reps is not None else (_em_covariance(ctx), None)
     return wave_correlations(pairwise, ranks, tables, ctx.panel.wave_labels,
-                             em_covariance=_em_covariance(ctx),
+                             em_covariance=em_cov, em_replicates=em_reps,
                              scale=getattr(ctx.options, "scale", "auto"))
 
 
