@@ -562,3 +562,19 @@ def test_scale_decision_rules():
     kind, why = dep.decide_scale(t40, "ordinal")
     assert kind == "continuous" and "not possible" in why
     assert dep.decide_scale(t7, "continuous") == ("continuous", "set by option")
+
+
+def test_spearman_under_mcar_close_to_per_pair_ranking():
+    # reference library: scipy.stats.spearmanr on each pair's complete cases. Ranking
+    # each wave once (our choice, see paneldiag/summaries/ranks.py) estimates the same
+    # quantity under missing completely at random: here within 0.01 at N = 3000 with 25%
+    # of values missing (simulation: trait + carry-over, rho 0.5)
+    y = _panel(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 3000, np.arange(4.0), 27,
+               missing=0.25)
+    corr, _ = _correlations(y, with_ranks=True)
+    ours = corr.methods["spearman"].matrix
+    for s in range(4):
+        for t in range(s + 1, 4):
+            both = ~np.isnan(y[:, s]) & ~np.isnan(y[:, t])
+            ref = stats.spearmanr(y[both, s], y[both, t]).statistic
+            assert abs(ours[s, t] - ref) < 0.01
