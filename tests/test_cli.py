@@ -241,3 +241,16 @@ def test_usage_errors_exit_2(tmp_path):
     lines = result.stderr.decode().splitlines()
     assert result.returncode == 2 and len(lines) == 1
     assert lines[0].startswith("paneldiag: error: ")
+
+
+def test_quiet_means_silent_even_for_degenerate_data(tmp_path):
+    # every value equal: correlations and slopes are undefined; no numeric warning may
+    # reach the terminal, and the report still gets written
+    source = tmp_path / "tenants.csv"
+    source.write_text("household,year,trust\n" + "".join(
+        f"H{h},{year},5\n" for h in range(6) for year in (2015, 2016)) + "H6,2015,5\n")
+    result = run_forked(["screen", source, "--id", "household", "--wave", "year", "--value",
+                         "trust", "--json", tmp_path / "r.json", "--quiet"], tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout == b"" and result.stderr == b""
+    assert json.loads((tmp_path / "r.json").read_text())["wave_profile"][0]["sd"] == 0

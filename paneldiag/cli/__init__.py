@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import sys
+import warnings
 
 import click
 
@@ -56,6 +57,8 @@ def main(argv: list[str] | None = None) -> int:
     _register()
     args = sys.argv[1:] if argv is None else argv
     debug = "--debug" in args
+    if not debug:  # numeric warnings of libraries are not for the user's terminal
+        warnings.simplefilter("ignore")
     try:
         cli.main(args=args, prog_name="paneldiag", standalone_mode=False)
     except InputProblem as problem:
