@@ -231,7 +231,8 @@ def _classify_measure(raw: RawTable, spec: LayoutSpec, measure: str, rows: np.nd
     code_text = np.full(outcomes.shape[1], None, dtype=object)
     for outcome_i, _, text_i in reversed(parts):  # a loop over items: the first code wins
         coded = outcome_i == CODED
-        code_text[coded] = text_i[coded]
+        if coded.any():  # then the item has its code texts
+            code_text[coded] = text_i[coded]
     code_text[outcome != CODED] = None
     seen = outcome == OBSERVED
     with np.errstate(invalid="ignore"):
@@ -271,12 +272,13 @@ def _dense_integer_codes(column: pd.Series):
     span = hi - lo + 1
     if span > 4 * len(values) + 1024:
         return None
-    offset = (values - lo) if lo else values
+    offset = (values - lo).astype(np.int64, copy=False) if lo else values.astype(np.int64)
     present = np.zeros(span, dtype=bool)
     present[offset] = True
     rank = np.cumsum(present, dtype=np.int64)
     rank -= 1
-    return rank[offset], (np.flatnonzero(present) + lo).astype(np.int64)
+    np.take(rank, offset, out=offset)  # the codes, written over the offsets
+    return offset, (np.flatnonzero(present) + lo).astype(np.int64)
 
 
 def _check_extent(raw: RawTable, n_units: int, n_waves: int) -> None:
@@ -316,6 +318,8 @@ def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
         labels = tuple(str(k) for k in ordered)
         times = np.arange(1, len(ordered) + 1, dtype=float)
     times = _override_times(spec, times, len(labels))
+    if np.array_equal(order, np.arange(len(order))):  # codes already follow wave order
+        return codes.astype(np.int64, copy=False), labels, times
     return rank[codes], labels, times
 
 
@@ -372,7 +376,7 @@ def _override_times(spec: LayoutSpec, times: np.ndarray, n_waves: int) -> np.nda
 def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     """Positions (into valid_rows) of the rows kept, and the number of duplicates."""
     if len(cell) < 2 or bool(np.all(cell[1:] > cell[:-1])):  # sorted rows: no repeats
-        return np.arange(len(cell)), 0
+        return slice(None), 0  # every row, without an index array
     counts = np.bincount(cell, minlength=len(unit_ids) * n_waves)
     n_duplicate = int(len(cell) - np.count_nonzero(counts))
     if n_duplicate == 0:
@@ -424,7 +428,7 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
     infinite = np.isinf(numbers)
     outcome[infinite] = INFINITE
     _refuse(raw, spec, column, rows, infinite, "infinite value", lambda i: "")
-    code_text = np.full(n, None, dtype=object)
+    code_text = None  # an object array only once some cell carries a code
     coded = np.zeros(n, dtype=bool)
     finite = np.isfinite(numbers)
     declared = np.zeros(n, dtype=bool)
@@ -437,12 +441,15 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
     if declared.any():
         distinct, position = np.unique(numbers[declared], return_inverse=True)
         texts = np.array([_number_text(v) for v in distinct], dtype=object)  # per code
+        code_text = np.full(n, None, dtype=object)
         code_text[declared] = texts[position]
         coded |= declared
     if column in raw.tagged_missing:
         tags = raw.tagged_missing[column][rows]
         has_tag = ~pd.isna(tags)
-        code_text[has_tag] = tags[has_tag]
+        if has_tag.any():
+            code_text = np.full(n, None, dtype=object) if code_text is None else code_text
+            code_text[has_tag] = tags[has_tag]
         coded |= has_tag
     outcome[coded] = CODED
     outcome[(outcome == OBSERVED) & np.isnan(numbers)] = MISSING
@@ -473,7 +480,9 @@ def _require_observed(raw, measure, matrix) -> None:
                            column=measure)
 
 
-def _code_counts(code_text: np.ndarray, wave_index: np.ndarray, n_waves: int) -> dict:
+def _code_counts(code_text: np.ndarray | None, wave_index: np.ndarray, n_waves: int) -> dict:
+    if code_text is None:
+        return {}
     present = ~pd.isna(code_text)
     if not present.any():
         return {}
