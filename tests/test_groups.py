@@ -21,7 +21,7 @@ from statsmodels.stats.meta_analysis import combine_effects
 
 from conftest import run_cli
 from paneldiag.diagnostics.groups import (fisher_z_equality, homogeneity_test,
-                                          proportions_equality)
+                                          proportions_equality, wilson_interval)
 from paneldiag.io.readers import read_table
 from paneldiag.io.validate import LayoutSpec, build_panel
 from paneldiag.screen import ScreenOptions, screen
@@ -157,3 +157,10 @@ def test_cli_group_option_writes_groups(tmp_path):
     groups = json.loads(out.read_text())["groups"]
     assert groups["column"] == "site"
     assert sorted(groups["reports"]) == ["A", "B"]
+
+
+def test_wilson_interval_matches_statsmodels():
+    from statsmodels.stats.proportion import proportion_confint
+    for kept, base in ((54, 100), (3, 40), (40, 40)):
+        ref = proportion_confint(kept, base, alpha=0.05, method="wilson")
+        assert wilson_interval(kept, base) == pytest.approx(ref, rel=1e-10)

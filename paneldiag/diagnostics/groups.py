@@ -75,6 +75,16 @@ def proportions_equality(successes, totals) -> EqualityTest:
     return EqualityTest(float(chi2), int(df), float(p), "Pearson chi-square")
 
 
+def wilson_interval(successes: int, total: int, level: float = LEVEL) -> tuple[float, float]:
+    """Wilson score interval for a binomial proportion (Wilson 1927, J. American
+    Statistical Association 22:209-212); it stays inside [0, 1]."""
+    q = stats.norm.ppf(0.5 + level / 2)
+    p = successes / total
+    centre = (p + q * q / (2 * total)) / (1 + q * q / total)
+    half = q / (1 + q * q / total) * np.sqrt(p * (1 - p) / total + q * q / (4 * total ** 2))
+    return float(centre - half), float(centre + half)
+
+
 @dataclass(frozen=True)
 class GroupValue(Result):
     group: str
@@ -158,9 +168,9 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
     the per-measure screen itself, so a group's report holds the same sections as the
     whole panel's. Compared across groups: the lag-1 autocorrelation (Fisher z average,
     jackknife SE; Cochran's Q on the z scale), retention from the first to the last wave
-    (Pearson chi-square of the 2 x G table), and, where the diagnostics report them with
-    an uncertainty, the stable share, the carry-over and the reliability (Cochran's Q
-    with the reported SEs, or SEs read off symmetric CIs). Tests assume independent
+    (Pearson chi-square of the 2 x G table; Wilson intervals), and, where the
+    diagnostics report them with an uncertainty, the stable share, the carry-over and the
+    reliability (Cochran's Q with the reported SEs, or SEs read off symmetric CIs). Tests assume independent
     groups, which holds for a unit-level grouping column; they are unweighted.
     """
     panel, measure, min_cell = ctx.panel, ctx.measure, ctx.options.min_cell
@@ -183,8 +193,8 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
         disclose = min(kept, base - kept) >= min_cell
         share = kept / base if base and disclose else np.nan
         se = np.sqrt(share * (1 - share) / base) if base and disclose else np.nan
-        q = stats.norm.ppf(0.5 + LEVEL / 2)
-        retention.append((GroupValue(label, share, share - q * se, share + q * se, se,
+        lo, hi = wilson_interval(kept, base) if base and disclose else (np.nan, np.nan)
+        retention.append((GroupValue(label, share, lo, hi, se,
                                      base if base >= min_cell else 0), kept, base, disclose))
         for figure, _, paths in REPORTED_FIGURES:
             found = next((v for v in (_estimate_from(sections, p) for p in paths) if v), None)

@@ -346,6 +346,12 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
             blocks.extend(tables)
             for name in drawn:
                 add_figure(name)
+            if title == "Groups":
+                for label in (rep.get("groups") or {}).get("reports") or {}:
+                    texts = prose.group_summary(label, rep["groups"], cite)
+                    if texts:
+                        blocks.append(Heading(4, f"Group: {label}"))
+                        add_prose(texts)
     pairs = report.get("cross_lag") or []
     if pairs:
         blocks.append(Heading(2, "Cross-lagged correlations between measures", "cross-lag"))

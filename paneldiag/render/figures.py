@@ -125,7 +125,7 @@ def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
     rows = [r for r in rows if r[1] is not None][:max_rows]
     if not rows:
         return None
-    height = 1.2 + 0.28 * len(rows)
+    height = 1.5 + 0.28 * len(rows)
     fig = Figure(figsize=(6.4, height), layout="constrained")
     grid, bars = fig.subplots(1, 2, width_ratios=[max(len(waves), 3), 3], sharey=True)
     for i, (pattern, share, _) in enumerate(rows):
@@ -136,8 +136,19 @@ def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
             grid.scatter(j, i, s=70, marker="s", color=BLUE if seen else "white",
                          edgecolors=BLACK, linewidths=0.8)
         bars.barh(i, 100 * share, color=SKY, edgecolor=BLACK, linewidth=0.6, hatch="//")
+        bars.text(100 * share, i, f" {100 * share:.1f}%", va="center", fontsize=7)
+    labels = [f"#{i + 1}" for i in range(len(rows))]
+    rest = ((report.get("missingness") or {}).get("patterns") or {}).get("remainder") or {}
+    if _finite(rest.get("share"), rest.get("n_patterns")) and rest["share"] > 0:
+        i = len(rows)
+        grid.text((len(waves) - 1) / 2, i, f"{rest['n_patterns']} other patterns",
+                  ha="center", va="center", fontsize=8, style="italic")
+        bars.barh(i, 100 * rest["share"], color="#dddddd", edgecolor=BLACK, linewidth=0.6)
+        bars.text(100 * rest["share"], i, f" {100 * rest['share']:.1f}%", va="center",
+                  fontsize=7)
+        labels.append("rest")
     grid.set_xticks(range(len(waves)), waves, rotation=45)
-    grid.set_yticks(range(len(rows)), [f"#{i + 1}" for i in range(len(rows))])
+    grid.set_yticks(range(len(labels)), labels)
     grid.invert_yaxis()
     grid.set_xlabel("wave (filled: answered, open: missed)")
     grid.set_ylabel("response pattern (most frequent first)")

@@ -439,6 +439,31 @@ def groups(report: dict, cite: Citations) -> list[str]:
 GROUP_FIGURE_WORDS = {"retention": "share retained from the first to the last wave"}
 
 
+def group_summary(label: str, section: dict, cite: Citations) -> list[str]:
+    """A short paragraph on one group: its size, its compared figures and its verdicts."""
+    report = (section.get("reports") or {}).get(label)
+    if not isinstance(report, dict):
+        return []
+    parts = []
+    for comp in section.get("comparison") or []:
+        value = next((v for v in comp["by_group"] if v["group"] == label), None)
+        if not value or not ok(value.get("estimate")):
+            continue
+        fmt = pct if comp["figure"] == "retention" else dec
+        ci = (f" ({fmt(value['ci_low'])} to {fmt(value['ci_high'])})"
+              if ok(value.get("ci_low"), value.get("ci_high")) else "")
+        parts.append(f"{GROUP_FIGURE_WORDS.get(comp['figure'], comp['label'])} "
+                     f"{fmt(value['estimate'])}{ci}")
+    text = f"The group {label} has {count(report['n_units'])} units"
+    text += ("; " + "; ".join(parts) + "." if parts else ".")
+    fams = [f for f in report.get("families") or [] if isinstance(f, dict)]
+    good = [str(f["family"]).replace("_", " ") for f in fams
+            if f.get("verdict") in ("supported", "plausible")]
+    if good:
+        text += f" Families the screen supports or finds plausible here: {_join(good)}."
+    return [text]
+
+
 def cross_lag(pair: dict, cite: Citations) -> list[str]:
     lag1 = next((r for r in pair.get("lags", []) if r["lag"] == 1), None)
     sync = pair.get("synchronous") or {}
