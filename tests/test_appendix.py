@@ -167,6 +167,10 @@ def test_latex_tables_use_booktabs_and_compile_when_tex_exists(runs, tmp_path):
     tex = _read(runs, "one", "tables.tex").decode("utf-8")
     assert tex.count(r"\toprule") == tex.count(r"\bottomrule") >= 4
     assert r"\hline" not in tex
+    assert tex.count(r"\begin{") == tex.count(r"\end{")
+    unescaped = re.sub(r"\\[{}]", "", tex)
+    assert unescaped.count("{") == unescaped.count("}")  # braces balance
+    assert all(ord(c) < 0x100 for c in tex)  # nothing pdflatex cannot set
     engine = shutil.which("pdflatex") or shutil.which("lualatex") or shutil.which("xelatex")
     if engine is None:
         pytest.skip("no TeX engine on this machine (pdflatex, lualatex or xelatex)")

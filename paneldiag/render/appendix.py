@@ -141,7 +141,7 @@ def families_table(report: dict) -> Table | None:
     return Table(f"{slug(report.get('measure'))}-families",
                  f"{report.get('measure')}: screening verdicts by process family",
                  ("family", "verdict", "score", "caveats"), body, tuple(notes),
-                 align="llrl")
+                 align="llrp")
 
 
 def family_evidence(report: dict) -> ListBlock | None:

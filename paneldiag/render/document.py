@@ -38,7 +38,7 @@ class Table:
     headers: tuple[str, ...]
     rows: tuple[tuple[str, ...], ...]
     notes: tuple[str, ...] = ()
-    align: str = ""            # one letter per column: l, r, c (default: l then r)
+    align: str = ""            # a letter per column: l, r, c, p (wrapped text); default l r r ..
 
     def alignment(self) -> str:
         return self.align or "l" + "r" * (len(self.headers) - 1)
@@ -85,7 +85,7 @@ def to_markdown(blocks: list[Block]) -> str:
             out.append("\n".join(f"- {item}" for item in block.items))
         elif isinstance(block, Table):
             table_no += 1
-            align = {"l": ":--", "r": "--:", "c": ":-:"}
+            align = {"l": ":--", "r": "--:", "c": ":-:", "p": ":--"}
             lines = [f"**Table {table_no}.** {block.caption}", "",
                      "| " + " | ".join(_md_cell(h) for h in block.headers) + " |",
                      "|" + "|".join(align[a] for a in block.alignment()) + "|"]
@@ -148,7 +148,7 @@ def to_html(blocks: list[Block], title: str) -> str:
             body.append("<ul>" + "".join(f"<li>{_e(i)}</li>" for i in block.items) + "</ul>")
         elif isinstance(block, Table):
             table_no += 1
-            align = block.alignment()
+            align = block.alignment().replace("p", "l")
             head = "".join(f'<th class="{a}">{_e(h)}</th>' for h, a in zip(block.headers, align))
             rows = "".join("<tr>" + "".join(f'<td class="{a}">{_e(c)}</td>'
                                             for c, a in zip(row, align)) + "</tr>"

@@ -16,14 +16,20 @@ _SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": 
 _UNICODE = {"–": "--", "—": "---", "−": "$-$", "±": r"$\pm$", "×": r"$\times$",
             "ρ": r"$\rho$", "≤": r"$\leq$", "≥": r"$\geq$", "<": r"$<$", ">": r"$>$",
             "·": r"$\cdot$", "…": r"\ldots{}", "χ": r"$\chi$", "²": r"$^2$", "’": "'",
-            "‘": "`", "“": "``", "”": "''"}
+            "‘": "`", "“": "``", "”": "''", "→": r"$\rightarrow$", "←": r"$\leftarrow$",
+            "≈": r"$\approx$", "≠": r"$\neq$", "√": r"$\surd$", "α": r"$\alpha$",
+            "β": r"$\beta$", "σ": r"$\sigma$", "τ": r"$\tau$", "μ": r"$\mu$",
+            "³": r"$^3$", "═": "=", "▸": ">"}
 
 
 def escape(text: str) -> str:
+    """LaTeX for plain text: special characters escaped, common symbols as math, any
+    other character beyond Latin-1 (which pdflatex cannot set without extra fonts) as
+    '?'."""
     out = "".join(_SPECIAL.get(c, c) for c in str(text))
     for char, tex in _UNICODE.items():
         out = out.replace(char, tex)
-    return out
+    return "".join(c if ord(c) < 0x100 else "?" for c in out)
 
 
 def _label(text: str) -> str:
@@ -31,7 +37,7 @@ def _label(text: str) -> str:
 
 
 def table_tex(table: Table) -> str:
-    spec = table.alignment()
+    spec = table.alignment().replace("p", r"p{0.42\linewidth}")
     lines = [r"\begin{table}[htbp]", r"\centering", r"\small",
              rf"\caption{{{escape(table.caption)}}}", rf"\label{{tab:{_label(table.label)}}}",
              rf"\begin{{tabular}}{{@{{}}{spec}@{{}}}}", r"\toprule",
