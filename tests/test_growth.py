@@ -358,7 +358,7 @@ def demo_report(tmp_path_factory):
     data = folder / "t.csv"
     assert run_cli("demo", data).returncode == 0
     out = folder / "r.json"
-    args = SCREEN_HINT.format(path=data).split()[1:] + ["--json", str(out)]
+    args = SCREEN_HINT.format(path=data).split()[1:] + ["--json", str(out), "--details"]
     done = run_cli(*args)
     assert done.returncode == 0, done.stderr.decode()
     return json.loads(out.read_text()), done.stdout.decode()

@@ -248,7 +248,8 @@ def test_cli_items_report_internal_consistency(tmp_path):
     frame = _item_file(tmp_path / "items.csv")
     out = tmp_path / "r.json"
     done = run_cli("screen", tmp_path / "items.csv", "--id", "tenant", "--wave", "year",
-                   "--items", "calm=q1,q2,q3", "--missing-codes", "-9", "--json", out)
+                   "--items", "calm=q1,q2,q3", "--missing-codes", "-9", "--json", out,
+                   "--details")
     assert done.returncode == 0, done.stderr.decode()
     report = json.loads(out.read_text())
     ledger = report["ledger"]
