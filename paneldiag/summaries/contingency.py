@@ -51,20 +51,18 @@ class PairwiseTables:
         if n_levels > MAX_LEVELS:
             return cls(None, None, f"integer values span more than {MAX_LEVELS} categories")
         k, t = chunk.n_replicates, x.shape[1]
-        column = np.where(seen, x - low, 0).astype(np.int64) + np.arange(t) * n_levels
-        counts = np.zeros((k, t * n_levels, t * n_levels), dtype=np.int64)
-        order = np.argsort(chunk.replicate, kind="stable")
-        bounds = np.searchsorted(chunk.replicate[order], np.arange(k + 1))
-        for g in range(k):  # a loop over replicate groups; each step is one matrix product
-            rows = order[bounds[g]:bounds[g + 1]]
-            if len(rows) == 0:
-                continue
-            seen_g = seen[rows]
-            unit, wave = np.nonzero(seen_g)
-            hot = np.zeros((len(rows), t * n_levels), dtype=np.float32)  # exact below 2**24
-            hot[unit, column[rows][unit, wave]] = 1.0
-            counts[g] = np.rint(hot.T @ hot).astype(np.int64)
-        counts = counts.reshape(k, t, n_levels, t, n_levels).transpose(0, 1, 3, 2, 4)
+        m = n_levels + 1   # one extra code for "missing", dropped from the tables
+        code = np.where(seen, x - low, n_levels).astype(np.intp)
+        base = chunk.replicate.astype(np.intp) * (m * m)
+        counts = np.zeros((k, t, t, n_levels, n_levels), dtype=np.int64)
+        for s in range(t):  # a loop over pairs of waves; each step is one bincount
+            row = base + code[:, s] * m
+            for u in range(s, t):
+                table = np.bincount(row + code[:, u], minlength=k * m * m)
+                table = table.reshape(k, m, m)[:, :n_levels, :n_levels]
+                counts[:, s, u] = table
+                if u != s:
+                    counts[:, u, s] = table.transpose(0, 2, 1)
         return cls(low, np.ascontiguousarray(counts))
 
     def merge(self, other: "PairwiseTables") -> "PairwiseTables":
