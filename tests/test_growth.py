@@ -429,3 +429,26 @@ def test_two_waves_leave_slope_reliability_not_estimable():
     rel = slope_reliability(traj)
     assert np.isnan(rel.estimate) and not rel.impossible
     assert "three or more" in rel.problem
+
+
+@pytest.mark.slow
+def test_jackknife_coverage_of_slope_reliability_mean_slope_and_icc():
+    # Simulation with known truth, 200 replicates of N = 500, five waves: random slopes
+    # with tau = 0.1 and sigma^2 = 1 (slope reliability 0.5, mean slope 0.3), and a pure
+    # random-intercept panel with 30% missing cells (ICC 0.5). When written: 95.5%,
+    # 94.0% and 95.5%.
+    rng = np.random.default_rng(2)
+    times, n = np.arange(5.0), 500
+    hits = np.zeros(3)
+    for _ in range(200):
+        x = rng.normal(0, 1, (n, 1)) + rng.normal(0.3, np.sqrt(0.1), (n, 1)) * times \
+            + rng.normal(0, 1, (n, 5))
+        traj, _ = summaries(x, times)
+        rel, fits = slope_reliability(traj), trajectory_fits(traj)
+        y = rng.normal(0, 1, (n, 1)) + rng.normal(0, 1, (n, 5))
+        y[rng.random(y.shape) < 0.3] = np.nan
+        icc = intraclass_correlation(summaries(y, times)[0])
+        hits += [rel.ci_low <= 0.5 <= rel.ci_high,
+                 fits.mean_slope_ci_low <= 0.3 <= fits.mean_slope_ci_high,
+                 icc.ci_low <= 0.5 <= icc.ci_high]
+    assert np.all((hits / 200 >= 0.92) & (hits / 200 <= 0.98)), hits / 200
