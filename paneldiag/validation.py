@@ -1,6 +1,6 @@
 """The validation study of the process-family verdicts: panels of known truth.
 
-    python -m paneldiag.validation [--grid full|reduced] [--reps R] [--seed S]
+    python -m paneldiag.validation [--grid full|target|reduced] [--reps R] [--seed S]
                                    [--workers W] [--out docs/validation-table.md]
     paneldiag check-verdicts ...     (the same, as a paneldiag command)
 
@@ -29,9 +29,12 @@ from paneldiag.simulate import FAMILIES
 
 FULL_GRID = {"n_units": (300, 1000, 3000), "n_waves": (4, 6, 10),
              "reliability": (1.0, 0.6), "dropout": ("none", "mcar", "dependent")}
+TARGET_GRID = {"n_units": (1000, 3000), "n_waves": (6, 10), "reliability": (1.0, 0.6),
+               "dropout": ("none", "mcar", "dependent")}
 REDUCED_GRID = {"n_units": (1000,), "n_waves": (6,), "reliability": (1.0, 0.6),
                 "dropout": ("none", "dependent")}
 SEED = 20240611
+GRIDS = {"full": FULL_GRID, "target": TARGET_GRID, "reduced": REDUCED_GRID}
 
 
 @dataclass(frozen=True)
@@ -194,14 +197,14 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m paneldiag.validation",
                                      description="Validate the process-family verdicts on "
                                                  "simulated panels of known truth.")
-    parser.add_argument("--grid", choices=["full", "reduced"], default="full")
+    parser.add_argument("--grid", choices=["full", "target", "reduced"], default="full")
     parser.add_argument("--reps", type=int, default=20, help="panels per cell")
     parser.add_argument("--seed", type=int, default=SEED)
     parser.add_argument("--workers", type=int, default=min(2, os.cpu_count() or 1))
     parser.add_argument("--out", help="write the Markdown tables here (else stdout)")
     parser.add_argument("--rules", help="a thresholds file, as for paneldiag screen --rules")
     args = parser.parse_args(argv)
-    grid = FULL_GRID if args.grid == "full" else REDUCED_GRID
+    grid = GRIDS[args.grid]
     if args.rules:
         from paneldiag.rules import load_thresholds
         load_thresholds(args.rules)  # refuse a bad file before any work

@@ -18,8 +18,9 @@ import click
 
 
 @click.command("check-verdicts")
-@click.option("--grid", type=click.Choice(["full", "reduced"]), default="full",
-              show_default=True, help="The full grid or the small one the test suite runs.")
+@click.option("--grid", type=click.Choice(["full", "target", "reduced"]), default="full",
+              show_default=True, help="The full grid, its target region (N >= 1000, "
+                                      "T >= 6), or the small grid the test suite runs.")
 @click.option("--reps", type=click.IntRange(1), default=20, show_default=True,
               help="Simulated panels per cell of the grid.")
 @click.option("--seed", type=int, default=None, help="Seed of the whole study.")
@@ -35,7 +36,7 @@ def command(grid, reps, seed, workers, rules_path, out):
         from paneldiag.rules.thresholds import load_thresholds
         load_thresholds(rules_path)
     seed = validation.SEED if seed is None else seed
-    chosen = validation.FULL_GRID if grid == "full" else validation.REDUCED_GRID
+    chosen = validation.GRIDS[grid]
     results = validation.run(chosen, reps, seed, workers, rules_path)
     text = validation.report_markdown(results, chosen, reps, seed)
     if out:
