@@ -62,6 +62,14 @@ def judge_context(ctx) -> Judgement:
     slope_rel = _nested(ctx.results.get("growth"), "slope_reliability", "estimate")
     if slope_rel is not None and np.isfinite(slope_rel):
         inp.slope_reliability = float(slope_rel)
+    rac = _nested(ctx.results.get("growth"), "residual_autocorrelation")
+    if rac is not None:
+        inp.residual_autocorrelation = {
+            "lag1": _nested(rac, "lag1"), "ci_low": _nested(rac, "ci_low"),
+            "ci_high": _nested(rac, "ci_high"),
+            "expected": _nested(rac, "expected_under_independence")}
+        if any(v is None for v in inp.residual_autocorrelation.values()):
+            inp.residual_autocorrelation = None
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
     return judge(inp, thresholds)
 

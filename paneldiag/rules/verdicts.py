@@ -110,7 +110,7 @@ def _f(x, digits=3):
     return "n/a" if x is None or not np.isfinite(x) else f"{round(float(x), digits):.{digits}f}"
 
 
-class Ledger:
+class Citations:
     """Collects the statistics that evidence sentences cite, rounded as printed."""
 
     def __init__(self, thresholds: Thresholds):
@@ -156,8 +156,8 @@ class Inputs:
     retention: float
     dropout_smd: float
     categories: int
-    reliability_section: dict | None = None
     slope_reliability: float | None = None
+    residual_autocorrelation: dict | None = None  # from the growth screen, when present
 
 
 def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
@@ -313,7 +313,7 @@ def _margin(est, lo, hi, threshold):
 def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     """The verdicts, measurement judgement and next models from the panel's moments."""
     th = thresholds or default_thresholds()
-    led = Ledger(th)
+    led = Citations(th)
     t = len(inp.times)
     alpha = th["alpha"]
     ev_text: dict[str, list[str]] = {f: [] for f in FAMILY_IDS}
@@ -464,6 +464,17 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         AG = (p_gcarry < alpha and grho[0] >= th["min_rho"]
               and dshare[0] >= th["min_carry_share"])
 
+    # the growth screen's within-unit residual autocorrelation (quoted, not decisive)
+    rac = inp.residual_autocorrelation
+    if rac and gcarry_sentence and all(np.isfinite(rac.get(k, np.nan)) for k in
+                                       ("lag1", "expected", "ci_low", "ci_high")):
+        gcarry_sentence += (
+            " For comparison, the growth screen's lag-1 autocorrelation of "
+            "within-unit residuals after each unit's own trend "
+            f"{led.estimate('residual_lag1', rac['lag1'], rac['ci_low'], rac['ci_high'])}, "
+            f"against {led.value('residual_lag1_expected', float(rac['expected']))} "
+            "expected under independence.")
+
     # the mean's shape
     shape_kind, shape_sentences = _mean_shape_kind(shape, led, th, t)
 
@@ -542,8 +553,6 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         for fam in ("autoregressive", "trait_autoregressive"):
             if carry_sentence:
                 ev_text[fam].append(carry_sentence)
-        if trait_sentence and carry_sentence is None:
-            pass
         if few_waves or ta is None or p_trait is None or p_carry is None:
             for fam in stationary_fams:
                 verdict[fam] = "undetermined" if not dep_absent else "unlikely"
@@ -631,7 +640,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                    dict(G=G, S=S, A=A, AG=AG, shape=shape_kind, flat=flat))
 
 
-def _mean_shape_kind(shape, led: Ledger, th: Thresholds, t: int):
+def _mean_shape_kind(shape, led: Citations, th: Thresholds, t: int):
     """'free', 'quadratic', 'linear' or None (no systematic change of the mean)."""
     if shape is None:
         return None, []
@@ -684,7 +693,7 @@ def _shape_verdict(fam: str, target: str, shape, th: Thresholds, t: int) -> str:
     return "unlikely"
 
 
-def _identification_caveats(inp: Inputs, led: Ledger, th: Thresholds, t: int) -> list[str]:
+def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int) -> list[str]:
     out = []
     if t < th["min_waves_separate"]:
         out.append(f"Only {led.value('n_waves', int(t))} waves: a quasi-simplex, a stable "
@@ -791,9 +800,6 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags) -> Jud
         s = float(np.clip(strength.get(fam, 0.5), 0.0, 1.0))
         score = round(base + width * s, 3)
         caveats = list(general)
-        if fam in ("stable_trait", "trait_autoregressive", "autoregressive") and \
-                inp.reliability_section is not None:
-            pass
         if fam in ("linear_growth", "quadratic_growth", "free_shape_growth") and \
                 inp.slope_reliability is not None and v != "supported":
             caveats.append(f"The slope reliability of the per-unit fits "
