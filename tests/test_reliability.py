@@ -365,3 +365,21 @@ def test_two_waves_with_items_keep_internal_consistency():
     second = result.internal_consistency.waves[1]
     assert second.alpha == pytest.approx(pg.cronbach_alpha(data=pd.DataFrame(items[:, 1]))[0],
                                          rel=1e-10)
+
+
+def test_triplets_without_joint_observations_are_left_out_of_the_median():
+    # Simulation with known truth (reliability 0.6, carry-over 0.85), planned
+    # missingness: the first and last waves are never observed together, so the three
+    # triplets (1, t, 5) are undefined; the median uses the seven others.
+    rng = np.random.default_rng(1)
+    times = np.arange(5.0)
+    x = carry_over(3000, times, 0.85, 1.0, rng) + rng.normal(0, np.sqrt(2 / 3), (3000, 5))
+    half = rng.random(3000) < 0.5
+    x[half, 0], x[~half, 4] = np.nan, np.nan
+    chunk = Chunk(x, None, replicate_groups(np.arange(3000)), times, 20)
+    result = quasi_simplex_reliability(PairwiseMoments.from_chunk(chunk), tuple("abcde"))
+    undefined = [r for r in result.heise if r.waves[0] == "a" and r.waves[2] == "e"]
+    assert len(undefined) == 3 and result.summary.n_undefined == 3
+    assert all(np.isnan(r.reliability) and not r.impossible and r.problems for r in undefined)
+    assert np.isfinite(result.summary.estimate) and "3 undefined" in result.summary.method
+    assert result.summary.ci_low <= 0.6 <= result.summary.ci_high

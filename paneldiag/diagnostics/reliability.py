@@ -75,7 +75,7 @@ def _heise_problems(v: dict, i: int) -> list[str]:
     if not np.all(np.isfinite([r_st, r_tu, r_su])):
         return ["undefined: a correlation of the triplet cannot be computed"]
     if r_su <= 0:
-        return ["undefined: the outer waves do not correlate positively (r_su <= 0), "
+        return ["outside the model: the outer waves do not correlate positively (r_su <= 0), "
                 "which the quasi-simplex cannot produce"]
     out = []
     rel = v["reliability"][i]
@@ -151,6 +151,7 @@ class ReliabilitySummary(Result):
     method: str
     n_triplets: int
     n_impossible: int
+    n_undefined: int = 0
 
 
 @dataclass(frozen=True)
@@ -208,7 +209,7 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
         ph = heise_values(part.correlation(), trip)
         rep_h.append(ph["reliability"])
         rep_w.append(wiley_wiley_values(part.covariance(), trip))
-        rep_median.append(np.median(ph["reliability"]))
+        rep_median.append(_median(ph["reliability"]))
     k = len(rep_h)
     se_h = jackknife_se(h["reliability"], np.array(rep_h))
     se_w_rel = jackknife_se(w["reliability"], np.array([r["reliability"] for r in rep_w]))
@@ -222,7 +223,7 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
             stability_first=float(h["stability_first"][i]),
             stability_second=float(h["stability_second"][i]),
             stability_outer=float(h["stability_outer"][i]),
-            impossible=bool(hp), problems=tuple(hp)))
+            impossible=_impossible(hp), problems=tuple(hp)))
         wiley_rows.append(WileyWileyRow(
             waves=labels, error_variance=float(w["error_variance"][i]),
             error_variance_se=float(se_w_err[i]),
@@ -231,20 +232,34 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
             reliability_se=tuple(float(v) for v in se_w_rel[i]),
             stability_first=float(w["stability_first"][i]),
             stability_second=float(w["stability_second"][i]),
-            impossible=bool(wp), problems=tuple(wp)))
-    estimate = float(np.median(h["reliability"]))
+            impossible=_impossible(wp), problems=tuple(wp)))
+    estimate = _median(h["reliability"])
+    n_undefined = int(np.isnan(h["reliability"]).sum())
     reps = np.array(rep_median)
     low, high = jackknife_ci(estimate, reps, level) if k > 1 else (np.nan, np.nan)
     n_bad = sum(r.impossible for r in heise_rows)
+    undefined = (f", {n_undefined} undefined triplet(s) left out" if n_undefined else "")
     method = (f"median of the Heise reliabilities over {len(trip)} triplet(s) of waves "
-              f"({basis.replace('_', ' ')} correlations); {int(100 * level)}% interval from "
-              f"the delete-a-group jackknife over {k} replicate groups")
+              f"({basis.replace('_', ' ')} correlations{undefined}); {int(100 * level)}% "
+              f"interval from the delete-a-group jackknife over {k} replicate groups")
     summary = ReliabilitySummary(
         estimate=estimate, ci_low=float(low), ci_high=float(high),
         se=float(jackknife_se(estimate, reps)), method=method,
-        n_triplets=len(trip), n_impossible=int(n_bad))
+        n_triplets=len(trip), n_impossible=int(n_bad), n_undefined=n_undefined)
     return ReliabilityScreen(basis=basis, n_replicates=k, heise=tuple(heise_rows),
                              wiley_wiley=tuple(wiley_rows), summary=summary)
+
+
+def _impossible(problems: list[str]) -> bool:
+    """A defined value outside its range (an undefined triplet is not 'impossible')."""
+    return bool(problems) and not problems[0].startswith("undefined")
+
+
+def _median(values: np.ndarray) -> float:
+    """Median of the defined values (impossible ones included as computed; NaN, where a
+    triplet cannot be computed at all, left out)."""
+    defined = values[~np.isnan(values)]
+    return float(np.median(defined)) if len(defined) else float("nan")
 
 
 # ----------------------------------------------------------------------------- items
