@@ -109,7 +109,7 @@ def _init_worker():
 
 
 def run(grid: dict, reps: int, seed: int = SEED, workers: int = 2,
-        rules_path: str | None = None) -> list[tuple]:
+        rules_path: str | None = None, progress=None) -> list[tuple]:
     """Every panel's (condition, supported family or None), in task order."""
     work = tasks(grid, reps, seed, rules_path)
     if workers <= 1:
@@ -118,7 +118,12 @@ def run(grid: dict, reps: int, seed: int = SEED, workers: int = 2,
     import multiprocessing as mp
     ctx = mp.get_context("spawn")
     with ctx.Pool(workers, initializer=_init_worker) as pool:
-        return pool.map(_one, work, chunksize=max(1, len(work) // (8 * workers)))
+        out = []
+        for done in pool.imap(_one, work, chunksize=max(1, min(16, len(work) // (8 * workers)))):
+            out.append(done)
+            if progress is not None and len(out) % 50 == 0:
+                progress(len(out), len(work))
+        return out
 
 
 @dataclass(frozen=True)
@@ -208,7 +213,10 @@ def main(argv: list[str] | None = None) -> int:
     if args.rules:
         from paneldiag.rules import load_thresholds
         load_thresholds(args.rules)  # refuse a bad file before any work
-    results = run(grid, args.reps, args.seed, args.workers, args.rules)
+    def progress(done, total):
+        sys.stderr.write(f"{done}/{total} panels\n")
+        sys.stderr.flush()
+    results = run(grid, args.reps, args.seed, args.workers, args.rules, progress)
     text = report_markdown(results, grid, args.reps, args.seed)
     if args.out:
         from paneldiag.io.output import write_atomic

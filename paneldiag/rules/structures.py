@@ -167,7 +167,7 @@ def _starts(structure: Structure, s: np.ndarray) -> list[np.ndarray]:
     level = max(float(np.mean(off)) if off.size else 0.0, 0.05 * float(np.mean(var)))
     base = [0.5 * float(np.mean(var))]
     starts = []
-    rhos = (0.3, 0.6, 0.9) if structure.carry else (None,)
+    rhos = (0.3, 0.85) if structure.carry else (None,)
     for rho in rhos:
         theta = list(base)
         if structure.basis is not None:

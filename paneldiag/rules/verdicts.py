@@ -200,7 +200,7 @@ class Evidence:
     basis_name: str = "time"
 
 
-def _fit_all(inp: Inputs) -> Evidence:
+def _fit_all(inp: Inputs, alpha: float) -> Evidence:
     t = len(inp.times)
     ev = Evidence()
     iu = np.triu_indices(t, 1)
@@ -217,9 +217,10 @@ def _fit_all(inp: Inputs) -> Evidence:
              ("growth_ar:time", st.Structure("growth_ar", basis=tb, carry=True))]
     if t >= 3:
         ev.shape = st.mean_shape(inp.mu, s, inp.pair_n, times)
+    # the shape of the mean as a growth basis, when the mean departs from any quadratic
     mb = st.mean_basis(inp.mu, times)
     if mb is not None and ev.shape is not None and t >= 4 and \
-            np.max(np.abs(mb - tb)) > 0.05:
+            np.isfinite(ev.shape.remainder_p) and ev.shape.remainder_p < alpha:
         plan += [("growth:mean", st.Structure("growth", basis=mb)),
                  ("growth_ar:mean", st.Structure("growth_ar", basis=mb, carry=True))]
     for key, structure in plan:
@@ -331,7 +332,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
 
     with _one_thread():
-        ev = _fit_all(inp)
+        ev = _fit_all(inp, alpha)
     f, tests, shape = ev.fits, ev.tests, ev.shape
     led.value("n_effective", float(ev.n_eff), 1)
 
