@@ -58,6 +58,17 @@ MODELS = {
     "free_shape_growth": "latent basis growth model (shape loadings estimated freely)",
     "growth_autoregressive": "latent growth model with first-order autoregressive residuals",
 }
+# the evidence sentences that carry each family's defining part (for next_models)
+KEY_EVIDENCE = {
+    "occasion_noise": ("Mean correlation",),
+    "stable_trait": ("No decaying part", "Stable share"),
+    "autoregressive": ("Carry-over per unit", "Carry-over rho"),
+    "trait_autoregressive": ("Stable share", "Carry-over per unit"),
+    "linear_growth": ("Unit-specific growth", "Change of the mean"),
+    "quadratic_growth": ("Unit-specific growth", "Quadratic bend"),
+    "free_shape_growth": ("Unit-specific growth", "Largest departure"),
+    "growth_autoregressive": ("Unit-specific growth", "Carry-over in the deviations"),
+}
 VERDICT_ORDER = {"supported": 0, "plausible": 1, "undetermined": 2, "unlikely": 3}
 SCORE_BANDS = {"supported": (0.8, 0.2), "plausible": (0.45, 0.3),
                "undetermined": (0.3, 0.0), "unlikely": (0.0, 0.25)}
@@ -837,7 +848,10 @@ def _next_models(families) -> list[NextModel]:
         picked = [fv for fv in families if fv.verdict == "undetermined"]
     out = []
     for fv in picked[:4]:
-        why = (f"{fv.verdict}: {fv.evidence[0]}" if fv.evidence else fv.verdict)
+        keys = KEY_EVIDENCE.get(fv.family, ())
+        chosen = [e for e in fv.evidence if any(e.startswith(k) for k in keys)]
+        chosen = chosen or list(fv.evidence[:1])
+        why = f"{fv.verdict}: " + " ".join(chosen) if chosen else fv.verdict
         out.append(NextModel(len(out) + 1, fv.family, MODELS[fv.family], why))
     if out and all(m.family != "occasion_noise" for m in out):
         out.append(NextModel(len(out) + 1, "occasion_noise", MODELS["occasion_noise"],
