@@ -339,8 +339,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     risk_t = risk.sum(axis=0)
     waves_used = (events_t > 0) & (events_t < risk_t)
     risk &= waves_used[None, :]
-    unit, wave = np.nonzero(risk)
-    y = event[unit, wave].astype(float)
+    # boolean selection keeps the cells in unit-major order, like the person-period rows
+    wave = np.broadcast_to(np.arange(t - 1), risk.shape)[risk]
+    y = event[risk].astype(float)
     n_pp, n_ev = len(y), int(y.sum())
     n_at_risk = int(risk.any(axis=1).sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
@@ -354,11 +355,13 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
     if n_ev < min_cell or n_pp - n_ev < min_cell:
         return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
-    x = np.column_stack([c[unit, wave] for c in columns])
-    x[:, 1:] = (x[:, 1:] - x[:, 1:].mean(axis=0)) / np.where(x[:, 1:].std(axis=0) > 0,
-                                                               x[:, 1:].std(axis=0), 1.0)
-    if np.any(x.std(axis=0) == 0):
+    x = np.empty((n_pp, len(columns)))
+    for j, column in enumerate(columns):  # a loop over predictors
+        x[:, j] = column[risk]
+    spread = x.std(axis=0)
+    if np.any(spread == 0):
         return empty("a predictor is constant over the person-periods: not fitted")
+    x[:, 1:] = (x[:, 1:] - x[:, 1:].mean(axis=0)) / spread[1:]
     level = (np.cumsum(waves_used) - 1)[wave]                    # intercept index per row
     fit = _newton_logit(y, x, level, int(waves_used.sum()), max_iter, tol)
     if fit is None:
@@ -378,23 +381,24 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
 def _newton_logit(y, x, level, n_levels, max_iter, tol):
     """Logit with one intercept per level and slopes on x by Newton-Raphson;
-    returns (slopes, their standard errors, iterations) or None."""
+    returns (slopes, their standard errors, iterations) or None. The information
+    matrix is assembled from per-level sums (the intercept block is diagonal)."""
     k = x.shape[1]
     events = np.bincount(level, weights=y, minlength=n_levels)
     size = np.bincount(level, minlength=n_levels)
     alpha = np.log(events / (size - events))
     beta = np.zeros(k)
+    info = None
     for iteration in range(1, max_iter + 1):
-        eta = alpha[level] + x @ beta
-        prob = special.expit(eta)
-        w = prob * (1 - prob)
+        prob = special.expit(alpha[level] + x @ beta)
         r = y - prob
+        w = prob * (1 - prob)
         grad = np.r_[np.bincount(level, weights=r, minlength=n_levels), x.T @ r]
-        h_aa = np.bincount(level, weights=w, minlength=n_levels)
-        h_ab = np.column_stack([np.bincount(level, weights=w * x[:, j], minlength=n_levels)
+        wx = x * w[:, None]
+        h_ab = np.column_stack([np.bincount(level, weights=wx[:, j], minlength=n_levels)
                                 for j in range(k)])  # a loop over predictors
-        h_bb = x.T @ (w[:, None] * x)
-        info = np.block([[np.diag(h_aa), h_ab], [h_ab.T, h_bb]])
+        info = np.block([[np.diag(np.bincount(level, weights=w, minlength=n_levels)), h_ab],
+                         [h_ab.T, x.T @ wx]])
         try:
             step = np.linalg.solve(info, grad)
         except np.linalg.LinAlgError:
@@ -404,18 +408,13 @@ def _newton_logit(y, x, level, n_levels, max_iter, tol):
         alpha = alpha + step[:n_levels]
         beta = beta + step[n_levels:]
         if np.max(np.abs(step)) < tol:
-            break
+            break   # the last step was negligible: the information is at the estimate
     else:
         return None
-    eta = alpha[level] + x @ beta
-    prob = special.expit(eta)
-    w = prob * (1 - prob)
-    h_aa = np.bincount(level, weights=w, minlength=n_levels)
-    h_ab = np.column_stack([np.bincount(level, weights=w * x[:, j], minlength=n_levels)
-                            for j in range(k)])
-    info = np.block([[np.diag(h_aa), h_ab], [h_ab.T, x.T @ (w[:, None] * x)]])
-    cov = np.linalg.inv(info)
-    se = np.sqrt(np.diag(cov)[n_levels:])
+    try:
+        se = np.sqrt(np.diag(np.linalg.inv(info))[n_levels:])
+    except np.linalg.LinAlgError:
+        return None
     if np.max(np.abs(beta)) > 20 or not np.all(np.isfinite(se)):
         return None
     return beta, se, iteration
