@@ -21,7 +21,7 @@ LONG = ["--id", "household", "--wave", "year", "--missing-codes", "-9,-8"]
 
 @pytest.fixture(scope="module")
 def demo_bytes() -> bytes:
-    result = run_cli("demo", "--households", "150", "-")
+    result = run_cli("demo", "--households", "100", "-")
     assert result.returncode == 0, result.stderr
     return result.stdout
 
@@ -35,8 +35,10 @@ def demo_file(tmp_path_factory, demo_bytes):
 
 @pytest.fixture(scope="module")
 def quiet_run(demo_file, tmp_path_factory):
-    out = tmp_path_factory.mktemp("quiet") / "report.json"
-    result = run_cli("screen", demo_file, *LONG, "--value", "trust", "--json", out, "--quiet")
+    folder = tmp_path_factory.mktemp("quiet")
+    out = folder / "report.json"
+    result = run_forked(["screen", demo_file, *LONG, "--value", "trust", "--json", out,
+                         "--quiet"], folder)
     return result, out
 
 
@@ -70,13 +72,13 @@ def terminal_run(demo_file, tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def piped_run(demo_bytes, tmp_path_factory):
-    """`paneldiag demo - | paneldiag screen - ...` with three measures."""
+    """`paneldiag demo - | paneldiag screen - ...` with two measures."""
     out = tmp_path_factory.mktemp("piped") / "report.json"
-    demo = subprocess.Popen([sys.executable, "-m", "paneldiag", "demo", "--households", "150",
+    demo = subprocess.Popen([sys.executable, "-m", "paneldiag", "demo", "--households", "100",
                              "-"], stdout=subprocess.PIPE)
     screen = subprocess.run([sys.executable, "-m", "paneldiag", "screen", "-", *LONG,
-                             "--value", "satisfaction", "--value", "energy_use", "--value",
-                             "trust", "--weight", "weight", "--json", str(out)],
+                             "--value", "energy_use", "--value", "trust", "--weight", "weight",
+                             "--json", str(out)],
                             stdin=demo.stdout, capture_output=True)
     demo.stdout.close()
     assert demo.wait() == 0
@@ -133,7 +135,7 @@ def test_report_foundation_keys(quiet_run, demo_file, demo_bytes):
     # the demo's years: 2015-2023 without 2020 (paneldiag/demo.py)
     assert panel["waves"] == ["2015", "2016", "2017", "2018", "2019", "2021", "2022", "2023"]
     assert panel["times"] == [2015, 2016, 2017, 2018, 2019, 2021, 2022, 2023]
-    assert panel["n_units"] == ledger["units"] == 150 and panel["n_waves"] == 8
+    assert panel["n_units"] == ledger["units"] == 100 and panel["n_waves"] == 8
     rows = report["wave_profile"]
     assert [r["wave"] for r in rows] == panel["waves"]
     for row in rows:
@@ -162,13 +164,13 @@ def test_piped_demo_with_several_measures(piped_run):
     assert result.stderr == b""      # not --quiet, but stderr is a pipe: no progress
     report = json.loads(out.read_text(encoding="utf-8"))
     assert report["input"]["path"] == "-"
-    assert list(report["measures"]) == ["satisfaction", "energy_use", "trust"]
+    assert list(report["measures"]) == ["energy_use", "trust"]
     for name, measure in report["measures"].items():
         assert measure["measure"] == name
         assert measure["ledger"]["rows_read"] == \
             measure["ledger"]["rows_used"] + measure["ledger"]["rows_dropped"]
         assert "weighted_mean" in measure["wave_profile"][0]
-    # energy_use has no refusal codes; the 0-10 and 1-5 scales do (paneldiag/demo.py)
+    # energy_use has no refusal codes; the 0-10 trust scale does (paneldiag/demo.py)
     reasons = {n: m["ledger"]["dropped_by_reason"] for n, m in report["measures"].items()}
     assert "declared_missing_code" not in reasons["energy_use"]
     assert reasons["trust"]["declared_missing_code"] > 0
