@@ -576,7 +576,7 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     kept, n_duplicate = _resolve_duplicates(raw, spec, unit_index, rows, unit_ids, ("",), 1)
     if spec.duplicates == "mean" and n_duplicate:
         raise InputProblem("--duplicates mean is for long data; choose first or last for "
-                           "repeated ids in wide data", column=spec.id)
+                           "repeated ids in wide data", file=raw.source, column=spec.id)
     rows, unit_rows = rows[kept], unit_index[kept]
     n_units = len(unit_ids)
     structural = {"missing_id": int(id_missing.sum()), "duplicate_unit_wave": n_duplicate}
