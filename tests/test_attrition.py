@@ -60,7 +60,13 @@ def test_btheb_retention_matches_pandas(btheb, btheb_report):
     for row, col in zip(rows, BDI):
         assert row["n_observed"] == int(seen[col].sum())
         assert row["response_share"] == pytest.approx(seen[col].mean())
-        assert row["retained_share"] == pytest.approx((seen[col] & first).sum() / first.sum())
+        lost = int((first & ~seen[col]).sum())
+        if 0 < lost < 5:   # 97 of 100 retained at 2 months would reveal the 3 lost
+            assert row["retained_share"] is None
+        else:
+            assert row["retained_share"] == pytest.approx((seen[col] & first).sum()
+                                                          / first.sum())
+    assert rows[1]["retained_share"] is None and rows[2]["retained_share"] is not None
 
 
 def test_btheb_unit_types_and_disclosure(btheb, btheb_report):
@@ -101,11 +107,16 @@ def test_btheb_patterns_pool_small_ones(btheb, btheb_report):
 def test_btheb_coverage_matches_pandas(btheb, btheb_report):
     # source: HSAUR BtheB; pairwise coverage with a pandas matrix product
     seen = btheb[BDI].notna().astype(int)
-    both = seen.T @ seen
+    both = (seen.T @ seen).to_numpy()
+    alone = np.diag(both)[:, None] - both       # seen at s but not at t
+    withheld = ((alone > 0) & (alone < 5)) | ((alone.T > 0) & (alone.T < 5))
     cov = btheb_report["missingness"]["coverage"]
-    assert cov["n"] == both.to_numpy().tolist()
-    assert np.allclose(cov["share"], both.to_numpy() / len(btheb))
-    assert cov["lowest"]["share"] == pytest.approx(both.to_numpy().min() / len(btheb))
+    expected = np.where(withheld, None, both).tolist()
+    assert cov["n"] == expected
+    assert cov["n"][0][1] is None        # 100 at baseline, 97 of them at 2 months
+    shares = np.array([[np.nan if v is None else v for v in row] for row in cov["share"]])
+    assert np.allclose(shares, np.where(withheld, np.nan, both / len(btheb)), equal_nan=True)
+    assert cov["lowest"]["share"] == pytest.approx(both.min() / len(btheb))
 
 
 def test_btheb_dropout_differences_match_pingouin(btheb, btheb_report):
@@ -159,8 +170,10 @@ def test_muscatine_types_patterns_and_coverage_match_pandas(muscatine):
     assert types["late_entry_then_dropout"] == int(counts.get(".o.", 0))
     assert types["intermittent"] == int(counts.get("o.o", 0))
     assert int(counts.get("...", 0)) == 0 and types["never_observed"] is None  # below 5
-    both = wide.astype(int).T @ wide.astype(int)
-    assert report["missingness"]["coverage"]["n"] == both.to_numpy().tolist()
+    both = (wide.astype(int).T @ wide.astype(int)).to_numpy()
+    alone = np.diag(both)[:, None] - both
+    assert not ((alone > 0) & (alone < 5)).any()   # large cohort: nothing withheld
+    assert report["missingness"]["coverage"]["n"] == both.tolist()
     ret = report["attrition"]["retention"]
     assert [r["n_observed"] for r in ret] == wide.sum().tolist()
 

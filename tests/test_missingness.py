@@ -304,6 +304,12 @@ def test_demo_report_shows_no_count_below_min_cell(tmp_path):
     counts += [c for row in mis["codes"]["rows"] for c in row["counts"]]
     assert all(c is None or c >= 12 for c in counts)
     assert any(c is None for c in counts)   # the demo does have small cells
+    # nor can one be had by subtraction between the shown diagonal and a shown pair
+    cov = mis["coverage"]["n"]
+    for s, row in enumerate(cov):
+        for t, cell in enumerate(row):
+            if cell is not None and cov[s][s] is not None:
+                assert cov[s][s] - cell == 0 or cov[s][s] - cell >= 12
     # the terminal never prints a pattern the JSON withholds
     text = done.stdout.decode()
     shown = {r["pattern"] for r in mis["patterns"]["rows"]}

@@ -84,7 +84,8 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
 
     A unit counts as observed at a wave when the measure has a value there
     (declared missing codes count as missing). Waves below ``min_cell`` observed
-    units are suppressed with their shares.
+    units are suppressed with their shares; a retention share is withheld too when
+    it would reveal that 1 to ``min_cell`` - 1 first-wave respondents were missing.
 
     References
     ----------
@@ -99,7 +100,9 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
     rows = []
     for t, label in enumerate(wave_labels):
         ok = observed[t] >= min_cell
-        keep_ret = ok and base >= min_cell and still[t] >= min_cell
+        lost = base - still[t]    # first-wave respondents not observed at this wave
+        keep_ret = (ok and base >= min_cell and still[t] >= min_cell
+                    and not 0 < lost < min_cell)
         rows.append(RetentionRow(
             wave=str(label), n_observed=_count(observed[t], ok),
             retained_share=float(still[t] / base) if keep_ret else None,
@@ -238,7 +241,8 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     large-sample variance v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)) and q the
     0.975 quantile of Student's t on n1 + n2 - 2 df (close to 1.96 for large groups). Negative g: the leavers scored
     lower. Units who skip the next wave but return later are in neither group.
-    Groups below ``min_cell`` units are suppressed with their means and g.
+    When either group is below ``min_cell`` units both counts, the small group's
+    mean and g are withheld.
 
     References
     ----------
@@ -254,7 +258,8 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
         leave = last == t
         n1, m1, ss1 = _group_moments(patterns, stay, t)
         n2, m2, ss2 = _group_moments(patterns, leave, t)
-        ok1, ok2 = n1 >= min_cell, n2 >= min_cell
+        big1, ok2 = n1 >= min_cell, n2 >= min_cell
+        ok1 = big1 and ok2   # the continuing count next to a withheld one would reveal it
         g = lo = hi = None
         if ok1 and ok2 and n1 + n2 > 2:
             sd = np.sqrt((ss1 + ss2) / (n1 + n2 - 2))
@@ -265,7 +270,7 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
                 lo, hi = g - half, g + half
         out.append(DropoutDifference(
             str(wave_labels[t]), _count(n1, ok1), _count(n2, ok2),
-            m1 if ok1 else None, m2 if ok2 else None, g, lo, hi))
+            m1 if big1 else None, m2 if ok2 else None, g, lo, hi))
     return tuple(out)
 
 

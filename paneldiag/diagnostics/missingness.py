@@ -402,7 +402,9 @@ def _int_matrix(a):
 def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Coverage:
     """Pairwise coverage: the share of units observed at both waves of each pair,
     the quantity behind pairwise-available estimates. Cells below ``min_cell``
-    are null.
+    are null, and so is a cell whose difference from either wave's own count (the
+    units seen at one wave of the pair but not the other) would be a count of 1 to
+    ``min_cell`` - 1, since the diagonal is shown.
 
     References
     ----------
@@ -412,7 +414,9 @@ def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Covera
     obs = patterns.observed.astype(float)
     both = (obs * patterns.n[:, None]).T @ obs
     total = patterns.n.sum()
-    show = both >= min_cell
+    alone = np.diag(both)[:, None] - both          # seen at s, not at t
+    small = lambda a: (a > 0) & (a < min_cell)    # noqa: E731
+    show = (both >= min_cell) & ~small(alone) & ~small(alone.T)
     n = np.where(show, both, np.nan)
     share = np.where(show, both / total if total else np.nan, np.nan)
     labels = tuple(str(w) for w in wave_labels)
