@@ -176,6 +176,7 @@ def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
     head = _text_head(path, raw)
     _check_text(path, head)
     sep = delimiter or ("\t" if fmt == "tsv" else ",")
+    sep = {"\\t": "\t", "tab": "\t"}.get(sep, sep)  # as the shell passes a typed \t
     if len(sep) != 1:
         raise InputProblem(f"the delimiter must be one character, got {sep!r}")
     header_line = head.lstrip(b"\xef\xbb\xbf").split(b"\n", 1)[0].decode("utf-8", "replace")

@@ -424,7 +424,7 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
             text_bad &= pd.isna(raw.tagged_missing[column][rows])
         outcome[text_bad] = NON_NUMERIC
         _refuse(raw, spec, column, rows, text_bad, "non-numeric value",
-                lambda i: f" '{series.iloc[i]}'")
+                lambda i: _shown_value(series.iloc[i]))
     infinite = np.isinf(numbers)
     outcome[infinite] = INFINITE
     _refuse(raw, spec, column, rows, infinite, "infinite value", lambda i: "")
@@ -463,6 +463,13 @@ def _refuse(raw, spec, column, rows, mask, what, detail) -> None:
             f"{what}{detail(i)} in {int(mask.sum())} cell(s) of '{column}'; fix them or pass "
             "--drop-bad-rows to drop and count them",
             file=raw.source, row=raw.row_number(rows[i]), column=column)
+
+
+def _shown_value(value) -> str:
+    text = str(value)
+    if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", text):
+        return f" '{text}' (a decimal comma? write numbers with a decimal point)"
+    return f" '{text}'"
 
 
 def _cell_means(outcome, numbers, cell, n_units, n_waves) -> np.ndarray:
