@@ -172,3 +172,21 @@ def test_output_folder_missing(tmp_path):
     assert result.returncode == 2 and len(lines) == 1
     assert "output folder does not exist" in lines[0]
     assert sorted(p.name for p in tmp_path.iterdir()) == ["tenants.csv"]
+
+
+@pytest.mark.parametrize("target,fragment", [("no-such-file.csv", "file not found"),
+                                             (".", "is a folder, not a file")])
+def test_paths_that_are_not_files(tmp_path, target, fragment):
+    result = run_forked(["screen", target, "--format", "csv", "--id", "household", "--wave",
+                         "year", "--value", "trust", "--json", "report.json"], tmp_path)
+    lines = result.stderr.decode().splitlines()
+    assert result.returncode == 2 and len(lines) == 1
+    assert fragment in lines[0] and lines[0].endswith(f"({target})")
+    assert not (tmp_path / "report.json").exists()
+
+
+def test_empty_standard_input(tmp_path):
+    result = run_cli("screen", "-", "--id", "household", "--wave", "year", "--value", "trust",
+                     stdin=b"")
+    assert result.returncode == 2
+    assert result.stderr.decode() == "paneldiag: error: file is empty (-)\n"
