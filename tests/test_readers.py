@@ -270,3 +270,21 @@ def test_blank_lines_and_quoted_breaks_keep_line_numbers(tmp_path):
     with pytest.raises(InputProblem) as info:
         build_panel(read_table(str(path), columns=SPEC.columns()), SPEC)
     assert (info.value.row, info.value.column) == (7, "score")
+
+
+def test_spss_wide_user_missing_per_wave_column(tmp_path):
+    frame = pd.DataFrame({"hh": ["H1", "H2", "H3"], "t1": [1.0, -9, 3], "t2": [-8, 2.0, 4],
+                          "t3": [5.0, 6, -9]})
+    path = tmp_path / "wide.sav"
+    waves = ["t1", "t2", "t3"]
+    pyreadstat.write_sav(frame, str(path), missing_ranges={c: [-9, -8] for c in waves},
+                         variable_value_labels={c: {-9: "refused", -8: "don't know"}
+                                                for c in waves})
+    spec = LayoutSpec(id="hh", wide=(("trust", tuple(waves)),))
+    panel, ledgers = build_panel(read_table(str(path), columns=spec.columns()), spec)
+    np.testing.assert_array_equal(panel.values["trust"],
+                                  [[1, np.nan, 5], [np.nan, 2, 6], [3, 4, np.nan]])
+    assert {k: v.tolist() for k, v in panel.codes["trust"].items()} == \
+        {"-8": [0, 1, 0], "-9": [1, 0, 1]}
+    assert panel.code_labels["trust"] == {"-9": "refused", "-8": "don't know"}
+    assert ledgers["trust"].cells["declared_missing_code"] == 3
