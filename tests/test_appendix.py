@@ -37,7 +37,7 @@ def runs(tmp_path_factory):
     """The invented demo panel (Ostervale Tenant Panel), screened twice: once with the
     options above, once with the command line the first report records."""
     base = tmp_path_factory.mktemp("appendix")
-    demo = run_cli("demo", "tenants.csv", "--households", "240", cwd=base)
+    demo = run_cli("demo", "tenants.csv", "--households", "160", cwd=base)
     assert demo.returncode == 0, demo.stderr
     done = run_cli("screen", "tenants.csv", *SCREEN, "--report", "one", "--quiet", cwd=base)
     assert done.returncode == 0, done.stderr
