@@ -115,7 +115,7 @@ caption { caption-side: top; text-align: left; font-weight: bold; padding-bottom
 th, td { padding: .2rem .6rem; }
 thead th { border-top: 2px solid #111; border-bottom: 1px solid #111; }
 tbody tr:last-child td { border-bottom: 2px solid #111; }
-td.r, th.r { text-align: right; } td.l, th.l { text-align: left; } td.c, th.c { text-align: center; }
+td.r, th.r { text-align: right; white-space: nowrap; } td.l, th.l { text-align: left; } td.c, th.c { text-align: center; }
 .tnote { font-size: .85rem; font-style: italic; margin-top: -.8rem; }
 .caution { border: 2px solid #D55E00; background: #fff6ef; padding: .6rem 1rem;
            margin: 1rem 0; }

@@ -248,16 +248,12 @@ def missingness(report: dict, cite: Citations) -> list[str]:
                    f"{patterns_used} ({pval(mcar['pvalue'])}): {verdict}.{basis}")
     codes = (section.get("codes") or {}).get("rows")
     if isinstance(codes, list) and codes:
-        parts = []
-        for row in codes:
-            shown = [c for c in row.get("counts") or [] if ok(c)]
-            if shown and row.get("code") is not None:
-                name = f"{row['code']}" + (f" ({row['label']})" if row.get("label") else "")
-                parts.append(f"code {name} at {count(len(shown))} wave(s)")
-        if parts:
-            out.append("Declared missing-value codes were counted separately from plain "
-                       "missing values: " + _join(parts) + "; counts below the minimum cell "
-                       "size are not shown.")
+        names = [str(row["code"]) + (f" ({row['label']})" if row.get("label") else "")
+                 for row in codes if isinstance(row, dict) and row.get("code") is not None]
+        if names:
+            out.append("Declared missing-value codes (" + ", ".join(names) + ") were counted "
+                       "per wave, separately from plain missing values; counts below the "
+                       "minimum cell size are not shown.")
     return out
 
 
@@ -287,7 +283,7 @@ def dependence(report: dict, cite: Citations) -> list[str]:
             text += (" Fitting a + b rho^d to the decay of correlation with time distance d "
                      f"{cite('kenny1995')}, " + _join(parts) + ".")
     elif fit.get("reason"):
-        text += f" The decay curve was not identified: {fit['reason']}."
+        text += f" The decay curve was not identified ({fit['reason']})."
     refs = []
     for key, words in (("flat_vs_full", "no decay"), ("pure_decay_vs_full", "no stable part")):
         test = fit.get(key)
