@@ -366,3 +366,14 @@ def test_panel_construction_has_no_loop_over_rows(tmp_path, fmt):
 
     small, large = count_lines(build(50)), count_lines(build(2000))
     assert large <= small + 20, (small, large)
+
+
+def test_padded_ids_and_wave_labels_are_trimmed(tmp_path):
+    # fixed-width exports pad text: ' W1' and 'W1 ' are the wave W1, ' B' is the unit B
+    text = "unit,wave,y\nA,W1,1\nA,W2,2\n B,W1 ,3\nB , W2,4\n"
+    panel, _ = panel_from_text(tmp_path, text)
+    assert panel.wave_labels == ("W1", "W2")
+    assert panel.unit_ids.tolist() == ["A", "B"]
+    np.testing.assert_array_equal(panel.values["y"], [[1, 2], [3, 4]])
+    with pytest.raises(InputProblem, match="A at wave W1"):
+        panel_from_text(tmp_path, text + " A,W1,5\n")

@@ -253,12 +253,21 @@ def _factorize_ids(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.
     dense = _dense_integer_codes(ids)
     if dense is not None:
         return dense
-    codes, uniques = pd.factorize(ids, sort=True)
+    codes, uniques = pd.factorize(_trimmed(ids), sort=True)
     numeric = pd.api.types.is_numeric_dtype(uniques.dtype) and uniques.dtype.kind != "b"
     uniques = np.asarray(uniques, dtype=None if numeric else object)  # int ids stay exact
     if uniques.dtype.kind == "f" and np.all(np.mod(uniques, 1) == 0):
         uniques = uniques.astype(np.int64)
     return codes.astype(np.int64), uniques
+
+
+def _trimmed(column: pd.Series) -> pd.Series:
+    """Text without surrounding spaces: ' H1' and 'H1 ' (padded exports) are the unit H1."""
+    if pd.api.types.is_numeric_dtype(column) or pd.api.types.is_datetime64_any_dtype(column):
+        return column
+    if not isinstance(column.dtype, pd.ArrowDtype):
+        column = column.astype("string")
+    return column.str.strip()
 
 
 def _dense_integer_codes(column: pd.Series):
@@ -295,7 +304,7 @@ def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
     column = raw.frame[spec.wave]
     column = column.iloc[rows] if len(rows) != len(column) else column
     dense = _dense_integer_codes(column)  # integer waves: codes already in sorted order
-    codes, uniques = dense if dense is not None else pd.factorize(column, sort=False)
+    codes, uniques = dense if dense is not None else pd.factorize(_trimmed(column), sort=False)
     kind, keys = _wave_kind(raw, spec.wave, column, codes, uniques)
     if kind == "text" and spec.wave_order == "given":
         order = np.arange(len(keys))
