@@ -506,10 +506,11 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
 
     # occasion noise
     ev_text["occasion_noise"].append(dep_sentence)
-    if G:
-        verdict["occasion_noise"] = "unlikely"
-    elif dep_absent:
+    if dep_absent:  # no dependence to speak of: nothing else can be evidenced
         verdict["occasion_noise"] = "supported"
+        G = False
+    elif G:
+        verdict["occasion_noise"] = "unlikely"
     elif dep_clear:
         verdict["occasion_noise"] = "unlikely"
     else:
