@@ -244,33 +244,77 @@ def test_little_detects_dropout_full_grid():
 
 # ------------------------------------------------- patterns, coverage and codes
 
-def test_response_patterns_never_show_a_small_pattern():
-    # disclosure rule (common practice: minimum cell size 5): hand-made counts
-    from paneldiag.diagnostics.missingness import response_patterns
-    counts = {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 4, ".oo": 2, "..o": 1}
-    rows = [[1.0 if c == "o" else np.nan for c in p] for p, n in counts.items()
-            for _ in range(n)]
-    table = response_patterns(_summary(np.array(rows)), min_cell=5, top=10).to_dict()
-    shown = {r["pattern"]: r["n"] for r in table["rows"]}
-    # 4 + 2 + 1 = 7 small units pooled: the remainder holds 7 >= 5, so it is shown
-    assert shown == {"ooo": 40, "oo.": 12, "o..": 6}
-    assert table["remainder"]["n_units"] == 7 and table["remainder"]["n_small_units"] == 7
-    # with a top of 1 the remainder is 29, and with min cell 8 nothing under 8 is listed
-    table = response_patterns(_summary(np.array(rows)), min_cell=8, top=10).to_dict()
-    assert all(r["n"] >= 8 for r in table["rows"])
-    assert table["remainder"]["n_units"] in (0,) or table["remainder"]["n_units"] >= 8
-    assert table["remainder"]["n_small_units"] is None or \
-        table["remainder"]["n_small_units"] >= 8
+def _no_small_count_by_subtraction(att, mis, waves, min_cell):
+    """Disclosure audit on the JSON alone: for every total the report shows, the
+    units of that total not accounted for by listed patterns (or shown dropout
+    waves) are none or at least ``min_cell``."""
+    t = len(waves)
+    known = {r["pattern"]: r["n"] for r in mis["patterns"]["rows"]}
+    for i, r in enumerate(next(u for u in att["unit_types"]
+                               if u["type"] == "monotone_dropout").get("last_wave", [])):
+        if r["n"] is not None:
+            known["o" * (i + 1) + "." * (t - i - 1)] = r["n"]
+
+    def check(total, member):
+        if total is None:
+            return
+        rest = total - sum(n for p, n in known.items() if member(p))
+        assert rest == 0 or rest >= min_cell, (total, rest)
+
+    check(mis["patterns"]["n_units"], lambda p: True)
+    cov = mis["coverage"]["n"]
+    for a in range(t):
+        check(att["retention"][a]["n_observed"], lambda p: p[a] == "o")
+        for b in range(t):
+            if a != b and cov[a][b] is not None:
+                check(cov[a][b], lambda p: p[a] == "o" and p[b] == "o")
+                if cov[a][a] is not None:
+                    check(cov[a][a] - cov[a][b], lambda p: p[a] == "o" and p[b] == ".")
+    kinds = {"complete": lambda p: "." not in p,
+             "never_observed": lambda p: "o" not in p}
+    for u in att["unit_types"]:
+        if u["type"] in kinds:
+            check(u["n"], kinds[u["type"]])
 
 
-def test_lone_small_remainder_absorbs_the_smallest_listed_pattern():
-    from paneldiag.diagnostics.missingness import response_patterns
-    counts = {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 3}
+def _hand_made(counts):
     rows = [[1.0 if c == "o" else np.nan for c in p] for p, n in counts.items()
             for _ in range(n)]
-    table = response_patterns(_summary(np.array(rows)), min_cell=5).to_dict()
-    assert [r["pattern"] for r in table["rows"]] == ["ooo", "oo."]
-    assert table["remainder"]["n_units"] == 9 and table["remainder"]["n_small_units"] is None
+    return _summary(np.array(rows))
+
+
+@pytest.mark.parametrize("counts", [
+    {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 4, ".oo": 2, "..o": 1},
+    {"ooo": 40, "oo.": 12, "o..": 6, "o.o": 3},
+    {"oooo": 30, "ooo.": 20, "oo..": 9, "o...": 8, "o.oo": 7, ".ooo": 6, "oo.o": 2},
+])
+def test_response_patterns_never_reveal_a_small_count(counts):
+    # disclosure rule (common practice: minimum cell size 5) on hand-made counts:
+    # nothing below 5 is listed, nor recoverable by subtraction from a shown total
+    from paneldiag.diagnostics.attrition import retention, unit_types
+    from paneldiag.diagnostics.missingness import coverage, response_patterns
+    summary = _hand_made(counts)
+    waves = [str(i) for i in range(len(next(iter(counts))))]
+    table = response_patterns(summary, min_cell=5, top=10).to_dict()
+    assert all(r["n"] >= 5 for r in table["rows"])
+    assert set(r["pattern"] for r in table["rows"]) <= {p for p, n in counts.items()}
+    assert all(counts[r["pattern"]] == r["n"] for r in table["rows"])
+    rem = table["remainder"]["n_units"]
+    assert rem == 0 or rem >= 5
+    att = {"retention": retention(summary, waves, 5).to_dict(),
+           "unit_types": unit_types(summary, waves, 5).to_dict()}
+    mis = {"patterns": table, "coverage": coverage(summary, waves, 5).to_dict()}
+    _no_small_count_by_subtraction(att, mis, waves, 5)
+
+
+def test_small_pattern_pulls_in_the_patterns_that_would_reveal_it():
+    # "o.o" (3 units): wave 3 has 43 respondents, so listing "ooo" (40) would reveal
+    # it; the 3 + 6 units seen at wave 1 but not 2 make "o.." follow
+    from paneldiag.diagnostics.missingness import response_patterns
+    table = response_patterns(_hand_made({"ooo": 40, "oo.": 12, "o..": 6, "o.o": 3}),
+                              min_cell=5).to_dict()
+    assert [r["pattern"] for r in table["rows"]] == ["oo."]
+    assert table["remainder"]["n_units"] == 49 and table["remainder"]["n_small_units"] is None
 
 
 def test_declared_codes_suppress_small_cells_and_keep_labels():
@@ -304,7 +348,8 @@ def test_demo_report_shows_no_count_below_min_cell(tmp_path):
     counts += [c for row in mis["codes"]["rows"] for c in row["counts"]]
     assert all(c is None or c >= 12 for c in counts)
     assert any(c is None for c in counts)   # the demo does have small cells
-    # nor can one be had by subtraction between the shown diagonal and a shown pair
+    # nor can one be had by subtraction from a shown total
+    _no_small_count_by_subtraction(att, mis, report["panel"]["waves"], 12)
     cov = mis["coverage"]["n"]
     for s, row in enumerate(cov):
         for t, cell in enumerate(row):

@@ -21,7 +21,7 @@ import numpy as np
 from scipy import special, stats
 
 from paneldiag.results import Result
-from paneldiag.summaries.patterns import PatternMoments
+from paneldiag.summaries.patterns import PatternMoments, display_order
 
 Z95 = float(stats.norm.ppf(0.975))
 
@@ -52,6 +52,132 @@ def shown_mask(counts, min_cell: int, additive: bool = False) -> np.ndarray:
 
 def _count(value: float, shown: bool):
     return int(value) if shown else None
+
+
+def _small(a, min_cell: int):
+    """Counts of 1 to min_cell - 1 (a zero identifies no unit)."""
+    return (a > 0) & (a < min_cell)
+
+
+def coverage_counts(patterns: PatternMoments) -> np.ndarray:
+    """Units observed at both waves s and t, (T, T)."""
+    obs = patterns.observed.astype(float)
+    return (obs * patterns.n[:, None]).T @ obs
+
+
+def coverage_shown(both: np.ndarray, min_cell: int) -> np.ndarray:
+    """Which coverage cells may be shown: at least ``min_cell`` units, and the units
+    seen at only one wave of the pair (diagonal minus cell) not 1 to min_cell - 1."""
+    alone = np.diag(both)[:, None] - both
+    return (both >= min_cell) & ~_small(alone, min_cell) & ~_small(alone.T, min_cell)
+
+
+def _retention_shown(patterns: PatternMoments, min_cell: int):
+    observed = wave_observed(patterns)
+    first = patterns.observed[:, 0]
+    base = patterns.n[first].sum()
+    still = patterns.n[first] @ patterns.observed[first]
+    wave_ok = observed >= min_cell
+    ret_ok = wave_ok & (base >= min_cell) & (still >= min_cell) & \
+        ~_small(base - still, min_cell)
+    return observed, base, still, wave_ok, ret_ok
+
+
+def _type_shown(patterns: PatternMoments, min_cell: int):
+    codes = unit_type_codes(patterns.observed)
+    n_type = np.bincount(codes, weights=patterns.n, minlength=len(UNIT_TYPES))
+    return codes, n_type, shown_mask(n_type, min_cell, additive=True)
+
+
+def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -> np.ndarray:
+    """Which pattern counts the report may reveal, (P,) booleans.
+
+    Candidates: patterns with at least ``min_cell`` units that are either among the
+    ``top`` most frequent (listed in the pattern table) or monotone dropout patterns
+    (shown as counts by wave of last observation). Every total the report shows is a
+    sum over a set of patterns: all units, the respondents at a wave, a coverage cell
+    and the two one-wave-only differences next to it, the first-wave respondents kept
+    or lost at a wave, a unit type, the withheld types together, the leavers after a
+    wave. For each such set the units of its withheld patterns must be none or at
+    least ``min_cell`` together; otherwise the smallest revealed pattern of the set
+    is withheld too, until no set breaks the rule (each step only withholds more, so
+    this ends).
+    """
+    n, obs = patterns.n, patterns.observed
+    p, t = obs.shape
+    if p == 0:
+        return np.zeros(0, dtype=bool)
+    codes, n_type, type_ok = _type_shown(patterns, min_cell)
+    order = display_order(patterns)
+    rank = np.empty(p, dtype=int)
+    rank[order] = np.arange(p)
+    big = n >= min_cell
+    big_rank = np.cumsum(big[order]) - 1          # rank among the patterns with 5+ units
+    top_big = np.zeros(p, dtype=bool)
+    top_big[order] = big[order] & (big_rank < top)
+    known = big & (top_big | (codes == 1))
+    _, _, _, wave_ok, ret_ok = _retention_shown(patterns, min_cell)
+    cov_ok = coverage_shown(coverage_counts(patterns), min_cell)
+    pair_ok = cov_ok.copy()
+    pair_ok[0] |= ret_ok                            # first-wave respondents kept at b
+    np.fill_diagonal(pair_ok, False)
+    _, last, _, _ = response_history(obs)
+    n_types = len(UNIT_TYPES)
+    leave_n = np.bincount(last[last >= 0], weights=n[last >= 0], minlength=t)[:t - 1]
+    leave_ok = leave_n >= min_cell
+    hidden_types = ~type_ok if (type_ok.any() and not type_ok.all()) else np.zeros(
+        n_types, dtype=bool)
+
+    def members(kind, a, b):
+        """The patterns of one shown total (kinds: all, wave, both, only, type,
+        hidden types, leavers)."""
+        if kind == "all":
+            return np.ones(p, dtype=bool)
+        if kind == "wave":
+            return obs[:, a]
+        if kind == "both":
+            return obs[:, a] & obs[:, b]
+        if kind == "only":
+            return obs[:, a] & ~obs[:, b]
+        if kind == "type":
+            return codes == a
+        if kind == "hidden_types":
+            return hidden_types[codes]
+        return last == a
+
+    while True:
+        # the withheld units of every shown total, from a few matrix products
+        hid = np.where(known, 0.0, n)
+        at_wave = hid @ obs
+        pair = (obs * hid[:, None]).T @ obs
+        by_type = np.bincount(codes, weights=hid, minlength=n_types)
+        by_leave = np.bincount(last[last >= 0], weights=hid[last >= 0], minlength=t)[:t - 1]
+        broken = []
+        if _small(hid.sum(), min_cell):
+            broken.append(("all", 0, 0))
+        broken += [("wave", a, 0) for a in np.flatnonzero(wave_ok & _small(at_wave, min_cell))]
+        both_bad = pair_ok & _small(pair, min_cell)
+        only_bad = pair_ok & _small(at_wave[:, None] - pair, min_cell)
+        broken += [("both", a, b) for a, b in zip(*np.nonzero(both_bad))]
+        broken += [("only", a, b) for a, b in zip(*np.nonzero(only_bad))]
+        broken += [("type", k, 0) for k in np.flatnonzero(type_ok & _small(by_type, min_cell))]
+        if hidden_types.any() and _small(by_type[hidden_types].sum(), min_cell):
+            broken.append(("hidden_types", 0, 0))
+        broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & _small(by_leave,
+                                                                              min_cell))]
+        picked = False
+        for kind, a, b in broken:  # a loop over the totals that would reveal a count
+            inside = members(kind, a, b)
+            if not _small(n[inside & ~known].sum(), min_cell):
+                continue    # an earlier pick of this pass already mended it
+            pool = np.flatnonzero(inside & known)
+            if len(pool):
+                # withhold the smallest revealed pattern of the set (ties: display order)
+                known[pool[np.lexsort((rank[pool], n[pool]))[0]]] = False
+                picked = True
+        if not picked:
+            break
+    return known
 
 
 # ------------------------------------------------------------------------ retention
@@ -93,16 +219,10 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
     response in panel studies). Wiley.
     """
     n_all = patterns.n.sum()
-    observed = wave_observed(patterns)
-    first = patterns.observed[:, 0]
-    base = patterns.n[first].sum()
-    still = patterns.n[first] @ patterns.observed[first]
+    observed, base, still, wave_ok, ret_ok = _retention_shown(patterns, min_cell)
     rows = []
     for t, label in enumerate(wave_labels):
-        ok = observed[t] >= min_cell
-        lost = base - still[t]    # first-wave respondents not observed at this wave
-        keep_ret = (ok and base >= min_cell and still[t] >= min_cell
-                    and not 0 < lost < min_cell)
+        ok, keep_ret = bool(wave_ok[t]), bool(ret_ok[t])
         rows.append(RetentionRow(
             wave=str(label), n_observed=_count(observed[t], ok),
             retained_share=float(still[t] / base) if keep_ret else None,
@@ -167,7 +287,8 @@ class UnitTypes(Result):
         return rows
 
 
-def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> UnitTypes:
+def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5, top: int = 10,
+               ) -> UnitTypes:
     """Units by response history; the types are exclusive and add up to all units.
 
     - complete: observed at every wave;
@@ -187,10 +308,8 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Unit
     Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
     2nd ed., sec. 1.3 (monotone and non-monotone patterns). Wiley.
     """
-    codes = unit_type_codes(patterns.observed)
-    n_type = np.bincount(codes, weights=patterns.n, minlength=len(UNIT_TYPES))
+    codes, n_type, show = _type_shown(patterns, min_cell)
     total = patterns.n.sum()
-    show = shown_mask(n_type, min_cell, additive=True)
     types = tuple(TypeRow(name, _count(n_type[i], show[i]),
                           float(n_type[i] / total) if show[i] else None)
                   for i, name in enumerate(UNIT_TYPES))
@@ -198,7 +317,10 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Unit
     t = patterns.n_waves
     drop = codes == 1
     by_wave = np.bincount(last[drop], weights=patterns.n[drop], minlength=t)[:t - 1]
-    show_w = shown_mask(by_wave, min_cell, additive=True) & show[1]
+    # each wave of last observation is one monotone pattern: shown when it is known
+    known = known_patterns(patterns, min_cell, top)
+    show_w = np.zeros(t - 1, dtype=bool)
+    show_w[last[drop & known]] = True
     waves = tuple(DropoutWave(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
                               float(by_wave[i] / total) if show_w[i] else None)
                   for i in range(t - 1))

@@ -16,7 +16,9 @@ import numpy as np
 from scipy import stats
 
 from paneldiag.results import Result, plain
-from paneldiag.summaries.patterns import PatternMoments
+from paneldiag.diagnostics.attrition import coverage_shown, known_patterns
+from paneldiag.summaries.patterns import (MISSING_MARK, OBSERVED_MARK, PatternMoments,
+                                          display_order, pattern_text)
 
 
 # --------------------------------------------------------------------------- EM
@@ -290,18 +292,6 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
 
 # ------------------------------------------------------------- response patterns
 
-OBSERVED_MARK, MISSING_MARK = "o", "."
-
-
-def pattern_text(observed: np.ndarray) -> np.ndarray:
-    """Patterns as text, one character per wave: 'o' observed, '.' missing.
-    ``observed`` is (P, T) boolean; returns P strings (an object array)."""
-    observed = np.atleast_2d(np.asarray(observed, dtype=bool))
-    marks = np.where(observed, ord(OBSERVED_MARK), ord(MISSING_MARK)).astype(np.uint8)
-    text = np.ascontiguousarray(marks).view(f"S{observed.shape[1]}")[:, 0]
-    return text.astype(str).astype(object)
-
-
 @dataclass(frozen=True)
 class PatternRow(Result):
     pattern: str
@@ -347,6 +337,11 @@ def response_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10
                       ) -> ResponsePatterns:
     """Distinct observed/missing patterns of the waves with their unit counts.
 
+    A pattern among the ``top`` most frequent is listed unless ``known_patterns``
+    withholds it: no count of 1 to ``min_cell`` - 1 units can then be recovered by
+    subtracting listed patterns from any total the report shows (all units, a wave's
+    respondents, a coverage cell, a unit type).
+
     The display (one character per wave) and the pooling rules are paneldiag's own.
 
     References
@@ -356,14 +351,13 @@ def response_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10
     """
     total = float(patterns.n.sum())
     text = pattern_text(patterns.observed)
-    order = np.lexsort((text, -patterns.n)) if len(text) else np.zeros(0, dtype=int)
+    order = display_order(patterns)
     counts = patterns.n[order]
     big = counts >= min_cell
-    listed = list(np.flatnonzero(big)[:top])
+    known = known_patterns(patterns, min_cell, top)[order]
+    listed = [i for i in np.flatnonzero(big)[:top] if known[i]]
     small = counts[~big].sum()
     remainder = total - counts[listed].sum()
-    while 0 < remainder < min_cell and listed:
-        remainder += counts[listed.pop()]
     rows = tuple(PatternRow(text[order[i]], int(counts[i]), float(counts[i] / total),
                             int(patterns.observed[order[i]].sum())) for i in listed)
     return ResponsePatterns(
@@ -414,9 +408,7 @@ def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Covera
     obs = patterns.observed.astype(float)
     both = (obs * patterns.n[:, None]).T @ obs
     total = patterns.n.sum()
-    alone = np.diag(both)[:, None] - both          # seen at s, not at t
-    small = lambda a: (a > 0) & (a < min_cell)    # noqa: E731
-    show = (both >= min_cell) & ~small(alone) & ~small(alone.T)
+    show = coverage_shown(both, min_cell)
     n = np.where(show, both, np.nan)
     share = np.where(show, both / total if total else np.nan, np.nan)
     labels = tuple(str(w) for w in wave_labels)

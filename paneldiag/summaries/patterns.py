@@ -32,6 +32,27 @@ def pattern_keys(observed: np.ndarray) -> np.ndarray:
     return packed.view(np.dtype((np.void, packed.shape[1])))[:, 0]
 
 
+OBSERVED_MARK, MISSING_MARK = "o", "."
+
+
+def pattern_text(observed: np.ndarray) -> np.ndarray:
+    """Patterns as text, one character per wave: 'o' observed, '.' missing.
+    ``observed`` is (P, T) boolean; returns P strings (an object array)."""
+    observed = np.atleast_2d(np.asarray(observed, dtype=bool))
+    if observed.shape[0] == 0:
+        return np.zeros(0, dtype=object)
+    marks = np.where(observed, ord(OBSERVED_MARK), ord(MISSING_MARK)).astype(np.uint8)
+    text = np.ascontiguousarray(marks).view(f"S{observed.shape[1]}")[:, 0]
+    return text.astype(str).astype(object)
+
+
+def display_order(patterns: "PatternMoments") -> np.ndarray:
+    """Pattern indices, most units first, ties by pattern text."""
+    if patterns.n_patterns == 0:
+        return np.zeros(0, dtype=int)
+    return np.lexsort((pattern_text(patterns.observed), -patterns.n))
+
+
 @dataclass(frozen=True)
 class PatternMoments:
     """Sufficient statistics per distinct response pattern, patterns in key order."""
