@@ -319,3 +319,10 @@ def test_quiet_prints_nothing_and_no_color_is_honoured(runs):
                            capture_output=True, cwd=runs, env=env)
     assert shown.returncode == 0 and b"\033[" not in shown.stdout
     assert b"Key figures" in shown.stdout
+
+
+def test_measure_names_that_slug_alike_get_distinct_files():
+    stems = appendix.measure_stems({"measures": {"a b": {}, "a-b": {}, "A_B": {}}})
+    assert len(set(stems.values())) == 3
+    assert appendix.command_line({"path": "-", "options": {"layout": "long", "id": "u"}}) \
+        == "paneldiag screen - --id u"

@@ -39,6 +39,17 @@ def slug(text: str) -> str:
     return re.sub(r"[^A-Za-z0-9]+", "-", str(text)).strip("-").lower() or "x"
 
 
+def measure_stems(report: dict) -> dict[str, str]:
+    """A distinct file stem per measure (a number is added when two names slug alike)."""
+    stems: dict[str, str] = {}
+    for measure in measure_reports(report):
+        stem, k = slug(measure), 2
+        while stem in stems.values():
+            stem, k = f"{slug(measure)}-{k}", k + 1
+        stems[measure] = stem
+    return stems
+
+
 def _n(value, min_cell: int) -> str:
     """A count, or '< min_cell' when it is below the disclosure threshold."""
     if value is None:
@@ -254,6 +265,11 @@ def _versions() -> list[str]:
     return out
 
 
+def _input_name(info: dict) -> str:
+    path = str(info.get("path", "-"))
+    return "standard input" if path == "-" else os.path.basename(path)
+
+
 def reproducibility(report: dict) -> list:
     info = report.get("input", {})
     options = info.get("options", {})
@@ -263,8 +279,7 @@ def reproducibility(report: dict) -> list:
                  for key, value in options.items())
     facts = [f"paneldiag {report['tool']['version']} (JSON schema {report['schema_version']}); "
              + "; ".join(_versions()),
-             f"Input file: {os.path.basename(str(info.get('path', '-')))}"
-             f" (format {info.get('format', 'unknown')})",
+             f"Input file: {_input_name(info)} (format {info.get('format', 'unknown')})",
              f"SHA-256 of the input: {info.get('sha256', 'unknown')}"]
     return [Heading(2, "Reproducibility", "reproducibility"), ListBlock(tuple(facts)),
             Table("options", "Options of the screen", ("option", "value"), rows,
@@ -300,8 +315,8 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
     min_cell = _min_cell(report)
     info = report.get("input", {})
     blocks: list = [Heading(1, TITLE),
-                    Paragraph(f"Screening of {os.path.basename(str(info.get('path', '-')))} "
-                              f"with paneldiag {report['tool']['version']}. "),
+                    Paragraph(f"Screening of {_input_name(info)} with paneldiag "
+                              f"{report['tool']['version']}."),
                     cautions_note(report)]
     paragraphs: list[str] = []
 
@@ -316,8 +331,9 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
             blocks.append(FigureRef(name, caption, svg))
 
     reports = measure_reports(report)
+    stems = measure_stems(report)
     for measure, rep in reports.items():
-        stem = slug(measure)
+        stem = stems[measure]
         blocks.append(Heading(2, f"Measure: {measure}", f"measure-{stem}"))
         for title, writer in prose.MEASURE_PROSE:
             texts = writer(rep, cite)
@@ -359,7 +375,7 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
             blocks.append(Heading(3, f"{pair['x']} and {pair['y']}"))
             add_prose(prose.cross_lag(pair, cite))
             blocks.append(cross_lag_table(pair, min_cell))
-            add_figure(f"cross-lag-{slug(pair['x'])}-{slug(pair['y'])}")
+            add_figure(f"cross-lag-{stems[pair['x']]}-{stems[pair['y']]}")
     methods = ("All confidence intervals are 95% intervals. Correlations are averaged on the "
                f"Fisher z scale {cite('fisher1921', 'hedges1985')}; their intervals come from "
                f"the delete-a-group jackknife over replicate groups of units "
@@ -376,8 +392,9 @@ def draw_figures(report: dict, panel=None, trajectory_sample: int = 0,
                  trajectory_seed: int = 1) -> dict[str, tuple[str, bytes, bytes]]:
     """Every figure whose data are present: stem -> (caption, PNG bytes, SVG bytes)."""
     out = {}
+    stems = measure_stems(report)
     for measure, rep in measure_reports(report).items():
-        stem = slug(measure)
+        stem = stems[measure]
         for name, draw, caption in figs.MEASURE_FIGURES:
             drawn = figs.render(draw, rep)
             if drawn:
@@ -392,7 +409,7 @@ def draw_figures(report: dict, panel=None, trajectory_sample: int = 0,
     for pair in report.get("cross_lag") or []:
         drawn = figs.render(figs.cross_lag_figure, pair)
         if drawn:
-            out[f"cross-lag-{slug(pair['x'])}-{slug(pair['y'])}"] = (
+            out[f"cross-lag-{stems[pair['x']]}-{stems[pair['y']]}"] = (
                 f"Cross-lagged correlations of {pair['x']} and {pair['y']} by lag, both "
                 "directions, with 95% CIs.", *drawn)
     return out
