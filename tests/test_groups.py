@@ -103,16 +103,19 @@ def _pandas_lag1(frame: pd.DataFrame) -> float:
 
 @pytest.fixture(scope="module")
 def differing(tmp_path_factory):
-    frame = _frame({"North": 0.3, "South": 0.85, "Tiny": 0.5},
-                   {"North": 250, "South": 250, "Tiny": 3})
+    frame = _frame({"North": 0.3, "South": 0.85, "Mid": 0.6, "Tiny": 0.5},
+                   {"North": 250, "South": 250, "Mid": 30, "Tiny": 3})
     return frame, _screen(tmp_path_factory.mktemp("g"), frame)
 
 
 def test_small_groups_are_not_reported(differing):
     _, report = differing
     groups = report["groups"]
-    assert groups["n_groups"] == 3 and groups["n_reported"] == 2 and groups["n_suppressed"] == 1
-    assert "Tiny" not in json.dumps(groups)
+    # Tiny (3 units) is below the cell size; Mid (30) goes too, or Tiny's count would
+    # follow from the panel's total minus the shown groups'
+    assert groups["n_groups"] == 4 and groups["n_suppressed"] == 2
+    assert sorted(groups["reports"]) == ["North", "South"]
+    assert "Tiny" not in json.dumps(groups) and "Mid" not in json.dumps(groups)
     assert "not reported" in groups["note"]
 
 
@@ -164,3 +167,16 @@ def test_wilson_interval_matches_statsmodels():
     for kept, base in ((54, 100), (3, 40), (40, 40)):
         ref = proportion_confint(kept, base, alpha=0.05, method="wilson")
         assert wilson_interval(kept, base) == pytest.approx(ref, rel=1e-10)
+
+
+def test_secondary_suppression_stops_differencing():
+    """A hidden group of 3 units would follow by subtraction from the panel's total;
+    the next smallest group is hidden too (common practice in disclosure control)."""
+    from paneldiag.diagnostics.groups import reportable_groups
+    groups = np.array(["A"] * 3 + ["B"] * 8 + ["C"] * 20)
+    values = np.ones((31, 3))
+    assert reportable_groups(groups, values, ["A", "B", "C"], 5) == ["C"]
+    values[11:, 1] = np.nan  # C silent at wave 2: hidden A+B answer there 11 times
+    assert reportable_groups(groups, values, ["A", "B", "C"], 5) == ["C"]
+    groups = np.array(["A"] * 6 + ["B"] * 8 + ["C"] * 20)
+    assert reportable_groups(groups, np.ones((34, 3)), ["A", "B", "C"], 5) == ["A", "B", "C"]

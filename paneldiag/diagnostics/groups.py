@@ -116,6 +116,33 @@ class GroupScreen(Result):
     note: str
 
 
+def reportable_groups(groups: np.ndarray, values: np.ndarray, labels: list[str],
+                      min_cell: int) -> list[str]:
+    """The groups that can be shown under disclosure control.
+
+    Primary suppression: groups with fewer than ``min_cell`` units. Secondary
+    suppression (common practice in statistical disclosure control, e.g. Hundepool et
+    al. 2012, Statistical Disclosure Control, ch. 4): while the units of all hidden
+    groups together, their respondents at some wave, or those seen at both the first
+    and the last wave, number between 1 and min_cell - 1 (so the whole panel's count
+    minus the shown groups' would reveal a small count), the smallest shown group is
+    hidden too.
+    """
+    seen = ~np.isnan(values)
+    both = seen[:, 0] & seen[:, -1]
+    sizes = {label: int((groups == label).sum()) for label in labels}
+    shown = [label for label in labels if sizes[label] >= min_cell]
+
+    def leaks() -> bool:
+        hidden = ~np.isin(groups, shown)
+        counts = [int(hidden.sum()), int(both[hidden].sum()), *seen[hidden].sum(axis=0)]
+        return any(0 < c < min_cell for c in counts)
+
+    while shown and len(shown) < len(labels) and leaks():
+        shown.remove(min(shown, key=lambda g: (sizes[g], g)))
+    return shown
+
+
 def _retention(values: np.ndarray, min_cell: int):
     """Units observed at the first wave, and of those, observed at the last wave."""
     base = ~np.isnan(values[:, 0])
@@ -177,13 +204,11 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
     if panel.groups is None:
         return None
     labels = sorted(set(panel.groups.tolist()))
+    shown = reportable_groups(panel.groups, panel.values[measure], labels, min_cell)
     reports, lag1, retention, reported = {}, [], [], {f: [] for f, _, _ in REPORTED_FIGURES}
-    suppressed = 0
-    for label in labels:
+    suppressed = len(labels) - len(shown)
+    for label in shown:
         mask = panel.groups == label
-        if int(mask.sum()) < min_cell:
-            suppressed += 1
-            continue
         sub = panel.subset_units(mask)
         sections, summaries = run_group(sub)
         reports[label] = {"n_units": int(mask.sum()), **sections}
@@ -219,8 +244,10 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
             comparison.append(Comparison(
                 figure, label, "reported SE", tuple(values),
                 homogeneity_test([v.estimate for v in values], [v.se for v in values])))
-    note = (f"Groups with fewer than {min_cell} units are not reported (disclosure control)"
-            f"; {suppressed} of {len(labels)} group(s) left out." if suppressed else
+    note = (f"Groups with fewer than {min_cell} units are not reported (disclosure control), "
+            "nor, where needed, the next smallest groups, so that no count below "
+            f"{min_cell} follows by subtraction from the whole panel's; {suppressed} of "
+            f"{len(labels)} group(s) left out." if suppressed else
             f"Every group has at least {min_cell} units.")
     return GroupScreen(column=ctx.options.group_column or "group", n_groups=len(labels),
                        n_reported=len(reports), n_suppressed=suppressed, min_cell=min_cell,
