@@ -162,8 +162,9 @@ def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
 
 
 def wave_means_figure(report: dict) -> Figure | None:
-    """Wave means with a 95% t confidence interval (mean +- t_{n-1} sd / sqrt(n)) and a
-    band of +- 1 SD, against the actual wave times (so an uneven gap shows)."""
+    """Wave means with a 95% t confidence interval (mean +- t_{n-1} sd / sqrt(n); Student
+    1908, Biometrika 6:1-25) and a band of +- 1 SD, against the actual wave times (so an
+    uneven gap shows)."""
     rows = report.get("wave_profile")
     times = _wave_times(report)
     if not rows or not times:
