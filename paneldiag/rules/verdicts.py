@@ -627,6 +627,19 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         strength["growth_autoregressive"] = min(strength["linear_growth"],
                                                 strength["autoregressive"])
 
+    # few waves and much error: richer neighbours hide behind the supported family
+    rich = [f[k] for k in ("autoregressive", "trait_autoregressive", "growth_ar") if k in f]
+    if rich and t <= th["min_waves_separate"] + 1:
+        # the largest error share any carry-over structure finds (the quasi-simplex's)
+        share = max(fit.params["error_var"] / float(np.mean(np.diag(fit.sigma)))
+                    for fit in rich)
+        if np.isfinite(share) and 1 - share < th["reliability_substantial"]:
+            general.append(
+                f"Only {led.value('n_waves', int(t))} waves with much measurement error "
+                f"(about {led.value('error_free_share', float(1 - share))} of the variance "
+                f"free of error, below {led.thr('reliability_substantial')}): a stable part "
+                "or carry-over added to the supported family is hard to detect, so read a "
+                "supported carry-over or growth family as 'this or its richer neighbour'.")
     # with a singular covariance of the waves (fewer effective units than waves) no
     # structure can be tested against the data: nothing is more than plausible
     if f["occasion_noise"].chi2 is None:
