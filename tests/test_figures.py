@@ -150,3 +150,12 @@ def test_trajectory_sample_is_seeded_and_needs_two_observations():
     assert len(drawn) == 40
     assert all(len(y) >= 2 for y in drawn)
     assert F.trajectory_figure(report, values, 0, 7) is None
+
+
+def test_lag_rows_for_equal_and_unequal_spacing():
+    equal = {"lag_profile": [{"basis": "lag", "lag": 1, "time_distance": 2.0, "mean_r": 0.5},
+                             {"basis": "lag", "lag": 2, "time_distance": 4.0, "mean_r": 0.4}]}
+    assert [r["time_distance"] for r in F.lag_rows(equal)] == [2.0, 4.0]
+    unequal = {"lag_profile": equal["lag_profile"] + [
+        {"basis": "time", "lag": None, "time_distance": 3.0, "mean_r": 0.45}]}
+    assert [r["time_distance"] for r in F.lag_rows(unequal)] == [3.0]

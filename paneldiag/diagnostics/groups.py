@@ -181,7 +181,7 @@ def _estimate_from(section, path: tuple[str, ...]):
 REPORTED_FIGURES: tuple[tuple[str, str, tuple[tuple[str, ...], ...]], ...] = (
     ("stable_share", "stable share a/(a+b)",
      (("decay_fit", "stable_share"),)),
-    ("carry_over", "carry-over per unit of time",
+    ("carry_over", "carry-over rho",
      (("decay_fit", "carry_over"), ("decay_fit", "rho"))),
     ("reliability", "reliability",
      (("reliability", "summary"),)),

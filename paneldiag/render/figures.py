@@ -251,10 +251,12 @@ def lag_rows(report: dict) -> list[dict]:
     """The lag-profile rows by time distance (or by lag when no time basis is given)."""
     rows = [r for r in (report.get("lag_profile") or []) if _finite(r.get("mean_r"))]
     timed = [r for r in rows if r.get("basis") == "time" and _finite(r.get("time_distance"))]
-    if timed or any(r.get("basis") for r in rows):
+    if timed:  # unequally spaced waves: the rows by time distance
         return timed
-    return [dict(r, time_distance=r.get("time_distance") or r.get("lag")) for r in rows
-            if _finite(r.get("time_distance") or r.get("lag"))]
+    by_lag = [r for r in rows if r.get("basis") in (None, "lag")]
+    return [dict(r, time_distance=r["time_distance"] if _finite(r.get("time_distance"))
+                 else r.get("lag")) for r in by_lag
+            if _finite(r.get("time_distance")) or _finite(r.get("lag"))]
 
 
 def lag_decay_figure(report: dict) -> Figure | None:
@@ -264,7 +266,9 @@ def lag_decay_figure(report: dict) -> Figure | None:
     rows = lag_rows(report)
     if not rows:
         return None
-    d = np.array([r["time_distance"] for r in rows], dtype=float)
+    by_lag = (report.get("decay_fit") or {}).get("distance") == "lag" and \
+        all(_finite(r.get("lag")) for r in rows)  # the fit's d counts waves
+    d = np.array([r["lag"] if by_lag else r["time_distance"] for r in rows], dtype=float)
     r = np.array([r["mean_r"] for r in rows])
     lo = np.array([np.nan if r_.get("ci_low") is None else r_["ci_low"] for r_ in rows])
     hi = np.array([np.nan if r_.get("ci_high") is None else r_["ci_high"] for r_ in rows])
@@ -283,9 +287,10 @@ def lag_decay_figure(report: dict) -> Figure | None:
     ax.set_xlim(left=0)
     low = np.nanmin(lo) if np.isfinite(lo).any() else np.nanmin(r)
     ax.set_ylim(min(0.0, low) - 0.02, 1.0)
-    ax.set_xlabel(f"time distance between waves ({time_unit(report)}s)")
+    ax.set_xlabel("lag (waves apart)" if by_lag else
+                  f"time distance between waves ({time_unit(report)}s)")
     ax.set_ylabel("correlation")
-    ax.set_title("Decay of correlation with time distance")
+    ax.set_title("Decay of correlation with distance between waves")
     ax.legend(loc="lower left", frameon=False)
     ax.grid(axis="y", color="#dddddd", linewidth=0.6)
     return fig

@@ -270,18 +270,20 @@ def dependence(report: dict, cite: Citations) -> list[str]:
             f"averaged {dec(first['mean_r'])}{ci}, and {dec(last['mean_r'])} at "
             f"{num(last['time_distance'])} {unit}(s) apart {cite('fisher1921', 'hedges1985')}.")
     fit = report.get("decay_fit") or {}
+    per = "wave interval" if fit.get("distance") == "lag" else unit
     if fit.get("identified"):
         parts = []
         for key, words in (("stable_share", "the stable share a/(a+b) was"),
-                           ("rho", f"the carry-over per {unit} was")):
+                           ("rho", f"the carry-over per {per} was")):
             node = fit.get(key)
             if isinstance(node, dict) and ok(node.get("estimate")):
                 ci = (f" (confidence interval {dec(node['ci_low'])} to {dec(node['ci_high'])})"
                       if ok(node.get("ci_low"), node.get("ci_high")) else "")
                 parts.append(f"{words} {dec(node['estimate'])}{ci}")
         if parts:
-            text += (" Fitting a + b rho^d to the decay of correlation with time distance d "
-                     f"{cite('kenny1995')}, " + _join(parts) + ".")
+            d_unit = "waves" if fit.get("distance") == "lag" else f"{unit}s"
+            text += (" Fitting a + b rho^d to the decay of correlation with the distance d "
+                     f"between waves (in {d_unit}) {cite('kenny1995')}, " + _join(parts) + ".")
     elif fit.get("reason"):
         text += f" The decay curve was not identified ({fit['reason']})."
     refs = []

@@ -58,7 +58,8 @@ def key_figures(report: dict, heading) -> list[str]:
     fit = report.get("decay_fit") or {}
     if fit.get("identified"):
         for key, label in (("stable_share", "stable share"),
-                           ("rho", f"carry-over per {time_unit(report)}")):
+                           ("rho", "carry-over per " + ("wave interval"
+                                    if fit.get("distance") == "lag" else time_unit(report)))):
             if _est(fit.get(key)):
                 parts.append(f"{label} {_est(fit.get(key))}")
     elif fit.get("shape"):
