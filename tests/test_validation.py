@@ -23,17 +23,17 @@ HARD = {"trait_autoregressive", "growth_autoregressive"}
 
 @pytest.fixture(scope="module")
 def reduced():
-    return validation.run(validation.REDUCED_GRID, reps=3, seed=validation.SEED, workers=2)
+    return validation.run(validation.REDUCED_GRID, reps=5, seed=validation.SEED, workers=2)
 
 
 def test_reduced_grid_reliable_measures(reduced):
     """N 1000, T 6, reliability 1, no dropout or dependent dropout: every family is
     recognised and none is mistaken for another (targets: recall >= 0.95, false
-    support <= 0.05; with 6 panels per family one miss is allowed)."""
+    support <= 0.05; with 10 panels per family one miss is allowed)."""
     rates = validation.confusion(reduced, lambda c: c.reliability == 1.0)
     for fam in FAMILIES:
-        assert rates[fam].recall >= 5 / 6, (fam, rates[fam])
-        assert max(rates[fam].false_support.values()) <= 1 / 6, (fam, rates[fam])
+        assert rates[fam].recall >= 0.9, (fam, rates[fam])
+        assert max(rates[fam].false_support.values()) <= 0.1, (fam, rates[fam])
 
 
 def test_reduced_grid_with_measurement_error(reduced):
@@ -42,7 +42,7 @@ def test_reduced_grid_with_measurement_error(reduced):
     neighbour (the measured rates are in docs/validation.md)."""
     rates = validation.confusion(reduced, lambda c: c.reliability == 0.6)
     for fam in FAMILIES:
-        floor = 0.3 if fam in HARD else 5 / 6
+        floor = 0.3 if fam in HARD else 0.8
         assert rates[fam].recall >= floor, (fam, rates[fam])
     neighbours = {"trait_autoregressive": {"autoregressive", "stable_trait"},
                   "growth_autoregressive": {"autoregressive", "linear_growth"}}
@@ -50,7 +50,7 @@ def test_reduced_grid_with_measurement_error(reduced):
         wrong = {g: r for g, r in rates[fam].false_support.items() if r > 0}
         assert set(wrong) <= allowed, (fam, wrong)
     for fam in set(FAMILIES) - HARD:
-        assert max(rates[fam].false_support.values()) <= 1 / 6, (fam, rates[fam])
+        assert max(rates[fam].false_support.values()) <= 0.2, (fam, rates[fam])
 
 
 def test_same_table_whatever_the_workers():
