@@ -181,7 +181,6 @@ def _starts(structure: Structure, s: np.ndarray) -> list[np.ndarray]:
 
 
 def _bounds(structure: Structure, s: np.ndarray) -> list[tuple]:
-    t = s.shape[0]
     floor = 1e-6 * float(np.mean(np.diag(s)))
     out = [(floor, None)]
     if structure.basis is not None:

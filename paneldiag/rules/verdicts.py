@@ -598,8 +598,6 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         strength["trait_autoregressive"] = min(strength["stable_trait"],
                                                strength["autoregressive"])
         # growth families: at most plausible (no unit-specific growth evidenced)
-        slope_open = (growth_undetermined or not np.isfinite(slope[2])
-                      or slope[2] >= th["min_slope_share"])
         target = {"free": "free_shape_growth", "quadratic": "quadratic_growth",
                   "linear": "linear_growth"}.get(shape_kind)
         for fam in growth_fams:
@@ -767,7 +765,6 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
     if ev is None:
         return Measurement(None, None, None, None, "Too little data to judge measurement "
                            "error.", "none")
-    t = len(inp.times)
     source = None
     for fam, key in (("trait_autoregressive", "trait_autoregressive"),
                      ("autoregressive", "autoregressive"),
