@@ -33,24 +33,23 @@ class PairwiseMoments:
                 shift = np.where(counts > 0, np.nansum(x, axis=0) / np.maximum(counts, 1), 0.0)
         k, t = chunk.n_replicates, x.shape[1]
         n, sx, sxx, sxy = (np.zeros((k, t, t)) for _ in range(4))
-        # Units sorted by replicate group once, so each group is a contiguous block.
         order = np.argsort(chunk.replicate, kind="stable")
         bounds = np.searchsorted(chunk.replicate[order], np.arange(k + 1))
-        d = x[order]
-        m = ~np.isnan(d)
-        d -= shift
-        d[~m] = 0.0
-        m = m.astype(float)
-        dd = d * d
         for g in range(k):  # a loop over replicate groups; each step is matrix algebra
-            lo, hi = bounds[g], bounds[g + 1]
-            if hi == lo:
+            rows = order[bounds[g]:bounds[g + 1]]
+            if len(rows) == 0:
                 continue
-            mg, dg = m[lo:hi], d[lo:hi]
-            n[g] = mg.T @ mg
-            sx[g] = dg.T @ mg
-            sxx[g] = dd[lo:hi].T @ mg
-            sxy[g] = dg.T @ dg
+            # one group's rows at a time, worked in place: small temporaries, reused
+            d = x[rows]
+            seen = ~np.isnan(d)
+            d -= shift
+            d[~seen] = 0.0
+            m = seen.astype(float)
+            n[g] = m.T @ m
+            sx[g] = d.T @ m
+            sxy[g] = d.T @ d
+            d *= d
+            sxx[g] = d.T @ m
         return cls(shift, n, sx, sxx, sxy)
 
     def merge(self, other: "PairwiseMoments") -> "PairwiseMoments":
