@@ -143,7 +143,7 @@ _EM_CACHE: dict[tuple, tuple[weakref.ref, EMResult]] = {}
 
 
 def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8,
-               ) -> EMResult:
+               start: EMResult | None = None) -> EMResult:
     """ML estimates of the wave means and covariance under missing at random.
 
     Multivariate normal model for the T waves; every response pattern allowed.
@@ -168,6 +168,11 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
         Most iterations before giving up (``converged`` is then False).
     tol : float
         Largest relative change of any parameter counted as converged.
+    start : EMResult, optional
+        Estimates to start from instead of the available-case moments, e.g. the fit to
+        all units when refitting with one replicate group left out (a few iterations
+        then suffice). Used only when finite on every wave observed here; the
+        estimate converged to is the same optimum, to within ``tol``.
 
     Returns
     -------
@@ -182,6 +187,8 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
     2nd ed., chapter 11 (the multivariate normal with any pattern). Wiley.
     """
+    if start is not None:   # a refit from given estimates: not cached
+        return _em(patterns, max_iter, tol, start)
     # several sections ask for the same estimates: compute them once per summary
     key = (id(patterns), max_iter, tol)
     cached = _EM_CACHE.get(key)
@@ -194,7 +201,8 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     return result
 
 
-def _em(patterns: PatternMoments, max_iter: int, tol: float) -> EMResult:
+def _em(patterns: PatternMoments, max_iter: int, tol: float,
+        start: EMResult | None = None) -> EMResult:
     t_all = patterns.n_waves
     wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
@@ -204,6 +212,10 @@ def _em(patterns: PatternMoments, max_iter: int, tol: float) -> EMResult:
         return EMResult(False, 0, means, covariance, np.nan, 0)
     groups = _groups(patterns, used)
     mu, sigma = _start(patterns, used)
+    if start is not None and start.means.shape == used.shape:
+        mu0, sigma0 = start.means[used], start.covariance[np.ix_(used, used)]
+        if np.all(np.isfinite(mu0)) and np.all(np.isfinite(sigma0)):
+            mu, sigma = mu0.copy(), sigma0.copy()
     n_total = float(sum(g.n.sum() for g in groups))
     converged, iteration = False, 0
     for iteration in range(1, max_iter + 1):

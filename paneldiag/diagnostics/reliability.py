@@ -445,9 +445,9 @@ def em_basis(replicates, full=None) -> EMBasis | None:
 def _em_basis(replicates, full) -> EMBasis | None:
     from paneldiag.diagnostics.missingness import em_moments
 
-    def fit(patterns, tol=1e-8):
+    def fit(patterns, tol=1e-8, start=None):
         try:
-            em = em_moments(patterns, tol=tol)
+            em = em_moments(patterns, tol=tol, start=start)
         except np.linalg.LinAlgError:
             return None
         ok = em.converged and np.all(np.isfinite(em.covariance)) and \
@@ -460,8 +460,9 @@ def _em_basis(replicates, full) -> EMBasis | None:
     parts = []
     for patterns in replicates.leave_one_out():  # a loop over replicate groups
         # a looser stopping rule for the copies: their changes from the full fit are of
-        # the order of the standard error, far above 1e-6 of the waves' scale
-        em = fit(patterns, tol=1e-6)
+        # the order of the standard error, far above 1e-6 of the waves' scale; each
+        # copy holds all but 1/K of the units, so it starts from the full fit
+        em = fit(patterns, tol=1e-6, start=full)
         if em is None:
             return None
         parts.append(em)
