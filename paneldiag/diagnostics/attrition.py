@@ -18,7 +18,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special, stats
+from scipy import stats
 
 from paneldiag.results import Result
 from paneldiag.summaries.patterns import PatternMoments, display_order
@@ -443,34 +443,46 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     covariates = covariates or {}
     labels = [str(w) for w in wave_labels]
     n_units, t = values.shape
-    seen = ~np.isnan(values)
-    later = np.zeros_like(seen)
-    later[:, :-1] = np.flip(np.logical_or.accumulate(np.flip(seen[:, 1:], axis=1), axis=1),
-                            axis=1)
-    risk = seen[:, :-1].copy()
-    event = risk & ~later[:, :-1]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        count = seen.sum(axis=0)
-        mean = np.where(seen, values, 0.0).sum(axis=0) / count
-        dev = np.where(seen, values - mean, 0.0)
-        sd = np.sqrt((dev * dev).sum(axis=0) / (count - 1))
-        z = np.where(sd > 0, (values - mean) / sd, np.nan)
-    risk &= np.isfinite(z[:, :-1])
-    columns = [z[:, :-1]]
     names = list(covariates)
-    for name in names:
-        w = np.asarray(covariates[name], dtype=float)[:, :-1]
-        risk &= np.isfinite(w)
-        columns.append(w)
-    events_t = (event & risk).sum(axis=0)
-    risk_t = risk.sum(axis=0)
-    waves_used = (events_t > 0) & (events_t < risk_t)
-    risk &= waves_used[None, :]
-    # boolean selection keeps the cells in unit-major order, like the person-period rows
-    wave = np.broadcast_to(np.arange(t - 1), risk.shape)[risk]
-    y = event[risk].astype(float)
+    extra = [np.asarray(covariates[name], dtype=float) for name in names]
+    seen = ~np.isnan(values)
+    # the last wave a unit is observed at (-1: never): the event at t is t == last
+    last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
+    last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
+    del last_seen
+    # person-periods wave by wave (wave-major: each wave's rows are one contiguous slice)
+    x = np.empty((int(seen[:, :-1].sum()), 1 + len(extra)))
+    y = np.empty(len(x), dtype=bool)
+    bounds, waves_used, any_risk = [0], np.zeros(t - 1, dtype=bool), np.zeros(n_units, bool)
+    for s in range(t - 1):  # a loop over waves
+        column = values[:, s]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            observed = column[seen[:, s]]
+            mean = observed.mean() if len(observed) else np.nan
+            dev = observed - mean
+            sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
+                else np.nan
+            z = (column - mean) / sd
+        risk = np.isfinite(z) if sd > 0 else np.zeros(n_units, dtype=bool)
+        for w in extra:  # a loop over covariates
+            risk &= np.isfinite(w[:, s])
+        rows = np.flatnonzero(risk)
+        event = last[rows] == s
+        n_events = int(event.sum())
+        if not 0 < n_events < len(rows):
+            continue   # no events or no non-events: left out (the exact ML limit)
+        waves_used[s] = True
+        any_risk[rows] = True
+        lo, hi = bounds[-1], bounds[-1] + len(rows)
+        x[lo:hi, 0] = z[rows]
+        for j, w in enumerate(extra):
+            x[lo:hi, j + 1] = w[rows, s]
+        y[lo:hi] = event
+        bounds.append(hi)
+    del seen, last
+    x, y = x[:bounds[-1]], y[:bounds[-1]]
     n_pp, n_ev = len(y), int(y.sum())
-    n_at_risk = int(risk.any(axis=1).sum())
+    n_at_risk = int(any_risk.sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
                 n_events=_count(n_ev, n_ev >= min_cell),
                 n_units=_count(n_at_risk, n_at_risk >= min_cell),
@@ -482,15 +494,11 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
     if n_ev < min_cell or n_pp - n_ev < min_cell:
         return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
-    x = np.empty((n_pp, len(columns)))
-    for j, column in enumerate(columns):  # a loop over predictors
-        x[:, j] = column[risk]
     spread = x.std(axis=0)
     if np.any(spread == 0):
         return empty("a predictor is constant over the person-periods: not fitted")
     x[:, 1:] = (x[:, 1:] - x[:, 1:].mean(axis=0)) / spread[1:]
-    level = (np.cumsum(waves_used) - 1)[wave]                    # intercept index per row
-    fit = _newton_logit(y, x, level, int(waves_used.sum()), max_iter, tol)
+    fit = _newton_logit(y, x, np.asarray(bounds), max_iter, tol)
     if fit is None:
         return empty("the dropout model did not converge (separation or a singular "
                      "information matrix)")
@@ -506,26 +514,47 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                         covariates=extra, iterations=iterations)
 
 
-def _newton_logit(y, x, level, n_levels, max_iter, tol):
+def _newton_logit(y, x, bounds, max_iter, tol):
     """Logit with one intercept per level and slopes on x by Newton-Raphson;
-    returns (slopes, their standard errors, iterations) or None. The information
-    matrix is assembled from per-level sums (the intercept block is diagonal)."""
+    returns (slopes, their standard errors, iterations) or None. The rows of level l
+    are the slice bounds[l]:bounds[l + 1]; the information matrix is assembled from
+    per-level sums (the intercept block is diagonal), one level's slice at a time,
+    in reused buffers."""
     k = x.shape[1]
-    events = np.bincount(level, weights=y, minlength=n_levels)
-    size = np.bincount(level, minlength=n_levels)
+    n_levels = len(bounds) - 1
+    size = np.diff(bounds).astype(float)
+    events = np.array([np.count_nonzero(y[a:b]) for a, b in zip(bounds[:-1], bounds[1:])],
+                      dtype=float)
     alpha = np.log(events / (size - events))
     beta = np.zeros(k)
+    longest = int(size.max())
+    prob_buf, r_buf, w_buf = np.empty(longest), np.empty(longest), np.empty(longest)
+    wx_buf = np.empty((longest, k))
     info = None
     for iteration in range(1, max_iter + 1):
-        prob = special.expit(alpha[level] + x @ beta)
-        r = y - prob
-        w = prob * (1 - prob)
-        grad = np.r_[np.bincount(level, weights=r, minlength=n_levels), x.T @ r]
-        wx = x * w[:, None]
-        h_ab = np.column_stack([np.bincount(level, weights=wx[:, j], minlength=n_levels)
-                                for j in range(k)])  # a loop over predictors
-        info = np.block([[np.diag(np.bincount(level, weights=w, minlength=n_levels)), h_ab],
-                         [h_ab.T, x.T @ wx]])
+        g_alpha, h_alpha = np.empty(n_levels), np.empty(n_levels)
+        h_ab = np.empty((n_levels, k))
+        g_beta, h_beta = np.zeros(k), np.zeros((k, k))
+        for level in range(n_levels):  # a loop over levels (waves)
+            a, b = bounds[level], bounds[level + 1]
+            xs, n = x[a:b], b - a
+            prob, r, w, wx = prob_buf[:n], r_buf[:n], w_buf[:n], wx_buf[:n]
+            np.matmul(xs, -beta, out=prob)
+            prob -= alpha[level]
+            with np.errstate(over="ignore"):
+                np.exp(prob, out=prob)
+            prob += 1.0
+            np.reciprocal(prob, out=prob)       # 1 / (1 + exp(-eta))
+            np.subtract(y[a:b], prob, out=r)
+            np.subtract(1.0, prob, out=w)
+            w *= prob
+            g_alpha[level], h_alpha[level] = r.sum(), w.sum()
+            g_beta += r @ xs
+            np.multiply(xs, w[:, None], out=wx)
+            h_ab[level] = wx.sum(axis=0)
+            h_beta += xs.T @ wx
+        grad = np.r_[g_alpha, g_beta]
+        info = np.block([[np.diag(h_alpha), h_ab], [h_ab.T, h_beta]])
         try:
             step = np.linalg.solve(info, grad)
         except np.linalg.LinAlgError:
