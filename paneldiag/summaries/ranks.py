@@ -2,8 +2,8 @@
 
 Ranks are the one quantity of the screen that does not merge: a unit's rank at a wave
 depends on every other unit observed at that wave. So each wave is ranked once over
-the whole panel (midranks for ties) -- by counting, O(N), when the values are integers
-in a modest range, otherwise by sorting, O(N log N) per wave and never per pair of
+the whole panel (midranks for ties) -- by counting, O(N), when the values are integers,
+or decimals with at most three places, in a modest range, otherwise by sorting, O(N log N) per wave and never per pair of
 waves -- and the rank matrix then goes through the same chunked, replicate-grouped
 pass as the values (``PairwiseMoments``). Pearson correlations of these ranks over the
 units seen at both waves are the Spearman correlations; with no missing values they
@@ -25,22 +25,45 @@ COUNTING_SPAN = 1 << 16   # integer values spanning at most this many are ranked
 
 def wave_ranks(values: np.ndarray) -> np.ndarray:
     """Midranks within each wave among the units observed there; NaN stays NaN."""
-    ranks = np.full(values.shape, np.nan)
+    ranks = np.empty(values.shape)
+    rank = np.empty(values.shape[0])
     for t in range(values.shape[1]):  # a loop over waves
-        column = values[:, t]
+        column = np.ascontiguousarray(values[:, t])  # one strided read, then contiguous
         seen = ~np.isnan(column)
         observed = column[seen]
-        if observed.size == 0:
-            continue
-        low, high = observed.min(), observed.max()
-        if np.all(observed == np.floor(observed)) and high - low < COUNTING_SPAN:
-            index = (observed - low).astype(np.int64)
-            counts = np.bincount(index)
-            below = np.cumsum(counts) - counts
-            ranks[seen, t] = (below + (counts + 1) / 2.0)[index]
-        else:
-            ranks[seen, t] = _midranks(observed)
+        rank.fill(np.nan)
+        if observed.size:
+            index = _counting_index(observed)
+            if index is not None:
+                counts = np.bincount(index)
+                below = np.cumsum(counts) - counts
+                rank[seen] = (below + (counts + 1) / 2.0)[index]
+            else:
+                rank[seen] = _midranks(observed)
+        ranks[:, t] = rank
     return ranks
+
+
+def _counting_index(observed: np.ndarray) -> np.ndarray | None:
+    """0-based integer positions of the values on a grid of step 10^-d (d = 0..3) when
+    every value is exactly an integer multiple of that step (as values written with
+    at most d decimals are, after parsing) and the grid spans fewer than
+    ``COUNTING_SPAN`` steps; None otherwise. The positions order the values exactly as
+    the values themselves (equal values, equal positions), so counting them gives the
+    same midranks as sorting."""
+    low, high = observed.min(), observed.max()
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return None
+    for decimals in range(4):
+        scale = 10.0 ** decimals
+        if (high - low) * scale >= COUNTING_SPAN:
+            return None
+        if max(abs(low), abs(high)) * scale >= 2.0 ** 40:
+            return None   # beyond this, distinct grid points could meet in a double
+        grid = np.rint(observed * scale)
+        if np.array_equal(grid / scale, observed):
+            return (grid - np.rint(low * scale)).astype(np.int64)
+    return None
 
 
 def _midranks(values: np.ndarray) -> np.ndarray:
