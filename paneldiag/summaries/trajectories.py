@@ -77,41 +77,52 @@ class TrajectorySummary:
         seen = ~np.isnan(x)
         patterns, pattern_of = _response_patterns(seen)
         n_pat = len(patterns)
-        out = _zeros(k_groups, n_pat)
-        order = np.argsort(pattern_of, kind="stable")
-        bounds = np.searchsorted(pattern_of[order], np.arange(n_pat + 1))
-        for p in range(n_pat):  # a loop over response patterns; each step is matrix algebra
-            rows = order[bounds[p]:bounds[p + 1]]
-            obs = patterns[p]
-            k = int(obs.sum())
-            if k == 0:
-                continue
-            y = x[rows][:, obs]
-            g = chunk.replicate[rows]
-            count = np.bincount(g, minlength=k_groups).astype(float)
-            out["n"][:, p] = count
-            means = y.mean(axis=1)
-            gm, gm2 = _group_moments(means[:, None], g, count, k_groups)
-            out["unit_mean"][:, p], out["unit_mean_m2"][:, p] = gm[:, 0], gm2[:, 0, 0]
-            dev = y - means[:, None]
-            out["within_ss"][:, p] = np.bincount(g, weights=(dev * dev).sum(axis=1),
-                                                 minlength=k_groups)
-            if k >= LINEAR_MIN_WAVES:
-                xd = design(tc[obs], 1)
-                coef = y @ np.linalg.pinv(xd).T
-                resid = y - coef @ xd.T
-                rss = (resid * resid).sum(axis=1)
-                lagged = np.einsum("ij,jk,ik->i", resid, lag_operator(obs), resid)
-                gm, gm2 = _group_moments(coef, g, count, k_groups)
-                out["lin_mean"][:, p], out["lin_m2"][:, p] = gm, gm2
-                out["rss"][:, p] = np.bincount(g, weights=rss, minlength=k_groups)
-                out["rss_sq"][:, p] = np.bincount(g, weights=rss * rss, minlength=k_groups)
-                out["lag_cross"][:, p] = np.bincount(g, weights=lagged, minlength=k_groups)
-            if k >= QUADRATIC_MIN_WAVES:
-                xd = design(tc[obs], 2)
-                coef = y @ np.linalg.pinv(xd).T
-                gm, gm2 = _group_moments(coef, g, count, k_groups)
-                out["quad_mean"][:, p], out["quad_m2"][:, p] = gm, gm2
+        n_obs = patterns.sum(axis=1)
+        k_row = n_obs[pattern_of]
+        # one cell per (pattern, replicate group); rows outside a fit go to an extra cell
+        cells = n_pat * k_groups
+        key = pattern_of * k_groups + chunk.replicate
+
+        def cell_key(min_waves):
+            return np.where(k_row >= min_waves, key, cells)
+
+        def cell_sum(weights, where):
+            sums = np.bincount(where, weights=weights, minlength=cells + 1)[:cells]
+            return sums.reshape(n_pat, k_groups).T
+
+        # two chunk-sized work arrays, reused in place (fresh memory is costly)
+        y0 = np.where(seen, x, 0.0)
+        work = np.empty_like(y0)
+        key1 = cell_key(1)
+        count = np.bincount(key1, minlength=cells + 1)[:cells].astype(float)
+        out = {"n": count.reshape(n_pat, k_groups).T}
+        with np.errstate(invalid="ignore", divide="ignore"):
+            means = y0.sum(axis=1) / np.maximum(k_row, 1)
+        gm, gm2 = _cell_moments(means[:, None], key1, count, n_pat, k_groups)
+        out["unit_mean"], out["unit_mean_m2"] = gm[..., 0], gm2[..., 0, 0]
+        missing = ~seen
+        np.subtract(y0, means[:, None], out=work)
+        np.copyto(work, 0.0, where=missing)    # deviations from the own mean, 0 if missing
+        out["within_ss"] = cell_sum(np.einsum("ij,ij->i", work, work), key1)
+
+        key2 = cell_key(LINEAR_MIN_WAVES)
+        coef = _pattern_fits(y0, patterns, pattern_of, tc, 1, LINEAR_MIN_WAVES, work)
+        np.multiply(coef[:, 1:2], tc, out=work)
+        work += coef[:, 0:1]                   # fitted lines (a BLAS product with an
+        np.subtract(y0, work, out=work)        # inner size of 2 is slower here)
+        np.copyto(work, 0.0, where=missing)    # residuals, 0 where missing
+        rss = np.einsum("ij,ij->i", work, work)
+        # e' L e: products of residuals at adjacent waves (zero where either is missing)
+        lagged = np.einsum("ij,ij->i", work[:, :-1], work[:, 1:])
+        out["lin_mean"], out["lin_m2"] = _cell_moments(coef, key2, count, n_pat, k_groups)
+        out["rss"] = cell_sum(rss, key2)
+        out["rss_sq"] = cell_sum(rss * rss, key2)
+        out["lag_cross"] = cell_sum(lagged, key2)
+
+        key4 = cell_key(QUADRATIC_MIN_WAVES)
+        coef = _pattern_fits(y0, patterns, pattern_of, tc, 2, QUADRATIC_MIN_WAVES, work)
+        out["quad_mean"], out["quad_m2"] = _cell_moments(coef, key4, count, n_pat, k_groups)
+        out = {name: np.ascontiguousarray(value) for name, value in out.items()}
         return cls(times=times, centre=centre, patterns=patterns, **out)
 
     def merge(self, other: "TrajectorySummary") -> "TrajectorySummary":
@@ -187,7 +198,9 @@ def _response_patterns(seen: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         patterns, inverse = np.unique(seen, axis=0, return_inverse=True)
         return patterns, inverse.reshape(-1)
     weights = np.left_shift(np.int64(1), np.arange(n_waves - 1, -1, -1, dtype=np.int64))
-    codes = seen.astype(np.int64) @ weights   # first wave is the most significant bit
+    codes = np.zeros(len(seen), dtype=np.int64)   # first wave is the most significant bit
+    for t in range(n_waves):  # a loop over waves (no chunk-sized integer matrix)
+        codes[seen[:, t]] += weights[t]
     unique, inverse = np.unique(codes, return_inverse=True)
     patterns = ((unique[:, None] & weights[None, :]) > 0)
     return patterns, inverse.reshape(-1)
@@ -204,8 +217,74 @@ def _zeros(k: int, p: int) -> dict:
 
 def _locate(superset: np.ndarray, subset: np.ndarray) -> np.ndarray:
     """Row positions of ``subset``'s patterns within ``superset``."""
+    n_waves = superset.shape[1]
+    if n_waves <= 62 and len(subset):
+        weights = np.left_shift(np.int64(1), np.arange(n_waves - 1, -1, -1, dtype=np.int64))
+        codes = superset.astype(np.int64) @ weights
+        order = np.argsort(codes, kind="stable")
+        wanted = subset.astype(np.int64) @ weights
+        where = order[np.minimum(np.searchsorted(codes[order], wanted), len(codes) - 1)]
+        if np.array_equal(codes[where], wanted):
+            return where.astype(np.int64)
     lookup = {tuple(np.flatnonzero(row)): i for i, row in enumerate(superset)}
     return np.array([lookup[tuple(np.flatnonzero(row))] for row in subset], dtype=np.int64)
+
+
+def _batch_design(times_c: np.ndarray, degree: int) -> np.ndarray:
+    """``design`` of each row of times (P, k): (P, k, degree + 1), the same powers."""
+    return np.multiply.accumulate(
+        np.concatenate([np.ones(times_c.shape + (1,)),
+                        np.repeat(times_c[..., None], degree, axis=-1)], axis=-1), axis=-1)
+
+
+def _pattern_fits(y0: np.ndarray, patterns: np.ndarray, pattern_of: np.ndarray,
+                  tc: np.ndarray, degree: int, min_waves: int, work: np.ndarray,
+                  ) -> np.ndarray:
+    """Least-squares coefficients (n, degree + 1) of every unit's polynomial in the
+    centred times over its observed waves (zeros for units with fewer than
+    ``min_waves``). The pseudo-inverse of each pattern's design is computed once, in
+    batches of patterns with the same number of observed waves, and padded with zero
+    columns at the missing waves, so a unit's fit is a dot product with its row
+    (``y0`` holds zeros at missing waves). ``work`` (shaped like ``y0``) is overwritten."""
+    n_pat, n_waves = patterns.shape
+    q = degree + 1
+    pinv = np.zeros((n_pat, q, n_waves))
+    n_obs = patterns.sum(axis=1)
+    for k in np.unique(n_obs[n_obs >= min_waves]):  # a loop over numbers of observed waves
+        rows = np.flatnonzero(n_obs == k)
+        # stable argsort of "not observed" lists the observed waves first, in order
+        obs = np.argsort(~patterns[rows], axis=1, kind="stable")[:, :k]
+        xd = _batch_design(tc[obs], degree)
+        pinv[rows[:, None, None], np.arange(q)[None, :, None], obs[:, None, :]] = \
+            np.linalg.pinv(xd)
+    coef = np.empty((len(y0), q))
+    for j in range(q):  # a loop over coefficients (at most 3)
+        np.take(pinv[:, j, :], pattern_of, axis=0, out=work)
+        coef[:, j] = np.einsum("ij,ij->i", y0, work)
+    return coef
+
+
+def _cell_moments(values: np.ndarray, key: np.ndarray, count: np.ndarray, n_pat: int,
+                  k_groups: int):
+    """Mean (K, P, q) and centred cross-product matrix (K, P, q, q) of ``values`` (n, q)
+    in each (pattern, replicate group) cell ``key`` = pattern * K + group (rows with
+    key P * K belong to no cell); ``count`` (P * K,) the units of each cell."""
+    q = values.shape[1]
+    cells = n_pat * k_groups
+    sums = np.stack([np.bincount(key, weights=values[:, j], minlength=cells + 1)
+                     for j in range(q)], axis=1)   # a loop over coefficients
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.zeros((cells + 1, q))
+        mean[:cells] = np.where(count[:, None] > 0, sums[:cells] / np.maximum(count, 1)[:, None],
+                                0.0)
+    dev = values - mean[key]
+    m2 = np.empty((cells, q, q))
+    for a in range(q):  # a loop over coefficients (at most 3)
+        for b in range(a, q):
+            m2[:, a, b] = m2[:, b, a] = np.bincount(key, weights=dev[:, a] * dev[:, b],
+                                                    minlength=cells + 1)[:cells]
+    mean = mean[:cells].reshape(n_pat, k_groups, q).swapaxes(0, 1)
+    return mean, m2.reshape(n_pat, k_groups, q, q).swapaxes(0, 1)
 
 
 def _group_moments(values: np.ndarray, g: np.ndarray, count: np.ndarray, k_groups: int):
