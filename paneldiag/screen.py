@@ -129,9 +129,26 @@ def cautions(options: ScreenOptions) -> list[str]:
             "never shown on its own."]
 
 
+def one_blas_thread():
+    """A context in which the BLAS library runs on one thread.
+
+    The screen's matrix products are small (waves x waves) or long and thin (units x
+    waves); a threaded BLAS spends more time starting and syncing its threads on these
+    than it saves (a dot product of two 900,000-long vectors took 40 x longer with two
+    threads than with one on the benchmark machine, docs/performance.md)."""
+    from threadpoolctl import threadpool_limits
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
            options: ScreenOptions | None = None) -> dict:
     """The whole report: the measure's report itself, or ``measures {name: report}``."""
+    with one_blas_thread():
+        return _screen(panel, ledgers, input_info, options)
+
+
+def _screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
+            options: ScreenOptions | None) -> dict:
     options = options or ScreenOptions()
     reports = {m: screen_measure(panel, m, ledgers[m], input_info, options)
                for m in panel.measures}

@@ -522,6 +522,7 @@ def _newton_logit(y, x, bounds, max_iter, tol):
     in reused buffers."""
     k = x.shape[1]
     n_levels = len(bounds) - 1
+    xt = np.ascontiguousarray(x.T)   # one contiguous row per predictor: dot products
     size = np.diff(bounds).astype(float)
     events = np.array([np.count_nonzero(y[a:b]) for a, b in zip(bounds[:-1], bounds[1:])],
                       dtype=float)
@@ -529,7 +530,7 @@ def _newton_logit(y, x, bounds, max_iter, tol):
     beta = np.zeros(k)
     longest = int(size.max())
     prob_buf, r_buf, w_buf = np.empty(longest), np.empty(longest), np.empty(longest)
-    wx_buf = np.empty((longest, k))
+    wx_buf = np.empty(longest)
     info = None
     for iteration in range(1, max_iter + 1):
         g_alpha, h_alpha = np.empty(n_levels), np.empty(n_levels)
@@ -537,9 +538,11 @@ def _newton_logit(y, x, bounds, max_iter, tol):
         g_beta, h_beta = np.zeros(k), np.zeros((k, k))
         for level in range(n_levels):  # a loop over levels (waves)
             a, b = bounds[level], bounds[level + 1]
-            xs, n = x[a:b], b - a
+            xs, n = xt[:, a:b], b - a
             prob, r, w, wx = prob_buf[:n], r_buf[:n], w_buf[:n], wx_buf[:n]
-            np.matmul(xs, -beta, out=prob)
+            np.multiply(xs[0], -beta[0], out=prob)
+            for j in range(1, k):  # a loop over predictors
+                prob -= beta[j] * xs[j]
             prob -= alpha[level]
             with np.errstate(over="ignore"):
                 np.exp(prob, out=prob)
@@ -549,10 +552,14 @@ def _newton_logit(y, x, bounds, max_iter, tol):
             np.subtract(1.0, prob, out=w)
             w *= prob
             g_alpha[level], h_alpha[level] = r.sum(), w.sum()
-            g_beta += r @ xs
-            np.multiply(xs, w[:, None], out=wx)
-            h_ab[level] = wx.sum(axis=0)
-            h_beta += xs.T @ wx
+            # einsum, not BLAS: a threaded BLAS dot is far slower on long vectors here
+            for j in range(k):  # a loop over predictors
+                g_beta[j] += np.einsum("i,i->", r, xs[j])
+                np.multiply(xs[j], w, out=wx)
+                h_ab[level, j] = wx.sum()
+                for i in range(j, k):
+                    h_beta[i, j] += np.einsum("i,i->", wx, xs[i])
+        h_beta = np.tril(h_beta) + np.tril(h_beta, -1).T
         grad = np.r_[g_alpha, g_beta]
         info = np.block([[np.diag(h_alpha), h_ab], [h_ab.T, h_beta]])
         try:

@@ -211,6 +211,8 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
     panel, ledgers = build_panel(raw, spec)
     del raw
     t = mark("build panel", t)
+    limit = screen_module.one_blas_thread()   # as screen_module.screen does
+    limit.__enter__()
     options = screen_module.ScreenOptions()
     ctx = screen_module.MeasureContext(panel=panel, measure=VALUE, options=options,
                                        ledger=ledgers[VALUE])
@@ -229,6 +231,7 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
         t = mark(f"section {key}", t)
     report_json(report)
     mark("JSON text", t)
+    limit.__exit__(None, None, None)
     return stages
 
 
