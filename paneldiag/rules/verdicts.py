@@ -335,11 +335,12 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
 
     led.value("n_units", int(inp.n_units))
     led.value("n_waves", int(t))
-    if t < 2 or inp.n_units < 3 or not np.all(np.isfinite(inp.sigma)):
+    if t < 2 or inp.n_units < 3 or not np.all(np.isfinite(inp.sigma)) or \
+            np.any(np.diag(inp.sigma) <= 0):
         for fam in FAMILY_IDS:
             verdict[fam] = "undetermined"
-            ev_text[fam].append("Too few waves or units to estimate the covariance of the "
-                                "waves.")
+            ev_text[fam].append("Too few waves or units, or a wave without variation: the "
+                                "covariance of the waves cannot be used.")
         return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
 
     with _one_thread():
