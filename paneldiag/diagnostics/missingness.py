@@ -49,6 +49,7 @@ class _Group:
     mean: np.ndarray     # (P_k, k) pattern means of the observed waves
     m2: np.ndarray       # (P_k, k, k) centred cross-products of the observed waves
     flat: np.ndarray     # (P_k, k, k) flat index s * T + t of each block entry
+    mis: np.ndarray      # (P_k, T - k) missing wave indices (into the used waves)
 
 
 def _groups(patterns: PatternMoments, used: np.ndarray) -> list[_Group]:
@@ -62,11 +63,13 @@ def _groups(patterns: PatternMoments, used: np.ndarray) -> list[_Group]:
         if len(rows) == 0:
             continue
         # stable argsort of "not observed" lists the observed waves first, in order
-        obs = np.argsort(~observed[rows], axis=1, kind="stable")[:, :k]
+        both = np.argsort(~observed[rows], axis=1, kind="stable")
+        obs, mis = both[:, :k], both[:, k:]
         full = waves[obs]
         mean = np.take_along_axis(patterns.mean[rows], full, axis=1)
         m2 = patterns.m2[rows[:, None, None], full[:, :, None], full[:, None, :]]
-        out.append(_Group(patterns.n[rows], obs, mean, m2, obs[:, :, None] * t + obs[:, None, :]))
+        out.append(_Group(patterns.n[rows], obs, mean, m2, obs[:, :, None] * t + obs[:, None, :],
+                          mis))
     return out
 
 
@@ -75,10 +78,34 @@ def _scatter(values: np.ndarray, index: np.ndarray, size: int) -> np.ndarray:
     return np.bincount(index.ravel(), weights=values.ravel(), minlength=size)
 
 
-def _block_inverse(sigma: np.ndarray, g: _Group) -> np.ndarray:
-    """Inverse of each pattern's observed block of sigma, (P_k, k, k)."""
-    s_oo = sigma[g.obs[:, :, None], g.obs[:, None, :]]
-    return np.linalg.inv(s_oo)
+def _block_inverse(sigma: np.ndarray, g: _Group, precision: np.ndarray | None = None,
+                   ) -> np.ndarray:
+    """Inverse of each pattern's observed block of sigma, (P_k, k, k).
+
+    With ``precision`` (the inverse of sigma) and fewer missing than observed waves,
+    it is the Schur complement P_oo - P_om P_mm^-1 P_mo, which needs only the small
+    missing-wave blocks solved; otherwise the observed blocks are inverted."""
+    k, m = g.obs.shape[1], g.mis.shape[1]
+    if precision is None or m >= k:
+        return np.linalg.inv(sigma[g.obs[:, :, None], g.obs[:, None, :]])
+    p_oo = precision[g.obs[:, :, None], g.obs[:, None, :]]
+    if m == 0:
+        return p_oo
+    p_mo = precision[g.mis[:, :, None], g.obs[:, None, :]]
+    p_mm = precision[g.mis[:, :, None], g.mis[:, None, :]]
+    return p_oo - np.swapaxes(p_mo, 1, 2) @ np.linalg.solve(p_mm, p_mo)
+
+
+def _precision(sigma: np.ndarray) -> np.ndarray | None:
+    """The inverse of sigma when sigma is well conditioned (for the Schur complements
+    of ``_block_inverse``), else None (the blocks are then inverted one by one)."""
+    with np.errstate(all="ignore"):
+        if not np.all(np.isfinite(sigma)) or np.linalg.cond(sigma) > 1e8:
+            return None
+        try:
+            return np.linalg.inv(sigma)
+        except np.linalg.LinAlgError:
+            return None
 
 
 def _em_step(groups: list[_Group], mu: np.ndarray, sigma: np.ndarray, n_total: float):
@@ -96,8 +123,9 @@ def _em_step(groups: list[_Group], mu: np.ndarray, sigma: np.ndarray, n_total: f
     t = len(mu)
     first = np.zeros(t)
     second = np.zeros(t * t)
+    precision = _precision(sigma)
     for g in groups:
-        q = _block_inverse(sigma, g)
+        q = _block_inverse(sigma, g, precision)
         dev = g.mean - mu[g.obs]
         qd = np.einsum("pij,pj->pi", q, dev)
         qwq = q @ g.m2 @ q
