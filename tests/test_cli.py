@@ -256,3 +256,18 @@ def test_quiet_means_silent_even_for_degenerate_data(tmp_path):
     assert result.returncode == 0, result.stderr
     assert result.stdout == b"" and result.stderr == b""
     assert json.loads((tmp_path / "r.json").read_text())["wave_profile"][0]["sd"] == 0
+
+
+def test_degenerate_data_over_three_waves_is_screened(tmp_path):
+    # every value equal over three waves, and every wave constant but differing across
+    # waves: standardised change is undefined, which the report says with nulls
+    for name, value in (("same.csv", lambda year: 5), ("by_wave.csv", lambda year: year)):
+        source = tmp_path / name
+        source.write_text("household,year,trust\n" + "".join(
+            f"H{h},{year},{value(year)}\n" for h in range(8) for year in (2015, 2016, 2017)))
+        result = run_forked(["screen", source, "--id", "household", "--wave", "year",
+                             "--value", "trust", "--json", tmp_path / "r.json", "--quiet"],
+                            tmp_path)
+        assert result.returncode == 0, result.stderr
+        report = json.loads((tmp_path / "r.json").read_text())
+        assert all(f["verdict"] != "supported" for f in report["families"])

@@ -494,10 +494,6 @@ def _require_observed(raw, measure, matrix) -> None:
     if not np.isfinite(matrix).any():
         raise InputProblem(f"measure '{measure}' has no observed value", file=raw.source,
                            column=measure)
-    if np.nanmin(matrix) == np.nanmax(matrix):
-        raise InputProblem(f"measure '{measure}' takes one value ({_number_text(np.nanmin(matrix))})"
-                           " in every observed cell; there is no variation to screen",
-                           file=raw.source, column=measure)
 
 
 def _code_counts(code_text: np.ndarray | None, wave_index: np.ndarray, n_waves: int) -> dict:

@@ -315,12 +315,13 @@ def mean_shape(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndar
     with np.errstate(divide="ignore", invalid="ignore"):
         v = s * pair_n / np.outer(n_diag, n_diag)
     sd = float(np.sqrt(np.mean(np.diag(s))))
+    scale = sd if sd > 0 else np.nan  # no spread within waves: standardised change undefined
 
     def contrast(w):
         est = float(w @ mu)
         se = float(np.sqrt(max(w @ v @ w, 0.0)))
         p = float(2 * stats.norm.sf(abs(est) / se)) if se > 0 else np.nan
-        return est / sd, ((est - Z95 * se) / sd, (est + Z95 * se) / sd), p
+        return est / scale, ((est - Z95 * se) / scale, (est + Z95 * se) / scale), p
 
     x1 = np.column_stack([np.ones(t), u])
     w1 = np.linalg.pinv(x1)[1]                   # slope over the span (u runs 0..1)
@@ -331,7 +332,7 @@ def mean_shape(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndar
         w2 = np.linalg.pinv(x2)[2] / 4.0        # quadratic departure from its chord
         bend = contrast(w2)
         resid_op = np.eye(t) - x2 @ np.linalg.pinv(x2)
-        remainder = float(np.max(np.abs(resid_op @ mu))) / sd
+        remainder = float(np.max(np.abs(resid_op @ mu))) / scale
     else:
         bend, remainder = nan3, np.nan
     r_chi2, r_df, r_p = np.nan, max(t - 3, 0), np.nan
