@@ -6,13 +6,8 @@ from __future__ import annotations
 from tabulate import tabulate
 
 from paneldiag.render.terminal import heading
+from paneldiag.rules.verdicts import DISPLAY
 
-NAMES = {
-    "occasion_noise": "occasion noise", "stable_trait": "stable trait",
-    "autoregressive": "carry-over", "trait_autoregressive": "trait + carry-over",
-    "linear_growth": "linear growth", "quadratic_growth": "quadratic growth",
-    "free_shape_growth": "free-shape growth", "growth_autoregressive": "growth + carry-over",
-}
 # the statistics that sum up each family's case, by key of verdict_basis.statistics
 KEY_STATS = {
     "occasion_noise": [("adjacent r", "adjacent_correlation")],
@@ -55,7 +50,7 @@ def _key(family: str, stats: dict) -> str:
 
 def verdicts_block(report: dict, color: bool) -> list[str]:
     stats = report.get("verdict_basis", {}).get("statistics", {})
-    rows = [[NAMES.get(f["family"], f["family"]), f["verdict"], f"{f['score']:.2f}",
+    rows = [[DISPLAY.get(f["family"], f["family"]), f["verdict"], f"{f['score']:.2f}",
              _key(f["family"], stats)] for f in report["families"]]
     body = tabulate(rows, headers=["family", "verdict", "score", "key evidence"],
                     tablefmt="plain", disable_numparse=True, stralign="left")
