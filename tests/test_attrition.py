@@ -271,6 +271,26 @@ def test_dropout_model_recovers_the_simulated_odds_ratio():
     assert fit.pvalue < 1e-10
 
 
+def test_dropout_model_start_values_from_a_subsample_reach_the_same_estimate(monkeypatch):
+    # large panels start Newton-Raphson from a fit to every 32nd person-period; the
+    # estimate must be the one reached from the default start values
+    from paneldiag.diagnostics import attrition
+    rng = np.random.default_rng(13)
+    x = rng.normal(size=(20000, 1)) + rng.normal(size=(20000, 6))
+    w = rng.normal(size=(20000, 6))
+    x[dropout_after(x, rng, base_rate=0.1, log_odds_per_sd=-0.5)] = np.nan
+    default = dropout_model(x, list("abcdef"), {"w": w})
+    monkeypatch.setattr(attrition, "SUBSAMPLE_MIN_ROWS", 1000)
+    started = dropout_model(x, list("abcdef"), {"w": w})
+    assert started.fitted and default.fitted
+    assert started.odds_ratio_per_sd == pytest.approx(default.odds_ratio_per_sd, rel=1e-10)
+    assert started.ci_low == pytest.approx(default.ci_low, rel=1e-10)
+    assert started.ci_high == pytest.approx(default.ci_high, rel=1e-10)
+    assert started.covariates[0]["odds_ratio_per_sd"] == pytest.approx(
+        default.covariates[0]["odds_ratio_per_sd"], rel=1e-10)
+    assert started.iterations <= default.iterations
+
+
 def test_dropout_model_without_dropouts_is_not_fitted():
     x = np.ones((50, 3)) + np.arange(50)[:, None]
     fit = dropout_model(x, ["1", "2", "3"])

@@ -171,7 +171,7 @@ _EM_CACHE: dict[tuple, tuple[weakref.ref, EMResult]] = {}
 
 
 def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8,
-               start: EMResult | None = None) -> EMResult:
+               start: EMResult | None = None, loglik: bool = True) -> EMResult:
     """ML estimates of the wave means and covariance under missing at random.
 
     Multivariate normal model for the T waves; every response pattern allowed.
@@ -201,6 +201,9 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
         all units when refitting with one replicate group left out (a few iterations
         then suffice). Used only when finite on every wave observed here; the
         estimate converged to is the same optimum, to within ``tol``.
+    loglik : bool
+        Whether to evaluate the observed-data log-likelihood at the estimates (NaN
+        when False; a refit whose only use is its moments can skip it).
 
     Returns
     -------
@@ -215,8 +218,8 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
     2nd ed., chapter 11 (the multivariate normal with any pattern). Wiley.
     """
-    if start is not None:   # a refit from given estimates: not cached
-        return _em(patterns, max_iter, tol, start)
+    if start is not None or not loglik:   # a refit: not cached
+        return _em(patterns, max_iter, tol, start, loglik)
     # several sections ask for the same estimates: compute them once per summary
     key = (id(patterns), max_iter, tol)
     cached = _EM_CACHE.get(key)
@@ -230,7 +233,7 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
 
 
 def _em(patterns: PatternMoments, max_iter: int, tol: float,
-        start: EMResult | None = None) -> EMResult:
+        start: EMResult | None = None, with_loglik: bool = True) -> EMResult:
     t_all = patterns.n_waves
     wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
@@ -272,7 +275,8 @@ def _em(patterns: PatternMoments, max_iter: int, tol: float,
     covariance[np.ix_(used, used)] = sigma
     try:
         with np.errstate(all="ignore"):
-            loglik = _observed_loglik(groups, mu, sigma) if converged else np.nan
+            loglik = _observed_loglik(groups, mu, sigma) if converged and with_loglik \
+                else np.nan
     except np.linalg.LinAlgError:
         loglik = np.nan
     return EMResult(converged, iteration, means, covariance, loglik,

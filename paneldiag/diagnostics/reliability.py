@@ -446,8 +446,8 @@ def _em_basis(replicates, full) -> EMBasis | None:
     from paneldiag.diagnostics.missingness import em_moments
 
     def fit(patterns, tol=1e-8, start=None):
-        try:
-            em = em_moments(patterns, tol=tol, start=start)
+        try:   # the copies' log-likelihoods are never used
+            em = em_moments(patterns, tol=tol, start=start, loglik=start is None)
         except np.linalg.LinAlgError:
             return None
         ok = em.converged and np.all(np.isfinite(em.covariance)) and \
