@@ -105,10 +105,10 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     return report
 
 
-def run_sections(ctx: MeasureContext) -> dict:
-    """Every section of ``SECTIONS`` on one context, as JSON-ready values by key."""
+def run_sections(ctx: MeasureContext, sections=None) -> dict:
+    """Each section (default: all of ``SECTIONS``) on one context, as JSON-ready values."""
     out = {}
-    for key, section in SECTIONS:
+    for key, section in SECTIONS if sections is None else sections:
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:

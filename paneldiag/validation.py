@@ -63,18 +63,11 @@ def verdicts_for_panel(panel, measure: str = "score", options=None) -> list[dict
     measure context exactly as ``paneldiag.screen`` runs them."""
     from paneldiag.io.ledger import Ledger
     from paneldiag.rules import RULE_SECTIONS
-    from paneldiag.results import plain
-    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.screen import MeasureContext, ScreenOptions, run_sections
 
     ctx = MeasureContext(panel=panel, measure=measure, options=options or ScreenOptions(),
                          ledger=Ledger(rows_read=0, rows_used=0))
-    report = {}
-    for key, section in RULE_SECTIONS:
-        result = section(ctx)
-        ctx.results[key] = result
-        if result is not None:
-            report[key] = plain(result)
-    return report["families"]
+    return run_sections(ctx, RULE_SECTIONS)["families"]
 
 
 def _one(task) -> tuple[Condition, str | None]:

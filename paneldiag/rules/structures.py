@@ -222,15 +222,8 @@ def fit_structure(structure: Structure, s: np.ndarray, times: np.ndarray,
             best = res
     theta = best.x
     value = float(best.fun)
-    sign, logdet_s = np.linalg.slogdet(s)
-    n_moments = t * (t + 1) // 2
-    df = n_moments - len(theta)
-    chi2 = rmsea = p_value = None
-    if sign > 0 and n_eff > t:
-        chi2 = max(0.0, (n_eff - 1) * (value - logdet_s - t))
-        if df > 0:
-            rmsea = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n_eff - 1))))
-            p_value = float(stats.chi2.sf(chi2, df))
+    df = t * (t + 1) // 2 - len(theta)
+    chi2, rmsea, p_value = _fit_statistics(value, s, n_eff, df)
     theta_cov = None
     try:
         hess = _hessian(theta, structure, times, s)
@@ -244,19 +237,26 @@ def fit_structure(structure: Structure, s: np.ndarray, times: np.ndarray,
     return Fit(structure, params, theta, value, chi2, df, rmsea, p_value, theta_cov, sigma)
 
 
-def fit_noise(s: np.ndarray, n_eff: float) -> Fit:
-    """The occasion-noise structure e I in closed form (e = the mean wave variance)."""
+def _fit_statistics(value: float, s: np.ndarray, n_eff: float, df: int):
+    """Chi-square of the ML discrepancy, RMSEA and p-value (None where undefined)."""
     t = s.shape[0]
-    e = float(np.mean(np.diag(s)))
-    value = float(t * np.log(e) + t)
     sign, logdet_s = np.linalg.slogdet(s)
-    df = t * (t + 1) // 2 - 1
     chi2 = rmsea = p_value = None
     if sign > 0 and n_eff > t:
         chi2 = max(0.0, (n_eff - 1) * (value - logdet_s - t))
         if df > 0:
             rmsea = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n_eff - 1))))
             p_value = float(stats.chi2.sf(chi2, df))
+    return chi2, rmsea, p_value
+
+
+def fit_noise(s: np.ndarray, n_eff: float) -> Fit:
+    """The occasion-noise structure e I in closed form (e = the mean wave variance)."""
+    t = s.shape[0]
+    e = float(np.mean(np.diag(s)))
+    value = float(t * np.log(e) + t)
+    df = t * (t + 1) // 2 - 1
+    chi2, rmsea, p_value = _fit_statistics(value, s, n_eff, df)
     structure = Structure("occasion_noise")
     cov = np.array([[2.0 * e ** 2 / (t * (n_eff - 1))]])
     return Fit(structure, {"error_var": e}, np.array([e]), value, chi2, df, rmsea, p_value,
