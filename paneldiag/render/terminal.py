@@ -4,29 +4,11 @@ from __future__ import annotations
 
 from typing import Callable
 
-from tabulate import tabulate
-
-
-def heading(title: str, color: bool) -> str:
-    text = f"▸ {title}"
-    return f"\033[1m{text}\033[0m" if color else text
-
-
-def number(value, digits: int = 3) -> str:
-    if value is None:
-        return "–"
-    if isinstance(value, int):
-        return f"{value:,}"
-    return f"{value:.{digits}g}" if abs(value) >= 1e4 else f"{value:.{digits}f}"
-
-
-def share(value) -> str:
-    return "–" if value is None else f"{100 * value:.1f}%"
-
-
-def table(rows: list[list], headers: list[str]) -> str:
-    return tabulate(rows, headers=headers, tablefmt="plain", disable_numparse=True,
-                    stralign="right")
+from paneldiag.render.text import heading, number, share, table
+from paneldiag.render.text_attrition import attrition_block, missingness_block
+from paneldiag.render.text_dependence import dependence_block
+from paneldiag.render.text_reliability import render_growth, render_reliability
+from paneldiag.render.text_verdicts import verdicts_block
 
 
 def _intake(report: dict, color: bool) -> list[str]:
@@ -52,8 +34,14 @@ def _wave_profile(report: dict, color: bool) -> list[str]:
 
 
 SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
+    ("families", verdicts_block),
     ("ledger", _intake),
     ("wave_profile", _wave_profile),
+    ("attrition", attrition_block),
+    ("missingness", missingness_block),
+    ("correlation", dependence_block),
+    ("reliability", render_reliability),
+    ("growth", render_growth),
 ]
 
 
@@ -91,16 +79,3 @@ def render_terminal(report: dict, color: bool = False, details: bool = False) ->
         notes.append("  (every area in full: --details; the methods appendix: --report DIR)")
     parts.append("\n".join(notes))
     return "\n\n".join(p for p in parts if p) + "\n"
-
-
-from paneldiag.render.text_attrition import attrition_block, missingness_block  # noqa: E402
-from paneldiag.render.text_dependence import dependence_block  # noqa: E402
-from paneldiag.render.text_reliability import render_growth, render_reliability  # noqa: E402
-
-SECTION_RENDERERS[2:2] = [("attrition", attrition_block), ("missingness", missingness_block)]
-SECTION_RENDERERS += [("correlation", dependence_block)]
-SECTION_RENDERERS += [("reliability", render_reliability), ("growth", render_growth)]
-
-from paneldiag.render.text_verdicts import verdicts_block  # noqa: E402
-
-SECTION_RENDERERS.insert(0, ("families", verdicts_block))

@@ -7,7 +7,7 @@ size; nothing below it is ever printed.
 
 from __future__ import annotations
 
-from paneldiag.render.terminal import heading, number, share
+from paneldiag.render.text import heading, number, share
 
 TOP_PATTERNS = 5
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from paneldiag.render.terminal import heading, number
+from paneldiag.render.text import heading, number
 
 SHAPES = {"flat": "flat (no decay with distance: carry-over not identified)",
           "decay_to_zero": "decays towards zero (carry-over, no stable floor)",

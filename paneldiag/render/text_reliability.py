@@ -4,11 +4,7 @@ from __future__ import annotations
 
 import math
 
-
-def _helpers():
-    """The shared text helpers (imported late: terminal.py registers these blocks)."""
-    from paneldiag.render import terminal
-    return terminal.heading, terminal.number, terminal.share, terminal.table
+from paneldiag.render.text import heading, number, share, table
 
 
 def _p(value) -> str:
@@ -18,14 +14,12 @@ def _p(value) -> str:
 
 
 def _interval(low, high, digits: int = 3) -> str:
-    number = _helpers()[1]
     if low is None or high is None:
         return ""
     return f" [{number(low, digits)}, {number(high, digits)}]"
 
 
 def render_reliability(report: dict, color: bool) -> list[str]:
-    heading, number, _, table = _helpers()
     rel = report["reliability"]
     summary = rel["summary"]
     lines = [heading("Reliability (quasi-simplex)", color)]
@@ -58,7 +52,6 @@ def render_reliability(report: dict, color: bool) -> list[str]:
 
 
 def render_growth(report: dict, color: bool) -> list[str]:
-    heading, number, share, _ = _helpers()
     g = report["growth"]
     fits, rel, auto = g["trajectories"], g["slope_reliability"], g["residual_autocorrelation"]
     lines = [heading("Growth", color)]

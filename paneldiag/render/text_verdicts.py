@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from tabulate import tabulate
 
-from paneldiag.render.terminal import heading
+from paneldiag.render.text import heading
 from paneldiag.rules.verdicts import DISPLAY
 
 # the statistics that sum up each family's case, by key of verdict_basis.statistics
