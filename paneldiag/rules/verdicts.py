@@ -148,6 +148,12 @@ class Citations:
         ptext = f"p < {alpha:g}" if p < alpha else f"p = {_f(p, 3)}"
         return f"chi-square {_f(stat, 1)} on {int(df)} df, {ptext}"
 
+    def p(self, name, p) -> str:
+        """'p < alpha' below the threshold, else the cited p-value."""
+        if p < self.th["alpha"]:
+            return "p < " + self.thr("alpha")
+        return f"p = {self.value(name, float(p))}"
+
     def value(self, name, x, digits=3) -> str:
         self.stats[name] = _r(x, digits) if isinstance(x, float) else x
         return _f(x, digits) if isinstance(x, float) else str(x)
@@ -672,16 +678,14 @@ def _mean_shape_kind(shape, led: Citations, th: Thresholds, t: int):
     alpha = th["alpha"]
     out = []
     change = led.estimate("mean_change_sd", shape.change_sd, *shape.change_ci)
-    p_text = "p < " + led.thr("alpha") if shape.change_p < alpha else \
-        f"p = {led.value('mean_change_p', float(shape.change_p))}"
+    p_text = led.p("mean_change_p", shape.change_p)
     out.append(f"Change of the mean over the span, straight-line fit, in within-wave SDs: "
                f"{change}, {p_text} (counts from {led.thr('min_mean_change_sd')}).")
     linear = shape.change_p < alpha and abs(shape.change_sd) >= th["min_mean_change_sd"]
     bend = False
     if np.isfinite(shape.bend_sd):
         bend_text = led.estimate("mean_bend_sd", shape.bend_sd, *shape.bend_ci)
-        p_text = "p < " + led.thr("alpha") if shape.bend_p < alpha else \
-            f"p = {led.value('mean_bend_p', float(shape.bend_p))}"
+        p_text = led.p("mean_bend_p", shape.bend_p)
         out.append(f"Quadratic bend of the mean in SDs {bend_text}, {p_text} (counts from "
                    f"{led.thr('min_shape_sd')}).")
         bend = shape.bend_p < alpha and abs(shape.bend_sd) >= th["min_shape_sd"]
