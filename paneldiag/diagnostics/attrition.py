@@ -18,12 +18,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.summaries.patterns import PatternMoments, display_order
 
-Z95 = float(stats.norm.ppf(0.975))
+Z95 = float(dist.norm_ppf(0.975))
 
 
 # --------------------------------------------------------------- disclosure control
@@ -387,7 +387,7 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
             sd = np.sqrt((ss1 + ss2) / (n1 + n2 - 2))
             if sd > 0:
                 g = float((1 - 3 / (4 * (n1 + n2) - 9)) * (m2 - m1) / sd)
-                q = stats.t.ppf(0.975, n1 + n2 - 2)
+                q = dist.t_ppf(0.975, n1 + n2 - 2)
                 half = q * np.sqrt((n1 + n2) / (n1 * n2) + g * g / (2 * (n1 + n2)))
                 lo, hi = g - half, g + half
         out.append(DropoutDifference(
@@ -505,7 +505,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                      "information matrix)")
     beta, se, iterations, _ = fit
     zstat = beta / se
-    p = 2 * stats.norm.sf(np.abs(zstat))
+    p = 2 * dist.norm_sf(np.abs(zstat))
     lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
     extra = tuple({"name": name, "odds_ratio_per_sd": float(np.exp(beta[j + 1])),
                    "ci_low": float(lo[j + 1]), "ci_high": float(hi[j + 1]),

@@ -16,8 +16,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.panel import Panel
 from paneldiag.results import Result
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
@@ -89,7 +89,7 @@ def _lagged(pooled_r, pooled_n, reps_r, reps_n, pairs, min_cell) -> LaggedCorrel
                                  n_total if n_total >= min_cell else 0, len(used))
     reps = np.array([averaged_correlation(rr, nn, pairs)[0] for rr, nn in zip(reps_r, reps_n)])
     se = float(jackknife_se(z, reps))
-    q = stats.t.ppf(0.5 + LEVEL / 2, len(reps) - 1)
+    q = dist.t_ppf(0.5 + LEVEL / 2, len(reps) - 1)
     return LaggedCorrelation(float(np.tanh(z)), float(np.tanh(z - q * se)),
                              float(np.tanh(z + q * se)), z, se, n_total, len(used))
 
@@ -144,7 +144,7 @@ def cross_lag(moments: PairwiseMoments, times: np.ndarray, x: str, y: str,
     t = len(times)
     r, n = moments.correlation(), moments.pair_counts()
     reps_r, reps_n = _replicates(moments)
-    q = stats.t.ppf(0.5 + LEVEL / 2, len(reps_r) - 1)
+    q = dist.t_ppf(0.5 + LEVEL / 2, len(reps_r) - 1)
     synchronous = _lagged(r, n, reps_r, reps_n, [(s, t + s) for s in range(t)], min_cell)
     rows = []
     for lag in range(1, t):

@@ -19,8 +19,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize
 
+from paneldiag import distributions as dist
 from paneldiag.diagnostics.polychoric import polychoric
 from paneldiag.results import Result
 from paneldiag.summaries.contingency import PairwiseTables
@@ -283,14 +284,14 @@ def lag_profile(corr: WaveCorrelations, times: np.ndarray, level: float = LEVEL)
     r, n = corr.matrix, corr.n_pairs
     reps, rep_n = corr.replicates, corr.replicate_n
     k = reps.shape[0]
-    q = stats.t.ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
+    q = dist.t_ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
     rows, rep_means, weights = [], [], []
-    for basis, lag, dist, pairs in bands:  # a loop over lag bands
+    for basis, lag, distance, pairs in bands:  # a loop over lag bands
         s_idx, t_idx = (np.array(v) for v in zip(*pairs))
         z = _band_mean_z(r, n, s_idx, t_idx)
         z_reps = _band_mean_z(reps, rep_n, s_idx, t_idx)
         se = jackknife_se(z, z_reps)
-        rows.append(LagRow(basis=basis, lag=lag, time_distance=dist, wave_pairs=len(pairs),
+        rows.append(LagRow(basis=basis, lag=lag, time_distance=distance, wave_pairs=len(pairs),
                            n_pairs=int(n[s_idx, t_idx].sum()), mean_r=float(np.tanh(z)),
                            ci_low=float(np.tanh(z - q * se)), ci_high=float(np.tanh(z + q * se))))
         rep_means.append(np.tanh(z_reps))
@@ -376,7 +377,7 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
             corr.primary
     t = point.shape[-1]
     k_groups = reps.shape[0]
-    q = stats.t.ppf(0.5 + level / 2, k_groups - 1) if k_groups > 1 else np.nan
+    q = dist.t_ppf(0.5 + level / 2, k_groups - 1) if k_groups > 1 else np.nan
     rows = []
     for k in range(2, t):
         s_idx = np.arange(t - k)
@@ -432,7 +433,7 @@ def lawley_equal_correlations(r: np.ndarray, n: float) -> TestResult:
     stat = (n - 1) / (1 - rbar) ** 2 * (((r[iu] - rbar) ** 2).sum()
                                          - gamma * ((rbar_k - rbar) ** 2).sum())
     df = (p + 1) * (p - 2) // 2
-    return TestResult("lawley_1963", float(stat), df, float(stats.chi2.sf(stat, df)))
+    return TestResult("lawley_1963", float(stat), df, float(dist.chi2_sf(stat, df)))
 
 
 def adjusted_wald(estimate: np.ndarray, replicates: np.ndarray, contrasts: np.ndarray,
@@ -467,11 +468,11 @@ def adjusted_wald(estimate: np.ndarray, replicates: np.ndarray, contrasts: np.nd
         except np.linalg.LinAlgError:
             w = np.nan
         f = (d - q + 1) / (d * q) * w
-        return TestResult(name, f, (q, d - q + 1), float(stats.f.sf(f, q, d - q + 1)),
+        return TestResult(name, f, (q, d - q + 1), float(dist.f_sf(f, q, d - q + 1)),
                           "adjusted Wald F, jackknife covariance")
     with np.errstate(invalid="ignore", divide="ignore"):
         t_vals = np.abs(diff) / np.sqrt(np.diag(cov))
-    p = float(min(1.0, q * 2 * stats.t.sf(np.nanmax(t_vals), d)))
+    p = float(min(1.0, q * 2 * dist.t_sf(np.nanmax(t_vals), d)))
     return TestResult(name, float(np.nanmax(t_vals)), (q, d), p,
                       "Bonferroni over single-contrast t tests (too many contrasts for a "
                       "joint test with this many replicate groups)")
@@ -550,13 +551,13 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
     basis = "time" if spacing == "unequal" else "lag"
     position = {pair: i for i, pair in enumerate(zip(iu[0], iu[1]))}
     bands, joint_rows = [], []
-    for kind, lag, dist, pairs in all_bands:  # a loop over bands
+    for kind, lag, distance, pairs in all_bands:  # a loop over bands
         if kind != basis or len(pairs) < 2:
             continue
         positions = [position[pair] for pair in pairs]
         c = _difference_contrasts(len(positions), len(z), positions)
         res = adjusted_wald(z, z_reps, c, f"band_{lag}")
-        bands.append(BandTest(kind, lag, dist, len(positions), res.statistic, res.df,
+        bands.append(BandTest(kind, lag, distance, len(positions), res.statistic, res.df,
                               res.p_value))
         joint_rows.append(c)
     if joint_rows:
@@ -758,7 +759,7 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
     def f_test(sse0, extra, name):
         with np.errstate(invalid="ignore", divide="ignore"):
             f = (max(sse0 - full[3], 0.0) / extra) / resid if resid > 0 else np.inf
-        p = float(stats.f.sf(f, extra, m - 3)) if np.isfinite(f) else 0.0
+        p = float(dist.f_sf(f, extra, m - 3)) if np.isfinite(f) else 0.0
         return TestResult(name, float(f), (extra, m - 3), p, "nested weighted least squares")
 
     t_flat = f_test(flat[3], 2, "flat_vs_full")
@@ -771,7 +772,7 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
     with np.errstate(invalid="ignore", divide="ignore"):
         share_reps = fits[:, 0] / (fits[:, 0] + fits[:, 1])
     k = reps.shape[0]
-    q = stats.t.ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
+    q = dist.t_ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
 
     def est(value, replicate_values, low=0.0, high=1.0):
         se = jackknife_se(value, replicate_values)

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.diagnostics.crosslag import lag_correlations
 from paneldiag.results import Result, plain
 from paneldiag.summaries.pairwise import PairwiseMoments
@@ -47,7 +47,7 @@ def homogeneity_test(estimates, se) -> EqualityTest:
     centre = np.dot(w, est[keep]) / w.sum()
     q = float(np.dot(w, (est[keep] - centre) ** 2))
     df = int(keep.sum() - 1)
-    return EqualityTest(q, df, float(stats.chi2.sf(q, df)), "Cochran's Q")
+    return EqualityTest(q, df, float(dist.chi2_sf(q, df)), "Cochran's Q")
 
 
 def fisher_z_equality(r, n) -> EqualityTest:
@@ -71,14 +71,15 @@ def proportions_equality(successes, totals) -> EqualityTest:
     table = np.vstack([s[keep], n[keep] - s[keep]])
     if (table.sum(axis=1) == 0).any():
         return EqualityTest(np.nan, int(keep.sum() - 1), np.nan, "Pearson chi-square")
-    chi2, p, df, _ = stats.chi2_contingency(table, correction=False)
+    from scipy.stats import chi2_contingency  # loaded only for group comparisons
+    chi2, p, df, _ = chi2_contingency(table, correction=False)
     return EqualityTest(float(chi2), int(df), float(p), "Pearson chi-square")
 
 
 def wilson_interval(successes: int, total: int, level: float = LEVEL) -> tuple[float, float]:
     """Wilson score interval for a binomial proportion (Wilson 1927, J. American
     Statistical Association 22:209-212); it stays inside [0, 1]."""
-    q = stats.norm.ppf(0.5 + level / 2)
+    q = dist.norm_ppf(0.5 + level / 2)
     p = successes / total
     centre = (p + q * q / (2 * total)) / (1 + q * q / total)
     half = q / (1 + q * q / total) * np.sqrt(p * (1 - p) / total + q * q / (4 * total ** 2))
@@ -173,7 +174,7 @@ def _estimate_from(section, path: tuple[str, ...]):
     if est is None:
         return None
     if se is None and lo is not None and hi is not None:
-        se = (hi - lo) / (2 * stats.norm.ppf(0.5 + LEVEL / 2))
+        se = (hi - lo) / (2 * dist.norm_ppf(0.5 + LEVEL / 2))
     return (est, lo, hi, se)
 
 

@@ -14,8 +14,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
 from paneldiag.summaries.trajectories import LINEAR_MIN_WAVES, TrajectorySummary, design, \
@@ -331,7 +331,7 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
         slope_variance=float(point["tau"]), residual_variance=float(point["sigma2"]),
         mean_sampling_variance=float(point["mean_v"]), pooled_slope=float(point["pooled"]),
         chi_square=float(point["chi2"]), df=df,
-        pvalue=float(stats.chi2.sf(point["chi2"], df)) if df > 0 else float("nan"),
+        pvalue=float(dist.chi2_sf(point["chi2"], df)) if df > 0 else float("nan"),
         n_units=int(point["n"]), impossible=impossible, problem=problem)
 
 
@@ -367,7 +367,7 @@ def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95,
     return ResidualAutocorrelation(
         lag1=float(point["r"]), expected_under_independence=float(point["expected"]),
         excess=float(point["r"] - point["expected"]), ci_low=low, ci_high=high, z=z,
-        pvalue=float(2 * stats.norm.sf(abs(z))) if np.isfinite(z) else float("nan"),
+        pvalue=float(2 * dist.norm_sf(abs(z))) if np.isfinite(z) else float("nan"),
         n_units=int(point["n"]), n_pairs=int(point["pairs"]))
 
 
@@ -403,7 +403,7 @@ def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95,
         estimate=float(point["icc"]), ci_low=low, ci_high=high,
         between_mean_square=float(point["msb"]), within_mean_square=float(point["msw"]),
         n0=float(point["n0"]), f=float(f), df_between=df_b, df_within=df_w,
-        pvalue=float(stats.f.sf(f, df_b, df_w)) if np.isfinite(f) and df_w > 0 else float("nan"),
+        pvalue=float(dist.f_sf(f, df_b, df_w)) if np.isfinite(f) and df_w > 0 else float("nan"),
         impossible=problem is not None, problem=problem)
 
 
@@ -492,7 +492,7 @@ def _wald(name, cols, poly, means, cov, total) -> ShapeComponent:
     return ShapeComponent(
         component=name, estimate=float(est[0]) if single else float(np.sqrt((est ** 2).sum())),
         se=float(np.sqrt(v[0, 0])) if single else None, chi_square=chi2, df=len(cols),
-        pvalue=float(stats.chi2.sf(chi2, len(cols))) if np.isfinite(chi2) else float("nan"),
+        pvalue=float(dist.chi2_sf(chi2, len(cols))) if np.isfinite(chi2) else float("nan"),
         share_of_change=share)
 
 
@@ -533,7 +533,7 @@ def variance_trend(moments, times: np.ndarray, em=None) -> VarianceTrend:
     finite = var[np.isfinite(var)]
     return VarianceTrend(
         variances=tuple(float(v) for v in var), log_variance_slope=slope, se=se, t=t_stat,
-        df=k - 1, pvalue=float(2 * stats.t.sf(abs(t_stat), k - 1)) if k > 1 else float("nan"),
+        df=k - 1, pvalue=float(2 * dist.t_sf(abs(t_stat), k - 1)) if k > 1 else float("nan"),
         ratio_last_first=float(finite[-1] / finite[0]) if len(finite) > 1 else float("nan"),
         basis="pairwise_complete" if em is None else "em_missing_at_random")
 

@@ -13,8 +13,8 @@ import weakref
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.results import Result, plain
 from paneldiag.diagnostics.attrition import coverage_shown, known_patterns
 from paneldiag.summaries.patterns import (MISSING_MARK, OBSERVED_MARK, PatternMoments,
@@ -331,7 +331,7 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
             d2 += float(np.sum(g.n * np.einsum("pk,pk->p", dev, sol)))
     except np.linalg.LinAlgError:
         return LittleMCAR(np.nan, df, np.nan, n_patterns)
-    return LittleMCAR(d2, df, float(stats.chi2.sf(d2, df)), n_patterns)
+    return LittleMCAR(d2, df, float(dist.chi2_sf(d2, df)), n_patterns)
 
 
 # ------------------------------------------------------------- response patterns

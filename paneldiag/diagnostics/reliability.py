@@ -17,8 +17,9 @@ from dataclasses import dataclass, replace
 from itertools import combinations
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize
 
+from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
 
@@ -313,8 +314,8 @@ def alpha_interval(alpha: float, n: int, k: int, level: float = 0.95) -> tuple[f
         return np.nan, np.nan
     df1, df2 = n - 1, (n - 1) * (k - 1)
     tail = (1 - level) / 2
-    return (1 - (1 - alpha) * stats.f.ppf(1 - tail, df1, df2),
-            1 - (1 - alpha) * stats.f.ppf(tail, df1, df2))
+    return (1 - (1 - alpha) * dist.f_ppf(1 - tail, df1, df2),
+            1 - (1 - alpha) * dist.f_ppf(tail, df1, df2))
 
 
 def one_factor_ml(cov: np.ndarray, lower: float = 0.005) -> tuple[np.ndarray, np.ndarray, bool]:

@@ -22,7 +22,8 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
-from scipy import stats  # noqa: E402
+
+from paneldiag import distributions as dist  # noqa: E402
 
 OKABE_ITO = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00",
              "#CC79A7")
@@ -176,7 +177,7 @@ def wave_means_figure(report: dict) -> Figure | None:
     mean = np.array([r["mean"] for r in keep])
     sd = np.array([r["sd"] for r in keep])
     n = np.array([r["n"] for r in keep], dtype=float)
-    half = stats.t.ppf(0.975, n - 1) * sd / np.sqrt(n)
+    half = dist.t_ppf(0.975, n - 1) * sd / np.sqrt(n)
     fig, ax = _figure()
     ax.fill_between(x, mean - sd, mean + sd, color=SKY, alpha=0.3, linewidth=0,
                     label="mean ± 1 SD")
@@ -351,7 +352,7 @@ def reliability_figure(report: dict) -> Figure | None:
              "Wiley and Wiley (1970), equal error variances"}
     spacing = min(np.diff(sorted(times.values())), default=1.0)
     offsets = np.linspace(-0.06, 0.06, len(methods)) * spacing
-    q = stats.norm.ppf(0.975)
+    q = dist.norm_ppf(0.975)
     for (method, rows), (color, marker, style), off in zip(methods.items(), SERIES, offsets):
         x = np.array([times[w] for w, _, _ in rows]) + off
         y = np.array([e for _, e, _ in rows])
@@ -380,12 +381,12 @@ def slope_figure(report: dict) -> Figure | None:
         return None
     fig, ax = _figure()
     grid = np.linspace(mean - 3.5 * sd, mean + 3.5 * sd, 400)
-    ax.plot(grid, stats.norm.pdf(grid, mean, sd), color=BLUE, linestyle="-",
+    ax.plot(grid, dist.norm_pdf(grid, mean, sd), color=BLUE, linestyle="-",
             label="estimated per-unit slopes (mean, SD)")
     true_var = rel.get("slope_variance")
     if _finite(true_var) and true_var > 0:
         centre = rel.get("pooled_slope") if _finite(rel.get("pooled_slope")) else mean
-        ax.plot(grid, stats.norm.pdf(grid, centre, np.sqrt(true_var)), color=VERMILLION,
+        ax.plot(grid, dist.norm_pdf(grid, centre, np.sqrt(true_var)), color=VERMILLION,
                 linestyle="--", label="true slopes (sampling error removed)")
     lo, hi = traj.get("mean_slope_ci_low"), traj.get("mean_slope_ci_high")
     if _finite(lo, hi):

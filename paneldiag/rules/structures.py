@@ -42,9 +42,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize
 
-Z95 = float(stats.norm.ppf(0.975))
+from paneldiag import distributions as dist
+
+Z95 = float(dist.norm_ppf(0.975))
 
 
 @dataclass(frozen=True)
@@ -138,10 +140,10 @@ def _build(structure: Structure, theta: np.ndarray, times: np.ndarray):
         i += 1
     if structure.carry:
         b, rho = theta[i], theta[i + 1]
-        dist = np.abs(times[:, None] - times[None, :])
-        kernel = rho ** dist
+        gap = np.abs(times[:, None] - times[None, :])
+        kernel = rho ** gap
         with np.errstate(divide="ignore", invalid="ignore"):
-            dk = np.where(dist > 0, dist * rho ** (dist - 1), 0.0)
+            dk = np.where(gap > 0, gap * rho ** (gap - 1), 0.0)
         sigma = sigma + b * kernel
         grads += [kernel, b * dk]
     return sigma, grads
@@ -246,7 +248,7 @@ def _fit_statistics(value: float, s: np.ndarray, n_eff: float, df: int):
         chi2 = max(0.0, (n_eff - 1) * (value - logdet_s - t))
         if df > 0:
             rmsea = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n_eff - 1))))
-            p_value = float(stats.chi2.sf(chi2, df))
+            p_value = float(dist.chi2_sf(chi2, df))
     return chi2, rmsea, p_value
 
 
@@ -272,7 +274,7 @@ def likelihood_ratio(simple: Fit, rich: Fit, n_eff: float, df: int,
     Liang 1987, J. American Statistical Association 82, 605-610).
     """
     stat = max(0.0, (n_eff - 1) * (simple.discrepancy - rich.discrepancy))
-    p = float(stats.chi2.sf(stat, df))
+    p = float(dist.chi2_sf(stat, df))
     if boundary:
         p = 0.5 * p if stat > 0 else 1.0
     return stat, p
@@ -320,7 +322,7 @@ def mean_shape(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndar
     def contrast(w):
         est = float(w @ mu)
         se = float(np.sqrt(max(w @ v @ w, 0.0)))
-        p = float(2 * stats.norm.sf(abs(est) / se)) if se > 0 else np.nan
+        p = float(2 * dist.norm_sf(abs(est) / se)) if se > 0 else np.nan
         return est / scale, ((est - Z95 * se) / scale, (est + Z95 * se) / scale), p
 
     x1 = np.column_stack([np.ones(t), u])
@@ -343,7 +345,7 @@ def mean_shape(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndar
         cv = c @ v @ c.T
         try:
             r_chi2 = float(est @ np.linalg.solve(cv, est))
-            r_p = float(stats.chi2.sf(r_chi2, r_df))
+            r_p = float(dist.chi2_sf(r_chi2, r_df))
         except np.linalg.LinAlgError:
             pass
     return MeanShape(change[0], change[1], change[2], bend[0], bend[1], bend[2],

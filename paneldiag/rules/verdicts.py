@@ -30,8 +30,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
 
+from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
 from paneldiag.rules.thresholds import Thresholds, default_thresholds
@@ -313,7 +313,7 @@ def _clip(triple, low=0.0, high=1.0):
 
 
 def _phi(z):
-    return float(stats.norm.cdf(z)) if np.isfinite(z) else 0.5
+    return float(dist.norm_cdf(z)) if np.isfinite(z) else 0.5
 
 
 def _margin(est, lo, hi, threshold):

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
+
+from paneldiag import distributions as dist
+
 
 
 def jackknife_se(full, replicates) -> np.ndarray:
@@ -26,6 +28,6 @@ def jackknife_ci(full, replicates, level: float = 0.95):
     """(low, high): full estimate +- t_{K-1} quantile times the jackknife SE."""
     reps = np.asarray(replicates, dtype=float)
     se = jackknife_se(full, reps)
-    q = stats.t.ppf(0.5 + level / 2, reps.shape[0] - 1)
+    q = dist.t_ppf(0.5 + level / 2, reps.shape[0] - 1)
     full = np.asarray(full, dtype=float)
     return full - q * se, full + q * se
