@@ -46,6 +46,7 @@ class ScreenOptions:
     group_column: str | None = None  # name of the grouping column, for by-group screens
     by_group: bool = True            # screen each group too when the panel has groups
     rules: object = None             # paneldiag.rules.Thresholds (None: the defaults)
+    audit_only: bool = False         # only the audit areas (AUDIT_SECTIONS)
 
 
 @dataclass
@@ -60,7 +61,8 @@ class MeasureContext:
 
     @cached_property
     def summaries(self) -> dict:
-        return summarise(self.panel, self.measure, list(SUMMARY_KINDS),
+        kinds = AUDIT_SUMMARY_KINDS if self.options.audit_only else SUMMARY_KINDS
+        return summarise(self.panel, self.measure, list(kinds),
                          chunk_units=self.options.chunk_units,
                          n_replicates=self.options.n_replicates)
 
@@ -89,6 +91,11 @@ SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
     ("growth", growth_section),
 ]
 SECTIONS += RULE_SECTIONS  # always last: the verdicts read every earlier section
+# The audit of who is observed when: a quick screen of its own (--audit-only), which needs
+# only these summaries.
+AUDIT_SECTIONS = [s for s in SECTIONS if s[0] in ("panel", "wave_profile", "attrition",
+                                                  "missingness")]
+AUDIT_SUMMARY_KINDS: list[type] = [WaveMoments, PatternMoments]
 
 
 def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
@@ -106,9 +113,12 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
 
 
 def run_sections(ctx: MeasureContext, sections=None) -> dict:
-    """Each section (default: all of ``SECTIONS``) on one context, as JSON-ready values."""
+    """Each section (default: those of the context's options) on one context, as
+    JSON-ready values."""
+    if sections is None:
+        sections = AUDIT_SECTIONS if ctx.options.audit_only else SECTIONS
     out = {}
-    for key, section in SECTIONS if sections is None else sections:
+    for key, section in sections:
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:
@@ -123,10 +133,15 @@ def _run_group(ctx: MeasureContext, sub: Panel) -> tuple[dict, dict]:
     return run_sections(sub_ctx), sub_ctx.summaries
 
 
+CAUTION_AUDIT_ONLY = (
+    "Audit only: the dependence between waves, reliability, growth and the process-family "
+    "verdicts were not computed (run the screen without --audit-only for them).")
+
+
 def cautions(options: ScreenOptions) -> list[str]:
     return [CAUTION_SCREENING,
             f"Disclosure control: any count below {options.min_cell} units is suppressed and "
-            "never shown on its own."]
+            "never shown on its own."] + ([CAUTION_AUDIT_ONLY] if options.audit_only else [])
 
 
 def one_blas_thread():
@@ -154,8 +169,10 @@ def _screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
                for m in panel.measures}
     if len(reports) == 1:
         return next(iter(reports.values()))
-    return {"schema_version": SCHEMA_VERSION,
-            "tool": {"name": "paneldiag", "version": __version__},
-            "input": input_info, "measures": reports,
-            "cross_lag": plain(cross_lag_screen(panel, options.min_cell, options.n_replicates,
-                                                options.chunk_units))}
+    out = {"schema_version": SCHEMA_VERSION,
+           "tool": {"name": "paneldiag", "version": __version__},
+           "input": input_info, "measures": reports}
+    if not options.audit_only:   # carry-over between measures belongs to the full screen
+        out["cross_lag"] = plain(cross_lag_screen(panel, options.min_cell,
+                                                  options.n_replicates, options.chunk_units))
+    return out

@@ -271,3 +271,20 @@ def test_degenerate_data_over_three_waves_is_screened(tmp_path):
         assert result.returncode == 0, result.stderr
         report = json.loads((tmp_path / "r.json").read_text())
         assert all(f["verdict"] != "supported" for f in report["families"])
+
+
+def test_audit_only_keeps_the_audit_and_says_what_it_left_out(demo_file, quiet_run, tmp_path):
+    """--audit-only: the same audit figures as the full screen, nothing beyond them."""
+    out = tmp_path / "audit.json"
+    result = run_forked(["screen", demo_file, *LONG, "--value", "trust", "--json", out,
+                         "--audit-only"], tmp_path)
+    assert result.returncode == 0, result.stderr
+    audit = json.loads(out.read_text())
+    full = json.loads(quiet_run[1].read_text())
+    assert set(audit) == {"schema_version", "tool", "input", "measure", "ledger", "panel",
+                          "wave_profile", "attrition", "missingness", "cautions"}
+    for key in ("ledger", "panel", "wave_profile", "attrition", "missingness"):
+        assert audit[key] == full[key], key
+    assert audit["input"]["options"]["audit_only"] is True
+    assert any("Audit only" in c for c in audit["cautions"])
+    assert "Audit only" in result.stdout.decode()

@@ -106,13 +106,17 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--rules", "rules_path", metavar="FILE",
               help="A TOML file of verdict thresholds replacing the defaults "
                    "(see docs/rules.md).")
+@click.option("--audit-only", is_flag=True,
+              help="Only the audit of who is observed when (wave profile, attrition, "
+                   "response patterns, EM moments, Little's test): no dependence, "
+                   "reliability, growth or verdicts. Quicker.")
 @click.option("--details", is_flag=True,
               help="Show every area in full in the terminal summary, not just key figures.")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
             delimiter, json_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
-            rules_path, details, quiet):
+            rules_path, audit_only, details, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
@@ -146,6 +150,8 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
                                   scale=_scale(ordinal))}
     if rules_path:
         input_info["options"]["rules"] = rules_path
+    if audit_only:
+        input_info["options"]["audit_only"] = True
     if report_dir and trajectory_sample:
         input_info["options"].update(trajectory_sample=trajectory_sample,
                                      trajectory_seed=trajectory_seed)
@@ -156,7 +162,7 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     from paneldiag.screen import ScreenOptions, screen
     report = screen(panel, ledgers, input_info,
                     ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group,
-                                  rules=thresholds))
+                                  rules=thresholds, audit_only=audit_only))
     progress.done()
     if json_path:
         write_atomic(json_path, report_json(report))

@@ -213,8 +213,10 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
         sub = panel.subset_units(mask)
         sections, summaries = run_group(sub)
         reports[label] = {"n_units": int(mask.sum()), **sections}
-        lag = lag_correlations(summaries[PairwiseMoments], panel.wave_times, 1, min_cell)
-        lag1.append(GroupValue(label, lag.r, lag.ci_low, lag.ci_high, lag.z_se, lag.n_pairs))
+        if PairwiseMoments in summaries:   # not in an audit-only screen
+            lag = lag_correlations(summaries[PairwiseMoments], panel.wave_times, 1, min_cell)
+            lag1.append(GroupValue(label, lag.r, lag.ci_low, lag.ci_high, lag.z_se,
+                                   lag.n_pairs))
         base, kept = _retention(sub.values[measure], min_cell)
         disclose = min(kept, base - kept) >= min_cell
         share = kept / base if base and disclose else np.nan
