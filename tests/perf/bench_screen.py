@@ -8,6 +8,8 @@ some intermittent skips), columns person, wave, score, mood; written as CSV and 
 Parquet. Then, for each format, runs as separate processes (median of --repeat runs):
 
 - paneldiag:  paneldiag screen FILE --id person --wave wave --value score --json OUT --quiet
+- audit:      the same with --audit-only (wave profile, attrition, missingness)
+- core:       read + validation + ledger + Panel + wave profile + JSON, in one script
 - plain:      pandas read (same columns) + pivot to units x waves + per-wave mean and SD
 - extended:   plain + the pairwise-complete correlation matrix (DataFrame.corr)
 
@@ -249,6 +251,12 @@ def machine() -> dict:
             "platform": platform.platform()}
 
 
+RUNS = ("screen", "audit", "core", "plain", "extended")
+# (paneldiag run, pandas baseline): the wall-time target of the ratio, or None (shown only)
+TARGETS = {("core", "plain"): 1.3, ("audit", "plain"): 1.6, ("screen", "plain"): None,
+           ("screen", "extended"): 2.0}
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--units", type=int, default=1_000_000)
@@ -256,6 +264,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--formats", default="csv,parquet")
     parser.add_argument("--no-stages", action="store_true", help="skip the in-process stages")
+    parser.add_argument("--runs", default=",".join(RUNS),
+                        help="which runs, comma-separated (default: all of them)")
     args = parser.parse_args(argv)
 
     info = machine()
@@ -270,26 +280,34 @@ def main(argv: list[str] | None = None) -> int:
             path = str(files[fmt])
             print(f"\n{fmt}: median of {args.repeat} interleaved runs: wall time, peak "
                   "memory, CPU time")
-            results[fmt] = measure({
-                "paneldiag screen": [
-                    sys.executable, "-m", "paneldiag", "screen", path, "--id", ID,
-                    "--wave", WAVE, "--value", VALUE, "--json", out, "--quiet"],
+            screen = [sys.executable, "-m", "paneldiag", "screen", path, "--id", ID,
+                      "--wave", WAVE, "--value", VALUE, "--json", out, "--quiet"]
+            commands = {
+                "paneldiag screen": screen,
+                "paneldiag audit": screen + ["--audit-only"],
                 "paneldiag core": [sys.executable, "-c", CORE, path, out],
                 "pandas plain": [sys.executable, "-c", BASELINE, path, fmt, out, "0"],
                 "pandas extended": [sys.executable, "-c", BASELINE, path, fmt, out, "1"],
-            }, args.repeat)
+            }
+            chosen = args.runs.split(",")
+            results[fmt] = measure({name: argv for name, argv in commands.items()
+                                    if name.split()[1] in chosen}, args.repeat)
     print("\nratios paneldiag / pandas (wall time, peak memory, CPU time)")
-    print("  core = read + ledger + panel + wave profile; screen = the whole screen command")
-    print(f"  {'format':<8} {'run':<7} {'baseline':<9} {'time':>6} {'memory':>7} {'CPU':>6}")
+    print("  core = read + ledger + panel + wave profile; audit = screen --audit-only; "
+          "screen = the whole screen command")
+    print(f"  {'format':<8} {'run':<7} {'baseline':<9} {'time':>6} {'memory':>7} {'CPU':>6}"
+          "  target")
     for fmt, rows in results.items():
-        for run in ("core", "screen"):
-            p = rows[f"paneldiag {run}"]
-            for base in ("plain", "extended"):
-                b = rows[f"pandas {base}"]
-                print(f"  {fmt:<8} {run:<7} {base:<9} {p['wall'] / b['wall']:6.2f} "
-                      f"{p['peak'] / b['peak']:7.2f} {p['cpu'] / b['cpu']:6.2f}")
-    print("  targets: core / plain <= 1.3 time; screen / extended <= 2.0 time and "
-          "<= 1.5 memory")
+        for (run, base), target in TARGETS.items():
+            p, b = rows.get(f"paneldiag {run}"), rows.get(f"pandas {base}")
+            if p is None or b is None:
+                continue
+            ratio = p["wall"] / b["wall"]
+            verdict = "" if target is None else \
+                f"  <= {target} time: {'met' if ratio <= target else 'missed'}"
+            print(f"  {fmt:<8} {run:<7} {base:<9} {ratio:6.2f} {p['peak'] / b['peak']:7.2f} "
+                  f"{p['cpu'] / b['cpu']:6.2f}{verdict}")
+    print("  memory target: screen / extended <= 1.5")
     if not args.no_stages:
         for fmt in args.formats.split(","):
             print(f"\nstages of paneldiag, in process ({fmt}): wall, CPU, peak memory so far")
