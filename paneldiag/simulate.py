@@ -75,6 +75,45 @@ def carry_over(n_units: int, times, rho: float, variance: float,
     return out
 
 
+def population_covariance(process: Process, times) -> np.ndarray:
+    """The T x T covariance of the observed scores that ``simulate`` draws from.
+
+    The parts are independent, so their covariances add: trait_var 11' + slope_var
+    d d' + curve_var d2 d2' + shape_loading_var m m' + ar_var rho^|t_s - t_t| +
+    (occasion_var + error_var) I, with d = t - t_0, d2 = d^2, m the free-shape mean and
+    error_var = (1 - reliability) / reliability times the true-score variance at the first
+    wave (``simulate`` scales the error by the sample variance of the first wave, whose
+    expectation, up to the factor (n - 1) / n, this is).
+    """
+    times = np.asarray(times, dtype=float)
+    dt = times - times[0]
+    n_waves = len(times)
+    sigma = np.zeros((n_waves, n_waves))
+    sigma += process.trait_var
+    sigma += process.slope_var * np.outer(dt, dt)
+    sigma += process.curve_var * np.outer(dt ** 2, dt ** 2)
+    if process.mean_shape is not None:
+        shape = np.asarray(process.mean_shape, dtype=float)
+        sigma += process.shape_loading_var * np.outer(shape, shape)
+    if process.ar_var:
+        sigma += process.ar_var * process.rho ** np.abs(dt[:, None] - dt[None, :])
+    sigma += process.occasion_var * np.eye(n_waves)
+    if process.reliability < 1.0:
+        error_var = sigma[0, 0] * (1.0 - process.reliability) / process.reliability
+        sigma += error_var * np.eye(n_waves)
+    return sigma
+
+
+def population_mean(process: Process, times) -> np.ndarray:
+    """The wave means of the observed scores that ``simulate`` draws from."""
+    times = np.asarray(times, dtype=float)
+    dt = times - times[0]
+    mean = process.intercept + process.slope_mean * dt + process.curve_mean * dt ** 2
+    if process.mean_shape is not None:
+        mean = mean + np.asarray(process.mean_shape, dtype=float)
+    return mean
+
+
 def dropout_after(scores: np.ndarray, rng: np.random.Generator, base_rate: float,
                   log_odds_per_sd: float = 0.0) -> np.ndarray:
     """Monotone dropout: True where a unit has left. The hazard of leaving after wave t

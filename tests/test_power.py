@@ -1,0 +1,137 @@
+"""Power of the verdicts' part tests (paneldiag.power; docs/validation.md, "The
+information limit").
+
+Sources: simulations from the processes of known truth in paneldiag.simulate (the
+population covariance against large samples; the likelihood-ratio statistic of simulated
+complete panels against its predicted distribution, Satorra and Saris 1985,
+Psychometrika 50, 83-90); the rules' own fits (paneldiag.rules.verdicts) for the
+statistic the rules compute; scipy.stats (reference library) for the chi-square tails.
+The Monte Carlo check of the power runs on 100 panels in the ordinary suite (about 3
+seconds) and on 1,000 with --full-grid (marked slow, about 30 seconds).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from paneldiag import power
+from paneldiag.rules import structures as st
+from paneldiag.rules import verdicts
+from paneldiag.rules.thresholds import default_thresholds
+from paneldiag.simulate import (FAMILIES, family_process, family_values,
+                                population_covariance, population_mean, simulate)
+
+ALPHA = default_thresholds()["alpha"]
+
+
+@pytest.mark.parametrize("family", FAMILIES)
+def test_population_covariance_matches_large_samples(family):
+    """Simulation from the process (200,000 units, six waves, reliability 0.6): the
+    sample covariance and means agree with the analytic ones within 5 standard errors
+    of a covariance (Var s_st = (S_ss S_tt + S_st^2) / n for normal scores)."""
+    times = np.arange(6.0)
+    process = family_process(family, times, 0.6)
+    n = 200_000
+    y = simulate(process, n, times, np.random.default_rng(20240612))
+    sigma = population_covariance(process, times)
+    se = np.sqrt((np.outer(np.diag(sigma), np.diag(sigma)) + sigma ** 2) / n)
+    assert np.all(np.abs(np.cov(y.T) - sigma) < 5 * se), family
+    mean_se = np.sqrt(np.diag(sigma) / n)
+    assert np.all(np.abs(y.mean(axis=0) - population_mean(process, times)) < 5 * mean_se)
+
+
+@pytest.mark.parametrize("test, family", [("trait", "autoregressive"),
+                                          ("carry", "stable_trait"),
+                                          ("growth", "trait_autoregressive"),
+                                          ("growth_carry", "linear_growth")])
+def test_noncentrality_vanishes_when_the_simpler_family_is_true(test, family):
+    """The simpler structure reproduces the population covariance of its own family
+    exactly (simulation process with known truth), so the noncentrality is ~0 and the
+    power equals the level; the same test on the richer family's process is far from 0."""
+    res = power.part_test_power(test, family, 1000, 6, 0.6)
+    assert res.noncentrality < 1e-3, res
+    assert res.power == pytest.approx(ALPHA, rel=0.01 if res.boundary else 0.05)
+    richer = {"trait": "trait_autoregressive", "carry": "trait_autoregressive",
+              "growth": "growth_autoregressive", "growth_carry": "growth_autoregressive"}
+    assert power.part_test_power(test, richer[test], 1000, 6, 0.6).noncentrality > 5.0
+
+
+def test_level_and_power_are_inverse():
+    """alpha_for_power inverts lr_power (both one df on the boundary and two df in the
+    interior); with one df off the boundary lr_power is scipy.stats.ncx2's tail
+    (reference library), and on the boundary at lambda = 0 the size is alpha (Self and
+    Liang 1987, JASA 82, 605-610: the 50:50 mixture of chi-square(0) and chi-square(1))."""
+    for df, boundary in ((1, True), (2, False)):
+        for lam in (3.0, 7.4, 17.8):
+            level = power.alpha_for_power(lam, df, boundary, 0.8)
+            got = power.lr_power(lam, df, level, boundary)[0]
+            assert got == pytest.approx(0.8, abs=1e-6)
+    crit = stats.chi2.isf(0.01, 1)
+    assert power.lr_power(7.4, 1, 0.01)[0] == pytest.approx(stats.ncx2.sf(crit, 1, 7.4))
+    assert power.lr_power(0.0, 1, 0.01, boundary=True)[0] == pytest.approx(0.01)
+
+
+def test_part_tests_are_the_rules_tests():
+    """On one simulated panel (trait + carry-over, N 1000, T 6, reliability 0.6) the
+    statistic power.noncentrality computes at the sample covariance is the one
+    paneldiag.rules.verdicts computes for each part test (same structures, df and n)."""
+    n, t = 1000, 6
+    y = family_values("trait_autoregressive", n, t, 0.6, "none", np.random.default_rng(7))
+    times = np.arange(t, dtype=float)
+    s = np.cov(y.T, bias=True)
+    inp = verdicts.Inputs(mu=y.mean(axis=0), sigma=s, pair_n=np.full((t, t), float(n)),
+                          times=times, n_units=n, retention=1.0, dropout_smd=np.nan,
+                          categories=1000)
+    ev = verdicts._fit_all(inp, ALPHA)
+    for key in power.PART_TESTS:
+        lam, _, _ = power.noncentrality(key, s, times, n)
+        assert lam == pytest.approx(ev.tests[key][0], rel=1e-4, abs=1e-4), key
+
+
+def _monte_carlo(panels: int):
+    """Trait test on complete simulated panels of trait + carry-over at N 1000, T 6,
+    reliability 0.6: the rejection count at the thresholds' alpha and the root of the
+    likelihood-ratio statistic of each panel."""
+    n, t = 1000, 6
+    times = np.arange(t, dtype=float)
+    structures = power.structures_of(times)
+    seeds = np.random.SeedSequence(20240613).spawn(panels)
+    rejected, roots = 0, []
+    for seed in seeds:  # a loop over panels
+        y = family_values("trait_autoregressive", n, t, 0.6, "none",
+                          np.random.default_rng(seed))
+        s = np.cov(y.T, bias=True)  # the ML covariance, as the rules' moments
+        simple = st.fit_structure(structures["autoregressive"], s, times, n)
+        rich = st.fit_structure(structures["trait_autoregressive"], s, times, n)
+        stat, p = st.likelihood_ratio(simple, rich, n, 1, boundary=True)
+        rejected += p < ALPHA
+        roots.append(np.sqrt(stat))
+    return rejected, np.array(roots)
+
+
+def _check_monte_carlo(panels: int):
+    """Simulation from a process with known truth against the predicted power
+    (Satorra and Saris 1985): the rejection rate lies within 3 binomial standard errors
+    of the predicted power, and the mean root of the statistic within 3 standard errors
+    of E max(0, Z), Z ~ N(sqrt(lambda), 1) (the boundary statistic's root)."""
+    pred = power.part_test_power("trait", "trait_autoregressive", 1000, 6, 0.6)
+    assert 0.4 < pred.power < 0.8  # a cell where the power is moderate
+    rejected, roots = _monte_carlo(panels)
+    rate = rejected / panels
+    tol = 3 * np.sqrt(pred.power * (1 - pred.power) / panels)
+    assert abs(rate - pred.power) <= tol, (rate, pred.power, tol)
+    mu = np.sqrt(pred.noncentrality)
+    expected_root = mu * stats.norm.cdf(mu) + stats.norm.pdf(mu)
+    assert abs(roots.mean() - expected_root) <= 3 * roots.std(ddof=1) / np.sqrt(panels), \
+        (roots.mean(), expected_root)
+
+
+def test_power_agrees_with_simulated_panels():
+    _check_monte_carlo(100)
+
+
+@pytest.mark.slow
+def test_power_agrees_with_simulated_panels_full():
+    _check_monte_carlo(1000)
