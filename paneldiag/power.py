@@ -43,16 +43,8 @@ from scipy import stats
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
 from paneldiag.rules.thresholds import default_thresholds
+from paneldiag.rules.verdicts import PART_TESTS
 from paneldiag.simulate import family_process, population_covariance, population_mean
-
-# The part tests of paneldiag.rules.verdicts (_fit_all): simpler structure, richer
-# structure, degrees of freedom, and whether the added variance sits on its boundary.
-PART_TESTS = {
-    "trait": ("autoregressive", "trait_autoregressive", 1, True),
-    "carry": ("stable_trait", "trait_autoregressive", 2, False),
-    "growth": ("trait_autoregressive", "growth_ar", 2, False),
-    "growth_carry": ("growth", "growth_ar", 2, False),
-}
 
 
 @dataclass(frozen=True)

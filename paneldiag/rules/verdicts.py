@@ -257,13 +257,24 @@ def _fit_all(inp: Inputs, alpha: float) -> Evidence:
             return st.likelihood_ratio(f[simple], f[rich], n, df, boundary)
         return None
 
-    ev.tests["trait"] = lr("autoregressive", "trait_autoregressive", 1, boundary=True)
-    ev.tests["carry"] = lr("stable_trait", "trait_autoregressive", 2)
-    ev.tests["growth"] = lr("trait_autoregressive", "growth_ar", 2) if "growth_ar" in f \
-        else lr("stable_trait", "growth", 2)
-    ev.tests["growth_carry"] = lr("growth", "growth_ar", 2)
-    ev.tests["dependence"] = lr("occasion_noise", "stable_trait", 1, boundary=True)
+    for name, (simple, rich, df, boundary) in PART_TESTS.items():
+        ev.tests[name] = lr(simple, rich, df, boundary)
+    if "growth_ar" not in f:
+        ev.tests["growth"] = lr(*GROWTH_WITHOUT_CARRY)
     return ev
+
+
+# The tests that add a part to a family: (simpler structure, richer structure, df,
+# whether the added variance sits on its boundary under the simpler one).
+PART_TESTS = {
+    "trait": ("autoregressive", "trait_autoregressive", 1, True),
+    "carry": ("stable_trait", "trait_autoregressive", 2, False),
+    "growth": ("trait_autoregressive", "growth_ar", 2, False),
+    "growth_carry": ("growth", "growth_ar", 2, False),
+    "dependence": ("occasion_noise", "stable_trait", 1, True),
+}
+# the growth test when growth + carry-over cannot be fitted (too few moments)
+GROWTH_WITHOUT_CARRY = ("stable_trait", "growth", 2, False)
 
 
 def _one_thread():
