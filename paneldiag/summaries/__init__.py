@@ -62,7 +62,11 @@ _LAST_GROUPS: list = []
 
 def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = CHUNK_UNITS,
               n_replicates: int = N_REPLICATES) -> dict[type, object]:
-    """Build every summary kind in one pass over chunks of units."""
+    """Build every summary kind in one pass over chunks of units.
+
+    A kind with a ``shared_pass`` (a function of the chunk) is built by
+    ``from_shared`` from that function's result, computed once a chunk for all the
+    kinds that share it."""
     values = panel.values[measure]
     groups = replicate_groups(panel.unit_ids, n_replicates)
     merged: dict[type, object] = {}
@@ -72,7 +76,14 @@ def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = 
                       weights=None if panel.weights is None else panel.weights[start:stop],
                       replicate=groups[start:stop], times=panel.wave_times,
                       n_replicates=n_replicates)
+        shared: dict = {}
         for kind in kinds:
-            part = kind.from_chunk(chunk)
+            shared_pass = getattr(kind, "shared_pass", None)
+            if shared_pass is None:
+                part = kind.from_chunk(chunk)
+            else:
+                if shared_pass not in shared:
+                    shared[shared_pass] = shared_pass(chunk)
+                part = kind.from_shared(shared[shared_pass])
             merged[kind] = part if kind not in merged else merged[kind].merge(part)
     return merged

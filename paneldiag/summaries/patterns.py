@@ -9,27 +9,255 @@ Counts per replicate group (``replicate_n``, P x K) are kept too, so shares read
 off the pattern table can get delete-a-group jackknife errors. Retention, unit
 types and coverage are all functions of the pattern counts.
 
-Building a chunk sorts its units by pattern and sums with ``np.add.reduceat`` (a
-loop over waves, not units), so the cost is O(n T^2) per chunk. Chunks combine with
-the pairwise update of Chan, Golub and LeVeque (1983, The American Statistician):
-``m2 = m2_a + m2_b + n_a n_b / n * delta delta'`` on the observed block.
+Both pattern summaries come from one table of cells, a cell being the units of one
+response pattern in one replicate group (``PatternCells``). A chunk's units are sorted
+once by (pattern, group); a cell of many units gets its cross-products from one matrix
+product of its centred rows (a loop over such cells), the units of the small cells
+from one sparse sum of their centred products, so the cost is O(n T^2) per chunk.
+The per-pattern moments pool a pattern's cells, and chunks combine the same way, with
+the update of Chan, Golub and LeVeque (1983, The American Statistician) taken over any
+number of parts: ``m2 = sum_c m2_c + sum_c n_c d_c d_c'``, ``d_c`` the part's mean
+minus the pooled mean, on the observed block. The cells keep the upper triangle of
+each cross-product matrix only.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
+
+# cells with at least this many units get their cross-products from one matrix
+# product each (a loop over such cells); the units of smaller cells share one sum
+MATRIX_CELL_UNITS = 64
 
 
 def pattern_keys(observed: np.ndarray) -> np.ndarray:
     """One sortable key per row of a boolean (n, T) matrix: an integer bit code for
     T <= 62 waves (wave 1 the lowest bit), packed bits as bytes beyond that."""
-    n_waves = observed.shape[1]
+    observed = np.asarray(observed, dtype=bool)
+    n_rows, n_waves = observed.shape
     if n_waves <= 62:
-        return observed.astype(np.int64) @ (np.int64(1) << np.arange(n_waves, dtype=np.int64))
+        packed = np.packbits(observed, axis=1, bitorder="little")
+        word = np.zeros((n_rows, 8), dtype=np.uint8)
+        word[:, :packed.shape[1]] = packed
+        return word.view("<i8")[:, 0].astype(np.int64, copy=False)
     packed = np.ascontiguousarray(np.packbits(observed, axis=1))
     return packed.view(np.dtype((np.void, packed.shape[1])))[:, 0]
+
+
+def cell_keys(observed: np.ndarray, replicate: np.ndarray, n_replicates: int) -> np.ndarray:
+    """One sortable integer key per row for its cell (pattern, replicate group),
+    ordered by pattern key and then by group."""
+    keys = pattern_keys(observed)
+    group_bits = max(int(n_replicates) - 1, 0).bit_length()
+    replicate = np.asarray(replicate, dtype=np.int64)
+    if keys.dtype.kind == "i" and observed.shape[1] + group_bits <= 62:
+        return (keys << group_bits) | replicate
+    _, dense = np.unique(keys, return_inverse=True)
+    return dense.reshape(-1).astype(np.int64) * n_replicates + replicate
+
+
+def _upper(n_waves: int) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column of each entry of a packed upper triangle (diagonal included)."""
+    return np.triu_indices(n_waves)
+
+
+def _cross(a: np.ndarray, b: np.ndarray, packed: bool) -> np.ndarray:
+    """Row by row products a_i b_j of two (R, T) arrays: the packed upper triangle
+    (j >= i, in the order of ``_upper``) or, if not ``packed``, every (i, j)."""
+    n_rows, n_waves = a.shape
+    if not packed:
+        return (a[:, :, None] * b[:, None, :]).reshape(n_rows, n_waves * n_waves)
+    out = np.empty((n_rows, n_waves * (n_waves + 1) // 2))
+    at = 0
+    for s in range(n_waves):  # a loop over waves; each step multiplies whole columns
+        np.multiply(a[:, s:s + 1], b[:, s:], out=out[:, at:at + n_waves - s])
+        at += n_waves - s
+    return out
+
+
+def _unpack(packed: np.ndarray, n_waves: int) -> np.ndarray:
+    """(R, T(T+1)/2) packed upper triangles to (R, T, T) symmetric matrices."""
+    rows, cols = _upper(n_waves)
+    position = np.empty((n_waves, n_waves), dtype=np.int64)
+    position[rows, cols] = np.arange(len(rows))
+    position[cols, rows] = np.arange(len(rows))
+    return np.take(packed, position.reshape(-1), axis=1).reshape(-1, n_waves, n_waves)
+
+
+def _indicator(index: np.ndarray, n_out: int):
+    """Sparse (n_out, R) 0/1 matrix adding each row r into output ``index[r]``; rows
+    with index -1 are left out. Its product with an (R, m) array adds the rows of each
+    output in row order, without gathering or copying them."""
+    from scipy import sparse
+    rows = np.flatnonzero(index >= 0)
+    return sparse.csr_array((np.ones(len(rows)), (index[rows], rows)),
+                            shape=(n_out, len(index)))
+
+
+def _pool(n_out: int, parts: list[tuple], packed: bool):
+    """Counts, means and centred cross-products of groups of parts.
+
+    Each part is ``(index, n, mean, m2)``: ``index[r]`` is the output row of its row r
+    (-1: left out), ``m2`` is (R, W), packed upper triangles or full matrices row by
+    row (see ``_cross``). An output pools its rows by the Chan-Golub-LeVeque update
+    over any number of parts, ``m2 = sum m2_r + sum n_r d_r d_r'`` with ``d_r`` the
+    row's mean minus the pooled mean; the pooled mean is taken around one of its rows'
+    means, so an output of one row is that row, exactly."""
+    n_waves = parts[0][2].shape[1]
+    n_total = np.zeros(n_out)
+    around = np.zeros((n_out, n_waves))
+    for index, n, mean, _ in reversed(parts):
+        kept = index >= 0
+        n_total += np.bincount(index[kept], weights=n[kept], minlength=n_out)
+        around[index[kept]] = mean[kept]
+    adders = [_indicator(index, n_out) for index, _, _, _ in parts]
+    mean_out = around.copy()
+    for (index, n, mean, _), add in zip(parts, adders):
+        safe = np.maximum(index, 0)
+        mean_out += add @ ((mean - around[safe]) * (n / n_total[safe])[:, None])
+    m2_out = None
+    for (index, n, mean, m2), add in zip(parts, adders):
+        # a row alone in its output has dev exactly 0 (its output's mean is its own)
+        dev = mean - mean_out[np.maximum(index, 0)]
+        spread = _cross(dev * n[:, None], dev, packed)
+        spread += m2
+        term = add @ spread
+        m2_out = term if m2_out is None else m2_out + term
+    return n_total, mean_out, m2_out
+
+
+def _cell_moments(x: np.ndarray, keys: np.ndarray):
+    """Units sorted by ``keys``; per run of equal keys (a cell, whose units share one
+    pattern): the position of its first unit in ``x``, its size, means and centred
+    cross-products of the observed waves (packed upper triangles; 0 at unobserved
+    waves)."""
+    n_units, n_waves = x.shape
+    rows, cols = _upper(n_waves)
+    order = np.argsort(keys, kind="stable")
+    starts = np.flatnonzero(np.r_[True, np.diff(keys[order]) != 0])
+    sizes = np.diff(np.r_[starts, n_units])
+    xs = np.take(x, order, axis=0)
+    np.copyto(xs, 0.0, where=np.isnan(xs))
+    # within a cell every unit has the same pattern, so after centring the unobserved
+    # waves (0 in every row and in the mean) stay 0
+    n_cells = len(starts)
+    mean = np.empty((n_cells, n_waves))
+    m2 = np.empty((n_cells, len(rows)))
+    large = sizes >= MATRIX_CELL_UNITS
+    for c in np.flatnonzero(large):  # a loop over (pattern, group) cells of many units
+        block = xs[starts[c]:starts[c] + sizes[c]]
+        mean[c] = block.sum(axis=0) / sizes[c]
+        dev = block - mean[c]
+        m2[c] = (dev.T @ dev)[rows, cols]
+    small = np.flatnonzero(~large)
+    if len(small):
+        xs = xs[np.repeat(~large, sizes)]
+        small_sizes = sizes[small]
+        cell_of_row = np.repeat(np.arange(len(small)), small_sizes)
+        add = _indicator(cell_of_row, len(small))
+        mean[small] = (add @ xs) / small_sizes[:, None]
+        dev = xs - mean[small][cell_of_row]
+        m2[small] = add @ _cross(dev, dev, packed=True)
+    return order[starts], sizes, mean, m2
+
+
+@dataclass(frozen=True)
+class PatternCells:
+    """Moments per cell (response pattern, replicate group), cells ordered by pattern
+    key and then by group. ``patterns()`` pools a pattern's cells into
+    ``PatternMoments``; leaving a group out first gives the moments of the others."""
+
+    observed: np.ndarray    # (C, T) bool
+    group: np.ndarray       # (C,) replicate group 0..K-1
+    n: np.ndarray           # (C,) units in the cell
+    mean: np.ndarray        # (C, T) means of the observed waves (0 elsewhere)
+    m2: np.ndarray          # (C, T(T+1)/2) centred cross-products, packed upper triangle
+    n_replicates: int
+
+    @classmethod
+    def from_chunk(cls, chunk) -> "PatternCells":
+        x = chunk.values
+        n_units, n_waves = x.shape
+        k = chunk.n_replicates
+        if n_units == 0:
+            return cls.empty(n_waves, k)
+        seen = ~np.isnan(x)
+        replicate = np.asarray(chunk.replicate, dtype=np.int64)
+        first, sizes, mean, m2 = _cell_moments(x, cell_keys(seen, replicate, k))
+        return cls(seen[first], replicate[first], sizes.astype(float), mean, m2, k)
+
+    @classmethod
+    def empty(cls, n_waves: int, n_replicates: int) -> "PatternCells":
+        return cls(np.zeros((0, n_waves), dtype=bool), np.zeros(0, dtype=np.int64),
+                   np.zeros(0), np.zeros((0, n_waves)),
+                   np.zeros((0, n_waves * (n_waves + 1) // 2)), n_replicates)
+
+    @property
+    def n_cells(self) -> int:
+        return len(self.n)
+
+    @property
+    def n_waves(self) -> int:
+        return self.observed.shape[1]
+
+    @cached_property
+    def pattern_index(self) -> np.ndarray:
+        """Each cell's pattern, numbered 0..P-1 in key order."""
+        keys = pattern_keys(self.observed)
+        return np.cumsum(np.r_[False, keys[1:] != keys[:-1]]).astype(np.int64)
+
+    def merge(self, other: "PatternCells") -> "PatternCells":
+        """Exact combination of two cell tables (cells kept in key order)."""
+        if other.n_cells == 0:
+            return self
+        if self.n_cells == 0:
+            return other
+        observed = np.concatenate([self.observed, other.observed])
+        group = np.concatenate([self.group, other.group])
+        _, first, index = np.unique(cell_keys(observed, group, self.n_replicates),
+                                    return_index=True, return_inverse=True)
+        index = index.reshape(-1)
+        split = self.n_cells
+        n, mean, m2 = _pool(len(first), [(index[:split], self.n, self.mean, self.m2),
+                                         (index[split:], other.n, other.mean, other.m2)],
+                            packed=True)
+        return PatternCells(observed[first], group[first], n, mean, m2, self.n_replicates)
+
+    def in_group(self, g: int) -> "PatternMoments":
+        """The pattern moments of the units of replicate group ``g``."""
+        rows = np.flatnonzero(self.group == g)
+        rep = np.zeros((len(rows), self.n_replicates))
+        rep[:, g] = self.n[rows]
+        return PatternMoments(self.observed[rows], self.n[rows], self.mean[rows],
+                              _unpack(self.m2[rows], self.n_waves), rep)
+
+    def patterns(self, drop_group: int | None = None) -> "PatternMoments":
+        """The pattern moments of all cells (optionally leaving one group out)."""
+        k = self.n_replicates
+        if self.n_cells == 0:
+            return PatternMoments.empty(self.n_waves, k)
+        index = self.pattern_index
+        if drop_group is not None:
+            kept = self.group != drop_group
+            present = np.bincount(index[kept], minlength=index[-1] + 1) > 0
+            index = np.where(kept, (np.cumsum(present) - 1)[index], -1)
+        kept_rows = np.flatnonzero(index >= 0)
+        if len(kept_rows) == 0:
+            return PatternMoments.empty(self.n_waves, k)
+        n_out = int(index[kept_rows[-1]]) + 1
+        n, mean, m2 = _pool(n_out, [(index, self.n, self.mean, self.m2)], packed=True)
+        first = kept_rows[np.r_[True, index[kept_rows[1:]] != index[kept_rows[:-1]]]]
+        rep = np.bincount(index[kept_rows] * k + self.group[kept_rows],
+                          weights=self.n[kept_rows], minlength=n_out * k).reshape(n_out, k)
+        return PatternMoments(self.observed[first], n, mean, _unpack(m2, self.n_waves), rep)
+
+
+def shared_pattern_cells(chunk) -> PatternCells:
+    """The pass both pattern summaries share (``summarise`` runs it once a chunk)."""
+    return PatternCells.from_chunk(chunk)
 
 
 OBSERVED_MARK, MISSING_MARK = "o", "."
@@ -80,35 +308,15 @@ class PatternMoments:
         """Observed waves per pattern, (P,)."""
         return self.observed.sum(axis=1)
 
+    shared_pass = staticmethod(shared_pattern_cells)
+
+    @classmethod
+    def from_shared(cls, cells: PatternCells) -> "PatternMoments":
+        return cells.patterns()
+
     @classmethod
     def from_chunk(cls, chunk) -> "PatternMoments":
-        x = chunk.values
-        seen = ~np.isnan(x)
-        n_units, n_waves = x.shape
-        k = chunk.n_replicates
-        if n_units == 0:
-            return cls.empty(n_waves, k)
-        keys = pattern_keys(seen)
-        order = np.argsort(keys, kind="stable")
-        sorted_keys = keys[order]
-        starts = np.flatnonzero(np.r_[True, sorted_keys[1:] != sorted_keys[:-1]])
-        sizes = np.diff(np.r_[starts, n_units])
-        counts = sizes.astype(float)
-        seen_sorted = seen[order]
-        observed = seen_sorted[starts]
-        # waves along the first axis, units along the second: reduceat runs fastest so
-        xt = np.ascontiguousarray(np.where(seen_sorted, x[order], 0.0).T)
-        mean = (np.add.reduceat(xt, starts, axis=1) / counts).T
-        group_of_row = np.repeat(np.arange(len(starts)), sizes)
-        dt = np.where(seen_sorted.T, xt - mean.T[:, group_of_row], 0.0)
-        m2 = np.empty((len(starts), n_waves, n_waves))
-        for s in range(n_waves):  # a loop over waves; each step sums whole rows
-            block = np.add.reduceat(dt[s:s + 1] * dt[s:], starts, axis=1).T
-            m2[:, s, s:] = block
-            m2[:, s:, s] = block
-        rep = np.bincount(group_of_row * k + chunk.replicate[order],
-                          minlength=len(starts) * k).reshape(len(starts), k).astype(float)
-        return cls(observed, counts, mean, m2, rep)
+        return cls.from_shared(shared_pattern_cells(chunk))
 
     @classmethod
     def empty(cls, n_waves: int, n_replicates: int) -> "PatternMoments":
@@ -117,32 +325,21 @@ class PatternMoments:
 
     def merge(self, other: "PatternMoments") -> "PatternMoments":
         """Exact combination of two summaries (patterns kept in key order)."""
+        if other.n_patterns == 0:
+            return self
+        if self.n_patterns == 0:
+            return other
         observed = np.concatenate([self.observed, other.observed])
-        keys = pattern_keys(observed)
-        unique, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
-        p = len(unique)
-        ia, ib = inverse[:self.n_patterns], inverse[self.n_patterns:]
-        n = np.zeros(p)
-        n[ia] += self.n
-        n[ib] += other.n
-        na, nb = np.zeros(p), np.zeros(p)
-        na[ia], nb[ib] = self.n, other.n
-        mean_a = np.zeros((p, self.n_waves))
-        mean_b = np.zeros((p, self.n_waves))
-        mean_a[ia], mean_b[ib] = self.mean, other.mean
-        m2 = np.zeros((p, self.n_waves, self.n_waves))
-        m2[ia] += self.m2
-        m2[ib] += other.m2
-        mean = np.zeros((p, self.n_waves))
-        mean[ia] = self.mean
-        mean[ib] = other.mean   # right for patterns only in ``other``; fixed below
-        both = np.flatnonzero((na > 0) & (nb > 0))
-        if len(both):
-            delta = mean_b[both] - mean_a[both]
-            mean[both] = mean_a[both] + delta * (nb[both] / n[both])[:, None]
-            weight = na[both] * nb[both] / n[both]
-            m2[both] += weight[:, None, None] * delta[:, :, None] * delta[:, None, :]
-        rep = np.zeros((p, self.replicate_n.shape[1]))
-        rep[ia] += self.replicate_n
-        rep[ib] += other.replicate_n
-        return PatternMoments(observed[first], n, mean, m2, rep)
+        _, first, index = np.unique(pattern_keys(observed), return_index=True,
+                                    return_inverse=True)
+        index = index.reshape(-1)
+        split, t = self.n_patterns, self.n_waves
+        n, mean, m2 = _pool(len(first), [(index[:split], self.n, self.mean,
+                                          self.m2.reshape(split, t * t)),
+                                         (index[split:], other.n, other.mean,
+                                          other.m2.reshape(other.n_patterns, t * t))],
+                            packed=False)
+        rep = np.zeros((len(first), self.replicate_n.shape[1]))
+        rep[index[:split]] += self.replicate_n
+        rep[index[split:]] += other.replicate_n
+        return PatternMoments(observed[first], n, mean, m2.reshape(-1, t, t), rep)
