@@ -444,28 +444,32 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     labels = [str(w) for w in wave_labels]
     n_units, t = values.shape
     names = list(covariates)
-    extra = [np.asarray(covariates[name], dtype=float) for name in names]
-    seen = ~np.isnan(values)
+    # wave-major copies: each wave's values are one contiguous row
+    by_wave = np.ascontiguousarray(values.T)
+    extra = [np.ascontiguousarray(np.asarray(covariates[name], dtype=float).T)
+             for name in names]
+    seen = ~np.isnan(by_wave)
     # the last wave a unit is observed at (-1: never): the event at t is t == last
-    last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
-    last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
-    del last_seen
-    # person-periods wave by wave (wave-major: each wave's rows are one contiguous slice)
-    x = np.empty((int(seen[:, :-1].sum()), 1 + len(extra)))
-    y = np.empty(len(x), dtype=bool)
+    last = np.full(n_units, -1, dtype=np.int64)
+    for s in range(t):  # a loop over waves
+        last[seen[s]] = s
+    # person-periods wave by wave: predictor j of wave s's rows is xt[j, bounds[s]:...]
+    n_rows = int(seen[:-1].sum())
+    xt = np.empty((1 + len(extra), n_rows))
+    y = np.empty(n_rows, dtype=bool)
     bounds, waves_used, any_risk = [0], np.zeros(t - 1, dtype=bool), np.zeros(n_units, bool)
     for s in range(t - 1):  # a loop over waves
-        column = values[:, s]
+        observed = by_wave[s][seen[s]]
         with np.errstate(invalid="ignore", divide="ignore"):
-            observed = column[seen[:, s]]
             mean = observed.mean() if len(observed) else np.nan
             dev = observed - mean
             sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
                 else np.nan
-            z = (column - mean) / sd
-        risk = np.isfinite(z) if sd > 0 else np.zeros(n_units, dtype=bool)
+        if not sd > 0:
+            continue   # no spread at this wave: no standardised value
+        risk = seen[s].copy()
         for w in extra:  # a loop over covariates
-            risk &= np.isfinite(w[:, s])
+            risk &= np.isfinite(w[s])
         rows = np.flatnonzero(risk)
         event = last[rows] == s
         n_events = int(event.sum())
@@ -474,13 +478,14 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
         waves_used[s] = True
         any_risk[rows] = True
         lo, hi = bounds[-1], bounds[-1] + len(rows)
-        x[lo:hi, 0] = z[rows]
+        np.subtract(by_wave[s][rows], mean, out=xt[0, lo:hi])
+        xt[0, lo:hi] /= sd
         for j, w in enumerate(extra):
-            x[lo:hi, j + 1] = w[rows, s]
+            xt[j + 1, lo:hi] = w[s][rows]
         y[lo:hi] = event
         bounds.append(hi)
-    del seen, last
-    x, y = x[:bounds[-1]], y[:bounds[-1]]
+    del seen, last, by_wave
+    xt, y = xt[:, :bounds[-1]], y[:bounds[-1]]
     n_pp, n_ev = len(y), int(y.sum())
     n_at_risk = int(any_risk.sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
@@ -494,12 +499,13 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
     if n_ev < min_cell or n_pp - n_ev < min_cell:
         return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
-    spread = x.std(axis=0)
+    spread = xt.std(axis=1)
     if np.any(spread == 0):
         return empty("a predictor is constant over the person-periods: not fitted")
-    x[:, 1:] = (x[:, 1:] - x[:, 1:].mean(axis=0)) / spread[1:]
+    xt[1:] = (xt[1:] - xt[1:].mean(axis=1, keepdims=True)) / spread[1:, None]
     bounds = np.asarray(bounds)
-    fit = _newton_logit(y, x, bounds, max_iter, tol, _subsample_start(y, x, bounds, max_iter))
+    fit = _newton_logit(y, xt, bounds, max_iter, tol,
+                        _subsample_start(y, xt, bounds, max_iter))
     if fit is None:
         return empty("the dropout model did not converge (separation or a singular "
                      "information matrix)")
@@ -519,7 +525,7 @@ SUBSAMPLE_STEP = 32          # start values from every 32nd person-period ...
 SUBSAMPLE_MIN_ROWS = 1 << 20  # ... when there are at least this many
 
 
-def _subsample_start(y, x, bounds, max_iter):
+def _subsample_start(y, xt, bounds, max_iter):
     """Start values (intercepts, slopes) for the full fit from a fit to every
     ``SUBSAMPLE_STEP``-th person-period of each wave, or None (small data, or the
     subsample fit fails). They lie within a few standard errors of the estimate, so
@@ -534,21 +540,22 @@ def _subsample_start(y, x, bounds, max_iter):
     counts = np.add.reduceat(ys.astype(np.int64), sub_bounds[:-1]) if len(rows) else []
     if np.any(counts == 0) or np.any(counts == np.diff(sub_bounds)):
         return None   # a wave without events (or non-events) in the subsample
-    fit = _newton_logit(ys, x[rows], sub_bounds, max_iter, 1e-6)
+    fit = _newton_logit(ys, xt[:, rows], sub_bounds, max_iter, 1e-6)
     return None if fit is None else fit[3]
 
 
-def _newton_logit(y, x, bounds, max_iter, tol, start=None):
-    """Logit with one intercept per level and slopes on x by Newton-Raphson;
+def _newton_logit(y, xt, bounds, max_iter, tol, start=None):
+    """Logit with one intercept per level and slopes on the predictors (the rows of
+    ``xt``, one row per predictor) by Newton-Raphson;
     returns (slopes, their standard errors, iterations, (intercepts, slopes)) or
     None. The rows of level l are the slice bounds[l]:bounds[l + 1]; the information
     matrix is assembled from per-level sums (the intercept block is diagonal), one
     level's slice at a time, in reused buffers. ``start`` gives (intercepts, slopes)
     to start from; by default the intercepts are the levels' log-odds and the slopes
     zero."""
-    k = x.shape[1]
+    k = xt.shape[0]
     n_levels = len(bounds) - 1
-    xt = np.ascontiguousarray(x.T)   # one contiguous row per predictor: dot products
+    xt = np.ascontiguousarray(xt)   # one contiguous row per predictor: dot products
     size = np.diff(bounds).astype(float)
     events = np.array([np.count_nonzero(y[a:b]) for a, b in zip(bounds[:-1], bounds[1:])],
                       dtype=float)
