@@ -70,12 +70,8 @@ def _cross(a: np.ndarray, b: np.ndarray, packed: bool) -> np.ndarray:
     n_rows, n_waves = a.shape
     if not packed:
         return (a[:, :, None] * b[:, None, :]).reshape(n_rows, n_waves * n_waves)
-    out = np.empty((n_rows, n_waves * (n_waves + 1) // 2))
-    at = 0
-    for s in range(n_waves):  # a loop over waves; each step multiplies whole columns
-        np.multiply(a[:, s:s + 1], b[:, s:], out=out[:, at:at + n_waves - s])
-        at += n_waves - s
-    return out
+    rows, cols = _upper(n_waves)
+    return np.take(a, rows, axis=1) * np.take(b, cols, axis=1)
 
 
 def _unpack(packed: np.ndarray, n_waves: int) -> np.ndarray:
