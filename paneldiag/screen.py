@@ -1,8 +1,8 @@
 """The screen: for each measure, summaries in one pass, then every diagnostic section.
 
 A section is a function of a ``MeasureContext`` returning a result object (or None
-when it does not apply). ``SECTIONS`` lists them in report order; a new diagnostic
-area adds its summary kinds to ``SUMMARY_KINDS`` and its section here.
+when it does not apply). ``sections()`` lists them in report order; a new diagnostic
+area adds its summary kinds to ``SUMMARY_KINDS`` and its section there.
 """
 
 from __future__ import annotations
@@ -14,16 +14,12 @@ from typing import Callable
 from paneldiag import SCHEMA_VERSION, __version__
 from paneldiag.diagnostics.attrition import attrition_section
 from paneldiag.diagnostics.crosslag import cross_lag_screen
-from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
 from paneldiag.diagnostics.groups import group_screen
-from paneldiag.diagnostics.growth import growth_section
 from paneldiag.diagnostics.missingness import missingness_section
 from paneldiag.diagnostics.profile import wave_profile
-from paneldiag.diagnostics.reliability import reliability_section
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
-from paneldiag.rules import RULE_SECTIONS
 from paneldiag.summaries import CHUNK_UNITS, N_REPLICATES, summarise
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.moments import WaveMoments
@@ -81,21 +77,30 @@ def _panel_section(ctx: MeasureContext) -> dict:
 
 SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary,
                              PatternMoments, ReplicatePatternMoments]
-SECTIONS: list[tuple[str, Callable[[MeasureContext], object]]] = [
+Section = tuple[str, Callable[[MeasureContext], object]]
+# The audit of who is observed when: a quick screen of its own (--audit-only), which needs
+# only these summaries.
+AUDIT_SECTIONS: list[Section] = [
     ("panel", _panel_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
     ("attrition", attrition_section),
     ("missingness", missingness_section),
-    *DEPENDENCE_SECTIONS,
-    ("reliability", reliability_section),
-    ("growth", growth_section),
 ]
-SECTIONS += RULE_SECTIONS  # always last: the verdicts read every earlier section
-# The audit of who is observed when: a quick screen of its own (--audit-only), which needs
-# only these summaries.
-AUDIT_SECTIONS = [s for s in SECTIONS if s[0] in ("panel", "wave_profile", "attrition",
-                                                  "missingness")]
 AUDIT_SUMMARY_KINDS: list[type] = [WaveMoments, PatternMoments]
+
+
+def sections(audit_only: bool = False) -> list[Section]:
+    """The sections in report order. The areas beyond the audit are imported here, on
+    first use, so that an audit-only screen does not pay for their imports."""
+    if audit_only:
+        return AUDIT_SECTIONS
+    from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
+    from paneldiag.diagnostics.growth import growth_section
+    from paneldiag.diagnostics.reliability import reliability_section
+    from paneldiag.rules import RULE_SECTIONS
+    return [*AUDIT_SECTIONS, *DEPENDENCE_SECTIONS, ("reliability", reliability_section),
+            ("growth", growth_section),
+            *RULE_SECTIONS]  # always last: the verdicts read every earlier section
 
 
 def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
@@ -112,13 +117,11 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     return report
 
 
-def run_sections(ctx: MeasureContext, sections=None) -> dict:
+def run_sections(ctx: MeasureContext, chosen: list[Section] | None = None) -> dict:
     """Each section (default: those of the context's options) on one context, as
     JSON-ready values."""
-    if sections is None:
-        sections = AUDIT_SECTIONS if ctx.options.audit_only else SECTIONS
     out = {}
-    for key, section in sections:
+    for key, section in chosen or sections(ctx.options.audit_only):
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:

@@ -6,7 +6,6 @@ from __future__ import annotations
 from tabulate import tabulate
 
 from paneldiag.render.text import heading
-from paneldiag.rules.verdicts import DISPLAY
 
 # the statistics that sum up each family's case, by key of verdict_basis.statistics
 KEY_STATS = {
@@ -49,6 +48,7 @@ def _key(family: str, stats: dict) -> str:
 
 
 def verdicts_block(report: dict, color: bool) -> list[str]:
+    from paneldiag.rules.verdicts import DISPLAY   # here: the rules load the model fitting
     stats = report.get("verdict_basis", {}).get("statistics", {})
     rows = [[DISPLAY.get(f["family"], f["family"]), f["verdict"], f"{f['score']:.2f}",
              _key(f["family"], stats)] for f in report["families"]]

@@ -225,7 +225,7 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
         t = mark(f"summary {kind.__name__}", t)
     ctx.__dict__["summaries"] = summaries  # the cached_property, filled stage by stage
     report = {}
-    for key, section in screen_module.SECTIONS:
+    for key, section in screen_module.sections():
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:
