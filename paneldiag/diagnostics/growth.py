@@ -36,28 +36,40 @@ class _PatternDesign:
 
 
 def _pattern_design(summary: TrajectorySummary) -> _PatternDesign:
+    """The design quantities of every response pattern, patterns with the same number
+    k of observed waves in one batch. The residual maker of a straight-line fit on the
+    observed times t is M = I - 11'/k - c c' / (c'c), c = t - mean(t)."""
     tc = summary.times - summary.centre
-    n_pat = len(summary.patterns)
-    out = {key: np.zeros(n_pat) for key in _PatternDesign.__dataclass_fields__}
-    for p, obs in enumerate(summary.patterns):  # a loop over response patterns
-        k = int(obs.sum())
-        out["k"][p] = k
-        if k < LINEAR_MIN_WAVES:
-            continue
-        t_obs = tc[obs]
-        out["ss_t"][p] = float(((t_obs - t_obs.mean()) ** 2).sum())
-        x = design(t_obs, 1)
-        m = np.eye(k) - x @ np.linalg.pinv(x)
-        lag = lag_operator(obs)
-        tr_m = float(k - np.linalg.matrix_rank(x))  # exact: the residual degrees of freedom
-        out["tr_m"][p] = tr_m
-        out["n_pairs"][p] = float(2 * lag.sum())
-        if tr_m > 0.5:
-            tr_ml = float(np.trace(m @ lag))
-            r0 = tr_ml / tr_m
-            a = m @ (lag - r0 * np.eye(k))
-            out["tr_ml"][p], out["r0"][p] = tr_ml, r0
-            out["c_var"][p] = float(np.trace(a @ a))
+    observed = np.asarray(summary.patterns, dtype=bool)
+    counts = observed.sum(axis=1)
+    out = {key: np.zeros(len(observed)) for key in _PatternDesign.__dataclass_fields__}
+    out["k"] = counts.astype(float)
+    for k in np.unique(counts[counts >= LINEAR_MIN_WAVES]):  # a loop over wave counts
+        rows = np.flatnonzero(counts == k)
+        # the observed waves of each pattern, in wave order
+        waves = np.sort(np.argsort(~observed[rows], axis=1, kind="stable")[:, :k], axis=1)
+        c = tc[waves] - tc[waves].mean(axis=1, keepdims=True)
+        ss = (c * c).sum(axis=1)
+        varies = ss > 0
+        inverse = np.divide(1.0, ss, out=np.zeros_like(ss), where=varies)
+        m = np.eye(k) - 1.0 / k - inverse[:, None, None] * c[:, :, None] * c[:, None, :]
+        adjacent = 0.5 * (np.diff(waves, axis=1) == 1)   # links of adjacent panel waves
+        lag = np.zeros((len(rows), k, k))
+        step = np.arange(k - 1)
+        lag[:, step, step + 1] = adjacent
+        lag[:, step + 1, step] = adjacent
+        tr_m = k - 1.0 - varies               # the residual degrees of freedom
+        ml = m @ lag
+        tr_ml = np.einsum("pii->p", ml)
+        fitted = tr_m > 0.5
+        r0 = np.divide(tr_ml, tr_m, out=np.zeros_like(tr_ml), where=fitted)
+        a = ml - r0[:, None, None] * m
+        out["ss_t"][rows] = ss
+        out["tr_m"][rows] = tr_m
+        out["n_pairs"][rows] = 2 * lag.sum(axis=(1, 2))
+        out["tr_ml"][rows] = np.where(fitted, tr_ml, 0.0)
+        out["r0"][rows] = r0
+        out["c_var"][rows] = np.where(fitted, np.einsum("pij,pji->p", a, a), 0.0)
     return _PatternDesign(**out)
 
 
