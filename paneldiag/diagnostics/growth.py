@@ -18,8 +18,7 @@ import numpy as np
 from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
-from paneldiag.summaries.trajectories import LINEAR_MIN_WAVES, TrajectorySummary, design, \
-    lag_operator
+from paneldiag.summaries.trajectories import LINEAR_MIN_WAVES, TrajectorySummary
 
 
 # ----------------------------------------------------------------------------- pattern constants

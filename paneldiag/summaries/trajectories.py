@@ -25,23 +25,6 @@ _MOMENT_PAIRS = (("lin_mean", "lin_m2"), ("quad_mean", "quad_m2"), ("unit_mean",
 _SUM_KEYS = ("rss", "rss_sq", "lag_cross", "within_ss")
 
 
-def design(times_c: np.ndarray, degree: int) -> np.ndarray:
-    """Columns 1, t, t^2 ... (up to ``degree``) of centred times."""
-    return np.vander(times_c, degree + 1, increasing=True)
-
-
-def lag_operator(observed: np.ndarray) -> np.ndarray:
-    """Symmetric lag-1 matrix over the observed waves of a pattern: entries 1/2 link
-    two observed waves that are adjacent waves of the panel (no gap between them)."""
-    index = np.flatnonzero(observed)
-    k = len(index)
-    lag = np.zeros((k, k))
-    adjacent = np.flatnonzero(np.diff(index) == 1)
-    lag[adjacent, adjacent + 1] = 0.5
-    lag[adjacent + 1, adjacent] = 0.5
-    return lag
-
-
 @dataclass(frozen=True)
 class TrajectorySummary:
     """Per (replicate group, response pattern) aggregates of unit-wise trajectory fits.
