@@ -578,3 +578,28 @@ def test_spearman_under_mcar_close_to_per_pair_ranking():
             both = ~np.isnan(y[:, s]) & ~np.isnan(y[:, t])
             ref = stats.spearmanr(y[both, s], y[both, t]).statistic
             assert abs(ours[s, t] - ref) < 0.01
+
+
+def test_pair_counts_never_reveal_a_small_cell(tmp_path):
+    """Disclosure control (common practice: no count of 1 to min_cell - 1 units, nor
+    one that follows by subtraction): three units skip wave 3, so the count of units
+    at waves 2 and 3 would give them away against the count at wave 2."""
+    from conftest import run_cli
+    rng = np.random.default_rng(3)
+    rows = [(unit, wave, round(float(rng.normal()), 3)) for unit in range(60)
+            for wave in range(1, 5) if not (unit < 3 and wave == 3)]
+    data = tmp_path / "p.csv"
+    data.write_text("id,wave,y\n" + "".join(f"{u},{w},{v}\n" for u, w, v in rows))
+    out = tmp_path / "p.json"
+    done = run_cli("screen", data, "--id", "id", "--wave", "wave", "--value", "y",
+                   "--json", out, "-q")
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads(out.read_text())
+    for name, method in report["correlation"]["methods"].items():
+        n = method["n_pairs"]
+        assert n[1][1] == 60 and n[1][2] is None and n[2][1] is None, name
+        assert n[2][3] is None and n[0][2] is None, name   # 3 units short of wave 1 or 4
+        assert n[0][1] == 60 and n[2][2] == 57 and n[0][3] == 60, name   # the rest shown
+        assert method["matrix"][1][2] is not None   # 57 units: the correlation itself is shown
+    lag = {r["lag"]: r["n_pairs"] for r in report["lag_profile"] if r["basis"] == "lag"}
+    assert lag[1] is None and lag[2] is None and lag[3] == 60

@@ -346,15 +346,25 @@ def test_demo_report_shows_no_count_below_min_cell(tmp_path):
                mis["patterns"]["remainder"]["n_small_units"]]
     counts += [c for row in mis["coverage"]["n"] for c in row]
     counts += [c for row in mis["codes"]["rows"] for c in row["counts"]]
+    # the dependence section's pair counts are coverage counts too
+    pair_tables = [m["n_pairs"] for m in report["correlation"]["methods"].values()]
+    counts += [c for table in pair_tables for row in table for c in row]
+    counts += [r["n_pairs"] for r in report["lag_profile"]]
     assert all(c is None or c >= 12 for c in counts)
     assert any(c is None for c in counts)   # the demo does have small cells
     # nor can one be had by subtraction from a shown total
     _no_small_count_by_subtraction(att, mis, report["panel"]["waves"], 12)
-    cov = mis["coverage"]["n"]
-    for s, row in enumerate(cov):
-        for t, cell in enumerate(row):
-            if cell is not None and cov[s][s] is not None:
-                assert cov[s][s] - cell == 0 or cov[s][s] - cell >= 12
+    for cov in [mis["coverage"]["n"]] + pair_tables:
+        for s, row in enumerate(cov):
+            for t, cell in enumerate(row):
+                if cell is not None and cov[s][s] is not None:
+                    assert cov[s][s] - cell == 0 or cov[s][s] - cell >= 12
+    # a lag row's sum is shown only when each of its wave pairs is
+    first = pair_tables[0]
+    for row in report["lag_profile"]:
+        if row["n_pairs"] is not None and row["basis"] == "lag":
+            k = row["lag"]
+            assert all(first[s][s + k] is not None for s in range(len(first) - k))
     # the terminal never prints a pattern the JSON withholds
     text = done.stdout.decode()
     shown = {r["pattern"] for r in mis["patterns"]["rows"]}

@@ -16,14 +16,15 @@ exist, with the jackknife spread of the primary estimate for their intervals.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import optimize
 
 from paneldiag import distributions as dist
+from paneldiag.diagnostics.attrition import coverage_shown
 from paneldiag.diagnostics.polychoric import polychoric
-from paneldiag.results import Result
+from paneldiag.results import Result, plain
 from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.summaries.jackknife import jackknife_se
 from paneldiag.summaries.pairwise import PairwiseMoments
@@ -40,10 +41,24 @@ FLOOR_MIN_A = 0.02
 
 @dataclass(frozen=True)
 class CorrelationMatrix(Result):
-    """One method's wave-by-wave correlation matrix and its pairwise counts."""
+    """One method's wave-by-wave correlation matrix and its pairwise counts.
+
+    Disclosure control, in the JSON only: a count is withheld (null) where fewer than
+    ``min_cell`` units are seen at both waves, or where it would give a count of 1 to
+    ``min_cell`` - 1 units seen at only one of the two waves by subtraction from the
+    diagonal (as the coverage table of the missingness section); a correlation is
+    withheld where it rests on fewer than ``min_cell`` units."""
 
     matrix: np.ndarray   # (T, T)
     n_pairs: np.ndarray  # (T, T) units observed at both waves (diagonal: at the wave)
+    min_cell: int = field(default=1, compare=False)
+
+    def to_dict(self) -> dict:
+        counts = np.asarray(self.n_pairs, dtype=float)
+        shown = coverage_shown(counts, self.min_cell)
+        return {"matrix": plain(np.where(counts >= self.min_cell, self.matrix, np.nan)),
+                "n_pairs": [[int(c) if ok else None for c, ok in zip(row, oks)]
+                            for row, oks in zip(counts, shown)]}
 
 
 @dataclass(frozen=True)
@@ -68,6 +83,7 @@ class WaveCorrelations(Result):
     replicate_n: np.ndarray = field(repr=False, compare=False)
     partial_basis: str = "pearson_pairwise"
     partial_replicates: np.ndarray | None = field(default=None, repr=False, compare=False)
+    min_cell: int = field(default=1, compare=False)   # disclosure control of the counts
 
     def to_dict(self) -> dict:
         return {"waves": list(self.waves), "scale": self.scale, "scale_basis": self.scale_basis,
@@ -140,7 +156,8 @@ def _polychoric_matrices(tables: PairwiseTables) -> tuple[np.ndarray, np.ndarray
 def wave_correlations(pairwise: PairwiseMoments, ranks: PairwiseMoments | None,
                       tables: PairwiseTables | None, wave_labels: tuple[str, ...],
                       em_covariance: np.ndarray | None = None, scale: str = "auto",
-                      em_replicates: np.ndarray | None = None) -> WaveCorrelations:
+                      em_replicates: np.ndarray | None = None,
+                      min_cell: int = 1) -> WaveCorrelations:
     """Correlations between every pair of waves, by method.
 
     - ``pearson_pairwise``: Pearson's r over the units observed at both waves.
@@ -186,10 +203,12 @@ def wave_correlations(pairwise: PairwiseMoments, ranks: PairwiseMoments | None,
         primary = "pearson_pairwise"
     partial_basis = primary if kind == "ordinal" or em_covariance is None else "pearson_em"
     partial_reps = em_replicates if partial_basis == "pearson_em" else None
+    methods = {name: replace(m, min_cell=min_cell) for name, m in methods.items()}
     return WaveCorrelations(waves=tuple(wave_labels), scale=kind, scale_basis=basis,
                             categories=categories, primary=primary, methods=methods,
                             notes=tuple(notes), replicates=reps, replicate_n=rep_n,
-                            partial_basis=partial_basis, partial_replicates=partial_reps)
+                            partial_basis=partial_basis, partial_replicates=partial_reps,
+                            min_cell=min_cell)
 
 
 # ---------------------------------------------------------------------- lag profile
@@ -214,7 +233,8 @@ class LagRow(Result):
     lag: int | None              # waves apart (None when a time distance spans several)
     time_distance: float | None  # None when a lag spans several distances
     wave_pairs: int
-    n_pairs: int                 # sum over the wave pairs of the units seen at both
+    n_pairs: int | None          # sum over the wave pairs of the units seen at both;
+                                 # None when one of them is withheld (disclosure control)
     mean_r: float
     ci_low: float
     ci_high: float
@@ -282,6 +302,7 @@ def lag_profile(corr: WaveCorrelations, times: np.ndarray, level: float = LEVEL)
     """
     spacing, bands = lag_bands(times)
     r, n = corr.matrix, corr.n_pairs
+    shown = coverage_shown(np.asarray(n, dtype=float), corr.min_cell)
     reps, rep_n = corr.replicates, corr.replicate_n
     k = reps.shape[0]
     q = dist.t_ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
@@ -292,7 +313,8 @@ def lag_profile(corr: WaveCorrelations, times: np.ndarray, level: float = LEVEL)
         z_reps = _band_mean_z(reps, rep_n, s_idx, t_idx)
         se = jackknife_se(z, z_reps)
         rows.append(LagRow(basis=basis, lag=lag, time_distance=distance, wave_pairs=len(pairs),
-                           n_pairs=int(n[s_idx, t_idx].sum()), mean_r=float(np.tanh(z)),
+                           n_pairs=int(n[s_idx, t_idx].sum())
+                           if shown[s_idx, t_idx].all() else None, mean_r=float(np.tanh(z)),
                            ci_low=float(np.tanh(z - q * se)), ci_high=float(np.tanh(z + q * se))))
         rep_means.append(np.tanh(z_reps))
         weights.append(float(np.maximum(n[s_idx, t_idx] - 3.0, 0).sum()))
@@ -861,7 +883,8 @@ def correlation_section(ctx) -> WaveCorrelations | None:
     em_cov, em_reps = with_reps if with_reps is not None else (_em_covariance(ctx), None)
     return wave_correlations(pairwise, ranks, tables, ctx.panel.wave_labels,
                              em_covariance=em_cov, em_replicates=em_reps,
-                             scale=getattr(ctx.options, "scale", "auto"))
+                             scale=getattr(ctx.options, "scale", "auto"),
+                             min_cell=getattr(ctx.options, "min_cell", 5))
 
 
 def lag_profile_section(ctx) -> LagProfile | None:
