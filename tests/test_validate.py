@@ -377,3 +377,18 @@ def test_padded_ids_and_wave_labels_are_trimmed(tmp_path):
     np.testing.assert_array_equal(panel.values["y"], [[1, 2], [3, 4]])
     with pytest.raises(InputProblem, match="A at wave W1"):
         panel_from_text(tmp_path, text + " A,W1,5\n")
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.integers(-10**12, 10**12), min_size=1, max_size=200), st.booleans())
+def test_integer_codes_equal_pandas_factorize(values, presorted):
+    # reference: pandas.factorize(sort=True), on sorted columns (the counting path) and
+    # on unsorted ones (the direct-addressing path, or None for a too-wide range)
+    from paneldiag.io.validate import _dense_integer_codes
+    column = pd.Series(sorted(values) if presorted else values, dtype=np.int64)
+    got = _dense_integer_codes(column)
+    codes, uniques = pd.factorize(column, sort=True)
+    if got is None:
+        assert not presorted and max(values) - min(values) + 1 > 4 * len(values) + 1024
+        return
+    assert np.array_equal(got[0], codes) and np.array_equal(got[1], np.asarray(uniques))
