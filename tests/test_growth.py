@@ -452,3 +452,36 @@ def test_jackknife_coverage_of_slope_reliability_mean_slope_and_icc():
                  fits.mean_slope_ci_low <= 0.3 <= fits.mean_slope_ci_high,
                  icc.ci_low <= 0.5 <= icc.ci_high]
     assert np.all((hits / 200 >= 0.92) & (hits / 200 <= 0.98)), hits / 200
+
+
+def test_unit_counts_by_observed_waves_never_reveal_a_small_cell():
+    """Disclosure control (common practice): with 3 of 60 units observed at exactly two
+    of four waves, the count of units with a line (>= 2 waves) against the count with
+    >= 3 waves would give those 3 away; the smaller count is withheld."""
+    from types import SimpleNamespace
+
+    from paneldiag.diagnostics.growth import growth_section
+    from paneldiag.summaries import summarise
+    from paneldiag.summaries.pairwise import PairwiseMoments
+    from paneldiag.summaries.trajectories import TrajectorySummary
+    from paneldiag.validation import panel_of
+    rng = np.random.default_rng(5)
+    values = rng.normal(size=(60, 4)) + np.arange(4)
+    values[:3, 2:] = np.nan          # three units seen twice
+    panel = panel_of(values)
+    ctx = SimpleNamespace(panel=panel, values=values, results={},
+                          options=SimpleNamespace(min_cell=5, n_replicates=20),
+                          summaries=summarise(panel, panel.measures[0],
+                                              [TrajectorySummary, PairwiseMoments]))
+    ctx.summary = lambda kind: ctx.summaries[kind]
+    screen = growth_section(ctx)
+    no_control = growth_section(SimpleNamespace(**{**vars(ctx), "options": SimpleNamespace(
+        min_cell=1, n_replicates=20)}))
+    assert no_control.trajectories.n_units == no_control.slope_reliability.n_units == 60
+    assert no_control.trajectories.n_units_curvature == 57    # 3 short of the 60
+    assert screen.trajectories.n_units == screen.slope_reliability.n_units == 60
+    assert screen.trajectories.n_units_curvature is None
+    shown = [60] + [getattr(part, "n_units") for part in (screen.slope_reliability,
+                                                           screen.residual_autocorrelation)]
+    assert all(a == b or abs(a - b) >= 5 for a in shown if a is not None
+               for b in shown if b is not None)

@@ -11,7 +11,7 @@ All figures are unweighted.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -76,8 +76,8 @@ def _pattern_design(summary: TrajectorySummary) -> _PatternDesign:
 
 @dataclass(frozen=True)
 class TrajectoryFits(Result):
-    n_units: int            # units with a fitted line (>= 2 observed waves)
-    n_units_curvature: int  # units with a fitted curvature (>= 4 observed waves)
+    n_units: int | None     # units with a fitted line (>= 2 observed waves)
+    n_units_curvature: int | None  # units with a curvature (>= 4 observed waves)
     time_centre: float
     mean_intercept: float
     sd_intercept: float
@@ -103,7 +103,7 @@ class SlopeReliability(Result):
     chi_square: float
     df: int
     pvalue: float
-    n_units: int
+    n_units: int | None  # None: withheld (disclosure control)
     impossible: bool
     problem: str | None
 
@@ -117,7 +117,7 @@ class ResidualAutocorrelation(Result):
     ci_high: float
     z: float
     pvalue: float
-    n_units: int
+    n_units: int | None  # None: withheld (disclosure control)
     n_pairs: int
 
 
@@ -594,5 +594,35 @@ def growth_section(ctx) -> GrowthScreen:
     if np.isnan(ctx.values).any() and ReplicatePatternMoments in ctx.summaries:
         em = em_basis(ctx.summary(ReplicatePatternMoments),
                       getattr(ctx.results.get("missingness"), "em", None))
-    return growth_screen(ctx.summary(TrajectorySummary), ctx.summary(PairwiseMoments),
-                         ctx.panel.wave_times, em=em)
+    screen = growth_screen(ctx.summary(TrajectorySummary), ctx.summary(PairwiseMoments),
+                           ctx.panel.wave_times, em=em)
+    return withhold_unit_counts(screen, ctx.panel.n_units, ctx.options.min_cell)
+
+
+# the unit counts of the growth screen: units with enough observed waves for a fit
+UNIT_COUNTS = (("trajectories", "n_units"), ("slope_reliability", "n_units"),
+               ("residual_autocorrelation", "n_units"), ("trajectories", "n_units_curvature"))
+
+
+def withhold_unit_counts(screen: GrowthScreen, n_panel_units: int, min_cell: int
+                         ) -> GrowthScreen:
+    """Disclosure control of the unit counts (common practice: no count of 1 to
+    ``min_cell`` - 1 units is shown, nor one that follows by subtraction).
+
+    Each count is of the units with enough observed waves for a fit (2, 3 or 4), so
+    the difference of two of them, or of one from the panel's unit count, counts the
+    units observed at a given number of waves. From the largest down, a count is
+    shown only when it is at least ``min_cell`` and differs from the panel's count
+    and from every count already shown by 0 or by at least ``min_cell``; otherwise it
+    becomes None. Degrees of freedom, being model output, are shown (common practice
+    in output checking)."""
+    shown, withheld = [n_panel_units], {}
+    for part, name in sorted(UNIT_COUNTS, key=lambda place: -getattr(getattr(screen, place[0]),
+                                                                      place[1])):
+        count = getattr(getattr(screen, part), name)
+        if count >= min_cell and all(c == count or abs(c - count) >= min_cell for c in shown):
+            shown.append(count)
+        else:
+            withheld.setdefault(part, {})[name] = None
+    return replace(screen, **{part: replace(getattr(screen, part), **names)
+                              for part, names in withheld.items()})

@@ -327,11 +327,13 @@ def growth(report: dict, cite: Citations) -> list[str]:
         return []
     out = []
     traj = section.get("trajectories") or {}
-    if ok(traj.get("mean_slope"), traj.get("sd_slope"), traj.get("n_units")):
+    if ok(traj.get("mean_slope"), traj.get("sd_slope")):
         ci = (f" (confidence interval {dec(traj['mean_slope_ci_low'], 3)} to "
               f"{dec(traj['mean_slope_ci_high'], 3)})"
               if ok(traj.get("mean_slope_ci_low"), traj.get("mean_slope_ci_high")) else "")
-        text = (f"Straight lines fitted to each of the {count(traj['n_units'])} units with "
+        units = (f"the {count(traj['n_units'])} units" if ok(traj.get("n_units")) else
+                 "the units (their number withheld by disclosure control)")
+        text = (f"Straight lines fitted to each of {units} with "
                 f"enough observed waves had a mean slope of {dec(traj['mean_slope'], 3)} per "
                 f"{unit_of_time(report)}{ci}, and the slopes had a standard deviation of "
                 f"{dec(traj['sd_slope'], 3)} {cite('rogosa1982')}.")
