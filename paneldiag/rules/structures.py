@@ -47,6 +47,10 @@ from scipy import optimize
 from paneldiag import distributions as dist
 
 Z95 = float(dist.norm_ppf(0.975))
+# Relative difference of two discrepancies below which they count as equal: the fits
+# stop at a relative change of 1e-13, so smaller differences are rounding, and would
+# otherwise turn a boundary test's p from 1 into 0.5 at random.
+TIE = 1e-10
 
 
 @dataclass(frozen=True)
@@ -273,7 +277,10 @@ def likelihood_ratio(simple: Fit, rich: Fit, n_eff: float, df: int,
     statistic follows an equal mixture of chi-square(0) and chi-square(df) (Self and
     Liang 1987, J. American Statistical Association 82, 605-610).
     """
-    stat = max(0.0, (n_eff - 1) * (simple.discrepancy - rich.discrepancy))
+    gain = simple.discrepancy - rich.discrepancy
+    if gain < TIE * max(1.0, abs(simple.discrepancy)):
+        gain = 0.0   # within the optimiser's precision: the richer fit gains nothing
+    stat = (n_eff - 1) * gain
     p = float(dist.chi2_sf(stat, df))
     if boundary:
         p = 0.5 * p if stat > 0 else 1.0
