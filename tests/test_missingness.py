@@ -427,3 +427,40 @@ def test_little_statistic_matches_mcartest_at_the_same_plug_in_estimates():
     ours = little_mcar_test(_summary(x), plug_in)
     assert ours.statistic == pytest.approx(ref["statistic"], rel=1e-10)
     assert ours.df == ref["df"] and ours.pvalue == pytest.approx(ref["pvalue"], rel=1e-8)
+
+
+def test_units_never_observed_are_not_given_away(tmp_path):
+    """Disclosure control (common practice): 3 of 60 units have no observed value, so
+    any count of the units with an observed value (57) would give them away against
+    the panel's 60; the EM block, the verdicts and the growth screen withhold it."""
+    from conftest import run_cli
+    rng = np.random.default_rng(8)
+    lines = ["id,wave,y"]
+    for unit in range(60):
+        for wave in range(1, 5):
+            value = "" if unit < 3 else f"{rng.normal() + 0.3 * wave:.3f}"
+            lines.append(f"{unit},{wave},{value}")
+    data = tmp_path / "p.csv"
+    data.write_text("\n".join(lines) + "\n")
+    out = tmp_path / "p.json"
+    done = run_cli("screen", data, "--id", "id", "--wave", "wave", "--value", "y",
+                   "--json", out, "-q")
+    assert done.returncode == 0, done.stderr.decode()
+    text = out.read_text()
+    report = json.loads(text)
+    assert report["panel"]["n_units"] == 60
+    assert report["missingness"]["em"]["n_units"] is None
+    assert report["verdict_basis"]["statistics"]["n_units"] is None
+    assert report["attrition"]["selective"]["model"]["n_units"] is None   # at risk: 57
+    growth = report["growth"]
+    assert growth["trajectories"]["n_units"] is None and \
+        growth["slope_reliability"]["n_units"] is None     # 57 as well
+    caveats = " ".join(c for f in report["families"] for c in f["caveats"])
+    assert "Small sample: fewer units" in caveats and "57" not in caveats
+    # with a cell size of 3 the same counts are shown
+    out3 = tmp_path / "p3.json"
+    assert run_cli("screen", data, "--id", "id", "--wave", "wave", "--value", "y",
+                   "--json", out3, "-q", "--min-cell", "3").returncode == 0
+    report3 = json.loads(out3.read_text())
+    assert report3["missingness"]["em"]["n_units"] == 57
+    assert report3["verdict_basis"]["statistics"]["n_units"] == 57

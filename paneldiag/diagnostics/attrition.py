@@ -488,7 +488,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     n_at_risk = int(any_risk.sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
                 n_events=_count(n_ev, n_ev >= min_cell),
-                n_units=_count(n_at_risk, n_at_risk >= min_cell),
+                # against the panel's count it would give the units never at risk
+                n_units=_count(n_at_risk, n_at_risk >= min_cell and
+                               not _small(n_units - n_at_risk, min_cell)),
                 waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
 
     def empty(note, iterations=0):

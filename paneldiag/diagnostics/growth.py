@@ -596,7 +596,9 @@ def growth_section(ctx) -> GrowthScreen:
                       getattr(ctx.results.get("missingness"), "em", None))
     screen = growth_screen(ctx.summary(TrajectorySummary), ctx.summary(PairwiseMoments),
                            ctx.panel.wave_times, em=em)
-    return withhold_unit_counts(screen, ctx.panel.n_units, ctx.options.min_cell)
+    em_units = getattr(getattr(ctx.results.get("missingness"), "em", None), "n_units", None)
+    return withhold_unit_counts(screen, ctx.panel.n_units, ctx.options.min_cell,
+                                [] if em_units is None else [em_units])
 
 
 # the unit counts of the growth screen: units with enough observed waves for a fit
@@ -604,19 +606,20 @@ UNIT_COUNTS = (("trajectories", "n_units"), ("slope_reliability", "n_units"),
                ("residual_autocorrelation", "n_units"), ("trajectories", "n_units_curvature"))
 
 
-def withhold_unit_counts(screen: GrowthScreen, n_panel_units: int, min_cell: int
-                         ) -> GrowthScreen:
+def withhold_unit_counts(screen: GrowthScreen, n_panel_units: int, min_cell: int,
+                         shown_elsewhere: list[int] = ()) -> GrowthScreen:
     """Disclosure control of the unit counts (common practice: no count of 1 to
     ``min_cell`` - 1 units is shown, nor one that follows by subtraction).
 
     Each count is of the units with enough observed waves for a fit (2, 3 or 4), so
     the difference of two of them, or of one from the panel's unit count, counts the
     units observed at a given number of waves. From the largest down, a count is
-    shown only when it is at least ``min_cell`` and differs from the panel's count
-    and from every count already shown by 0 or by at least ``min_cell``; otherwise it
-    becomes None. Degrees of freedom, being model output, are shown (common practice
+    shown only when it is at least ``min_cell`` and differs from the panel's count,
+    from the counts ``shown_elsewhere`` in the report (the units with any observed
+    value) and from every count already shown by 0 or by at least ``min_cell``;
+    otherwise it becomes None. Degrees of freedom, being model output, are shown (common practice
     in output checking)."""
-    shown, withheld = [n_panel_units], {}
+    shown, withheld = [n_panel_units, *shown_elsewhere], {}
     for part, name in sorted(UNIT_COUNTS, key=lambda place: -getattr(getattr(screen, place[0]),
                                                                       place[1])):
         count = getattr(getattr(screen, part), name)

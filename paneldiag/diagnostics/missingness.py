@@ -531,7 +531,11 @@ def missingness_section(ctx) -> Missingness:
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
     em = em_moments(patterns)
-    shown_em = em if em.n_units >= m else replace(em, n_units=None)
+    # disclosure control: the units with an observed value, against the panel's count,
+    # give the units never observed (as the pattern table withholds a small pattern)
+    never_observed = ctx.panel.n_units - em.n_units
+    shown_em = em if em.n_units >= m and not 0 < never_observed < m \
+        else replace(em, n_units=None)
     codes = declared_codes(ctx.panel.codes.get(ctx.measure, {}),
                            ctx.panel.code_labels.get(ctx.measure, {}), labels, m)
     return Missingness(response_patterns(patterns, m), coverage(patterns, labels, m), shown_em,

@@ -70,6 +70,8 @@ def judge_context(ctx) -> Judgement:
             "expected": _nested(rac, "expected_under_independence")}
         if any(v is None for v in inp.residual_autocorrelation.values()):
             inp.residual_autocorrelation = None
+    never_observed = ctx.panel.n_units - inp.n_units
+    inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
     return judge(inp, thresholds)
 

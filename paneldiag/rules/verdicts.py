@@ -175,6 +175,9 @@ class Inputs:
     categories: int
     slope_reliability: float | None = None
     residual_autocorrelation: dict | None = None  # from the growth screen, when present
+    # False when n_units must not be shown (disclosure control: it would give away a
+    # small count of units never observed, against the panel's unit count)
+    units_disclosed: bool = True
 
 
 def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
@@ -350,7 +353,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     strength: dict[str, float] = {f: 0.5 for f in FAMILY_IDS}
     general: list[str] = []  # caveats for every family
 
-    led.value("n_units", int(inp.n_units))
+    led.value("n_units", int(inp.n_units) if inp.units_disclosed else None)
     led.value("n_waves", int(t))
     if t < 2 or inp.n_units < 3 or not np.all(np.isfinite(inp.sigma)) or \
             np.any(np.diag(inp.sigma) <= 0):
@@ -740,7 +743,8 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
                    "trait plus carry-over and measurement error cannot all be separated "
                    f"(at least {led.thr('min_waves_separate')} waves are needed).")
     if inp.n_units < th["min_units"]:
-        out.append(f"Small sample: {led.value('n_units', int(inp.n_units))} units (below "
+        count = led.value('n_units', int(inp.n_units)) if inp.units_disclosed else "fewer"
+        out.append(f"Small sample: {count} units (below "
                    f"{led.thr('min_units')}); tests have little power and intervals are wide, "
                    "so a missing 'supported' is weak evidence.")
     if np.isfinite(inp.retention) and inp.retention < th["min_retention"]:
