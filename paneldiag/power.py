@@ -43,7 +43,7 @@ from scipy import stats
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
 from paneldiag.rules.thresholds import default_thresholds
-from paneldiag.rules.verdicts import PART_TESTS
+from paneldiag.rules.verdicts import PART_TESTS, structure_plan
 from paneldiag.simulate import family_process, population_covariance, population_mean
 
 
@@ -71,31 +71,24 @@ class TestPower(Result):
 
 
 def structures_of(times, mean=None) -> dict:
-    """The structures the part tests compare, as ``verdicts._fit_all`` builds them.
+    """The structures the part tests compare, as ``verdicts.structure_plan`` gives
+    them, with the time-basis growth structures under 'growth' and 'growth_ar'.
 
-    The growth loadings are the scaled wave times, or the shape of the mean when the
-    mean departs from any quadratic (the rules switch to it when the remainder test
-    rejects and it reproduces the covariances better). Given a ``mean`` that departs
-    from its quadratic fit, the mean-shape structures come too, under the keys
-    'growth:mean' and 'growth_ar:mean'.
+    Given a ``mean`` that departs from its quadratic fit, the mean-shape structures
+    come too, under 'growth:mean' and 'growth_ar:mean' (the rules switch to them when
+    the remainder test rejects and they reproduce the covariances better).
     """
     times = np.asarray(times, dtype=float)
-    tb = st.time_basis(times)
-    out = {"stable_trait": st.Structure("stable_trait", trait=True),
-           "autoregressive": st.Structure("autoregressive", carry=True),
-           "trait_autoregressive": st.Structure("trait_autoregressive", trait=True,
-                                                carry=True),
-           "growth": st.Structure("growth", basis=tb),
-           "growth_ar": st.Structure("growth_ar", basis=tb, carry=True)}
+    mb = None
     if mean is not None and len(times) >= 4:
         u = st.time_basis(times)
         x2 = np.column_stack([np.ones(len(u)), u, u ** 2])
         departure = np.max(np.abs(mean - x2 @ np.linalg.lstsq(x2, mean, rcond=None)[0]))
-        mb = st.mean_basis(np.asarray(mean, dtype=float), times)
-        if mb is not None and departure > 1e-8 * max(1.0, float(np.max(np.abs(mean)))):
-            out["growth:mean"] = st.Structure("growth", basis=mb)
-            out["growth_ar:mean"] = st.Structure("growth_ar", basis=mb, carry=True)
-    return out
+        if departure > 1e-8 * max(1.0, float(np.max(np.abs(mean)))):
+            mb = st.mean_basis(np.asarray(mean, dtype=float), times)
+    plan = structure_plan(times, mb)
+    plan["growth"], plan["growth_ar"] = plan.pop("growth:time"), plan.pop("growth_ar:time")
+    return plan
 
 
 def lr_power(noncentrality: float, df: int, alpha: float, boundary: bool = False

@@ -220,6 +220,24 @@ class Evidence:
     basis_name: str = "time"
 
 
+def structure_plan(times: np.ndarray, mean_basis: np.ndarray | None = None
+                   ) -> dict[str, st.Structure]:
+    """The covariance structures the verdicts fit (besides occasion noise), by key: the
+    growth structures on the scaled wave times ('growth:time', 'growth_ar:time') and,
+    given ``mean_basis`` (the shape of the mean), on it too ('growth:mean', ...)."""
+    tb = st.time_basis(times)
+    plan = {"stable_trait": st.Structure("stable_trait", trait=True),
+            "autoregressive": st.Structure("autoregressive", carry=True),
+            "trait_autoregressive": st.Structure("trait_autoregressive", trait=True,
+                                                 carry=True),
+            "growth:time": st.Structure("growth", basis=tb),
+            "growth_ar:time": st.Structure("growth_ar", basis=tb, carry=True)}
+    if mean_basis is not None:
+        plan["growth:mean"] = st.Structure("growth", basis=mean_basis)
+        plan["growth_ar:mean"] = st.Structure("growth_ar", basis=mean_basis, carry=True)
+    return plan
+
+
 def _fit_all(inp: Inputs, alpha: float) -> Evidence:
     t = len(inp.times)
     ev = Evidence()
@@ -228,22 +246,13 @@ def _fit_all(inp: Inputs, alpha: float) -> Evidence:
     s, times, n = inp.sigma, inp.times, ev.n_eff
     n_moments = t * (t + 1) // 2
     ev.fits["occasion_noise"] = st.fit_noise(s, n)
-    plan = [("stable_trait", st.Structure("stable_trait", trait=True)),
-            ("autoregressive", st.Structure("autoregressive", carry=True)),
-            ("trait_autoregressive", st.Structure("trait_autoregressive", trait=True,
-                                                  carry=True))]
-    tb = st.time_basis(times)
-    plan += [("growth:time", st.Structure("growth", basis=tb)),
-             ("growth_ar:time", st.Structure("growth_ar", basis=tb, carry=True))]
     if t >= 3:
         ev.shape = st.mean_shape(inp.mu, s, inp.pair_n, times)
     # the shape of the mean as a growth basis, when the mean departs from any quadratic
     mb = st.mean_basis(inp.mu, times)
-    if mb is not None and ev.shape is not None and t >= 4 and \
-            np.isfinite(ev.shape.remainder_p) and ev.shape.remainder_p < alpha:
-        plan += [("growth:mean", st.Structure("growth", basis=mb)),
-                 ("growth_ar:mean", st.Structure("growth_ar", basis=mb, carry=True))]
-    for key, structure in plan:
+    departs = ev.shape is not None and t >= 4 and np.isfinite(ev.shape.remainder_p) and \
+        ev.shape.remainder_p < alpha
+    for key, structure in structure_plan(times, mb if departs else None).items():
         if len(structure.names(t)) <= n_moments:
             ev.fits[key] = st.fit_structure(structure, s, times, n)
     # the growth basis that reproduces the covariances better (without carry-over)
