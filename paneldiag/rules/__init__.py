@@ -59,6 +59,7 @@ def judge_context(ctx) -> Judgement:
     else:
         categories = 10 ** 6
     inp = inputs_from_patterns(patterns, em, ctx.panel.wave_times, categories)
+    inp.wave_labels = tuple(str(label) for label in ctx.panel.wave_labels)
     slope_rel = _nested(ctx.results.get("growth"), "slope_reliability", "estimate")
     if slope_rel is not None and np.isfinite(slope_rel):
         inp.slope_reliability = float(slope_rel)

@@ -1,83 +1,224 @@
-"""Covariance structures of the process families, fitted to the ML moments under MAR.
+"""Covariance structures of the process families, fitted by full-information maximum
+likelihood from the response-pattern summaries.
 
-Each family implies a structure for the T x T covariance matrix of the waves (wave means
-are left free, except where the mean's shape is itself the question):
+A structure is a sum of parts (``paneldiag.rules.parts``: error, trait, carry-over,
+quasi-simplex, growth), Sigma(theta) = sum of the parts' shares; the wave means are left
+free. Fitting minimises the casewise (full-information) normal log-likelihood under
+missing at random, computed from each response pattern's count, means and centred
+cross-products (Anderson 1957; Arbuckle 1996; Enders 2010, ch. 4):
 
-    occasion noise   Sigma = e I
-    stable trait     Sigma = a 11' + e I
-    carry-over       Sigma = b K(rho) + e I,              K_st = rho ** |t_s - t_t|
-    trait + carry    Sigma = a 11' + b K(rho) + e I
-    growth           Sigma = L Psi L' + e I,              L = [1, lambda]
-    growth + carry   Sigma = L Psi L' + b K(rho) + e I
+    F(theta) = (1/N) sum_p [ n_p log|Sigma_oo| + tr(Sigma_oo^-1 (C_p + n_p d_p d_p')) ]
 
-with one error variance ``e`` common to all waves (occasion-specific variance and
-measurement error, which no covariance structure can tell apart; equal across waves as
-in Wiley and Wiley 1970, so that variances fanning out over waves count against the
-stationary structures), ``lambda`` the growth basis
-(the wave times scaled to run from 0 to 1 over the span, or the shape of the mean),
-and ``Psi`` the 2 x 2 covariance of the unit intercepts and slopes. Fitting is by the
-normal-theory maximum-likelihood discrepancy F = log|Sigma| + tr(S Sigma^-1) with
-analytic gradients; intervals come from the information matrix (the inverse Hessian
-of F scaled by 2 / (n - 1)) and the delta method. ``n`` is an effective sample size
-supplied by the caller (with missing data, the mean pairwise-complete count: a
-conservative choice for a two-stage fit to EM moments, Savalei and Bentler 2009).
+with Sigma_oo the observed block of pattern p, C_p its centred cross-products and d_p
+its means minus mu. For a given Sigma the best mu is the generalised-least-squares
+solution mu = (sum_p n_p Q_p)^-1 sum_p n_p Q_p m_p (Q_p the embedded inverse of
+Sigma_oo), so mu is profiled out and F has an analytic gradient in theta. With complete
+data F reduces to log|Sigma| + tr(S Sigma^-1). Each fit starts from the two-stage fit
+to the EM covariance (cheap, T x T algebra only), then the full likelihood is refined.
+
+Fit is judged against the saturated model (the EM moments): chi2 = N (F - F_sat) on
+T(T+1)/2 - q df. For small samples the chi-square is multiplied by Swain's correction
+(Swain 1975; shown by Herzog and Boomsma 2009 to keep the RMSEA and its interval
+calibrated at small N relative to the number of waves; from memory), and the root mean
+square error of approximation is given with its 90% interval (Browne and Cudeck 1992)
+together with the standardised root mean square residual of the correlations. BIC is
+chi2 - df ln N (Raftery 1995). Parameter intervals come from the expected information
+at the mean pairwise-complete count (conservative under missing data) and the delta
+method.
 
 References
 ----------
-Wiley, D. E. and Wiley, J. A. (1970). The estimation of measurement error in panel
-data. American Sociological Review, 35, 112-117.
+Anderson, T. W. (1957). Maximum likelihood estimates for a multivariate normal
+distribution when some observations are missing. JASA, 52, 200-203.
+Arbuckle, J. L. (1996). Full information estimation in the presence of incomplete data.
+In Marcoulides and Schumacker (eds.), Advanced Structural Equation Modeling. Erlbaum.
+Browne, M. W. and Cudeck, R. (1992). Alternative ways of assessing model fit.
+Sociological Methods & Research, 21(2), 230-258.
+Herzog, W. and Boomsma, A. (2009). Small-sample robust estimators of noncentrality-based
+and incremental model fit. Structural Equation Modeling, 16, 1-27.
+Raftery, A. E. (1995). Bayesian model selection in social research. Sociological
+Methodology, 25, 111-163.
+Swain, A. J. (1975). Analysis of parametric structures for variance matrices. PhD
+thesis, University of Adelaide (from memory).
 Joreskog, K. G. (1970). Estimation and testing of simplex models. British Journal of
 Mathematical and Statistical Psychology, 23, 121-145.
-Kenny, D. A. and Zautra, A. (1995). The trait-state-error model for multiwave data.
-Journal of Consulting and Clinical Psychology, 63(1), 52-59.
-Meredith, W. and Tisak, J. (1990). Latent curve analysis. Psychometrika, 55, 107-122.
-Browne, M. W. and Cudeck, R. (1993). Alternative ways of assessing model fit. In
-Bollen and Long (eds.), Testing Structural Equation Models. Sage.
-Savalei, V. and Bentler, P. M. (2009). A two-stage approach to missing data: theory and
-application to auxiliary variables. Structural Equation Modeling, 16, 477-497.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import itertools
+from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize
+from scipy import optimize, special
 
 from paneldiag import distributions as dist
+from paneldiag.rules.parts import Error, Part, Scale
 
 Z95 = float(dist.norm_ppf(0.975))
 # Relative difference of two discrepancies below which they count as equal: the fits
 # stop at a relative change of 1e-13, so smaller differences are rounding, and would
 # otherwise turn a boundary test's p from 1 into 0.5 at random.
 TIE = 1e-10
+# smallest singular value of the structure's Jacobian, relative to its largest, at a
+# generic point: below it the structure is not (locally) identified at these waves
+IDENTIFIED = 1e-7
 
 
 @dataclass(frozen=True)
 class Structure:
-    """Which parts a covariance structure has; ``basis`` is the growth lambda or None."""
+    """A covariance structure: a named sum of parts; ``label`` says it in words."""
 
     name: str
-    trait: bool = False
-    carry: bool = False
-    basis: np.ndarray | None = None
+    parts: tuple
+    label: str = ""
 
-    def names(self, n_waves: int) -> list[str]:
-        out = ["error_var"]
-        if self.basis is not None:
-            out += ["intercept_var", "intercept_slope_cov", "slope_var"]
-        elif self.trait:
-            out += ["trait_var"]
-        if self.carry:
-            out += ["carry_var", "rho"]
-        return out
+    def part(self, key: str) -> Part | None:
+        return next((p for p in self.parts if p.key == key), None)
 
+    def sizes(self, t: int) -> list[int]:
+        return [len(p.names(t)) for p in self.parts]
+
+    def names(self, t: int) -> list[str]:
+        return [n for p in self.parts for n in p.names(t)]
+
+    def split(self, theta, t: int) -> list[np.ndarray]:
+        cuts = np.cumsum([0] + self.sizes(t))
+        theta = np.asarray(theta, dtype=float)
+        return [theta[a:b] for a, b in zip(cuts[:-1], cuts[1:])]
+
+    def build(self, theta, times: np.ndarray):
+        """Sigma(theta) and the list of dSigma/dtheta_k."""
+        t = len(times)
+        sigma = np.zeros((t, t))
+        grads: list[np.ndarray] = []
+        for part, values in zip(self.parts, self.split(theta, t)):
+            share, g = part.share(values, times)
+            sigma = sigma + share
+            grads += g
+        return sigma, grads
+
+    def bounds(self, scale: Scale) -> list[tuple]:
+        return [b for p in self.parts for b in p.bounds(scale)]
+
+    def starts(self, scale: Scale) -> list[np.ndarray]:
+        options = [p.starts(scale) for p in self.parts]
+        return [np.concatenate([np.asarray(s, float) for s in combo])
+                for combo in itertools.product(*options)]
+
+    def error_variances(self, theta, t: int) -> np.ndarray:
+        for part, values in zip(self.parts, self.split(theta, t)):
+            if isinstance(part, Error):
+                return part.variances(values, t)
+        return np.zeros(t)
+
+    def identified(self, scale: Scale, times: np.ndarray) -> bool:
+        """Local identification at a generic point near the start values: the Jacobian
+        of the distinct covariances in theta has full column rank (Bekker, Merckens and
+        Wansbeek 1994, Identification, Equivalent Models, and Computer Algebra)."""
+        t = len(times)
+        theta = self.starts(scale)[0]
+        wobble = 1.0 + 0.07 * np.sin(1.0 + np.arange(len(theta)) * 2.3)
+        theta = theta * wobble + 0.013 * _typical(self, scale) * np.cos(np.arange(len(theta)))
+        lo_hi = self.bounds(scale)
+        theta = np.array([min(max(v, lo if lo is not None else v), hi if hi is not None else v)
+                          for v, (lo, hi) in zip(theta, lo_hi)])
+        _, grads = self.build(theta, times)
+        iu = np.triu_indices(t)
+        jac = np.column_stack([g[iu] for g in grads])
+        if jac.shape[1] > jac.shape[0]:
+            return False
+        norms = np.linalg.norm(jac, axis=0)
+        if np.any(norms == 0):
+            return False
+        sv = np.linalg.svd(jac / norms, compute_uv=False)   # rank is scale-free
+        return bool(sv[-1] > IDENTIFIED * sv[0])
+
+
+# ------------------------------------------------------------------- likelihoods
+
+class CovarianceLikelihood:
+    """F = log|Sigma| + tr(S Sigma^-1): complete data (S the ML covariance), or the
+    first stage of a fit to the EM covariance."""
+
+    def __init__(self, s: np.ndarray):
+        self.s = np.asarray(s, dtype=float)
+
+    def value_grad(self, sigma: np.ndarray):
+        try:
+            chol = np.linalg.cholesky(sigma)
+        except np.linalg.LinAlgError:
+            return None
+        logdet = 2.0 * np.log(np.diag(chol)).sum()
+        inv = np.linalg.inv(sigma)
+        value = logdet + float(np.sum(self.s * inv))
+        return value, inv - inv @ self.s @ inv
+
+    def at_population(self, sigma0: np.ndarray) -> "CovarianceLikelihood":
+        return CovarianceLikelihood(sigma0)
+
+
+class PatternLikelihood:
+    """The full-information discrepancy from the response-pattern summary (module
+    docstring); ``groups`` as built by ``diagnostics.missingness._groups``."""
+
+    def __init__(self, groups: list, n_waves: int):
+        self.groups = groups
+        self.t = n_waves
+        self.n_total = float(sum(g.n.sum() for g in groups))
+
+    def value_grad(self, sigma: np.ndarray):
+        from paneldiag.diagnostics.missingness import _block_inverse, _precision, _scatter
+        t = self.t
+        with np.errstate(all="ignore"):
+            precision = _precision(sigma)
+            if precision is None:
+                return None
+            inverses = []
+            a = np.zeros(t * t)
+            b = np.zeros(t)
+            for g in self.groups:
+                q = _block_inverse(sigma, g, precision)
+                inverses.append(q)
+                a += _scatter(g.n[:, None, None] * q, g.flat, t * t)
+                b += _scatter(g.n[:, None] * np.einsum("pij,pj->pi", q, g.mean), g.obs, t)
+            try:
+                mu = np.linalg.solve(a.reshape(t, t), b)
+            except np.linalg.LinAlgError:
+                return None
+            value = 0.0
+            grad = np.zeros(t * t)
+            for g, q in zip(self.groups, inverses):
+                sign, logdet = np.linalg.slogdet(np.take(sigma.ravel(), g.flat))
+                if np.any(sign <= 0):
+                    return None
+                dev = g.mean - mu[g.obs]
+                w = g.m2 + g.n[:, None, None] * (dev[:, :, None] * dev[:, None, :])
+                qwq = q @ w @ q
+                value += float(np.sum(g.n * logdet) + np.einsum("pij,pji->", q, w))
+                grad += _scatter(g.n[:, None, None] * q - qwq, g.flat, t * t)
+        if not np.isfinite(value):
+            return None
+        return value / self.n_total, grad.reshape(t, t) / self.n_total
+
+    def at_population(self, sigma0: np.ndarray) -> "PatternLikelihood":
+        """The same patterns with their expected moments under covariance ``sigma0``
+        (and equal means): the discrepancy of a structure from it, times N, is the
+        noncentrality of a test at this panel's response patterns."""
+        from dataclasses import replace
+        groups = [replace(g, mean=np.zeros_like(g.mean),
+                          m2=g.n[:, None, None] * np.take(sigma0.ravel(), g.flat))
+                  for g in self.groups]
+        return PatternLikelihood(groups, self.t)
+
+
+# ------------------------------------------------------------------------ fitting
 
 @dataclass(frozen=True)
 class Fit:
-    """A fitted structure: parameters by name, discrepancy, test against the saturated
-    covariance (None when the sample covariance is singular), and the parameters'
-    covariance matrix from the information matrix."""
+    """A fitted structure: parameters by name, discrepancy F, test against the
+    saturated model (None when the saturated covariance is singular), fit indices, BIC,
+    and the parameters' covariance matrix from the expected information."""
 
     structure: Structure
     params: dict
@@ -85,10 +226,14 @@ class Fit:
     discrepancy: float
     chi2: float | None
     df: int
-    rmsea: float | None
     p_value: float | None
+    rmsea: float | None
+    rmsea_ci: tuple
+    srmr: float | None
+    bic: float | None
     theta_cov: np.ndarray | None
     sigma: np.ndarray
+    n_params: int = 0
 
     def derived(self, fn) -> tuple[float, float, float]:
         """(estimate, ci_low, ci_high) of fn(params) by the delta method."""
@@ -107,7 +252,20 @@ class Fit:
         if not np.isfinite(var) or var < 0:
             return est, np.nan, np.nan
         se = np.sqrt(var)
+        if se == 0:
+            return est, np.nan, np.nan
         return est, est - Z95 * se, est + Z95 * se
+
+    def error_variances(self) -> np.ndarray:
+        return self.structure.error_variances(self.theta, self.sigma.shape[0])
+
+
+@dataclass(frozen=True)
+class Skipped:
+    """A specification that was not fitted, and why."""
+
+    structure: Structure
+    reason: str
 
 
 def _safe(fn, params: dict) -> float:
@@ -121,170 +279,272 @@ def _safe(fn, params: dict) -> float:
     return float(value) if np.isrealobj(value) else np.nan
 
 
-def _build(structure: Structure, theta: np.ndarray, times: np.ndarray):
-    """Sigma(theta) and the list of dSigma/dtheta_k."""
-    t = len(times)
-    sigma = theta[0] * np.eye(t)
-    grads = [np.eye(t)]
-    i = 1
-    ones = np.ones(t)
-    if structure.basis is not None:
-        lam = structure.basis
-        g11, g12, g22 = theta[i:i + 3]
-        d11 = np.outer(ones, ones)
-        d12 = np.outer(ones, lam) + np.outer(lam, ones)
-        d22 = np.outer(lam, lam)
-        sigma = sigma + g11 * d11 + g12 * d12 + g22 * d22
-        grads += [d11, d12, d22]
-        i += 3
-    elif structure.trait:
-        d = np.outer(ones, ones)
-        sigma = sigma + theta[i] * d
-        grads.append(d)
-        i += 1
-    if structure.carry:
-        b, rho = theta[i], theta[i + 1]
-        gap = np.abs(times[:, None] - times[None, :])
-        kernel = rho ** gap
-        with np.errstate(divide="ignore", invalid="ignore"):
-            dk = np.where(gap > 0, gap * rho ** (gap - 1), 0.0)
-        sigma = sigma + b * kernel
-        grads += [kernel, b * dk]
-    return sigma, grads
+@dataclass
+class Moments:
+    """What every fit of one measure shares: the saturated (EM) moments, the wave
+    times, the likelihood to maximise, the number of units N, and the effective n of
+    the parameter intervals. Fits are cached by structure."""
+
+    mu: np.ndarray
+    sigma: np.ndarray
+    times: np.ndarray
+    likelihood: object
+    n_units: float
+    n_eff: float
+    cache: dict = field(default_factory=dict)
+    kurtosis: float = 1.0    # the elliptical scaling of the likelihood ratios (>= 1)
+
+    def __post_init__(self):
+        self.scale = Scale.of(self.sigma)
+        self.first_stage = CovarianceLikelihood(self.sigma)
+        self.full = not isinstance(self.likelihood, CovarianceLikelihood)
+        out = self.likelihood.value_grad(self.sigma)
+        self.saturated = out[0] if out is not None else np.nan
+        sign, _ = np.linalg.slogdet(self.sigma)
+        self.singular = sign <= 0 or self.n_units <= len(self.times)
+
+    @property
+    def n_waves(self) -> int:
+        return len(self.times)
+
+    def fit(self, structure: Structure) -> "Fit | Skipped":
+        if structure not in self.cache:
+            self.cache[structure] = _fit(structure, self)
+        return self.cache[structure]
 
 
-def _objective(theta, structure, times, s):
-    sigma, grads = _build(structure, theta, times)
+def _objective(likelihood, structure: Structure, times: np.ndarray):
+    def fn(theta):
+        sigma, grads = structure.build(theta, times)
+        out = likelihood.value_grad(sigma)
+        if out is None:
+            return 1e10, np.zeros_like(theta)
+        value, g = out
+        return value, np.array([float(np.sum(g * d)) for d in grads])
+    return fn
+
+
+def _expected_hessian(sigma: np.ndarray, grads: list) -> np.ndarray | None:
+    """tr(Sigma^-1 D_k Sigma^-1 D_l): the expected Hessian of the discrepancy with
+    complete data (the Fisher scoring matrix of covariance structures)."""
     try:
-        chol = np.linalg.cholesky(sigma)
+        inv = np.linalg.inv(sigma)
     except np.linalg.LinAlgError:
-        return 1e10, np.zeros_like(theta)
-    logdet = 2.0 * np.log(np.diag(chol)).sum()
-    inv = np.linalg.inv(sigma)
-    value = logdet + float(np.sum(s * inv))
-    g = inv - inv @ s @ inv
-    return value, np.array([float(np.sum(g * d)) for d in grads])
+        return None
+    mats = [inv @ d for d in grads]
+    return np.array([[float(np.sum(a * b.T)) for b in mats] for a in mats])
 
 
-def _starts(structure: Structure, s: np.ndarray) -> list[np.ndarray]:
-    t = s.shape[0]
-    var = np.diag(s)
-    off = s[~np.eye(t, dtype=bool)]
-    level = max(float(np.mean(off)) if off.size else 0.0, 0.05 * float(np.mean(var)))
-    base = [0.5 * float(np.mean(var))]
-    starts = []
-    rhos = (0.3, 0.85) if structure.carry else (None,)
-    for rho in rhos:
-        theta = list(base)
-        if structure.basis is not None:
-            theta += [level * 0.5, 0.0, 0.1 * float(np.mean(var))]
-        elif structure.trait:
-            theta += [level * 0.5]
-        if structure.carry:
-            theta += [0.3 * float(np.mean(var)), rho]
-        starts.append(np.array(theta, dtype=float))
-    return starts
+def _scoring(fn, structure: Structure, times, start, lower, upper, max_iter=200):
+    """Fisher scoring with the complete-data expected Hessian, projected onto the
+    bounds (variables at a bound whose gradient points outward stay there), with
+    step halving. Converges in tens of steps where a quasi-Newton search needs
+    thousands on the quasi-simplex, whose parameters differ in scale by orders of
+    magnitude (Lee and Jennrich 1979, Psychometrika 44, 99-113)."""
+    theta = np.clip(np.asarray(start, dtype=float), lower, upper)
+    value, grad = fn(theta)
+    for _ in range(max_iter):
+        sigma, grads = structure.build(theta, times)
+        hess = _expected_hessian(sigma, grads)
+        if hess is None or not np.isfinite(value):
+            break
+        at_low = (theta <= lower) & (grad > 0)
+        at_high = (theta >= upper) & (grad < 0)
+        free = ~(at_low | at_high)
+        if not free.any():
+            break
+        h = hess[np.ix_(free, free)]
+        ridge = 1e-10 * max(float(np.max(np.abs(np.diag(h)))), 1e-300)
+        try:
+            step_free = -np.linalg.solve(h + ridge * np.eye(len(h)), grad[free])
+        except np.linalg.LinAlgError:
+            break
+        step = np.zeros_like(theta)
+        step[free] = step_free
+        slope = float(grad @ step)
+        if not slope < 0:
+            break
+        length, accepted = 1.0, False
+        for _ in range(40):
+            trial = np.clip(theta + length * step, lower, upper)
+            new_value, new_grad = fn(trial)
+            if new_value <= value + 1e-4 * length * slope:
+                accepted = True
+                break
+            length *= 0.5
+        if not accepted:
+            break
+        gain = value - new_value
+        theta, value, grad = trial, new_value, new_grad
+        if gain <= 1e-14 * max(1.0, abs(value)):
+            break
+    return theta, value
 
 
-def _bounds(structure: Structure, s: np.ndarray) -> list[tuple]:
-    floor = 1e-6 * float(np.mean(np.diag(s)))
-    out = [(floor, None)]
-    if structure.basis is not None:
-        out += [(0.0, None), (None, None), (0.0, None)]
-    elif structure.trait:
-        out += [(0.0, None)]
-    if structure.carry:
-        out += [(0.0, None), (0.0, 0.995)]
-    return out
+@dataclass
+class _Result:
+    x: np.ndarray
+    fun: float
 
 
-def _hessian(theta, structure, times, s) -> np.ndarray:
-    p = len(theta)
-    h_mat = np.zeros((p, p))
-    for k in range(p):
-        step = 1e-5 * max(1.0, abs(theta[k]))
-        up, down = theta.copy(), theta.copy()
-        up[k] += step
-        down[k] -= step
-        if structure.carry and k == p - 1:  # rho must stay inside (0, 1) for the kernel
-            up[k] = min(up[k], 0.9999)
-            down[k] = max(down[k], 1e-6)
-            step = (up[k] - down[k]) / 2
-        h_mat[:, k] = (_objective(up, structure, times, s)[1]
-                       - _objective(down, structure, times, s)[1]) / (2 * step)
-    return 0.5 * (h_mat + h_mat.T)
+def _minimise(fn, structure: Structure, times, starts, bounds, typical: np.ndarray):
+    """The best of Fisher scoring from each start, polished by L-BFGS-B (in units of
+    ``typical``) where scoring stops short of a stationary point."""
+    lower = np.array([-np.inf if lo is None else lo for lo, _ in bounds])
+    upper = np.array([np.inf if hi is None else hi for _, hi in bounds])
 
+    def scaled(z):
+        value, grad = fn(z * typical)
+        return value, grad * typical
 
-def fit_structure(structure: Structure, s: np.ndarray, times: np.ndarray,
-                  n_eff: float) -> Fit:
-    """Fit ``structure`` to the covariance ``s`` by maximum likelihood."""
-    t = s.shape[0]
     best = None
-    for start in _starts(structure, s):
-        res = optimize.minimize(_objective, start, args=(structure, times, s), jac=True,
-                                method="L-BFGS-B", bounds=_bounds(structure, s),
-                                options={"maxiter": 2000, "ftol": 1e-13, "gtol": 1e-9})
-        if best is None or res.fun < best.fun:
-            best = res
-    theta = best.x
+    for start in starts:
+        theta, value = _scoring(fn, structure, times, start, lower, upper)
+        res = optimize.minimize(scaled, theta / typical, jac=True, method="L-BFGS-B",
+                                bounds=list(zip(lower / typical, upper / typical)),
+                                options={"maxiter": 200, "ftol": 1e-13, "gtol": 1e-9})
+        if res.fun <= value:
+            theta, value = res.x * typical, float(res.fun)
+        if best is None or value < best.fun:
+            best = _Result(theta, value)
+    return best
+
+
+def _typical(structure: Structure, scale: Scale) -> np.ndarray:
+    start = np.abs(structure.starts(scale)[0])
+    return np.where(start > 1e-3 * scale.mean_var, start,
+                    np.where(start > 1e-3, start, scale.mean_var))
+
+
+def _fit(structure: Structure, m: Moments) -> "Fit | Skipped":
+    t = m.n_waves
+    q = len(structure.names(t))
+    n_moments = t * (t + 1) // 2
+    if q > n_moments:
+        return Skipped(structure, f"{q} parameters for {n_moments} distinct covariances "
+                                  f"of {t} waves")
+    if not structure.identified(m.scale, m.times):
+        return Skipped(structure, f"not identified with {t} waves at these times")
+    bounds = structure.bounds(m.scale)
+    with np.errstate(all="ignore"):
+        typical = _typical(structure, m.scale)
+        first = _minimise(_objective(m.first_stage, structure, m.times), structure,
+                          m.times, structure.starts(m.scale), bounds, typical)
+        best = first
+        if m.full:
+            best = _minimise(_objective(m.likelihood, structure, m.times), structure,
+                             m.times, [first.x], bounds, typical)
     value = float(best.fun)
-    df = t * (t + 1) // 2 - len(theta)
-    chi2, rmsea, p_value = _fit_statistics(value, s, n_eff, df)
-    theta_cov = None
-    try:
-        hess = _hessian(theta, structure, times, s)
-        cov = 2.0 / (n_eff - 1) * np.linalg.pinv(hess)
-        if np.all(np.isfinite(cov)):
-            theta_cov = cov
-    except (np.linalg.LinAlgError, ValueError):
-        theta_cov = None
-    params = dict(zip(structure.names(t), map(float, theta)))
-    sigma, _ = _build(structure, theta, times)
-    return Fit(structure, params, theta, value, chi2, df, rmsea, p_value, theta_cov, sigma)
+    if not np.isfinite(value) or value >= 1e9:
+        return Skipped(structure, "the fit did not reach a positive definite covariance")
+    theta = best.x
+    sigma, grads = structure.build(theta, m.times)
+    df = n_moments - q
+    stats = fit_statistics(value, m, df, sigma)
+    return Fit(structure, dict(zip(structure.names(t), map(float, theta))), theta, value,
+               *stats, theta_cov=_information_cov(sigma, grads, m.n_eff), sigma=sigma,
+               n_params=q)
 
 
-def _fit_statistics(value: float, s: np.ndarray, n_eff: float, df: int):
-    """Chi-square of the ML discrepancy, RMSEA and p-value (None where undefined)."""
-    t = s.shape[0]
-    sign, logdet_s = np.linalg.slogdet(s)
-    chi2 = rmsea = p_value = None
-    if sign > 0 and n_eff > t:
-        chi2 = max(0.0, (n_eff - 1) * (value - logdet_s - t))
-        if df > 0:
-            rmsea = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n_eff - 1))))
-            p_value = float(dist.chi2_sf(chi2, df))
-    return chi2, rmsea, p_value
+def _information_cov(sigma, grads, n_eff) -> np.ndarray | None:
+    """Inverse of the expected information (n/2) tr(S^-1 D_k S^-1 D_l)."""
+    info = _expected_hessian(sigma, grads)
+    if info is None:
+        return None
+    cov = np.linalg.pinv(0.5 * max(n_eff, 1.0) * info)
+    return cov if np.all(np.isfinite(cov)) else None
 
 
-def fit_noise(s: np.ndarray, n_eff: float) -> Fit:
-    """The occasion-noise structure e I in closed form (e = the mean wave variance)."""
-    t = s.shape[0]
-    e = float(np.mean(np.diag(s)))
-    value = float(t * np.log(e) + t)
-    df = t * (t + 1) // 2 - 1
-    chi2, rmsea, p_value = _fit_statistics(value, s, n_eff, df)
-    structure = Structure("occasion_noise")
-    cov = np.array([[2.0 * e ** 2 / (t * (n_eff - 1))]])
-    return Fit(structure, {"error_var": e}, np.array([e]), value, chi2, df, rmsea, p_value,
-               cov, e * np.eye(t))
+def swain_factor(n: float, p: int, df: int) -> float:
+    """Swain's (1975) small-sample correction of the ML chi-square for p variables."""
+    if df <= 0 or n <= 1:
+        return 1.0
+    q = (np.sqrt(1.0 + 4.0 * p * (p + 1) - 8.0 * df) - 1.0) / 2.0
+    return float(1.0 - (p * (2 * p ** 2 + 3 * p - 1) - q * (2 * q ** 2 + 3 * q - 1))
+                 / (12.0 * df * (n - 1.0)))
 
 
-def likelihood_ratio(simple: Fit, rich: Fit, n_eff: float, df: int,
-                     boundary: bool = False) -> tuple[float, float]:
-    """(statistic, p) of the nested test simple -> rich: (n - 1)(F_simple - F_rich).
+def rmsea_interval(chi2: float, df: int, n: float, level: float = 0.90):
+    """RMSEA and its interval by inverting the noncentral chi-square in its
+    noncentrality (Browne and Cudeck 1992)."""
+    point = float(np.sqrt(max(chi2 - df, 0.0) / (df * (n - 1.0))))
+    tail = (1.0 - level) / 2.0
+
+    def bound(p):
+        if special.chdtr(df, chi2) < p:
+            return 0.0
+        lam = float(special.chndtrinc(chi2, df, p))
+        return float(np.sqrt(max(lam, 0.0) / (df * (n - 1.0)))) if np.isfinite(lam) else np.nan
+
+    return point, (bound(1.0 - tail), bound(tail))
+
+
+def srmr(s: np.ndarray, sigma: np.ndarray) -> float:
+    """Standardised root mean square residual: the root mean square of the residual
+    correlations (s_ij - sigma_ij) / sqrt(s_ii s_jj) over i <= j (Bentler 1995)."""
+    return float(np.sqrt(np.mean(correlation_residuals(s, sigma)[np.triu_indices(len(s))] ** 2)))
+
+
+def correlation_residuals(s: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+    sd = np.sqrt(np.diag(s))
+    return (s - sigma) / np.outer(sd, sd)
+
+
+def fit_statistics(value: float, m: Moments, df: int, sigma: np.ndarray):
+    """(chi2, df, p, rmsea, rmsea_ci, srmr, bic); the test parts None when undefined."""
+    none = (None, df, None, None, (None, None), None, None)
+    if m.singular or not np.isfinite(m.saturated):
+        return none
+    n, t = m.n_units, m.n_waves
+    chi2 = max(0.0, n * (value - m.saturated))
+    bic = chi2 - df * np.log(n)
+    fit_srmr = srmr(m.sigma, sigma)
+    if df <= 0:
+        return (chi2, df, None, None, (None, None), fit_srmr, bic)
+    corrected = chi2 * swain_factor(n, t, df)
+    point, ci = rmsea_interval(corrected, df, n)
+    return (chi2, df, float(dist.chi2_sf(corrected, df)), point, ci, fit_srmr, bic)
+
+
+def likelihood_ratio(simple: Fit, rich: Fit, n_units: float, boundary: bool = False
+                     ) -> tuple[float, int, float]:
+    """(statistic, df, p) of the nested test simple -> rich: N (F_simple - F_rich) on
+    the difference in parameters.
 
     ``boundary``: one added variance sits on the boundary under the null, so the
     statistic follows an equal mixture of chi-square(0) and chi-square(df) (Self and
     Liang 1987, J. American Statistical Association 82, 605-610).
     """
+    df = max(rich.n_params - simple.n_params, 1)
     gain = simple.discrepancy - rich.discrepancy
     if gain < TIE * max(1.0, abs(simple.discrepancy)):
         gain = 0.0   # within the optimiser's precision: the richer fit gains nothing
-    stat = (n_eff - 1) * gain
+    stat = n_units * gain
     p = float(dist.chi2_sf(stat, df))
     if boundary:
         p = 0.5 * p if stat > 0 else 1.0
-    return stat, p
+    return stat, df, p
+
+
+def noncentrality(simple: Structure, rich: Fit, m: Moments) -> float:
+    """N times the discrepancy of ``simple`` from the covariance ``rich`` implies, at
+    this panel's response patterns: the noncentrality of the test of the part that
+    ``rich`` adds (Satorra and Saris 1985, Psychometrika 50, 83-90)."""
+    population = m.likelihood.at_population(rich.sigma)
+    base = population.value_grad(rich.sigma)
+    if base is None:
+        return np.nan
+    starts = [fit.theta for fit in [m.fit(simple)] if isinstance(fit, Fit)] or \
+        simple.starts(m.scale)
+    with np.errstate(all="ignore"):
+        best = _minimise(_objective(population, simple, m.times), simple, m.times, starts,
+                         simple.bounds(m.scale), _typical(simple, m.scale))
+    return float(max(0.0, m.n_units * (best.fun - base[0])))
+
+
+def implied(structure: Structure, theta, times: np.ndarray) -> np.ndarray:
+    """The covariance matrix a structure implies at parameters ``theta``."""
+    return structure.build(np.asarray(theta, dtype=float), np.asarray(times, float))[0]
 
 
 # ----------------------------------------------------------------- the mean's shape
@@ -373,6 +633,37 @@ def time_basis(times: np.ndarray) -> np.ndarray:
     return tau / tau[-1]
 
 
-def implied(structure: Structure, theta: np.ndarray, times: np.ndarray) -> np.ndarray:
-    """The covariance matrix a structure implies at parameters ``theta``."""
-    return _build(structure, np.asarray(theta, dtype=float), times)[0]
+
+
+MEAN_SHAPES = ("flat", "linear", "quadratic", "free")
+
+
+def mean_terms(mu: np.ndarray, s: np.ndarray, pair_n: np.ndarray, times: np.ndarray
+               ) -> dict[str, tuple[float, int]]:
+    """(Wald statistic, parameters) of each shape of the wave means: flat, linear,
+    quadratic (polynomials in time) and free (T parameters, statistic 0).
+
+    The Wald statistic of the contrasts orthogonal to the shape, with the means'
+    sampling covariance S_st n_st / (n_s n_t), stands in for the likelihood-ratio
+    statistic of the restriction (asymptotically equal; Buse 1982, The American
+    Statistician 36, 153-157), so a family's BIC can count its mean structure.
+    """
+    t = len(times)
+    u = time_basis(times) if t > 1 else np.zeros(1)
+    n_diag = np.diag(pair_n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v = s * pair_n / np.outer(n_diag, n_diag)
+    out = {"free": (0.0, t)}
+    for shape, k in (("flat", 1), ("linear", 2), ("quadratic", 3)):
+        if k >= t:
+            out[shape] = (0.0, t)
+            continue
+        q, _ = np.linalg.qr(np.vander(u, t, increasing=True))
+        c = q[:, k:].T
+        est = c @ mu
+        try:
+            wald = float(est @ np.linalg.solve(c @ v @ c.T, est))
+        except np.linalg.LinAlgError:
+            wald = np.inf
+        out[shape] = (wald if np.isfinite(wald) else np.inf, k)
+    return out

@@ -1,28 +1,43 @@
 """Process-family verdicts: which families the data plausibly support, and why.
 
-The verdicts read the ML moments of the waves under MAR (``missingness.em``, or the
-same computed here from the response-pattern summary), fit the covariance structure
-of each family (``paneldiag.rules.structures``), test the parts that separate the
-families, and turn the tests and effect sizes into a verdict per family with the
-thresholds of ``thresholds.toml``:
+Every family is judged by the best of a small set of specifications (``specs``: error
+variances equal or per wave, stationary carry-over or the quasi-simplex, random
+curvature, free loadings), fitted by full-information maximum likelihood from the
+response-pattern summary (``structures``), chosen within the family by BIC. Families
+are compared by BIC differences and BIC weights; each family's BIC counts its mean
+structure too (a linear mean for linear growth, a quadratic one for quadratic growth,
+free means for free-shape growth; the best of flat, linear, quadratic and free for the
+families that say nothing about the mean). The parts that separate neighbouring
+families are tested by likelihood ratios between specifications of the same flavour
+(same error part and carry-over part):
 
 - dependence: the mean correlation of adjacent waves against ``min_correlation``;
-- unit-specific growth (non-stationarity): trait + carry-over against growth + carry-
-  over (a likelihood-ratio test of the slope variance and its covariance) and the
-  slopes' share of the last wave's variance;
-- a stable trait: carry-over against trait + carry-over (the flat part a of the lag
-  profile r(k) = a + b rho^k), with error variances free so memory beyond one lag is
-  judged after allowing for measurement error;
-- carry-over: trait against trait + carry-over (the decaying part b rho^k); with rho
-  below ``min_rho`` the decaying part is not identified and the profile counts as flat;
+- unit-specific growth: trait + carry-over against growth + carry-over (the slope
+  variance and its covariance), the slopes' share of the last wave's variance, and
+  growth ahead of every stationary family (the quasi-simplex included) by BIC;
+- a stable trait: carry-over against trait + carry-over; without carry-over, a flat
+  lag profile;
+- carry-over: trait against trait + carry-over;
 - carry-over in the deviations from growth: growth against growth + carry-over;
-- the mean's shape: straight-line change, quadratic bend and the remainder after the
-  quadratic (orthogonal polynomial contrasts).
+- the mean's shape: straight-line change, quadratic bend and the remainder.
 
-A richer family is supported only when its extra part is evidenced (test below
-``alpha`` and effect above its threshold); otherwise the simpler family is preferred
-and the richer one is at most plausible. Every evidence sentence quotes numbers that
-are stored in the ``verdict_basis`` section of the report.
+A family is supported when its defining part is evidenced (test below ``alpha``, effect
+above its threshold) and its BIC is the best among such families and within
+``bic_margin`` of the best of all. Misfit is a caveat naming the wave pairs that fit
+worst; only when every family's best specification misfits grossly (comparative fit
+index below ``min_cfi``) is a verdict lowered. Every evidence sentence quotes numbers
+stored in the ``verdict_basis`` section of the report.
+
+References
+----------
+Raftery, A. E. (1995). Bayesian model selection in social research. Sociological
+Methodology, 25, 111-163.
+Kass, R. E. and Raftery, A. E. (1995). Bayes factors. JASA, 90, 773-795.
+Bentler, P. M. (1990). Comparative fit indexes in structural models. Psychological
+Bulletin, 107, 238-246.
+Browne, M. W. (1984). Asymptotically distribution-free methods for the analysis of
+covariance structures. British Journal of Mathematical and Statistical Psychology, 37,
+62-83.
 """
 
 from __future__ import annotations
@@ -30,10 +45,13 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy import special
 
 from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
+from paneldiag.rules.parts import Carry, Growth, QuasiSimplex, Trait
+from paneldiag.rules.specs import family_specs, structure
 from paneldiag.rules.thresholds import Thresholds, default_thresholds
 
 FAMILY_IDS = ("occasion_noise", "stable_trait", "autoregressive", "trait_autoregressive",
@@ -69,6 +87,12 @@ KEY_EVIDENCE = {
     "free_shape_growth": ("Unit-specific growth", "Largest departure"),
     "growth_autoregressive": ("Unit-specific growth", "Carry-over in the deviations"),
 }
+STATIONARY = ("stable_trait", "autoregressive", "trait_autoregressive")
+GROWTH_SHAPES = ("linear_growth", "quadratic_growth", "free_shape_growth")
+GROWTH = GROWTH_SHAPES + ("growth_autoregressive",)
+# the mean structures a family allows (its BIC takes the best of them)
+MEAN_OPTIONS = {"linear_growth": ("flat", "linear"), "quadratic_growth": ("quadratic",),
+                "free_shape_growth": ("free",)}
 VERDICT_ORDER = {"supported": 0, "plausible": 1, "undetermined": 2, "unlikely": 3}
 SCORE_BANDS = {"supported": (0.8, 0.2), "plausible": (0.45, 0.3),
                "undetermined": (0.3, 0.0), "unlikely": (0.0, 0.25)}
@@ -79,6 +103,9 @@ class FamilyVerdict(Result):
     family: str
     verdict: str
     score: float
+    specification: str | None     # the family's specification chosen by BIC
+    bic_difference: float | None  # its BIC minus the best family's
+    bic_weight: float | None      # exp(-diff / 2), normalised over the families
     evidence: tuple[str, ...]
     caveats: tuple[str, ...]
 
@@ -91,6 +118,8 @@ class Measurement(Result):
     verdict: str | None
     advice: str
     basis: str
+    method: str | None = None
+    lower_bound: bool = False
 
 
 @dataclass(frozen=True)
@@ -102,6 +131,22 @@ class NextModel(Result):
 
 
 @dataclass(frozen=True)
+class PartPower(Result):
+    """What this panel can tell apart: the power of the test that separates two
+    neighbouring families at the panel's N, waves, response patterns and the richer
+    family's estimated parameters (Satorra and Saris 1985)."""
+
+    test: str
+    simpler: str
+    richer: str
+    df: int
+    noncentrality: float
+    power: float
+    units_for_power_90: int | None
+    evidenced: bool
+
+
+@dataclass(frozen=True)
 class Judgement:
     """Everything the rules produced for one measure."""
 
@@ -109,6 +154,7 @@ class Judgement:
     measurement: Measurement
     next_models: tuple[NextModel, ...]
     basis: dict
+    power: tuple[PartPower, ...] = ()
 
 
 # ------------------------------------------------------------------ number citing
@@ -178,10 +224,23 @@ class Inputs:
     # False when n_units must not be shown (disclosure control: it would give away a
     # small count of units never observed, against the panel's unit count)
     units_disclosed: bool = True
+    # the likelihood the structures maximise: the full-information one of the response
+    # patterns, or the covariance ``sigma`` itself (complete data; polychoric input)
+    likelihood: object = None
+    # relative multivariate kurtosis (>= 1): the likelihood-ratio statistics are divided
+    # by it (the elliptical correction of Browne 1984)
+    kurtosis: float = 1.0
+    # 'pearson' (ML moments of the scores) or 'polychoric' (ordinal measure: the
+    # structures are fitted to the polychoric correlations)
+    moments_kind: str = "pearson"
+    wave_labels: tuple | None = None
 
 
 def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
-    """Moments from the EM result; retention and selective dropout from the patterns."""
+    """Moments from the EM result; retention and selective dropout from the patterns;
+    the full-information likelihood from the patterns (or the covariance itself when
+    every unit answered every wave)."""
+    from paneldiag.diagnostics.missingness import _groups
     obs = patterns.observed
     n = patterns.n
     t = obs.shape[1]
@@ -204,89 +263,146 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
             smds.append((m_leave - m_stay) / sd[s])
             weights.append(n_leave)
     smd = float(np.average(smds, weights=weights)) if smds else np.nan
-    return Inputs(mu=np.asarray(em.means, float), sigma=np.asarray(em.covariance, float),
-                  pair_n=pair_n, times=np.asarray(times, float), n_units=int(em.n_units),
-                  retention=retention, dropout_smd=smd, categories=categories)
+    sigma = np.asarray(em.covariance, float)
+    used = n > 0
+    complete = bool(np.all(obs[used & obs.any(axis=1)]))
+    likelihood = None
+    if np.all(np.isfinite(sigma)):
+        likelihood = (st.CovarianceLikelihood(sigma) if complete else
+                      st.PatternLikelihood(_groups(patterns, np.ones(t, dtype=bool)), t))
+    return Inputs(mu=np.asarray(em.means, float), sigma=sigma, pair_n=pair_n,
+                  times=np.asarray(times, float), n_units=int(em.n_units),
+                  retention=retention, dropout_smd=smd, categories=categories,
+                  likelihood=likelihood)
 
 
 # -------------------------------------------------------------------- the fits
 
 @dataclass
+class FamilyFit:
+    """One family's specifications, the one chosen by BIC, and the family's BIC
+    criterion (covariance part N F + q ln N plus its mean structure's Wald + k ln N)."""
+
+    family: str
+    options: list                 # (structure, Fit or Skipped) in plan order
+    chosen: st.Fit | None = None
+    criterion: float = np.inf
+    mean_shape: str | None = None
+
+
+@dataclass
 class Evidence:
-    fits: dict = field(default_factory=dict)
-    tests: dict = field(default_factory=dict)
-    n_eff: float = np.nan
+    moments: st.Moments
+    families: dict = field(default_factory=dict)   # family -> FamilyFit
+    tests: dict = field(default_factory=dict)      # test -> (stat, df, p, simple, rich)
     shape: st.MeanShape | None = None
-    basis_name: str = "time"
+    n_eff: float = np.nan
+    best: str | None = None
+    difference: dict = field(default_factory=dict)  # family -> BIC difference
+    weight: dict = field(default_factory=dict)
+
+    def chosen(self, family: str) -> st.Fit | None:
+        ff = self.families.get(family)
+        return ff.chosen if ff is not None else None
 
 
-def structure_plan(times: np.ndarray, mean_basis: np.ndarray | None = None
-                   ) -> dict[str, st.Structure]:
-    """The covariance structures the verdicts fit (besides occasion noise), by key: the
-    growth structures on the scaled wave times ('growth:time', 'growth_ar:time') and,
-    given ``mean_basis`` (the shape of the mean), on it too ('growth:mean', ...)."""
-    tb = st.time_basis(times)
-    plan = {"stable_trait": st.Structure("stable_trait", trait=True),
-            "autoregressive": st.Structure("autoregressive", carry=True),
-            "trait_autoregressive": st.Structure("trait_autoregressive", trait=True,
-                                                 carry=True),
-            "growth:time": st.Structure("growth", basis=tb),
-            "growth_ar:time": st.Structure("growth_ar", basis=tb, carry=True)}
-    if mean_basis is not None:
-        plan["growth:mean"] = st.Structure("growth", basis=mean_basis)
-        plan["growth_ar:mean"] = st.Structure("growth_ar", basis=mean_basis, carry=True)
-    return plan
+
+def moments_of(inp: Inputs) -> st.Moments:
+    t = len(inp.times)
+    iu = np.triu_indices(t, 1)
+    n_eff = float(np.mean(inp.pair_n[iu])) if t > 1 else float(inp.n_units)
+    likelihood = inp.likelihood or st.CovarianceLikelihood(inp.sigma)
+    m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
+    m.kurtosis = max(float(inp.kurtosis), 1.0)
+    return m
+
+
+def _criterion(fit: st.Fit, m: st.Moments) -> float:
+    """BIC of the covariance part up to a constant: N F / kurtosis + q ln N (the
+    likelihood scaled like the test statistics)."""
+    return m.n_units * fit.discrepancy / m.kurtosis + fit.n_params * np.log(m.n_units)
 
 
 def _fit_all(inp: Inputs, alpha: float) -> Evidence:
+    """Every family's specifications fitted, the choice within and across families by
+    BIC, and the part tests."""
     t = len(inp.times)
-    ev = Evidence()
-    iu = np.triu_indices(t, 1)
-    ev.n_eff = float(np.mean(inp.pair_n[iu])) if t > 1 else float(inp.n_units)
-    s, times, n = inp.sigma, inp.times, ev.n_eff
-    n_moments = t * (t + 1) // 2
-    ev.fits["occasion_noise"] = st.fit_noise(s, n)
+    m = moments_of(inp)
+    ev = Evidence(m, n_eff=m.n_eff)
     if t >= 3:
-        ev.shape = st.mean_shape(inp.mu, s, inp.pair_n, times)
-    # the shape of the mean as a growth basis, when the mean departs from any quadratic
-    mb = st.mean_basis(inp.mu, times)
-    departs = ev.shape is not None and t >= 4 and np.isfinite(ev.shape.remainder_p) and \
-        ev.shape.remainder_p < alpha
-    for key, structure in structure_plan(times, mb if departs else None).items():
-        if len(structure.names(t)) <= n_moments:
-            ev.fits[key] = st.fit_structure(structure, s, times, n)
-    # the growth basis that reproduces the covariances better (without carry-over)
-    if "growth:mean" in ev.fits and \
-            ev.fits["growth:mean"].discrepancy < ev.fits["growth:time"].discrepancy:
-        ev.basis_name = "mean"
-    for key in ("growth", "growth_ar"):
-        if f"{key}:{ev.basis_name}" in ev.fits:
-            ev.fits[key] = ev.fits[f"{key}:{ev.basis_name}"]
-    f = ev.fits
-
-    def lr(simple, rich, df, boundary=False):
-        if simple in f and rich in f:
-            return st.likelihood_ratio(f[simple], f[rich], n, df, boundary)
-        return None
-
-    for name, (simple, rich, df, boundary) in PART_TESTS.items():
-        ev.tests[name] = lr(simple, rich, df, boundary)
-    if "growth_ar" not in f:
-        ev.tests["growth"] = lr(*GROWTH_WITHOUT_CARRY)
+        ev.shape = st.mean_shape(inp.mu, inp.sigma, inp.pair_n, inp.times)
+    means = st.mean_terms(inp.mu, inp.sigma, inp.pair_n, inp.times)
+    log_n = np.log(m.n_units)
+    for family, plan in family_specs(inp.times).items():
+        ff = FamilyFit(family, [(s, m.fit(s)) for s in plan])
+        fits = [fit for _, fit in ff.options if isinstance(fit, st.Fit)]
+        if fits:
+            ff.chosen = min(fits, key=lambda fit: _criterion(fit, m))
+            shape = min(MEAN_OPTIONS.get(family, st.MEAN_SHAPES),
+                        key=lambda k: means[k][0] + means[k][1] * log_n)
+            ff.mean_shape = shape
+            ff.criterion = _criterion(ff.chosen, m) + means[shape][0] + means[shape][1] * log_n
+        ev.families[family] = ff
+    finite = {f: ff.criterion for f, ff in ev.families.items() if np.isfinite(ff.criterion)}
+    if finite:
+        ev.best = min(finite, key=finite.get)
+        low = finite[ev.best]
+        ev.difference = {f: c - low for f, c in finite.items()}
+        raw = {f: np.exp(-0.5 * d) for f, d in ev.difference.items()}
+        total = sum(raw.values())
+        ev.weight = {f: w / total for f, w in raw.items()}
+    for name, test in PART_TESTS.items():
+        ev.tests[name] = _part_test(ev, *test, inp.kurtosis)
+    if ev.tests["growth"] is None:
+        ev.tests["growth"] = _part_test(ev, *GROWTH_WITHOUT_CARRY, inp.kurtosis)
     return ev
 
 
-# The tests that add a part to a family: (simpler structure, richer structure, df,
-# whether the added variance sits on its boundary under the simpler one).
+def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary: bool,
+               kurtosis: float):
+    """(statistic, df, p, simpler fit, richer fit): the richer family's chosen
+    specification against the simpler family's structure made from it by dropping the
+    part the test is about (and putting ``add`` in its place): nested by construction."""
+    rich_fit = ev.chosen(rich)
+    if rich_fit is None:
+        return None
+    simple_fit = ev.moments.fit(nested(rich_fit.structure, simple, drop, add))
+    if not isinstance(simple_fit, st.Fit):
+        return None
+    stat, df, p = st.likelihood_ratio(simple_fit, rich_fit, ev.moments.n_units, boundary)
+    if kurtosis > 1.0:
+        stat = stat / kurtosis
+        p = float(dist.chi2_sf(stat, df))
+        if boundary:
+            p = 0.5 * p if stat > 0 else 1.0
+    return stat, df, p, simple_fit, rich_fit
+
+
+def nested(rich: st.Structure, name: str, drop: tuple, add=None) -> st.Structure:
+    """The structure ``rich`` without its parts of the types ``drop`` (and with ``add``
+    in the first dropped part's place), named as family ``name``."""
+    parts = []
+    for part in rich.parts:
+        if isinstance(part, drop):
+            if add is not None and add not in parts:
+                parts.append(add)
+            continue
+        parts.append(part)
+    return structure(name, tuple(parts))
+
+
+# The tests that add a part to a family: (simpler family, richer family, the part types
+# the simpler family lacks, the part it has in their place, whether the added variance
+# sits on its boundary under the simpler one).
 PART_TESTS = {
-    "trait": ("autoregressive", "trait_autoregressive", 1, True),
-    "carry": ("stable_trait", "trait_autoregressive", 2, False),
-    "growth": ("trait_autoregressive", "growth_ar", 2, False),
-    "growth_carry": ("growth", "growth_ar", 2, False),
-    "dependence": ("occasion_noise", "stable_trait", 1, True),
+    "trait": ("autoregressive", "trait_autoregressive", (Trait,), None, True),
+    "carry": ("stable_trait", "trait_autoregressive", (Carry, QuasiSimplex), None, False),
+    "growth": ("trait_autoregressive", "growth_autoregressive", (Growth,), Trait(), False),
+    "growth_carry": ("linear_growth", "growth_autoregressive", (Carry,), None, False),
+    "dependence": ("occasion_noise", "stable_trait", (Trait,), None, True),
 }
 # the growth test when growth + carry-over cannot be fitted (too few moments)
-GROWTH_WITHOUT_CARRY = ("stable_trait", "growth", 2, False)
+GROWTH_WITHOUT_CARRY = ("stable_trait", "linear_growth", (Growth,), Trait(), False)
 
 
 def _one_thread():
@@ -300,33 +416,106 @@ def _one_thread():
     return threadpool_limits(limits=1)
 
 
-# share functions of the fitted parameters (for the delta method)
-def _stable_share(p):
-    a, b = p["trait_var"], p["carry_var"]
-    return a / (a + b) if a + b > 0 else np.nan
+# ------------------------------------------------- figures of a fitted structure
+# Functions of a fit's parameter dict (for the delta method); they read the parts.
+
+def _theta(p: dict) -> np.ndarray:
+    return np.fromiter(p.values(), dtype=float, count=len(p))
 
 
-def _slope_share_fn(fit: st.Fit, times: np.ndarray):
-    lam_last = float(fit.structure.basis[-1])
+def _part_values(fit: st.Fit, p: dict, key: str):
+    t = fit.sigma.shape[0]
+    for part, values in zip(fit.structure.parts, fit.structure.split(_theta(p), t)):
+        if part.key == key:
+            return part, values
+    return None, None
 
+
+def _carry_variance(fit: st.Fit, times: np.ndarray):
+    """The carried-over variance: b (stationary), or the quasi-simplex's true-score
+    variance averaged over waves."""
     def fn(p):
-        sigma = st.implied(fit.structure, list(p.values()), times)
-        return p["slope_var"] * lam_last ** 2 / sigma[-1, -1]
+        part, values = _part_values(fit, p, "carry")
+        if isinstance(part, QuasiSimplex):
+            return float(np.mean(part.true_variances(values, len(times))))
+        return float(values[0])
     return fn
 
 
-def _dev_carry_share_fn(n_waves: int):
+def _carry_rho(fit: st.Fit, times: np.ndarray):
+    """Carry-over per unit of time: rho (stationary), or the quasi-simplex's mean
+    correlation of adjacent true scores, per unit of time."""
     def fn(p):
-        e = p["error_var"]
-        return p["carry_var"] / (p["carry_var"] + e)
+        part, values = _part_values(fit, p, "carry")
+        if isinstance(part, QuasiSimplex):
+            t = len(times)
+            var = part.true_variances(values, t)
+            beta = np.asarray(values[t:], dtype=float)
+            r = beta * np.sqrt(var[:-1] / var[1:])
+            return float(np.mean(np.sign(r) * np.abs(r) ** (1.0 / np.diff(times))))
+        return float(values[1])
     return fn
 
 
-def _reliability_fn(fit: st.Fit, times: np.ndarray):
+def _mean_error(fit: st.Fit, times: np.ndarray):
     def fn(p):
-        sigma = st.implied(fit.structure, list(p.values()), times)
-        e = p["error_var"]
+        return float(np.mean(fit.structure.error_variances(_theta(p), len(times))))
+    return fn
+
+
+def _stable_share(fit: st.Fit, times: np.ndarray):
+    carry = _carry_variance(fit, times)
+
+    def fn(p):
+        a, b = p["trait_var"], carry(p)
+        return a / (a + b) if a + b > 0 else np.nan
+    return fn
+
+
+def _trait_share(fit: st.Fit, times: np.ndarray):
+    error = _mean_error(fit, times)
+
+    def fn(p):
+        return p["trait_var"] / (p["trait_var"] + error(p))
+    return fn
+
+
+def _slope_share(fit: st.Fit, times: np.ndarray):
+    """Share of the last wave's variance from the unit-specific change factors."""
+    def fn(p):
+        part, values = _part_values(fit, p, "growth")
+        lam = part.loadings(values, len(times))[-1, 1:]
+        psi = part.psi(values)[1:, 1:]
+        sigma = st.implied(fit.structure, _theta(p), times)
+        return float(lam @ psi @ lam) / sigma[-1, -1]
+    return fn
+
+
+def _dev_carry_share(fit: st.Fit, times: np.ndarray):
+    carry, error = _carry_variance(fit, times), _mean_error(fit, times)
+
+    def fn(p):
+        b = carry(p)
+        return b / (b + error(p))
+    return fn
+
+
+def _reliability(fit: st.Fit, times: np.ndarray):
+    def fn(p):
+        sigma = st.implied(fit.structure, _theta(p), times)
+        e = fit.structure.error_variances(_theta(p), len(times))
         return float(np.mean(1.0 - e / np.diag(sigma)))
+    return fn
+
+
+def _profile_decline(fit: st.Fit, times: np.ndarray):
+    """Decline of r(k) = a + b rho^k from the shortest to the longest distance, as a
+    share of r at the shortest (stationary trait + carry-over)."""
+    span = float(times[-1] - times[0])
+
+    def fn(p):
+        return p["carry_var"] * (p["rho"] - p["rho"] ** span) / \
+            (p["trait_var"] + p["carry_var"] * p["rho"])
     return fn
 
 
@@ -352,7 +541,7 @@ def _margin(est, lo, hi, threshold):
 # --------------------------------------------------------------------- the rules
 
 def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
-    """The verdicts, measurement judgement and next models from the panel's moments."""
+    """The verdicts, measurement judgement, power and next models from the panel."""
     th = thresholds or default_thresholds()
     led = Citations(th)
     t = len(inp.times)
@@ -374,11 +563,24 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
 
     with _one_thread():
         ev = _fit_all(inp, alpha)
-    f, tests, shape = ev.fits, ev.tests, ev.shape
+    tests, shape, times = ev.tests, ev.shape, inp.times
     led.value("n_effective", float(ev.n_eff), 1)
+    led.value("likelihood", "full information from the response patterns"
+              if ev.moments.full else "complete-data" if inp.moments_kind == "pearson"
+              else "polychoric correlations")
 
     # ------------------------------------------------ caveats about identification
     general += _identification_caveats(inp, led, th, t)
+    if inp.kurtosis > 1.0:
+        led.value("kurtosis_scaling", float(inp.kurtosis))
+    if inp.kurtosis >= 1.1:
+        general.append(f"Scores with heavier tails than normal (relative kurtosis "
+                       f"{_f(inp.kurtosis)}): every likelihood-ratio statistic is divided "
+                       "by it (Browne's elliptical correction).")
+    if inp.moments_kind == "polychoric":
+        general.append("The structures are fitted to the polychoric correlations of the "
+                       "ordinal scores, whose variances are fixed at 1: growth shows only "
+                       "in the correlations, not in variances that fan out.")
 
     # ------------------------------------------------ dependence between waves
     sd = np.sqrt(np.diag(inp.sigma))
@@ -399,48 +601,59 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                     f"{led.thr('min_correlation')}.")
 
     # ------------------------------------------------ parts
-    def part_test(key, label):
+    def part_test(key):
         res = tests.get(key)
         if res is None:
             return None, None
-        stat, p = res
-        df = {"trait": 1, "carry": 2, "growth": 2, "growth_carry": 2, "dependence": 1}[key]
-        return p, led.test(f"{key}_test", stat, df, p)
+        stat, df, p, _, rich_fit = res
+        text = led.test(f"{key}_test", stat, df, p)
+        return p, f"{text}, specification: {rich_fit.structure.label}"
 
-    p_growth, growth_test_text = part_test("growth", "growth")
-    p_trait, trait_test_text = part_test("trait", "trait")
-    p_carry, carry_test_text = part_test("carry", "carry")
-    p_gcarry, gcarry_test_text = part_test("growth_carry", "growth carry")
+    p_growth, growth_test_text = part_test("growth")
+    p_trait, trait_test_text = part_test("trait")
+    p_carry, carry_test_text = part_test("carry")
+    p_gcarry, gcarry_test_text = part_test("growth_carry")
 
-    # growth: slopes' share of the last wave's variance
+    # growth: slopes' share of the last wave's variance, and growth ahead by BIC
     G = False
     slope_sentence = None
     slope = (np.nan, np.nan, np.nan)
-    gfit = f.get("growth_ar") or f.get("growth")
+    gfit = ev.chosen("growth_autoregressive") or ev.chosen("linear_growth")
     if gfit is not None:
-        slope = _clip(gfit.derived(_slope_share_fn(gfit, inp.times)))
+        slope = _clip(gfit.derived(_slope_share(gfit, times)))
         slope_text = led.estimate("slope_share", *slope)
-        basis_words = ("the shape of the mean" if ev.basis_name == "mean"
-                       else "the wave times")
-        led.value("growth_basis", ev.basis_name)
         if p_growth is not None:
-            slope_sentence = (f"Unit-specific growth (loadings from {basis_words}): share of "
-                              f"the last wave's variance from unit slopes {slope_text} "
-                              f"(counts from {led.thr('min_slope_share')}); test against "
-                              f"a stationary trait + carry-over structure: {growth_test_text} "
-                              f"(threshold {led.thr('alpha')}).")
+            slope_sentence = (f"Unit-specific growth: share of the last wave's variance from "
+                              f"unit slopes {slope_text} (counts from "
+                              f"{led.thr('min_slope_share')}); test against a stationary "
+                              f"trait + carry-over structure: {growth_test_text} (threshold "
+                              f"{led.thr('alpha')}).")
             G = p_growth < alpha and slope[0] >= th["min_slope_share"]
+            best_growth = min(GROWTH, key=lambda g: ev.families[g].criterion)
+            best_still = min(STATIONARY, key=lambda g: ev.families[g].criterion)
+            lead = ev.families[best_still].criterion - ev.families[best_growth].criterion
+            if np.isfinite(lead):
+                lead_text = led.value("growth_bic_lead", float(lead), 1)
+                if G and lead <= 0:
+                    G = False
+                    slope_sentence += (
+                        f" But {DISPLAY[best_still]} ({ev.chosen(best_still).structure.label})"
+                        f" has the lower BIC, by {_f(-lead, 1)}: variances that change over "
+                        "waves without unit-specific slopes, so growth is not counted.")
+                elif G:
+                    slope_sentence += (f" Growth is ahead of every stationary family by BIC "
+                                       f"({lead_text}).")
     growth_undetermined = p_growth is None
 
-    # stable trait and carry-over (stationary structure)
-    ta = f.get("trait_autoregressive")
+    # stable trait and carry-over (stationary or quasi-simplex)
+    ta = ev.chosen("trait_autoregressive")
     S = A = False
     share = rho = (np.nan, np.nan, np.nan)
     flat = False
     trait_sentence = carry_sentence = None
     if ta is not None:
-        share = _clip(ta.derived(_stable_share))
-        rho = _clip(ta.derived(lambda p: p["rho"]))
+        share = _clip(ta.derived(_stable_share(ta, times)))
+        rho = _clip(ta.derived(_carry_rho(ta, times)), -1.0, 1.0)
         share_text = led.estimate("stable_share", *share)
         rho_text = led.estimate("carry_rho", *rho)
         flat = rho[0] < th["min_rho"]
@@ -458,25 +671,26 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
             A = (p_carry < alpha and not flat
                  and (1 - share[0]) >= th["min_carry_share"])
         if A and p_trait is not None:
-            trait_sentence = (f"Stable share a/(a+b) of the lag profile r(k) = a + b rho^k, "
-                              f"error variance free: {share_text} (counts from "
+            trait_sentence = (f"Stable share a/(a+b) of the carried-over variance, error "
+                              f"variance free: {share_text} (counts from "
                               f"{led.thr('min_stable_share')}); test of the stable part: "
                               f"{trait_test_text} (threshold {led.thr('alpha')}).")
             S = p_trait < alpha and share[0] >= th["min_stable_share"]
-        elif "stable_trait" in f and tests.get("dependence") is not None:
-            tfit = f["stable_trait"]
-            icc = _clip(tfit.derived(lambda p: p["trait_var"] / (
-                p["trait_var"] + p["error_var"])))
+        elif ev.chosen("stable_trait") is not None and tests.get("dependence") is not None:
+            tfit = ev.chosen("stable_trait")
+            icc = _clip(tfit.derived(_trait_share(tfit, times)))
             share = icc
             icc_text = led.estimate("trait_share", *icc)
-            _, dep_test_text = part_test("dependence", "dependence")
+            _, dep_test_text = part_test("dependence")
             trait_sentence = (f"No decaying part evidenced, so the dependence is flat: the "
                               f"stable trait's share of each wave's variance is {icc_text} "
                               f"(counts from {led.thr('min_stable_share')}); test against "
                               f"occasion noise: {dep_test_text} (threshold {led.thr('alpha')}).")
-            span = float(inp.times[-1] - inp.times[0])
-            decline = ta.derived(lambda p: p["carry_var"] * (p["rho"] - p["rho"] ** span)
-                                 / (p["trait_var"] + p["carry_var"] * p["rho"]))
+            stationary = ev.moments.fit(structure(
+                "trait_autoregressive", (Trait(), Carry(), tfit.structure.part("error"))))
+            stationary = stationary if isinstance(stationary, st.Fit) else None
+            decline = (stationary.derived(_profile_decline(stationary, times))
+                       if stationary is not None else (np.nan, np.nan, np.nan))
             decline_text = led.estimate("profile_decline", *decline)
             trait_sentence += (f" Decline of the lag profile from the shortest to the longest "
                                f"distance, as a share of r at the shortest: {decline_text} "
@@ -485,17 +699,27 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                 flat_shown = decline[2] < th["max_flat_decline"]
             else:  # the decaying part sits on its boundary: judge the point estimate
                 flat_shown = np.isfinite(decline[0]) and decline[0] < th["max_flat_decline"] / 2
-            S = (tests["dependence"][1] < alpha and dep_clear and flat_shown
+            # or the BIC prefers no decay: the stable trait ahead of both carry-over families
+            lead = min(ev.families[f].criterion for f in ("autoregressive",
+                                                          "trait_autoregressive")) \
+                - ev.families["stable_trait"].criterion
+            if np.isfinite(lead):
+                trait_sentence += (f" The stable trait's BIC is "
+                                   f"{led.value('trait_bic_lead', float(lead), 1)} below the "
+                                   f"best carry-over family's (no decay counts from "
+                                   f"{led.thr('bic_positive')}).")
+                flat_shown = flat_shown or lead >= th["bic_positive"]
+            S = (tests["dependence"][2] < alpha and dep_clear and flat_shown
                  and icc[0] >= th["min_stable_share"])
 
     # carry-over in the deviations from growth
     AG = False
     gcarry_sentence = None
-    ga = f.get("growth_ar")
+    ga = ev.chosen("growth_autoregressive")
     grho = dshare = (np.nan, np.nan, np.nan)
     if ga is not None and p_gcarry is not None:
-        grho = _clip(ga.derived(lambda p: p["rho"]))
-        dshare = _clip(ga.derived(_dev_carry_share_fn(t)))
+        grho = _clip(ga.derived(_carry_rho(ga, times)))
+        dshare = _clip(ga.derived(_dev_carry_share(ga, times)))
         grho_text = led.estimate("growth_carry_rho", *grho)
         dshare_text = led.estimate("growth_carry_share", *dshare)
         gcarry_sentence = (f"Carry-over in the deviations from growth: rho {grho_text}, "
@@ -519,179 +743,169 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
 
     # the mean's shape
     shape_kind, shape_sentences = _mean_shape_kind(shape, led, th, t)
-
-    # ------------------------------------------------ verdicts
-    def fit_ok(key):
-        fit = f.get(key)
-        if fit is None or fit.rmsea is None:
-            return True, None
-        ok = fit.rmsea <= th["max_rmsea"]
-        text = led.value(f"rmsea_{key}", float(fit.rmsea))
-        return ok, (f"Root mean square error of approximation of its structure {text} "
-                    f"(acceptable up to {led.thr('max_rmsea')}).")
-
-    stationary_fams = ("stable_trait", "autoregressive", "trait_autoregressive")
-    growth_fams = ("linear_growth", "quadratic_growth", "free_shape_growth")
+    target = {"free": "free_shape_growth", "quadratic": "quadratic_growth"}.get(
+        shape_kind, "linear_growth")
     few_waves = t < th["min_waves_separate"]
 
-    # occasion noise
+    # ------------------------------------------------ verdicts from the parts
     ev_text["occasion_noise"].append(dep_sentence)
-    if dep_absent:  # no dependence to speak of: nothing else can be evidenced
-        verdict["occasion_noise"] = "supported"
+    if dep_absent:
         G = False
-    elif G:
-        verdict["occasion_noise"] = "unlikely"
-    elif dep_clear:
-        verdict["occasion_noise"] = "unlikely"
-    else:
-        verdict["occasion_noise"] = "plausible"
     strength["occasion_noise"] = 1 - _margin(r1, r1_lo, r1_hi, min_r)
-
-    if verdict["occasion_noise"] == "supported":
-        for fam in stationary_fams + growth_fams + ("growth_autoregressive",):
+    verdict["occasion_noise"] = ("supported" if dep_absent else "unlikely" if G or dep_clear
+                                 else "plausible")
+    if dep_absent:   # no dependence to speak of: nothing else can be evidenced
+        for fam in STATIONARY + GROWTH:
             verdict[fam] = "unlikely"
             ev_text[fam].append(dep_sentence)
             strength[fam] = _margin(r1, r1_lo, r1_hi, min_r)
     elif G:
-        for fam in stationary_fams:
-            verdict[fam] = "unlikely"
-            ev_text[fam].append(slope_sentence)
-            strength[fam] = 1 - _margin(slope[0], slope[1], slope[2], th["min_slope_share"])
-        target = {"free": "free_shape_growth", "quadratic": "quadratic_growth"}.get(
-            shape_kind, "linear_growth")
-        for fam in growth_fams + ("growth_autoregressive",):
-            ev_text[fam].append(slope_sentence)
-        for fam in growth_fams:
-            ev_text[fam] += shape_sentences
-        if gcarry_sentence:
-            ev_text["growth_autoregressive"].append(gcarry_sentence)
-            for fam in growth_fams:
-                ev_text[fam].append(gcarry_sentence)
-        if AG:
-            verdict["growth_autoregressive"] = "supported"
-            strength["growth_autoregressive"] = _margin(*dshare, th["min_carry_share"])
-            for fam in growth_fams:
-                verdict[fam] = "plausible" if fam == target else "unlikely"
-        else:
-            if growth_undetermined or p_gcarry is None:
-                verdict["growth_autoregressive"] = "undetermined"
-            else:
-                verdict["growth_autoregressive"] = (
-                    "plausible" if np.isfinite(dshare[2]) and dshare[2] >= th["min_carry_share"]
-                    else "unlikely")
-            strength["growth_autoregressive"] = _margin(*dshare, th["min_carry_share"])
-            for fam in growth_fams:
-                verdict[fam] = _shape_verdict(fam, target, shape, th, t)
-        for fam in growth_fams:
-            strength[fam] = _margin(*slope, th["min_slope_share"])
+        _growth_branch(verdict, strength, ev_text, slope_sentence, gcarry_sentence,
+                       shape_sentences, slope, dshare, target, shape, th, t, AG,
+                       growth_undetermined or p_gcarry is None)
     else:
-        # stationary branch: which of trait / carry-over / both
-        for fam in stationary_fams:
-            ev_text[fam].append(dep_sentence)
-            if slope_sentence:
-                ev_text[fam].append(slope_sentence)
-        for fam in ("stable_trait", "trait_autoregressive"):
-            if trait_sentence:
-                ev_text[fam].append(trait_sentence)
-        for fam in ("autoregressive", "trait_autoregressive"):
-            if carry_sentence:
-                ev_text[fam].append(carry_sentence)
-        if few_waves or ta is None or p_trait is None or p_carry is None:
-            for fam in stationary_fams:
-                verdict[fam] = "undetermined" if not dep_absent else "unlikely"
-        elif not dep_clear and not (S or A):
-            for fam in stationary_fams:
-                verdict[fam] = "plausible" if not dep_absent else "unlikely"
-        else:
-            share_hi = share[2] if np.isfinite(share[2]) else 1.0
-            share_lo = share[1] if np.isfinite(share[1]) else 0.0
-            if S and A:
-                verdict.update(trait_autoregressive="supported", stable_trait="unlikely",
-                               autoregressive="unlikely")
-            elif S:
-                verdict["stable_trait"] = "supported"
-                verdict["autoregressive"] = "unlikely"
-                verdict["trait_autoregressive"] = (
-                    "plausible" if (1 - share_lo) >= th["min_carry_share"] and not flat
-                    else "unlikely")
-            elif A:
-                verdict["autoregressive"] = "supported"
-                verdict["stable_trait"] = "unlikely"
-                verdict["trait_autoregressive"] = (
-                    "plausible" if share_hi >= th["min_stable_share"] else "unlikely")
-            else:
-                for fam in stationary_fams:
-                    verdict[fam] = "plausible"
-        strength["stable_trait"] = _margin(*share, th["min_stable_share"])
-        strength["autoregressive"] = (_margin(1 - share[0], 1 - share[2], 1 - share[1],
-                                              th["min_carry_share"]) if not flat else 0.0)
-        strength["trait_autoregressive"] = min(strength["stable_trait"],
-                                               strength["autoregressive"])
-        # growth families: at most plausible (no unit-specific growth evidenced)
-        target = {"free": "free_shape_growth", "quadratic": "quadratic_growth",
-                  "linear": "linear_growth"}.get(shape_kind)
-        for fam in growth_fams:
+        _stationary_branch(verdict, strength, ev_text, dep_sentence, slope_sentence,
+                           trait_sentence, carry_sentence, share, flat, S, A, dep_clear,
+                           dep_absent, few_waves,
+                           ta is None or p_trait is None or p_carry is None, th)
+        shape_target = {"free": "free_shape_growth", "quadratic": "quadratic_growth",
+                        "linear": "linear_growth"}.get(shape_kind)
+        for fam in GROWTH_SHAPES:
             if slope_sentence:
                 ev_text[fam].append(slope_sentence)
             ev_text[fam] += shape_sentences
-            if fam == target:
+            if fam == shape_target:
                 verdict[fam] = "plausible"
-            elif (fam == "linear_growth" and target is None and p_growth is not None
-                  and p_growth < alpha and not dep_absent):
+            elif (fam == "linear_growth" and shape_target is None and p_growth is not None
+                  and p_growth < alpha):
                 verdict[fam] = "plausible"
-            elif growth_undetermined:
-                verdict[fam] = "undetermined"
             else:
-                verdict[fam] = "unlikely"
+                verdict[fam] = "undetermined" if growth_undetermined else "unlikely"
             strength[fam] = _margin(*slope, th["min_slope_share"])
-        if slope_sentence:
-            ev_text["growth_autoregressive"].append(slope_sentence)
-        if carry_sentence:
-            ev_text["growth_autoregressive"].append(carry_sentence)
-        any_growth = any(verdict[g] == "plausible" for g in growth_fams)
+        for sentence in (slope_sentence, gcarry_sentence):
+            if sentence:
+                ev_text["growth_autoregressive"].append(sentence)
+        any_growth = any(verdict[g] == "plausible" for g in GROWTH_SHAPES)
         verdict["growth_autoregressive"] = (
             "plausible" if any_growth and (A or verdict["trait_autoregressive"] == "plausible")
             else "undetermined" if growth_undetermined else "unlikely")
         strength["growth_autoregressive"] = min(strength["linear_growth"],
                                                 strength["autoregressive"])
 
+    # ------------------------------------------------ the choice by BIC
+    evidenced = {"occasion_noise": dep_absent, "stable_trait": S and not G,
+                 "autoregressive": A and not G, "trait_autoregressive": S and A and not G,
+                 "growth_autoregressive": G and AG}
+    for fam in GROWTH_SHAPES:
+        evidenced[fam] = G and fam == target
+    _choose_by_bic(ev, evidenced, verdict, ev_text, led, th)
+
     # few waves and much error: richer neighbours hide behind the supported family
-    rich = [f[k] for k in ("autoregressive", "trait_autoregressive", "growth_ar") if k in f]
+    rich = [ev.chosen(k) for k in ("autoregressive", "trait_autoregressive",
+                                   "growth_autoregressive") if ev.chosen(k) is not None]
     if rich and t <= th["min_waves_separate"] + 1:
-        # the largest error share any carry-over structure finds (the quasi-simplex's)
-        share = max(fit.params["error_var"] / float(np.mean(np.diag(fit.sigma)))
-                    for fit in rich)
-        if np.isfinite(share) and 1 - share < th["reliability_substantial"]:
+        # the largest error share any carry-over structure finds
+        error_share = max(float(np.mean(fit.error_variances())) /
+                          float(np.mean(np.diag(fit.sigma))) for fit in rich)
+        if np.isfinite(error_share) and 1 - error_share < th["reliability_substantial"]:
             general.append(
                 f"Only {led.value('n_waves', int(t))} waves with much measurement error "
-                f"(about {led.value('error_free_share', float(1 - share))} of the variance "
-                f"free of error, below {led.thr('reliability_substantial')}): a stable part "
-                "or carry-over added to the supported family is hard to detect, so read a "
-                "supported carry-over or growth family as 'this or its richer neighbour'.")
+                f"(about {led.value('error_free_share', float(1 - error_share))} of the "
+                f"variance free of error, below {led.thr('reliability_substantial')}): a "
+                "stable part or carry-over added to the supported family is hard to detect, "
+                "so read a supported carry-over or growth family as 'this or its richer "
+                "neighbour'.")
     # with a singular covariance of the waves (fewer effective units than waves) no
     # structure can be tested against the data: nothing is more than plausible
-    if f["occasion_noise"].chi2 is None:
+    if ev.moments.singular:
         general.append(f"The covariance of the waves is singular (about "
                        f"{led.value('n_effective', float(ev.n_eff), 1)} units with data for "
                        f"{led.value('n_waves', int(t))} waves): no family can be tested "
-                       "against it, so none is rated above plausible.")
+                       "against it, so none is rated above plausible; the specifications "
+                       "are still compared by BIC.")
         for fam in FAMILY_IDS:
             if verdict.get(fam) == "supported":
                 verdict[fam] = "plausible"
-    # a supported family must also reproduce the covariances acceptably
-    cov_key = {"linear_growth": "growth", "quadratic_growth": "growth",
-               "free_shape_growth": "growth", "growth_autoregressive": "growth_ar"}
-    for fam in FAMILY_IDS:
-        if verdict.get(fam) == "supported":
-            ok, text = fit_ok(cov_key.get(fam, fam))
-            if text:
-                ev_text[fam].append(text)
-            if not ok:
-                verdict[fam] = "plausible"
-                ev_text[fam].append("No family here reproduces the covariances closely: the "
-                                    "verdict is lowered from supported to plausible.")
+    own: dict[str, list[str]] = {}   # caveats of one family
+    _judge_fit(ev, verdict, ev_text, general, led, th, inp, own)
+    power = _power_rows(ev, th, inp.kurtosis)
+    _power_sentences(power, verdict, ev_text, led, th)
     return _finish(inp, th, led, verdict, strength, ev_text, general, ev,
-                   dict(G=G, S=S, A=A, AG=AG, shape=shape_kind, flat=flat))
+                   dict(G=G, S=S, A=A, AG=AG, shape=shape_kind, flat=flat), power, own)
+
+
+def _growth_branch(verdict, strength, ev_text, slope_sentence, gcarry_sentence,
+                   shape_sentences, slope, dshare, target, shape, th, t, AG, undetermined):
+    """Verdicts when unit-specific growth is evidenced."""
+    for fam in STATIONARY:
+        verdict[fam] = "unlikely"
+        ev_text[fam].append(slope_sentence)
+        strength[fam] = 1 - _margin(slope[0], slope[1], slope[2], th["min_slope_share"])
+    for fam in GROWTH:
+        ev_text[fam].append(slope_sentence)
+    for fam in GROWTH_SHAPES:
+        ev_text[fam] += shape_sentences
+    if gcarry_sentence:
+        for fam in GROWTH:
+            ev_text[fam].append(gcarry_sentence)
+    strength["growth_autoregressive"] = _margin(*dshare, th["min_carry_share"])
+    if AG:
+        verdict["growth_autoregressive"] = "supported"
+        for fam in GROWTH_SHAPES:
+            verdict[fam] = "plausible" if fam == target else "unlikely"
+    else:
+        verdict["growth_autoregressive"] = (
+            "undetermined" if undetermined else
+            "plausible" if np.isfinite(dshare[2]) and dshare[2] >= th["min_carry_share"]
+            else "unlikely")
+        for fam in GROWTH_SHAPES:
+            verdict[fam] = _shape_verdict(fam, target, shape, th, t)
+    for fam in GROWTH_SHAPES:
+        strength[fam] = _margin(*slope, th["min_slope_share"])
+
+
+def _stationary_branch(verdict, strength, ev_text, dep_sentence, slope_sentence,
+                       trait_sentence, carry_sentence, share, flat, S, A, dep_clear,
+                       dep_absent, few_waves, untested, th):
+    """Verdicts of the stationary families when no unit-specific growth is evidenced:
+    which of trait / carry-over / both."""
+    for fam in STATIONARY:
+        ev_text[fam].append(dep_sentence)
+        if slope_sentence:
+            ev_text[fam].append(slope_sentence)
+    for fam in ("stable_trait", "trait_autoregressive"):
+        if trait_sentence:
+            ev_text[fam].append(trait_sentence)
+    for fam in ("autoregressive", "trait_autoregressive"):
+        if carry_sentence:
+            ev_text[fam].append(carry_sentence)
+    share_hi = share[2] if np.isfinite(share[2]) else 1.0
+    share_lo = share[1] if np.isfinite(share[1]) else 0.0
+    if few_waves or untested:
+        for fam in STATIONARY:
+            verdict[fam] = "undetermined" if not dep_absent else "unlikely"
+    elif not dep_clear and not (S or A):
+        for fam in STATIONARY:
+            verdict[fam] = "plausible" if not dep_absent else "unlikely"
+    elif S and A:
+        verdict.update(trait_autoregressive="supported", stable_trait="unlikely",
+                       autoregressive="unlikely")
+    elif S:
+        verdict.update(stable_trait="supported", autoregressive="unlikely",
+                       trait_autoregressive="plausible" if (1 - share_lo) >=
+                       th["min_carry_share"] and not flat else "unlikely")
+    elif A:
+        verdict.update(autoregressive="supported", stable_trait="unlikely",
+                       trait_autoregressive="plausible" if share_hi >= th["min_stable_share"]
+                       else "unlikely")
+    else:
+        for fam in STATIONARY:
+            verdict[fam] = "plausible"
+    strength["stable_trait"] = _margin(*share, th["min_stable_share"])
+    strength["autoregressive"] = (_margin(1 - share[0], 1 - share[2], 1 - share[1],
+                                          th["min_carry_share"]) if not flat else 0.0)
+    strength["trait_autoregressive"] = min(strength["stable_trait"],
+                                           strength["autoregressive"])
 
 
 def _mean_shape_kind(shape, led: Citations, th: Thresholds, t: int):
@@ -788,37 +1002,219 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
     return out
 
 
+def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
+                   led: Citations, th: Thresholds) -> None:
+    """Supported: of the families whose defining part is evidenced, the one with the
+    best BIC, if it is within ``bic_margin`` of the best family of all. A family within
+    the margin is at least plausible; one beyond ``bic_decisive`` at most unlikely."""
+    if not ev.difference:
+        return
+    best = ev.best
+    margin, decisive = th["bic_margin"], th["bic_decisive"]
+    for fam in FAMILY_IDS:
+        ff = ev.families[fam]
+        if fam not in ev.difference:
+            continue
+        diff = led.value(f"bic_difference_{fam}", float(ev.difference[fam]), 1)
+        weight = led.value(f"bic_weight_{fam}", float(ev.weight[fam]))
+        where = ("the best BIC of all families" if fam == best else
+                 f"BIC {diff} above the best family ({DISPLAY[best]})")
+        ev_text[fam].append(f"Best specification by BIC: {ff.chosen.structure.label}, "
+                            f"mean {ff.mean_shape}; {where}; BIC weight {weight}.")
+    candidates = [f for f in FAMILY_IDS if evidenced.get(f) and f in ev.difference]
+    chosen = min(candidates, key=lambda f: ev.difference[f]) if candidates else None
+    for fam in FAMILY_IDS:
+        if verdict.get(fam) == "supported" and fam != chosen:
+            verdict[fam] = "plausible"
+    if chosen is not None:
+        if ev.difference[chosen] <= margin:
+            verdict[chosen] = "supported"
+        else:
+            verdict[chosen] = "plausible"
+            ev_text[chosen].append(
+                f"Its defining part is evidenced, but its BIC is more than "
+                f"{led.thr('bic_margin')} above the best family's ({DISPLAY[best]}): "
+                "it is not rated supported.")
+    for fam, diff in ev.difference.items():
+        if diff <= margin and verdict.get(fam) in ("unlikely", "undetermined") \
+                and verdict.get("occasion_noise") != "supported":
+            verdict[fam] = "plausible"
+            ev_text[fam].append(f"Its BIC is within {led.thr('bic_margin')} of the best "
+                                "family's, so it stays plausible.")
+        elif diff > decisive and verdict.get(fam) == "plausible":
+            verdict[fam] = "unlikely"
+            ev_text[fam].append(f"Its BIC is more than {led.thr('bic_decisive')} above the "
+                                "best family's: very strong evidence against it.")
+
+
+def comparative_fit(fit: st.Fit, baseline: st.Fit | None, n: float, t: int) -> float:
+    """Comparative fit index (Bentler 1990) against the independence model, from the
+    Swain-corrected chi-squares."""
+    if baseline is None or fit.chi2 is None or baseline.chi2 is None or fit.df <= 0:
+        return np.nan
+    model = max(fit.chi2 * st.swain_factor(n, t, fit.df) - fit.df, 0.0)
+    base = max(baseline.chi2 * st.swain_factor(n, t, baseline.df) - baseline.df, model)
+    return 1.0 - model / base if base > 0 else 1.0
+
+
+def _independence(ev: Evidence) -> st.Fit | None:
+    for structure, fit in ev.families["occasion_noise"].options:
+        if structure.part("error").kind == "wave" and isinstance(fit, st.Fit):
+            return fit
+    return None
+
+
+def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: Citations,
+               th: Thresholds, inp: Inputs, own: dict) -> None:
+    """Absolute fit as evidence: RMSEA with its interval, SRMR and CFI of each family's
+    chosen specification; a caveat naming the worst reproduced wave pairs; a lowered
+    verdict only when every family misfits grossly."""
+    m, t = ev.moments, len(inp.times)
+    baseline = _independence(ev)
+    cfis = {}
+    for fam in FAMILY_IDS:
+        fit = ev.chosen(fam)
+        if fit is None:
+            continue
+        cfis[fam] = comparative_fit(fit, baseline, m.n_units, t)
+        if fit.rmsea is not None:
+            led.estimate(f"rmsea_{fam}", fit.rmsea, *[np.nan if v is None else v
+                                                       for v in fit.rmsea_ci])
+        led.value(f"srmr_{fam}", float(fit.srmr) if fit.srmr is not None else None)
+        led.value(f"cfi_{fam}", float(cfis[fam]) if np.isfinite(cfis[fam]) else None)
+    labels = inp.wave_labels or tuple(f"{v:g}" for v in inp.times)
+    for fam in FAMILY_IDS:
+        fit = ev.chosen(fam)
+        if fit is None or verdict.get(fam) not in ("supported", "plausible"):
+            continue
+        rm_text = (f"RMSEA {_f(fit.rmsea)} [90% CI {_f(fit.rmsea_ci[0])}, "
+                   f"{_f(fit.rmsea_ci[1])}]" if fit.rmsea is not None else "RMSEA n/a")
+        fit_text = (f"{rm_text}, SRMR {_f(fit.srmr)}, CFI {_f(cfis.get(fam, np.nan))}")
+        ev_text[fam].append(f"Fit of its specification: {fit_text} (close up to "
+                            f"{led.thr('max_rmsea')} RMSEA and {led.thr('max_srmr')} SRMR).")
+        low = fit.rmsea_ci[0]
+        if (low is not None and low > th["max_rmsea"]) or \
+                (fit.srmr is not None and fit.srmr > th["max_srmr"]):
+            resid = st.correlation_residuals(m.sigma, fit.sigma)
+            iu = np.triu_indices(t)
+            order = np.argsort(-np.abs(resid[iu]), kind="stable")[:3]
+            pairs = ", ".join(f"{labels[iu[0][k]]} with {labels[iu[1][k]]} "
+                              f"({resid[iu][k]:+.2f})" for k in order)
+            own.setdefault(fam, []).append(
+                f"Its structure ({fit.structure.label}) does not reproduce the covariances "
+                f"closely ({fit_text}); the wave pairs it reproduces worst (residual "
+                f"correlation): {pairs}. Fit that model and inspect its residuals before "
+                "relying on it.")
+    finite = [c for c in cfis.values() if np.isfinite(c)]
+    if finite and max(finite) < th["min_cfi"]:
+        general.append(f"No family reproduces the covariances even roughly (the best "
+                       f"comparative fit index is {led.value('best_cfi', float(max(finite)))}, "
+                       f"below {led.thr('min_cfi')}): no family is rated above plausible; a "
+                       "transformation of the measure (e.g. logarithms for scores that fan "
+                       "out multiplicatively) or another kind of model may be needed.")
+        for fam in FAMILY_IDS:
+            if verdict.get(fam) == "supported":
+                verdict[fam] = "plausible"
+
+
+# the test whose power decides each family's defining part
+DEFINING_TEST = {"stable_trait": "trait", "autoregressive": "carry",
+                 "trait_autoregressive": "trait", "linear_growth": "growth",
+                 "quadratic_growth": "growth", "free_shape_growth": "growth",
+                 "growth_autoregressive": "growth_carry"}
+TEST_WORDS = {"dependence": "dependence between waves", "trait": "a stable trait",
+              "carry": "carry-over", "growth": "unit-specific growth",
+              "growth_carry": "carry-over in the deviations from growth"}
+
+
+def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower]:
+    """Power of each part test at this panel (Satorra and Saris 1985): noncentrality
+    from the richer family's estimated covariance at the panel's response patterns."""
+    alpha = th["alpha"]
+    rows = []
+    for name in ("dependence", "trait", "carry", "growth", "growth_carry"):
+        res = ev.tests.get(name)
+        if res is None:
+            continue
+        _, df, p, simple_fit, rich_fit = res
+        boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
+        with _one_thread():
+            lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / kurtosis
+        if not np.isfinite(lam):
+            continue
+        power, lam90 = lr_power(lam, df, alpha, boundary)
+        n90 = (int(np.ceil(ev.moments.n_units * lam90 / lam)) if lam > 0 and
+               np.isfinite(lam90) else None)
+        rows.append(PartPower(name, simple_fit.structure.name, rich_fit.structure.name,
+                              int(df), round(float(lam), 3), round(float(power), 3), n90,
+                              bool(p < alpha)))
+    return rows
+
+
+def lr_power(lam: float, df: int, alpha: float, boundary: bool) -> tuple[float, float]:
+    """(power at noncentrality ``lam``, the noncentrality giving power 0.9) of the
+    likelihood-ratio test at level ``alpha``; with a variance on its boundary the null
+    is the 50:50 mixture of chi-square(0) and chi-square(df) (Self and Liang 1987)."""
+    level = 2.0 * alpha if boundary else alpha
+    critical = float(special.chdtri(df, level))
+    if boundary and df == 1:
+        root = np.sqrt(critical)
+        return (float(dist.norm_sf(root - np.sqrt(max(lam, 0.0)))),
+                float((root + dist.norm_ppf(0.9)) ** 2))
+    power = float(1.0 - special.chndtr(critical, df, max(lam, 0.0))) if lam > 0 else level
+    return power, float(special.chndtrinc(critical, df, 0.1))
+
+
+def _power_sentences(power: list, verdict: dict, ev_text: dict, led: Citations,
+                     th: Thresholds) -> None:
+    by_test = {row.test: row for row in power}
+    for fam, test in DEFINING_TEST.items():
+        row = by_test.get(test)
+        if row is None or verdict.get(fam) != "plausible" or row.evidenced:
+            continue
+        if row.power < 0.8:
+            more = (f"; about {row.units_for_power_90} units would give 0.9"
+                    if row.units_for_power_90 else "")
+            ev_text[fam].append(
+                f"The test of {TEST_WORDS[test]} has power "
+                f"{led.value(f'power_{test}', float(row.power))} with these data at the "
+                f"estimated parameters{more}: it stops at plausible for lack of power, which "
+                "is weak evidence against it.")
+
+
 # ------------------------------------------------------------ measurement, order
+
+def _leading(verdict: dict, ev: Evidence | None) -> str | None:
+    """The supported family, else the plausible family with the best BIC."""
+    supported = [f for f in FAMILY_IDS if verdict.get(f) == "supported"]
+    if supported:
+        return supported[0]
+    plausible = [f for f in FAMILY_IDS if verdict.get(f) == "plausible"
+                 and ev is not None and f in ev.difference]
+    return min(plausible, key=lambda f: ev.difference[f]) if plausible else None
+
 
 def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
     if ev is None:
         return Measurement(None, None, None, None, "Too little data to judge measurement "
                            "error.", "none")
-    source = None
-    for fam, key in (("trait_autoregressive", "trait_autoregressive"),
-                     ("autoregressive", "autoregressive"),
-                     ("growth_autoregressive", "growth_ar")):
-        if verdict.get(fam) == "supported" and key in ev.fits:
-            source = (fam, ev.fits[key])
-            break
-    if source is None:
-        if verdict.get("occasion_noise") == "supported":
-            return Measurement(None, None, None, None,
-                               "With no dependence between waves, measurement error cannot be "
-                               "told apart from occasion-specific variance; a second indicator "
-                               "or a retest is needed to estimate reliability.", "none")
-        lower_fit = None
-        for fam, key in (("stable_trait", "stable_trait"), ("linear_growth", "growth"),
-                         ("quadratic_growth", "growth"), ("free_shape_growth", "growth")):
-            if verdict.get(fam) == "supported" and key in ev.fits:
-                lower_fit = (fam, ev.fits[key])
-        if lower_fit is None:
-            return Measurement(None, None, None, None,
-                               "No family is supported, so reliability is not estimated; "
-                               "judge measurement error after the candidate models are "
-                               "fitted.", "none")
-        fam, fit = lower_fit
-        est, lo, hi = _clip(fit.derived(_reliability_fn(fit, inp.times)))
+    fam = _leading(verdict, ev)
+    fit = ev.chosen(fam) if fam is not None else None
+    if fam is None or fit is None:
+        return Measurement(None, None, None, None,
+                           "No family leads, so reliability is not estimated; judge "
+                           "measurement error after the candidate models are fitted.", "none")
+    if fam == "occasion_noise":
+        return Measurement(None, None, None, None,
+                           "With no dependence between waves, measurement error cannot be "
+                           "told apart from occasion-specific variance; a second indicator "
+                           "or a retest is needed to estimate reliability.", "none")
+    standing = verdict[fam]
+    est, lo, hi = _clip(fit.derived(_reliability(fit, inp.times)))
+    method = (f"one minus the error variance over the wave's variance, averaged over "
+              f"waves, under the {DISPLAY[fam]} structure ({fit.structure.label}; the family "
+              f"is {standing})")
+    if fam in ("stable_trait",) + GROWTH_SHAPES:
         led.estimate("reliability_lower_bound", est, lo, hi)
         verdict_m = "negligible" if est >= th["reliability_negligible"] else None
         return Measurement(_r(est), _r(lo), _r(hi), verdict_m,
@@ -826,9 +1222,7 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                            f"variance are not separable: {_f(est)} is a lower bound on the "
                            "reliability. Fit the measure as latent with error only if a "
                            "second indicator or a known error variance is available.",
-                           f"lower bound from the {DISPLAY[fam]} structure")
-    fam, fit = source
-    est, lo, hi = _clip(fit.derived(_reliability_fn(fit, inp.times)))
+                           f"lower bound from the {DISPLAY[fam]} structure", method, True)
     led.estimate("reliability", est, lo, hi)
     if est >= th["reliability_negligible"]:
         v, advice = "negligible", "Measurement error is small; observed scores can be used."
@@ -841,43 +1235,65 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                                     "models will understate stability and carry-over.")
     return Measurement(_r(est), _r(lo), _r(hi), v, advice,
                        f"share of each wave's variance not due to error, averaged over waves, "
-                       f"under {DISPLAY[fam]}")
+                       f"under {DISPLAY[fam]}", method, False)
 
 
-def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags) -> Judgement:
+def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=(),
+            own=None) -> Judgement:
+    own = own or {}
     families = []
     for fam in FAMILY_IDS:
         v = verdict.get(fam, "undetermined")
         base, width = SCORE_BANDS[v]
         s = float(np.clip(strength.get(fam, 0.5), 0.0, 1.0))
         score = round(base + width * s, 3)
-        caveats = list(general)
-        if fam in ("linear_growth", "quadratic_growth", "free_shape_growth") and \
-                inp.slope_reliability is not None and v != "supported":
+        caveats = list(general) + own.get(fam, [])
+        if fam in GROWTH_SHAPES and inp.slope_reliability is not None and v != "supported":
             caveats.append(f"The slope reliability of the per-unit fits "
                            f"({led.value('slope_reliability', float(inp.slope_reliability))})"
                            " is not by itself evidence of growth: carry-over alone makes "
                            "per-unit slopes differ.")
         evidence = tuple(dict.fromkeys(e for e in ev_text[fam] if e))
-        families.append(FamilyVerdict(fam, v, score, evidence, tuple(caveats)))
+        chosen = ev.chosen(fam) if ev is not None else None
+        diff = ev.difference.get(fam) if ev is not None else None
+        weight = ev.weight.get(fam) if ev is not None else None
+        families.append(FamilyVerdict(fam, v, score,
+                                      chosen.structure.label if chosen else None,
+                                      _r(diff, 1) if diff is not None else None,
+                                      _r(weight) if weight is not None else None,
+                                      evidence, tuple(caveats)))
     families.sort(key=lambda fv: (VERDICT_ORDER[fv.verdict], -fv.score))
     measurement = _measurement(inp, th, led, verdict, ev)
     next_models = _next_models(families)
     basis = {"statistics": led.stats, "parts": flags,
-             "fits": _fit_table(ev) if ev is not None else {},
+             "specifications": _spec_table(ev, inp) if ev is not None else {},
+             "power": [row.to_dict() for row in power],
              "thresholds": th.values(), "thresholds_origin": th.origin}
-    return Judgement(tuple(families), measurement, tuple(next_models), basis)
+    return Judgement(tuple(families), measurement, tuple(next_models), basis, tuple(power))
 
 
-def _fit_table(ev: Evidence) -> dict:
+def _spec_table(ev: Evidence, inp: Inputs) -> dict:
+    """Every family's specifications: fit, BIC and whether chosen, or why skipped."""
+    m, t = ev.moments, len(inp.times)
+    baseline = _independence(ev)
     out = {}
-    for key in ("occasion_noise", "stable_trait", "autoregressive", "trait_autoregressive",
-                "growth", "growth_ar"):
-        fit = ev.fits.get(key)
-        if fit is None:
-            continue
-        out[key] = {"chi2": _r(fit.chi2, 1), "df": int(fit.df), "rmsea": _r(fit.rmsea),
-                    "parameters": {k: _r(v, 4) for k, v in fit.params.items()}}
+    for fam, ff in ev.families.items():
+        rows = []
+        for structure, fit in ff.options:
+            if isinstance(fit, st.Skipped):
+                rows.append({"specification": structure.label, "skipped": fit.reason})
+                continue
+            rows.append({
+                "specification": structure.label, "chosen": fit is ff.chosen,
+                "parameters": {k: _r(v, 4) for k, v in fit.params.items()},
+                "chi2": _r(fit.chi2, 2), "df": int(fit.df), "p_value": _r(fit.p_value, 4),
+                "bic": _r(fit.bic, 2),
+                "bic_vs_chosen": _r(_criterion(fit, m) - _criterion(ff.chosen, m), 2),
+                "rmsea": _r(fit.rmsea), "rmsea_ci": [_r(v) for v in fit.rmsea_ci],
+                "srmr": _r(fit.srmr), "cfi": _r(comparative_fit(fit, baseline, m.n_units, t))})
+        out[fam] = {"mean_shape": ff.mean_shape,
+                    "bic_difference": _r(ev.difference.get(fam), 2),
+                    "bic_weight": _r(ev.weight.get(fam), 4), "specifications": rows}
     return out
 
 

@@ -1,0 +1,293 @@
+"""The parts a family's covariance structure is built from.
+
+A structure is a sum of parts: Sigma(theta) = sum over parts of the part's share. Each
+part owns its parameters (names, bounds, start values) and its share's derivatives, so
+a new specification is a new combination of parts, never a new branch in the fit.
+
+    error           diag(e): one variance for all waves, one per wave, or one per wave
+                    with the first two and the last two tied (the quasi-simplex's
+                    identification constraint, Joreskog 1970)
+    trait           a 11'
+    carry-over      b K(rho), K_st = rho ** |t_s - t_t| (stationary, per unit of time), or
+                    the quasi-simplex A D A': eta_1 = z_1, eta_t = beta_t eta_(t-1) + z_t
+                    with wave-specific coefficients beta_t and innovation variances
+                    (D = diag(var z)), A = (I - B)^-1 (Joreskog 1970)
+    growth          L Psi L': random intercept and slope (and curvature), loadings fixed
+                    on a basis (the wave times scaled to 0..1) or free apart from the
+                    first (0) and the last (1) (the latent basis of Meredith and Tisak 1990)
+
+References
+----------
+Joreskog, K. G. (1970). Estimation and testing of simplex models. British Journal of
+Mathematical and Statistical Psychology, 23, 121-145.
+Kenny, D. A. and Zautra, A. (1995). The trait-state-error model for multiwave data.
+Journal of Consulting and Clinical Psychology, 63(1), 52-59.
+Meredith, W. and Tisak, J. (1990). Latent curve analysis. Psychometrika, 55, 107-122.
+Wiley, D. E. and Wiley, J. A. (1970). The estimation of measurement error in panel data.
+American Sociological Review, 35, 112-117.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Scale:
+    """Summary figures of a covariance matrix that set start values and bounds."""
+
+    var: np.ndarray     # the wave variances
+    level: float        # the mean covariance between waves (at least 5% of the variance)
+
+    @classmethod
+    def of(cls, s: np.ndarray) -> "Scale":
+        t = s.shape[0]
+        var = np.diag(s).copy()
+        off = s[~np.eye(t, dtype=bool)]
+        level = max(float(np.mean(off)) if off.size else 0.0, 0.05 * float(np.mean(var)))
+        return cls(var, level)
+
+    @property
+    def mean_var(self) -> float:
+        return float(np.mean(self.var))
+
+
+class Part:
+    """One additive share of Sigma. Subclasses set ``key`` and implement the methods."""
+
+    key = "part"
+
+    def names(self, t: int) -> list[str]:
+        raise NotImplementedError
+
+    def bounds(self, scale: Scale) -> list[tuple]:
+        raise NotImplementedError
+
+    def starts(self, scale: Scale) -> list[list[float]]:
+        """One or more start vectors (the fit tries every combination over parts)."""
+        raise NotImplementedError
+
+    def share(self, theta: np.ndarray, times: np.ndarray):
+        """(this part's T x T share of Sigma, list of its derivatives by parameter)."""
+        raise NotImplementedError
+
+
+@dataclass(frozen=True)
+class Error(Part):
+    """Error variances: ``kind`` 'equal' (one), 'wave' (one per wave) or 'tied_ends'
+    (one per wave, the first two waves sharing one and the last two another)."""
+
+    kind: str = "equal"
+    key = "error"
+
+    def groups(self, t: int) -> np.ndarray:
+        if self.kind == "equal":
+            return np.zeros(t, dtype=int)
+        if self.kind == "wave" or t < 4:
+            return np.arange(t)
+        inner = np.arange(t)
+        inner[0] = 1
+        inner[-1] = t - 2
+        return inner - 1
+
+    def names(self, t):
+        g = self.groups(t)
+        if self.kind == "equal":
+            return ["error_var"]
+        return [f"error_var_{'+'.join(str(w + 1) for w in np.flatnonzero(g == k))}"
+                for k in range(g.max() + 1)]
+
+    def bounds(self, scale):
+        floor = 1e-6 * scale.mean_var
+        return [(floor, None)] * len(self.names(len(scale.var)))
+
+    def starts(self, scale):
+        g = self.groups(len(scale.var))
+        per = np.array([scale.var[g == k].mean() for k in range(g.max() + 1)])
+        return [list(0.5 * per)]
+
+    def share(self, theta, times):
+        g = self.groups(len(times))
+        diag = np.asarray(theta, dtype=float)[g]
+        grads = []
+        for k in range(len(theta)):
+            d = np.zeros(len(times))
+            d[g == k] = 1.0
+            grads.append(np.diag(d))
+        return np.diag(diag), grads
+
+    def variances(self, theta, t: int) -> np.ndarray:
+        """The error variance of each wave."""
+        return np.asarray(theta, dtype=float)[self.groups(t)]
+
+
+@dataclass(frozen=True)
+class Trait(Part):
+    """A stable unit effect: a 11'."""
+
+    key = "trait"
+
+    def names(self, t):
+        return ["trait_var"]
+
+    def bounds(self, scale):
+        return [(0.0, None)]
+
+    def starts(self, scale):
+        return [[0.5 * scale.level]]
+
+    def share(self, theta, times):
+        ones = np.ones((len(times), len(times)))
+        return theta[0] * ones, [ones]
+
+
+@dataclass(frozen=True)
+class Carry(Part):
+    """Stationary carry-over per unit of time: b rho ** |t_s - t_t|."""
+
+    key = "carry"
+
+    def names(self, t):
+        return ["carry_var", "rho"]
+
+    def bounds(self, scale):
+        return [(0.0, None), (0.0, 0.995)]
+
+    def starts(self, scale):
+        return [[0.3 * scale.mean_var, 0.3], [0.3 * scale.mean_var, 0.85]]
+
+    def share(self, theta, times):
+        b, rho = theta
+        gap = np.abs(times[:, None] - times[None, :])
+        kernel = rho ** gap
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dk = np.where(gap > 0, gap * rho ** (gap - 1), 0.0)
+        return b * kernel, [kernel, b * dk]
+
+
+@dataclass(frozen=True)
+class QuasiSimplex(Part):
+    """Carry-over with wave-specific coefficients and innovation variances (the
+    quasi-simplex of Joreskog 1970): the true-score variances may change over waves."""
+
+    key = "carry"
+
+    def names(self, t):
+        return (["start_var"] + [f"innovation_var_{w + 1}" for w in range(1, t)]
+                + [f"coefficient_{w + 1}" for w in range(1, t)])
+
+    def bounds(self, scale):
+        t = len(scale.var)
+        return [(0.0, None)] * t + [(-5.0, 5.0)] * (t - 1)
+
+    def starts(self, scale):
+        out = []
+        for beta in (0.85, 0.4):
+            true_var = 0.5 * scale.var
+            innov = [true_var[0]]
+            for w in range(1, len(true_var)):
+                innov.append(max(true_var[w] - beta ** 2 * true_var[w - 1],
+                                 0.05 * scale.mean_var))
+            out.append(innov + [beta] * (len(true_var) - 1))
+        return out
+
+    @staticmethod
+    def _paths(beta: np.ndarray) -> np.ndarray:
+        """A = (I - B)^-1: A[t, s] = beta_(s+1) ... beta_t for t >= s."""
+        t = len(beta) + 1
+        a = np.eye(t)
+        for w in range(1, t):  # a loop over waves
+            a[w, :w] = beta[w - 1] * a[w - 1, :w]
+        return a
+
+    def share(self, theta, times):
+        t = len(times)
+        d = np.asarray(theta[:t], dtype=float)
+        beta = np.asarray(theta[t:], dtype=float)
+        a = self._paths(beta)
+        phi = (a * d) @ a.T
+        grads = [np.outer(a[:, s], a[:, s]) for s in range(t)]
+        right = (a * d) @ a.T    # A D A'; row w-1 of A D A' is A[w-1] D A'
+        for w in range(1, t):
+            m = np.outer(a[:, w], right[w - 1])
+            grads.append(m + m.T)
+        return phi, grads
+
+    def true_variances(self, theta, t: int) -> np.ndarray:
+        d = np.asarray(theta[:t], dtype=float)
+        a = self._paths(np.asarray(theta[t:], dtype=float))
+        return np.einsum("ts,s,ts->t", a, d, a)
+
+
+@dataclass(frozen=True)
+class Growth(Part):
+    """Random intercept and slope (``order`` 1) or intercept, slope and curvature
+    (``order`` 2), loadings on ``basis`` (T values from 0 to 1); with ``free_loadings``
+    the slope loadings between the first (0) and the last wave (1) are estimated."""
+
+    basis: tuple = ()
+    order: int = 1
+    free_loadings: bool = False
+    key = "growth"
+
+    FACTORS = ("intercept", "slope", "curvature")
+
+    def _cov_names(self) -> list[tuple[int, int]]:
+        q = self.order + 1
+        return [(i, j) for i in range(q) for j in range(i + 1)]
+
+    def names(self, t):
+        out = []
+        for i, j in self._cov_names():
+            out.append(f"{self.FACTORS[i]}_var" if i == j
+                       else f"{self.FACTORS[j]}_{self.FACTORS[i]}_cov")
+        if self.free_loadings:
+            out += [f"loading_{w + 1}" for w in range(1, t - 1)]
+        return out
+
+    def bounds(self, scale):
+        out = [(0.0, None) if i == j else (None, None) for i, j in self._cov_names()]
+        if self.free_loadings:
+            out += [(-5.0, 5.0)] * (len(scale.var) - 2)
+        return out
+
+    def starts(self, scale):
+        start = []
+        for i, j in self._cov_names():
+            start.append(0.5 * scale.level if i == j == 0 else
+                         0.1 * scale.mean_var if i == j else 0.0)
+        if self.free_loadings:
+            start += list(np.asarray(self.basis, float)[1:-1])
+        return [start]
+
+    def loadings(self, theta, t: int) -> np.ndarray:
+        lam = np.asarray(self.basis, dtype=float).copy()
+        if self.free_loadings:
+            lam[1:-1] = theta[len(self._cov_names()):]
+        columns = [np.ones(t), lam] + ([lam ** 2] if self.order == 2 else [])
+        return np.column_stack(columns)
+
+    def psi(self, theta) -> np.ndarray:
+        q = self.order + 1
+        psi = np.zeros((q, q))
+        for k, (i, j) in enumerate(self._cov_names()):
+            psi[i, j] = psi[j, i] = theta[k]
+        return psi
+
+    def share(self, theta, times):
+        t = len(times)
+        lam = self.loadings(theta, t)
+        psi = self.psi(theta)
+        grads = []
+        for i, j in self._cov_names():
+            d = np.outer(lam[:, i], lam[:, j])
+            grads.append(d if i == j else d + d.T)
+        if self.free_loadings:
+            w = lam @ psi[:, 1]
+            for s in range(1, t - 1):
+                m = np.zeros((t, t))
+                m[s, :] = w
+                grads.append(m + m.T)
+        return lam @ psi @ lam.T, grads
