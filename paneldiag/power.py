@@ -1,26 +1,24 @@
-"""Power of the verdicts' part tests: how much information a panel carries about a part.
+"""Power of the verdicts' part tests for a known process: how much information a panel
+carries about a part.
 
 The verdicts add a part (a stable trait, carry-over, unit-specific growth, carry-over in
-the deviations from growth) to a family only when a likelihood-ratio test of the nested
-simpler structure rejects at ``alpha`` (``paneldiag.rules.verdicts``). How often that
-test can reject for a given true process follows from the population alone: fit the
-simpler structure to the population covariance Sigma_0 of the true process; the
-minimised discrepancy, times (n - 1), is the noncentrality lambda of the test, and the
-statistic is asymptotically noncentral chi-square(df, lambda) (Satorra and Saris 1985).
-With a variance on its boundary under the null (the trait test), the critical value
-comes from the 50:50 mixture of chi-square(0) and chi-square(df) (Self and Liang 1987).
+the deviations from growth) to a family only when a likelihood-ratio test against the
+simpler structure nested in the richer family's chosen specification rejects at
+``alpha`` (``paneldiag.rules.verdicts``). How often it can reject for a given true process
+follows from the population alone: run the rules' fits on the population moments; the
+statistic they compute there, N (F_simple - F_rich), is the noncentrality lambda, and
+the statistic is asymptotically noncentral chi-square(df, lambda) (Satorra and Saris
+1985). The screen reports the same figure for the panel at hand, at its estimated
+parameters and response patterns (``verdicts.PartPower``).
 
 A second figure bounds every test, not only the one the rules use: any test of the
 simpler family at level alpha has level alpha at the simpler structure closest to
-Sigma_0 (the fit above), so its power at Sigma_0 is at most that of the Neyman-Pearson
-test of these two normal distributions (Neyman and Pearson 1933). The bound uses the
-normal approximation to the sum of the per-unit log likelihood ratios (quadratic forms
-with closed-form mean and variance).
+Sigma_0, so its power at Sigma_0 is at most that of the Neyman-Pearson test of these two
+normal distributions (Neyman and Pearson 1933), by the normal approximation to the sum
+of the per-unit log likelihood ratios.
 
-These are asymptotic figures for complete normal data with the sample size ``n``; the
-screen's effective n with missing data is the mean pairwise-complete count, so
-dropout lowers the power further. Recall of a family cannot exceed the power of the
-test that adds its defining part, since the rules require that test to reject.
+These are asymptotic figures for complete normal data; dropout lowers the power
+further. Recall of a family cannot exceed the power of the test that adds its part.
 
 References
 ----------
@@ -42,9 +40,13 @@ from scipy import stats
 
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
+from paneldiag.rules import verdicts
 from paneldiag.rules.thresholds import default_thresholds
-from paneldiag.rules.verdicts import PART_TESTS, structure_plan
+from paneldiag.rules.verdicts import lr_power
 from paneldiag.simulate import family_process, population_covariance, population_mean
+
+__all__ = ["TestPower", "part_test_power", "population_tests", "lr_power",
+           "alpha_for_power", "neyman_pearson_bound"]
 
 
 @dataclass(frozen=True)
@@ -63,52 +65,11 @@ class TestPower(Result):
     alpha: float
     df: int
     boundary: bool
-    noncentrality: float     # (n - 1)(F_simple - F_rich) at the population covariance
+    noncentrality: float     # N (F_simple - F_rich) at the population moments
     critical_value: float
     power: float             # of the rules' likelihood-ratio test at alpha
     bound: float             # of the most powerful test against the closest simpler fit
     alpha_for_95: float      # level at which the rules' test would reach power 0.95
-
-
-def structures_of(times, mean=None) -> dict:
-    """The structures the part tests compare, as ``verdicts.structure_plan`` gives
-    them, with the time-basis growth structures under 'growth' and 'growth_ar'.
-
-    Given a ``mean`` that departs from its quadratic fit, the mean-shape structures
-    come too, under 'growth:mean' and 'growth_ar:mean' (the rules switch to them when
-    the remainder test rejects and they reproduce the covariances better).
-    """
-    times = np.asarray(times, dtype=float)
-    mb = None
-    if mean is not None and len(times) >= 4:
-        u = st.time_basis(times)
-        x2 = np.column_stack([np.ones(len(u)), u, u ** 2])
-        departure = np.max(np.abs(mean - x2 @ np.linalg.lstsq(x2, mean, rcond=None)[0]))
-        if departure > 1e-8 * max(1.0, float(np.max(np.abs(mean)))):
-            mb = st.mean_basis(np.asarray(mean, dtype=float), times)
-    plan = structure_plan(times, mb)
-    plan["growth"], plan["growth_ar"] = plan.pop("growth:time"), plan.pop("growth_ar:time")
-    return plan
-
-
-def lr_power(noncentrality: float, df: int, alpha: float, boundary: bool = False
-             ) -> tuple[float, float]:
-    """(power, critical value) of the likelihood-ratio test at level ``alpha`` when the
-    statistic is asymptotically noncentral chi-square(df, noncentrality) (Satorra and
-    Saris 1985).
-
-    ``boundary``: the null distribution is the 50:50 mixture of chi-square(0) and
-    chi-square(df) (Self and Liang 1987), so the critical value is chi-square(df)'s
-    upper 2 alpha point. With one df the statistic is then max(0, Z)^2 with
-    Z ~ N(sqrt(lambda), 1), and the power is P(Z > sqrt(critical)), which equals alpha
-    at lambda = 0; with more df the noncentral chi-square is used at that critical value.
-    """
-    lam = max(float(noncentrality), 0.0)
-    level = 2.0 * alpha if boundary else alpha
-    critical = float(stats.chi2.isf(level, df))
-    if boundary and df == 1:
-        return float(stats.norm.sf(np.sqrt(critical) - np.sqrt(lam))), critical
-    return float(stats.ncx2.sf(critical, df, lam)), critical
 
 
 def alpha_for_power(noncentrality: float, df: int, boundary: bool = False,
@@ -127,16 +88,15 @@ def neyman_pearson_bound(sigma_true: np.ndarray, sigma_null: np.ndarray, n: floa
                          alpha: float) -> float:
     """Power at ``sigma_true`` of the most powerful level-``alpha`` test of the normal
     distribution with covariance ``sigma_null`` against the one with ``sigma_true``
-    (Neyman and Pearson 1933), from n - 1 independent units, by the normal
-    approximation to the summed log likelihood ratio."""
+    (Neyman and Pearson 1933), from n independent units, by the normal approximation to
+    the summed log likelihood ratio."""
     inv1, inv0 = np.linalg.inv(sigma_true), np.linalg.inv(sigma_null)
     a = inv1 - inv0
     const = 0.5 * (np.linalg.slogdet(sigma_null)[1] - np.linalg.slogdet(sigma_true)[1])
-    m = n - 1.0
 
     def moments(sigma):
         as_ = a @ sigma
-        return m * (const - 0.5 * np.trace(as_)), np.sqrt(m * 0.5 * np.trace(as_ @ as_))
+        return n * (const - 0.5 * np.trace(as_)), np.sqrt(n * 0.5 * np.trace(as_ @ as_))
 
     mean0, sd0 = moments(sigma_null)
     mean1, sd1 = moments(sigma_true)
@@ -146,48 +106,45 @@ def neyman_pearson_bound(sigma_true: np.ndarray, sigma_null: np.ndarray, n: floa
     return float(stats.norm.sf((critical - mean1) / sd1))
 
 
-def noncentrality(test: str, sigma: np.ndarray, times, n: float, mean=None
-                  ) -> tuple[float, st.Fit, st.Fit]:
-    """(lambda, simpler fit, richer fit) of a part test at the covariance ``sigma``:
-    lambda = (n - 1)(F_simple - F_rich), both structures fitted to ``sigma``."""
-    simple, rich, _, _ = PART_TESTS[test]
+def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
+                     alpha: float | None = None) -> dict:
+    """The rules' part tests run on population moments (complete data, N = n): by
+    test, (noncentrality, df, p, simpler fit, richer fit)."""
     times = np.asarray(times, dtype=float)
-    structures = structures_of(times, mean)
-    if "growth:mean" in structures and {simple, rich} & {"growth", "growth_ar"}:
-        # the rules keep the basis whose growth fit (without carry-over) is closer
-        by_time = st.fit_structure(structures["growth"], sigma, times, n)
-        by_mean = st.fit_structure(structures["growth:mean"], sigma, times, n)
-        if by_mean.discrepancy < by_time.discrepancy:
-            structures["growth"] = structures["growth:mean"]
-            structures["growth_ar"] = structures["growth_ar:mean"]
-    fits = {key: st.fit_structure(structures[key], sigma, times, n)
-            for key in (simple, rich)}
-    lam = max(0.0, (n - 1.0) * (fits[simple].discrepancy - fits[rich].discrepancy))
-    return float(lam), fits[simple], fits[rich]
+    t = len(times)
+    inp = verdicts.Inputs(mu=np.asarray(mean, float), sigma=np.asarray(sigma, float),
+                          pair_n=np.full((t, t), float(n)), times=times, n_units=int(n),
+                          retention=1.0, dropout_smd=np.nan, categories=10 ** 6)
+    alpha = float(default_thresholds()["alpha"] if alpha is None else alpha)
+    with verdicts._one_thread():
+        return verdicts._fit_all(inp, alpha).tests
 
 
 def part_test_power(test: str, family: str, n_units: int, n_waves: int,
-                    reliability: float = 1.0, alpha: float | None = None,
-                    n_effective: float | None = None) -> TestPower:
-    """Asymptotic power of the rules' part test ``test`` (a key of ``PART_TESTS``) when
-    the data come from ``simulate.family_process(family, ...)`` at waves 0..T-1.
-
-    ``alpha`` defaults to the thresholds table's; ``n_effective`` to ``n_units`` (the
-    rules' effective n for complete data; with dropout pass the mean pairwise-complete
-    count).
-    """
+                    reliability: float = 1.0, alpha: float | None = None) -> TestPower:
+    """Asymptotic power of the rules' part test ``test`` (a key of
+    ``verdicts.PART_TESTS``) when the data come from ``simulate.family_process(family,
+    ...)`` at waves 0..T-1, complete, with ``n_units`` units."""
     alpha = float(default_thresholds()["alpha"] if alpha is None else alpha)
-    n = float(n_units if n_effective is None else n_effective)
     times = np.arange(n_waves, dtype=float)
     process = family_process(family, times, reliability)
     sigma = population_covariance(process, times)
-    simple, rich, df, boundary = PART_TESTS[test]
-    lam, simple_fit, _ = noncentrality(test, sigma, times, n,
-                                       population_mean(process, times))
+    res = population_tests(sigma, population_mean(process, times), times, n_units, alpha)
+    lam, df, _, simple_fit, rich_fit = res[test]
+    boundary = verdicts.PART_TESTS[test][4]
     power, critical = lr_power(lam, df, alpha, boundary)
-    bound = neyman_pearson_bound(sigma, simple_fit.sigma, n, alpha)
-    return TestPower(test=test, family=family, simple=simple, rich=rich, n_units=n,
+    bound = neyman_pearson_bound(sigma, simple_fit.sigma, float(n_units), alpha)
+    return TestPower(test=test, family=family, simple=simple_fit.structure.name,
+                     rich=rich_fit.structure.name, n_units=float(n_units),
                      n_waves=int(n_waves), reliability=float(reliability), alpha=alpha,
-                     df=df, boundary=boundary, noncentrality=lam, critical_value=critical,
-                     power=power, bound=bound,
+                     df=int(df), boundary=boundary, noncentrality=float(lam),
+                     critical_value=critical, power=power, bound=bound,
                      alpha_for_95=alpha_for_power(lam, df, boundary, 0.95))
+
+
+def structure_fit(structure: st.Structure, sigma: np.ndarray, times, n: float) -> st.Fit:
+    """``structure`` fitted to the covariance ``sigma`` of n complete units."""
+    times = np.asarray(times, dtype=float)
+    m = st.Moments(np.zeros(len(times)), np.asarray(sigma, float), times,
+                   st.CovarianceLikelihood(sigma), float(n), float(n))
+    return m.fit(structure)

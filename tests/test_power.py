@@ -17,7 +17,6 @@ import pytest
 from scipy import stats
 
 from paneldiag import power
-from paneldiag.rules import structures as st
 from paneldiag.rules import verdicts
 from paneldiag.rules.thresholds import default_thresholds
 from paneldiag.simulate import (FAMILIES, family_process, family_values,
@@ -73,10 +72,12 @@ def test_level_and_power_are_inverse():
     assert power.lr_power(0.0, 1, 0.01, boundary=True)[0] == pytest.approx(0.01)
 
 
-def test_part_tests_are_the_rules_tests():
-    """On one simulated panel (trait + carry-over, N 1000, T 6, reliability 0.6) the
-    statistic power.noncentrality computes at the sample covariance is the one
-    paneldiag.rules.verdicts computes for each part test (same structures, df and n)."""
+def test_screen_power_matches_the_population_tests():
+    """On one simulated complete panel (trait + carry-over, N 1000, T 6, reliability
+    0.6), the noncentrality the screen reports for each part test at its estimated
+    parameters (verdicts.PartPower, full-information patterns at population moments)
+    equals the rules' statistic computed on the richer fit's implied covariance by the
+    complete-data path (power.population_tests): two code paths, one quantity."""
     n, t = 1000, 6
     y = family_values("trait_autoregressive", n, t, 0.6, "none", np.random.default_rng(7))
     times = np.arange(t, dtype=float)
@@ -84,28 +85,28 @@ def test_part_tests_are_the_rules_tests():
     inp = verdicts.Inputs(mu=y.mean(axis=0), sigma=s, pair_n=np.full((t, t), float(n)),
                           times=times, n_units=n, retention=1.0, dropout_smd=np.nan,
                           categories=1000)
-    ev = verdicts._fit_all(inp, ALPHA)
-    for key in ("trait", "carry", "growth", "growth_carry"):   # the tests of a part
-        lam, _, _ = power.noncentrality(key, s, times, n)
-        assert lam == pytest.approx(ev.tests[key][0], rel=1e-4, abs=1e-4), key
+    judgement = verdicts.judge(inp)
+    rows = {row.test: row for row in judgement.power}
+    sample = power.population_tests(s, y.mean(axis=0), times, n)
+    for key in ("trait", "carry"):
+        rich = sample[key][4]
+        at_rich = power.population_tests(rich.sigma, y.mean(axis=0), times, n)
+        assert rows[key].noncentrality == pytest.approx(at_rich[key][0], rel=1e-3, abs=1e-3)
 
 
 def _monte_carlo(panels: int):
     """Trait test on complete simulated panels of trait + carry-over at N 1000, T 6,
     reliability 0.6: the rejection count at the thresholds' alpha and the root of the
-    likelihood-ratio statistic of each panel."""
+    likelihood-ratio statistic of each panel, as the rules compute them."""
     n, t = 1000, 6
     times = np.arange(t, dtype=float)
-    structures = power.structures_of(times)
     seeds = np.random.SeedSequence(20240613).spawn(panels)
     rejected, roots = 0, []
     for seed in seeds:  # a loop over panels
         y = family_values("trait_autoregressive", n, t, 0.6, "none",
                           np.random.default_rng(seed))
         s = np.cov(y.T, bias=True)  # the ML covariance, as the rules' moments
-        simple = st.fit_structure(structures["autoregressive"], s, times, n)
-        rich = st.fit_structure(structures["trait_autoregressive"], s, times, n)
-        stat, p = st.likelihood_ratio(simple, rich, n, 1, boundary=True)
+        stat, _, p, _, _ = power.population_tests(s, y.mean(axis=0), times, n)["trait"]
         rejected += p < ALPHA
         roots.append(np.sqrt(stat))
     return rejected, np.array(roots)

@@ -152,7 +152,8 @@ def test_report_shape_and_order():
     assert ranks == sorted(ranks)
     for f in fams:
         assert f["verdict"] in VERDICTS and 0.0 <= f["score"] <= 1.0
-        assert set(f) == {"family", "verdict", "score", "evidence", "caveats"}
+        assert set(f) == {"family", "verdict", "score", "specification", "bic_difference",
+                          "bic_weight", "evidence", "caveats"}
         assert f["evidence"], f["family"]
     m = rep["measurement"]
     assert set(m) >= {"reliability", "ci_low", "ci_high", "verdict", "advice"}

@@ -230,6 +230,7 @@ class Growth(Part):
     basis: tuple = ()
     order: int = 1
     free_loadings: bool = False
+    basis_name: str = "time"     # what the basis is: 'time' or 'mean' (the mean's shape)
     key = "growth"
 
     FACTORS = ("intercept", "slope", "curvature")

@@ -9,8 +9,11 @@ the best of its specifications by BIC (``paneldiag.rules.verdicts``).
     trait + carry-over trait + stationary carry-over + error; trait + quasi-simplex + error
     linear growth      intercept and slope on the wave times + error
     quadratic growth   as linear growth, or with a random curvature
-    free-shape growth  as linear growth, or with free slope loadings (latent basis)
-    growth + carry-over intercept and slope + stationary carry-over + error
+    free-shape growth  as linear growth, or with free slope loadings (latent basis), or
+                       with loadings on the mean's shape when the mean departs from a
+                       quadratic
+    growth + carry-over intercept and slope (on the times, or on the mean's shape when it
+                       departs from a quadratic) + stationary carry-over + error
 
 Every specification comes with one error variance for all waves and with one per wave
 (tied at the ends for the quasi-simplex, whose first and last error variances are not
@@ -42,7 +45,8 @@ def describe(parts: tuple) -> str:
         elif isinstance(part, Growth):
             words.append("random intercept, slope and curvature" if part.order == 2 else
                          "random intercept and slope, free loadings" if part.free_loadings
-                         else "random intercept and slope")
+                         else "random intercept and slope on the mean's shape"
+                         if part.basis_name == "mean" else "random intercept and slope")
     error = next((p for p in parts if isinstance(p, Error)), None)
     text = " + ".join(words) or "no dependence"
     return f"{text}, {ERROR_WORDS[error.kind]}" if error is not None else text
@@ -52,46 +56,42 @@ def structure(name: str, parts: tuple) -> st.Structure:
     return st.Structure(name, parts, describe(parts))
 
 
-def _spec(name: str, words: str, parts: tuple, error: str) -> st.Structure:
+def _spec(name: str, parts: tuple, error: str) -> st.Structure:
     return structure(name, parts + (Error(error),))
 
 
-def family_specs(times: np.ndarray) -> dict[str, list[st.Structure]]:
-    """The specifications of every family at these wave times, by family id."""
+def family_specs(times: np.ndarray, mean_shape: np.ndarray | None = None
+                 ) -> dict[str, list[st.Structure]]:
+    """The specifications of every family at these wave times, by family id. Given
+    ``mean_shape`` (the mean's shape, 0 at the first wave and 1 at the last, when the
+    mean departs from a quadratic), free-shape growth and growth + carry-over also get
+    loadings fixed on it."""
     basis = tuple(float(v) for v in st.time_basis(np.asarray(times, dtype=float)))
-    t = len(times)
-    both = ("equal", "wave")
     lin = Growth(basis=basis)
+
+    def each(name, parts, errors=("equal", "wave")):
+        return [_spec(name, parts, e) for e in errors]
+
     out = {
-        "occasion_noise": [_spec("occasion_noise", "no dependence", (), e) for e in both],
-        "stable_trait": [_spec("stable_trait", "stable trait", (Trait(),), e) for e in both],
-        "autoregressive": [_spec("autoregressive", "stationary carry-over", (Carry(),), e)
-                           for e in both],
-        "trait_autoregressive": [_spec("trait_autoregressive",
-                                       "stable trait + stationary carry-over",
-                                       (Trait(), Carry()), e) for e in both],
-        "linear_growth": [_spec("linear_growth", "random intercept and slope", (lin,), e)
-                          for e in both],
-        "growth_autoregressive": [_spec("growth_autoregressive",
-                                        "random intercept and slope + stationary carry-over",
-                                        (lin, Carry()), e) for e in both],
+        "occasion_noise": each("occasion_noise", ()),
+        "stable_trait": each("stable_trait", (Trait(),)),
+        "autoregressive": each("autoregressive", (Carry(),)),
+        "trait_autoregressive": each("trait_autoregressive", (Trait(), Carry())),
+        "linear_growth": each("linear_growth", (lin,)),
+        "growth_autoregressive": each("growth_autoregressive", (lin, Carry())),
     }
-    if t >= 4:
-        out["autoregressive"] += [
-            _spec("autoregressive", "quasi-simplex", (QuasiSimplex(),), e)
-            for e in ("equal", "tied_ends")]
-        out["trait_autoregressive"] += [
-            _spec("trait_autoregressive", "stable trait + quasi-simplex",
-                  (Trait(), QuasiSimplex()), e) for e in ("equal", "tied_ends")]
-        quad = Growth(basis=basis, order=2)
-        free = Growth(basis=basis, free_loadings=True)
-        out["quadratic_growth"] = out["linear_growth"] + [
-            _spec("quadratic_growth", "random intercept, slope and curvature", (quad,), e)
-            for e in both]
-        out["free_shape_growth"] = out["linear_growth"] + [
-            _spec("free_shape_growth", "random intercept and slope, free loadings", (free,), e)
-            for e in both]
-    else:
-        out["quadratic_growth"] = list(out["linear_growth"])
-        out["free_shape_growth"] = list(out["linear_growth"])
+    out["quadratic_growth"] = list(out["linear_growth"])
+    out["free_shape_growth"] = list(out["linear_growth"])
+    if len(times) >= 4:
+        tied = ("equal", "tied_ends")
+        out["autoregressive"] += each("autoregressive", (QuasiSimplex(),), tied)
+        out["trait_autoregressive"] += each("trait_autoregressive",
+                                            (Trait(), QuasiSimplex()), tied)
+        out["quadratic_growth"] += each("quadratic_growth", (Growth(basis=basis, order=2),))
+        out["free_shape_growth"] += each("free_shape_growth",
+                                         (Growth(basis=basis, free_loadings=True),))
+    if mean_shape is not None:
+        shaped = Growth(basis=tuple(float(v) for v in mean_shape), basis_name="mean")
+        out["free_shape_growth"] += each("free_shape_growth", (shaped,))
+        out["growth_autoregressive"] += each("growth_autoregressive", (shaped, Carry()))
     return out

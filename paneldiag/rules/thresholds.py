@@ -27,6 +27,7 @@ RANGES = {
     "max_rmsea": (0.0, 1.0, False),
     "max_srmr": (0.0, 1.0, False),
     "min_cfi": (0.0, 1.0, False),
+    "gross_rmsea": (0.0, 1.0, False),
     "bic_margin": (0.0, 1000.0, False),
     "bic_positive": (0.0, 1000.0, False),
     "bic_decisive": (0.0, 10000.0, False),

@@ -50,7 +50,7 @@ from scipy import special
 from paneldiag import distributions as dist
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
-from paneldiag.rules.parts import Carry, Growth, QuasiSimplex, Trait
+from paneldiag.rules.parts import Carry, Error, Growth, QuasiSimplex, Trait
 from paneldiag.rules.specs import family_specs, structure
 from paneldiag.rules.thresholds import Thresholds, default_thresholds
 
@@ -307,6 +307,33 @@ class Evidence:
 
 
 
+def covers(rich: st.Structure, simple: st.Structure) -> bool:
+    """Whether ``simple`` is a special case of ``rich`` (nested in it): each part of
+    the simpler structure is a restriction of its own part of the richer one (a trait of
+    a growth part's intercept; linear growth of curvature or free loadings; one error
+    variance of one per wave; stationary carry-over only of itself)."""
+    free = list(rich.parts)
+    for part in simple.parts:
+        match = next((r for r in free if _restricts(part, r)), None)
+        if match is None:
+            return False
+        free.remove(match)
+    return True
+
+
+def _restricts(part, rich_part) -> bool:
+    if isinstance(part, Error):
+        return isinstance(rich_part, Error) and (part.kind == "equal" or rich_part.kind in
+                                                 (part.kind, "wave"))
+    if isinstance(part, Trait):
+        return isinstance(rich_part, (Trait, Growth))
+    if isinstance(part, Growth):
+        return isinstance(rich_part, Growth) and part.basis == rich_part.basis and \
+            part.order <= rich_part.order and (rich_part.free_loadings or
+                                               not part.free_loadings)
+    return type(part) is type(rich_part)
+
+
 def moments_of(inp: Inputs) -> st.Moments:
     t = len(inp.times)
     iu = np.triu_indices(t, 1)
@@ -333,7 +360,10 @@ def _fit_all(inp: Inputs, alpha: float) -> Evidence:
         ev.shape = st.mean_shape(inp.mu, inp.sigma, inp.pair_n, inp.times)
     means = st.mean_terms(inp.mu, inp.sigma, inp.pair_n, inp.times)
     log_n = np.log(m.n_units)
-    for family, plan in family_specs(inp.times).items():
+    departs = ev.shape is not None and t >= 4 and np.isfinite(ev.shape.remainder_p) and \
+        ev.shape.remainder_p < alpha
+    shape_basis = st.mean_basis(inp.mu, inp.times) if departs else None
+    for family, plan in family_specs(inp.times, shape_basis).items():
         ff = FamilyFit(family, [(s, m.fit(s)) for s in plan])
         fits = [fit for _, fit in ff.options if isinstance(fit, st.Fit)]
         if fits:
@@ -629,20 +659,27 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                               f"trait + carry-over structure: {growth_test_text} (threshold "
                               f"{led.thr('alpha')}).")
             G = p_growth < alpha and slope[0] >= th["min_slope_share"]
+            # a stationary family the growth structures do not nest (the quasi-simplex,
+            # whose variances may rise like growth's) must be beaten by BIC
             best_growth = min(GROWTH, key=lambda g: ev.families[g].criterion)
-            best_still = min(STATIONARY, key=lambda g: ev.families[g].criterion)
-            lead = ev.families[best_still].criterion - ev.families[best_growth].criterion
-            if np.isfinite(lead):
+            rivals = [f for f in STATIONARY if ev.chosen(f) is not None and not any(
+                covers(ev.chosen(g).structure, ev.chosen(f).structure)
+                for g in GROWTH if ev.chosen(g) is not None)]
+            if G and rivals:
+                best_still = min(rivals, key=lambda g: ev.families[g].criterion)
+                lead = ev.families[best_still].criterion - ev.families[best_growth].criterion
                 lead_text = led.value("growth_bic_lead", float(lead), 1)
-                if G and lead <= 0:
+                if lead <= 0:
                     G = False
                     slope_sentence += (
                         f" But {DISPLAY[best_still]} ({ev.chosen(best_still).structure.label})"
-                        f" has the lower BIC, by {_f(-lead, 1)}: variances that change over "
-                        "waves without unit-specific slopes, so growth is not counted.")
-                elif G:
-                    slope_sentence += (f" Growth is ahead of every stationary family by BIC "
-                                       f"({lead_text}).")
+                        f", which no growth structure nests, has the lower BIC, by "
+                        f"{_f(-lead, 1)}: variances that change over waves without "
+                        "unit-specific slopes, so growth is not counted.")
+                else:
+                    slope_sentence += (f" Growth is ahead by BIC of {DISPLAY[best_still]} "
+                                       f"({ev.chosen(best_still).structure.label}), which no "
+                                       f"growth structure nests ({lead_text}).")
     growth_undetermined = p_growth is None
 
     # stable trait and carry-over (stationary or quasi-simplex)
@@ -1022,19 +1059,31 @@ def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
         ev_text[fam].append(f"Best specification by BIC: {ff.chosen.structure.label}, "
                             f"mean {ff.mean_shape}; {where}; BIC weight {weight}.")
     candidates = [f for f in FAMILY_IDS if evidenced.get(f) and f in ev.difference]
+    # a candidate nested in another candidate gives way to it: the richer one's extra
+    # part is evidenced by its likelihood-ratio test; BIC decides between the others
+    candidates = [f for f in candidates if not any(
+        g != f and covers(ev.chosen(g).structure, ev.chosen(f).structure)
+        and not covers(ev.chosen(f).structure, ev.chosen(g).structure) for g in candidates)]
     chosen = min(candidates, key=lambda f: ev.difference[f]) if candidates else None
     for fam in FAMILY_IDS:
         if verdict.get(fam) == "supported" and fam != chosen:
             verdict[fam] = "plausible"
     if chosen is not None:
-        if ev.difference[chosen] <= margin:
+        # families clearly ahead by BIC that the chosen one does not nest: a simpler
+        # family it nests is already rejected by the likelihood-ratio test of its part,
+        # which at large N detects what BIC's ln N penalty still hides
+        ahead = [f for f, d in ev.difference.items()
+                 if ev.difference[chosen] - d > margin
+                 and not covers(ev.chosen(chosen).structure, ev.chosen(f).structure)]
+        if not ahead:
             verdict[chosen] = "supported"
         else:
+            rival = min(ahead, key=lambda f: ev.difference[f])
             verdict[chosen] = "plausible"
             ev_text[chosen].append(
-                f"Its defining part is evidenced, but its BIC is more than "
-                f"{led.thr('bic_margin')} above the best family's ({DISPLAY[best]}): "
-                "it is not rated supported.")
+                f"Its defining part is evidenced, but {DISPLAY[rival]}, which it does not "
+                f"nest, has a BIC lower by more than {led.thr('bic_margin')}: it is not rated "
+                "supported.")
     for fam, diff in ev.difference.items():
         if diff <= margin and verdict.get(fam) in ("unlikely", "undetermined") \
                 and verdict.get("occasion_noise") != "supported":
@@ -1098,18 +1147,26 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
             resid = st.correlation_residuals(m.sigma, fit.sigma)
             iu = np.triu_indices(t)
             order = np.argsort(-np.abs(resid[iu]), kind="stable")[:3]
-            pairs = ", ".join(f"{labels[iu[0][k]]} with {labels[iu[1][k]]} "
-                              f"({resid[iu][k]:+.2f})" for k in order)
+            pairs = ", ".join(
+                (f"the variance at {labels[iu[0][k]]}" if iu[0][k] == iu[1][k] else
+                 f"{labels[iu[0][k]]} with {labels[iu[1][k]]}") + f" ({resid[iu][k]:+.2f})"
+                for k in order)
             own.setdefault(fam, []).append(
                 f"Its structure ({fit.structure.label}) does not reproduce the covariances "
                 f"closely ({fit_text}); the wave pairs it reproduces worst (residual "
                 f"correlation): {pairs}. Fit that model and inspect its residuals before "
                 "relying on it.")
-    finite = [c for c in cfis.values() if np.isfinite(c)]
-    if finite and max(finite) < th["min_cfi"]:
+    # gross misfit: every family's chosen specification poor by the RMSEA's interval
+    # (an absolute index) and by the CFI (an incremental one)
+    gross = [fam for fam in cfis if np.isfinite(cfis[fam]) and cfis[fam] < th["min_cfi"]
+             and ev.chosen(fam).rmsea_ci[0] is not None
+             and ev.chosen(fam).rmsea_ci[0] > th["gross_rmsea"]]
+    if cfis and len(gross) == len(cfis):
+        best_cfi = max(cfis.values())
         general.append(f"No family reproduces the covariances even roughly (the best "
-                       f"comparative fit index is {led.value('best_cfi', float(max(finite)))}, "
-                       f"below {led.thr('min_cfi')}): no family is rated above plausible; a "
+                       f"comparative fit index is {led.value('best_cfi', float(best_cfi))}, "
+                       f"below {led.thr('min_cfi')}, and every RMSEA interval lies above "
+                       f"{led.thr('gross_rmsea')}): no family is rated above plausible; a "
                        "transformation of the measure (e.g. logarithms for scores that fan "
                        "out multiplicatively) or another kind of model may be needed.")
         for fam in FAMILY_IDS:
@@ -1142,7 +1199,8 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
             lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / kurtosis
         if not np.isfinite(lam):
             continue
-        power, lam90 = lr_power(lam, df, alpha, boundary)
+        power, _ = lr_power(lam, df, alpha, boundary)
+        lam90 = noncentrality_for_power(0.9, df, alpha, boundary)
         n90 = (int(np.ceil(ev.moments.n_units * lam90 / lam)) if lam > 0 and
                np.isfinite(lam90) else None)
         rows.append(PartPower(name, simple_fit.structure.name, rich_fit.structure.name,
@@ -1151,18 +1209,28 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
     return rows
 
 
-def lr_power(lam: float, df: int, alpha: float, boundary: bool) -> tuple[float, float]:
-    """(power at noncentrality ``lam``, the noncentrality giving power 0.9) of the
-    likelihood-ratio test at level ``alpha``; with a variance on its boundary the null
-    is the 50:50 mixture of chi-square(0) and chi-square(df) (Self and Liang 1987)."""
-    level = 2.0 * alpha if boundary else alpha
-    critical = float(special.chdtri(df, level))
+def lr_power(lam: float, df: int, alpha: float, boundary: bool = False
+             ) -> tuple[float, float]:
+    """(power, critical value) of the likelihood-ratio test at level ``alpha`` when the
+    statistic is asymptotically noncentral chi-square(df, lam) (Satorra and Saris 1985).
+    With a variance on its boundary under the null, the null distribution is the 50:50
+    mixture of chi-square(0) and chi-square(df) (Self and Liang 1987): the critical value
+    is chi-square(df)'s upper 2 alpha point, and with one df the statistic is
+    max(0, Z)^2 with Z ~ N(sqrt(lam), 1)."""
+    lam = max(float(lam), 0.0)
+    critical = float(special.chdtri(df, 2.0 * alpha if boundary else alpha))
     if boundary and df == 1:
-        root = np.sqrt(critical)
-        return (float(dist.norm_sf(root - np.sqrt(max(lam, 0.0)))),
-                float((root + dist.norm_ppf(0.9)) ** 2))
-    power = float(1.0 - special.chndtr(critical, df, max(lam, 0.0))) if lam > 0 else level
-    return power, float(special.chndtrinc(critical, df, 0.1))
+        return float(dist.norm_sf(np.sqrt(critical) - np.sqrt(lam))), critical
+    return float(1.0 - special.chndtr(critical, df, lam)), critical
+
+
+def noncentrality_for_power(power: float, df: int, alpha: float, boundary: bool = False
+                            ) -> float:
+    """The noncentrality at which ``lr_power`` reaches ``power``."""
+    _, critical = lr_power(0.0, df, alpha, boundary)
+    if boundary and df == 1:
+        return float((np.sqrt(critical) + dist.norm_ppf(power)) ** 2)
+    return float(special.chndtrinc(critical, df, 1.0 - power))
 
 
 def _power_sentences(power: list, verdict: dict, ev_text: dict, led: Citations,
