@@ -243,7 +243,7 @@ def _check_citations(report: dict):
         for sentence in list(fam["evidence"]) + list(fam["caveats"]):
             # formula symbols are not citations: r(k) = a + b rho^k, a/(a+b), 1 - a/(a+b)
             text = sentence.replace("rho^k", "").replace("1 - a/(a+b)", "")
-            text = text.replace("95% CI", "")
+            text = text.replace("95% CI", "").replace("90% CI", "")
             for token in NUMBER.findall(text):
                 digits = len(token.split(".")[1]) if "." in token else 0
                 value = float(token)

@@ -109,14 +109,11 @@ class Error(Part):
         return [list(0.5 * per)]
 
     def share(self, theta, times):
-        g = self.groups(len(times))
-        diag = np.asarray(theta, dtype=float)[g]
-        grads = []
-        for k in range(len(theta)):
-            d = np.zeros(len(times))
-            d[g == k] = 1.0
-            grads.append(np.diag(d))
-        return np.diag(diag), grads
+        t = len(times)
+        g = self.groups(t)
+        grads = np.zeros((len(theta), t, t))
+        grads[g, np.arange(t), np.arange(t)] = 1.0
+        return np.diag(np.asarray(theta, dtype=float)[g]), list(grads)
 
     def variances(self, theta, t: int) -> np.ndarray:
         """The error variance of each wave."""
@@ -207,13 +204,10 @@ class QuasiSimplex(Part):
         d = np.asarray(theta[:t], dtype=float)
         beta = np.asarray(theta[t:], dtype=float)
         a = self._paths(beta)
-        phi = (a * d) @ a.T
-        grads = [np.outer(a[:, s], a[:, s]) for s in range(t)]
-        right = (a * d) @ a.T    # A D A'; row w-1 of A D A' is A[w-1] D A'
-        for w in range(1, t):
-            m = np.outer(a[:, w], right[w - 1])
-            grads.append(m + m.T)
-        return phi, grads
+        phi = (a * d) @ a.T      # A D A'; its row w-1 is A[w-1] D A'
+        by_var = a.T[:, :, None] * a.T[:, None, :]                 # A[:, s] A[:, s]'
+        m = a.T[1:, :, None] * phi[:-1, None, :]                    # A[:, w] (A D A')[w-1]
+        return phi, list(by_var) + list(m + np.swapaxes(m, 1, 2))
 
     def true_variances(self, theta, t: int) -> np.ndarray:
         d = np.asarray(theta[:t], dtype=float)

@@ -65,6 +65,9 @@ TIE = 1e-10
 IDENTIFIED = 1e-7
 
 
+_SIZES: dict = {}   # parameters per part, by (structure, number of waves)
+
+
 @dataclass(frozen=True)
 class Structure:
     """A covariance structure: a named sum of parts; ``label`` says it in words."""
@@ -77,7 +80,10 @@ class Structure:
         return next((p for p in self.parts if p.key == key), None)
 
     def sizes(self, t: int) -> list[int]:
-        return [len(p.names(t)) for p in self.parts]
+        key = (self, t)
+        if key not in _SIZES:
+            _SIZES[key] = [len(p.names(t)) for p in self.parts]
+        return _SIZES[key]
 
     def names(self, t: int) -> list[str]:
         return [n for p in self.parts for n in p.names(t)]
@@ -88,7 +94,7 @@ class Structure:
         return [theta[a:b] for a, b in zip(cuts[:-1], cuts[1:])]
 
     def build(self, theta, times: np.ndarray):
-        """Sigma(theta) and the list of dSigma/dtheta_k."""
+        """Sigma(theta) and the stacked derivatives dSigma/dtheta_k, (q, T, T)."""
         t = len(times)
         sigma = np.zeros((t, t))
         grads: list[np.ndarray] = []
@@ -96,7 +102,7 @@ class Structure:
             share, g = part.share(values, times)
             sigma = sigma + share
             grads += g
-        return sigma, grads
+        return sigma, np.array(grads).reshape(len(grads), t, t)
 
     def bounds(self, scale: Scale) -> list[tuple]:
         return [b for p in self.parts for b in p.bounds(scale)]
@@ -125,7 +131,7 @@ class Structure:
                           for v, (lo, hi) in zip(theta, lo_hi)])
         _, grads = self.build(theta, times)
         iu = np.triu_indices(t)
-        jac = np.column_stack([g[iu] for g in grads])
+        jac = grads[:, iu[0], iu[1]].T
         if jac.shape[1] > jac.shape[0]:
             return False
         norms = np.linalg.norm(jac, axis=0)
@@ -320,7 +326,7 @@ def _objective(likelihood, structure: Structure, times: np.ndarray):
         if out is None:
             return 1e10, np.zeros_like(theta)
         value, g = out
-        return value, np.array([float(np.sum(g * d)) for d in grads])
+        return value, grads.reshape(len(grads), -1) @ g.ravel()
     return fn
 
 
@@ -331,8 +337,9 @@ def _expected_hessian(sigma: np.ndarray, grads: list) -> np.ndarray | None:
         inv = np.linalg.inv(sigma)
     except np.linalg.LinAlgError:
         return None
-    mats = [inv @ d for d in grads]
-    return np.array([[float(np.sum(a * b.T)) for b in mats] for a in mats])
+    mats = inv @ grads                          # (q, T, T)
+    q = len(mats)
+    return mats.reshape(q, -1) @ np.swapaxes(mats, 1, 2).reshape(q, -1).T
 
 
 def _scoring(fn, structure: Structure, times, start, lower, upper, max_iter=200):

@@ -673,8 +673,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                     G = False
                     slope_sentence += (
                         f" But {DISPLAY[best_still]} ({ev.chosen(best_still).structure.label})"
-                        f", which no growth structure nests, has the lower BIC, by "
-                        f"{_f(-lead, 1)}: variances that change over waves without "
+                        f", which no growth structure nests, has the lower BIC (growth's "
+                        f"lead {lead_text}): variances that change over waves without "
                         "unit-specific slopes, so growth is not counted.")
                 else:
                     slope_sentence += (f" Growth is ahead by BIC of {DISPLAY[best_still]} "
@@ -1041,9 +1041,10 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
 
 def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
                    led: Citations, th: Thresholds) -> None:
-    """Supported: of the families whose defining part is evidenced, the one with the
-    best BIC, if it is within ``bic_margin`` of the best family of all. A family within
-    the margin is at least plausible; one beyond ``bic_decisive`` at most unlikely."""
+    """Supported: of the families whose defining part is evidenced (a candidate nested in
+    another candidate giving way to it), the one with the best BIC, unless a family it
+    does not nest is ahead by more than ``bic_margin``. An unlikely family within the
+    margin becomes plausible; a plausible one beyond ``bic_decisive`` unlikely."""
     if not ev.difference:
         return
     best = ev.best
@@ -1085,7 +1086,7 @@ def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
                 f"nest, has a BIC lower by more than {led.thr('bic_margin')}: it is not rated "
                 "supported.")
     for fam, diff in ev.difference.items():
-        if diff <= margin and verdict.get(fam) in ("unlikely", "undetermined") \
+        if diff <= margin and verdict.get(fam) == "unlikely" \
                 and verdict.get("occasion_noise") != "supported":
             verdict[fam] = "plausible"
             ev_text[fam].append(f"Its BIC is within {led.thr('bic_margin')} of the best "
@@ -1147,10 +1148,12 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
             resid = st.correlation_residuals(m.sigma, fit.sigma)
             iu = np.triu_indices(t)
             order = np.argsort(-np.abs(resid[iu]), kind="stable")[:3]
-            pairs = ", ".join(
-                (f"the variance at {labels[iu[0][k]]}" if iu[0][k] == iu[1][k] else
-                 f"{labels[iu[0][k]]} with {labels[iu[1][k]]}") + f" ({resid[iu][k]:+.2f})"
-                for k in order)
+            worst = [(labels[iu[0][k]], labels[iu[1][k]], round(float(resid[iu][k]), 2))
+                     for k in order]
+            led.stats[f"worst_residuals_{fam}"] = [
+                {"waves": [a, b], "residual": r} for a, b, r in worst]
+            pairs = ", ".join((f"the variance at {a}" if a == b else f"{a} with {b}")
+                              + f" ({r:+.2f})" for a, b, r in worst)
             own.setdefault(fam, []).append(
                 f"Its structure ({fit.structure.label}) does not reproduce the covariances "
                 f"closely ({fit_text}); the wave pairs it reproduces worst (residual "
