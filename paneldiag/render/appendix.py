@@ -143,16 +143,44 @@ def families_table(report: dict) -> Table | None:
     common = [c for c in lists[0] if all(c in other for other in lists[1:])]
     body = tuple((str(f.get("family", "")).replace("_", " "),
                   str(f.get("verdict", "")).replace("_", " "),
-                  _v(f.get("score")) if isinstance(f.get("score"), (int, float)) else "–",
+                  "–" if f.get("bic_difference") is None else _v(f["bic_difference"], 1),
+                  "–" if f.get("bic_weight") is None else _v(f["bic_weight"]),
+                  str(f.get("specification") or "–"),
                   " ".join(c for c in own if c not in common) or "–")
                  for f, own in zip(fams, lists))
-    notes = ["Verdicts summarise screening evidence; they do not select a model."]
+    notes = ["Verdicts summarise screening evidence; they do not select a model.",
+             "BIC difference: the family's BIC (its best specification by BIC, and its mean "
+             "structure) minus the best family's; BIC weight: exp(-difference / 2) over the "
+             "families, an approximate posterior probability among these eight."]
     if common:
         notes.append("For every family: " + " ".join(common))
     return Table(f"{slug(report.get('measure'))}-families",
                  f"{report.get('measure')}: screening verdicts by process family",
-                 ("family", "verdict", "score", "caveats"), body, tuple(notes),
-                 align="llrp")
+                 ("family", "verdict", "BIC difference", "BIC weight", "specification",
+                  "caveats"), body, tuple(notes), align="llrrpp")
+
+
+def power_table(report: dict) -> Table | None:
+    """What this panel can tell apart: the power of each part test at its estimates."""
+    rows = [r for r in report.get("power") or [] if isinstance(r, dict)]
+    if not rows:
+        return None
+    body = tuple((f"{str(r['simpler']).replace('_', ' ')} vs "
+                  f"{str(r['richer']).replace('_', ' ')}", str(r["df"]),
+                  _v(r["power"]),
+                  "–" if r.get("units_for_power_90") is None
+                  else f"{r['units_for_power_90']:,}",
+                  "yes" if r.get("evidenced") else "no") for r in rows)
+    return Table(f"{slug(report.get('measure'))}-power",
+                 f"{report.get('measure')}: what this panel can tell apart",
+                 ("neighbouring families", "df", "power", "units for power 0.9",
+                  "told apart here"), body,
+                 ("Power of the likelihood-ratio test of the part that separates the two "
+                  "families, at this panel's units, waves and response patterns and the "
+                  "richer family's estimated parameters (Satorra and Saris 1985); units "
+                  "for 0.9 scale the noncentrality with N. Power at estimated parameters "
+                  "follows the test's own evidence: read it as what these data could "
+                  "detect, not as the chance of a true effect.",), align="lrrrl")
 
 
 def family_evidence(report: dict) -> ListBlock | None:
@@ -350,7 +378,8 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
                 "Attrition": [retention_table(rep, min_cell)],
                 "Distribution by wave": [wave_table(rep, min_cell)],
                 "Dependence over time": [lag_table(rep, min_cell)],
-                "Process families": [families_table(rep), family_evidence(rep)],
+                "Process families": [families_table(rep), power_table(rep),
+                                     family_evidence(rep)],
                 "Groups": [group_table(rep)],
             }.get(title, [])
             drawn = [f"{stem}-{n}" for n in figure_names if f"{stem}-{n}" in figures]

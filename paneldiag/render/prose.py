@@ -394,6 +394,7 @@ def verdicts(report: dict, cite: Citations) -> list[str]:
             text += (" These verdicts summarise evidence; they do not select a model, and "
                      "the candidates must still be fitted and compared.")
             out.append(text)
+            out += _bic_and_power(report, families)
     measurement = report.get("measurement")
     if isinstance(measurement, dict) and ok(measurement.get("reliability")):
         ci = (f" (confidence interval {dec(measurement['ci_low'])} to "
@@ -406,6 +407,34 @@ def verdicts(report: dict, cite: Citations) -> list[str]:
         if measurement.get("advice"):
             text += f" {measurement['advice']}"
         out.append(text)
+    return out
+
+
+def _bic_and_power(report: dict, families: list) -> list[str]:
+    """How the families were compared, and what the panel can tell apart."""
+    best = next((f for f in families if isinstance(f, dict)
+                 and f.get("bic_difference") == 0), None)
+    out = []
+    if best and best.get("specification"):
+        out.append(
+            "Each family was judged by the best of a small set of covariance structures "
+            "(one error variance or one per wave; stationary carry-over or a quasi-simplex; "
+            "random curvature or free loadings for growth), fitted by full-information "
+            "maximum likelihood under missing at random and chosen within the family by "
+            "the Bayesian information criterion (BIC). Across families the BIC was lowest "
+            f"for {str(best['family']).replace('_', ' ')} ({best['specification']}), with "
+            f"BIC weight {dec(best.get('bic_weight'))}; a family was rated supported only "
+            "when the part that defines it was evidenced by a likelihood-ratio test and no "
+            "family it does not nest was clearly ahead by BIC.")
+    weak = [r for r in report.get("power") or [] if isinstance(r, dict)
+            and not r.get("evidenced") and ok(r.get("power")) and r["power"] < 0.8]
+    if weak:
+        parts = [f"{str(r['simpler']).replace('_', ' ')} from "
+                 f"{str(r['richer']).replace('_', ' ')} (power {dec(r['power'])}"
+                 + (f"; about {count(r['units_for_power_90'])} units for 0.9)"
+                    if r.get("units_for_power_90") else ")") for r in weak]
+        out.append("At these data's estimates the panel had little power to tell apart "
+                   + _join(parts) + ", so the absence of those parts is weak evidence.")
     return out
 
 

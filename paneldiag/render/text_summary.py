@@ -69,7 +69,7 @@ def key_figures(report: dict, heading) -> list[str]:
     parts = []
     rel = (report.get("reliability") or {}).get("summary")
     if _est(rel):
-        parts.append(f"reliability {_est(rel)}")
+        parts.append(heise_figure(report, rel))
     growth = report.get("growth") or {}
     traj = growth.get("trajectories") or {}
     if _ok(traj.get("mean_slope")):
@@ -126,3 +126,19 @@ def cross_lag_block(report: dict, heading) -> list[str]:
             continue
         lines.append(f"  {pair['x']} → {pair['y']} {xl} · {pair['y']} → {pair['x']} {yl}")
     return lines if len(lines) > 1 else []
+
+
+GROWTH_FAMILIES = ("linear_growth", "quadratic_growth", "free_shape_growth",
+                   "growth_autoregressive")
+
+
+def heise_figure(report: dict, rel: dict) -> str:
+    """The Heise median under its own name, or why it is not read as a reliability:
+    Heise's formula assumes a lag-1 simplex, which growth and impossible triplets break."""
+    leading = next((f["family"] for f in report.get("families") or []
+                    if f.get("verdict") in ("supported", "plausible")), None)
+    if leading in GROWTH_FAMILIES:
+        return "Heise test-retest figure not interpretable (a growth family leads)"
+    if rel.get("n_triplets") and 2 * (rel.get("n_impossible") or 0) > rel["n_triplets"]:
+        return "Heise test-retest figure not interpretable (most triplets impossible)"
+    return f"Heise test-retest reliability (median of triplets) {_est(rel)}"

@@ -47,26 +47,40 @@ def _key(family: str, stats: dict) -> str:
     return "; ".join(parts) or "–"
 
 
+def _bic(f: dict) -> tuple[str, str]:
+    diff, weight = f.get("bic_difference"), f.get("bic_weight")
+    return ("–" if diff is None else f"{diff:+.1f}" if diff else "best",
+            "–" if weight is None else f"{weight:.2f}")
+
+
 def verdicts_block(report: dict, color: bool) -> list[str]:
     from paneldiag.rules.verdicts import DISPLAY   # here: the rules load the model fitting
     stats = report.get("verdict_basis", {}).get("statistics", {})
-    rows = [[DISPLAY.get(f["family"], f["family"]), f["verdict"], f"{f['score']:.2f}",
+    rows = [[DISPLAY.get(f["family"], f["family"]), f["verdict"], *_bic(f),
              _key(f["family"], stats)] for f in report["families"]]
-    body = tabulate(rows, headers=["family", "verdict", "score", "key evidence"],
+    body = tabulate(rows, headers=["family", "verdict", "BIC vs best", "BIC weight",
+                                   "key evidence"],
                     tablefmt="plain", disable_numparse=True, stralign="left")
     lines = [heading("Process families (screening evidence, not proof of a model)", color)]
     lines += ["  " + line for line in body.splitlines()]
+    lead = next((f for f in report["families"] if f.get("specification")
+                 and f["verdict"] in ("supported", "plausible")), None)
+    if lead:
+        lines.append(f"  {DISPLAY.get(lead['family'], lead['family'])} judged by: "
+                     f"{lead['specification']}")
     m = report.get("measurement")
     if m:
         if m.get("reliability") is not None:
             ci = (f" [{m['ci_low']:.2f}, {m['ci_high']:.2f}]"
                   if m.get("ci_low") is not None and m.get("ci_high") is not None else "")
+            label = "reliability, lower bound" if m.get("lower_bound") else "reliability"
             error = f"{m['verdict']} measurement error" if m.get("verdict") else \
                 "measurement error not separable"
-            lines.append(f"  measurement: reliability {m['reliability']:.2f}{ci}, {error}. "
-                         f"{m['advice']}")
+            lines.append(f"  measurement ({m.get('basis')}): {label} {m['reliability']:.2f}"
+                         f"{ci}, {error}. {m['advice']}")
         else:
             lines.append(f"  measurement: {m['advice']}")
+    lines += power_lines(report.get("power") or [], DISPLAY)
     caveats = []
     for f in report["families"]:
         for c in f.get("caveats", []):
@@ -78,3 +92,20 @@ def verdicts_block(report: dict, color: bool) -> list[str]:
         lines.append("  next models to fit and compare:")
         lines += [f"    {m['rank']}. {m['model']}" for m in nxt]
     return lines
+
+
+def power_lines(rows: list, display: dict) -> list[str]:
+    """What this panel can tell apart: the power of each part test at its estimates."""
+    if not rows:
+        return []
+    body = []
+    for r in rows:
+        units = r.get("units_for_power_90")
+        body.append([f"{display.get(r['simpler'], r['simpler'])} vs "
+                     f"{display.get(r['richer'], r['richer'])}", f"{r['power']:.2f}",
+                     "–" if units is None else f"{units:,}",
+                     "yes" if r.get("evidenced") else "no"])
+    table = tabulate(body, headers=["neighbours", "power", "units for 0.9", "told apart"],
+                     tablefmt="plain", disable_numparse=True, stralign="left")
+    return (["  what this panel can tell apart (power of the test at these data's "
+             "estimates):"] + ["    " + line for line in table.splitlines()])

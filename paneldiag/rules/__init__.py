@@ -2,7 +2,8 @@
 
 ``RULE_SECTIONS`` are the report sections of the rules, run after every diagnostic:
 ``verdict_basis`` (the statistics, fits and thresholds the verdicts cite), then
-``families``, ``measurement`` and ``next_models`` (see docs/rules.md).
+``families``, ``measurement``, ``power`` (what the panel can tell apart) and
+``next_models`` (see docs/rules.md).
 """
 
 from __future__ import annotations
@@ -71,10 +72,39 @@ def judge_context(ctx) -> Judgement:
             "expected": _nested(rac, "expected_under_independence")}
         if any(v is None for v in inp.residual_autocorrelation.values()):
             inp.residual_autocorrelation = None
+    _use_polychoric(inp, ctx.results.get("correlation"), em)
     never_observed = ctx.panel.n_units - inp.n_units
     inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
     return judge(inp, thresholds)
+
+
+def _use_polychoric(inp, corr, em) -> None:
+    """For an ordinal measure, the structures are fitted to the polychoric correlations
+    (two-stage, with the mean pairwise count as N) instead of Pearson moments; the
+    means are put in within-wave SD units to match. Kept Pearson when the polychoric
+    matrix is not positive definite."""
+    if corr is None or getattr(corr, "scale", None) != "ordinal" or \
+            corr.primary != "polychoric":
+        return
+    r = np.asarray(corr.matrix, dtype=float)
+    n = np.asarray(corr.n_pairs, dtype=float)
+    if not (np.all(np.isfinite(r)) and np.all(np.isfinite(n))):
+        return
+    r = 0.5 * (r + r.T)
+    np.fill_diagonal(r, 1.0)
+    if np.linalg.eigvalsh(r)[0] <= 1e-8:
+        return
+    from paneldiag.rules import structures as st
+    sd = np.sqrt(np.diag(np.asarray(em.covariance, dtype=float)))
+    t = len(r)
+    inp.mu = np.asarray(em.means, dtype=float) / np.where(sd > 0, sd, 1.0)
+    inp.sigma = r
+    inp.pair_n = n
+    inp.n_units = int(round(float(np.mean(n[np.triu_indices(t, 1)])))) if t > 1 else \
+        inp.n_units
+    inp.likelihood = st.CovarianceLikelihood(r)
+    inp.moments_kind = "polychoric"
 
 
 def _basis_section(ctx):
@@ -93,4 +123,5 @@ def _part(name):
 
 RULE_SECTIONS = [("verdict_basis", _basis_section), ("families", _part("families")),
                  ("measurement", _part("measurement")),
+                 ("power", _part("power")),
                  ("next_models", _part("next_models"))]

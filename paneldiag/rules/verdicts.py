@@ -1021,7 +1021,12 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
     else:
         led.value("dropout_smd", float(inp.dropout_smd) if np.isfinite(inp.dropout_smd)
                   else None)
-    if inp.categories < th["min_categories"]:
+    if inp.categories < th["min_categories"] and inp.moments_kind == "polychoric":
+        out.append(f"Ordinal measure with {led.value('categories', int(inp.categories))} "
+                   f"categories (fewer than {led.thr('min_categories')}): the structures are "
+                   "fitted to polychoric correlations, with the mean pairwise count as the "
+                   "number of units.")
+    elif inp.categories < th["min_categories"]:
         out.append(f"Ordinal measure with {led.value('categories', int(inp.categories))} "
                    f"categories (fewer than {led.thr('min_categories')}): correlations of the "
                    "scores are attenuated; polychoric correlations or an ordinal model are "
@@ -1133,6 +1138,7 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
         led.value(f"srmr_{fam}", float(fit.srmr) if fit.srmr is not None else None)
         led.value(f"cfi_{fam}", float(cfis[fam]) if np.isfinite(cfis[fam]) else None)
     labels = inp.wave_labels or tuple(f"{v:g}" for v in inp.times)
+    leading = _leading(verdict, ev)
     for fam in FAMILY_IDS:
         fit = ev.chosen(fam)
         if fit is None or verdict.get(fam) not in ("supported", "plausible"):
@@ -1143,8 +1149,9 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
         ev_text[fam].append(f"Fit of its specification: {fit_text} (close up to "
                             f"{led.thr('max_rmsea')} RMSEA and {led.thr('max_srmr')} SRMR).")
         low = fit.rmsea_ci[0]
-        if (low is not None and low > th["max_rmsea"]) or \
-                (fit.srmr is not None and fit.srmr > th["max_srmr"]):
+        misfit = (low is not None and low > th["max_rmsea"]) or \
+            (fit.srmr is not None and fit.srmr > th["max_srmr"])
+        if fam == leading and misfit:
             resid = st.correlation_residuals(m.sigma, fit.sigma)
             iu = np.triu_indices(t)
             order = np.argsort(-np.abs(resid[iu]), kind="stable")[:3]
@@ -1338,7 +1345,6 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=
     next_models = _next_models(families)
     basis = {"statistics": led.stats, "parts": flags,
              "specifications": _spec_table(ev, inp) if ev is not None else {},
-             "power": [row.to_dict() for row in power],
              "thresholds": th.values(), "thresholds_origin": th.origin}
     return Judgement(tuple(families), measurement, tuple(next_models), basis, tuple(power))
 
