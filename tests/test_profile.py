@@ -183,7 +183,7 @@ def test_weighted_mean_and_sd():
 
 # ------------------------------------------------------------------ chunking
 
-FIELDS = ("n", "mean", "m2", "m3", "weight_sum", "weighted_mean", "weighted_m2")
+FIELDS = ("n", "mean", "m2", "m3", "m4", "weight_sum", "weighted_mean", "weighted_m2")
 
 
 @settings(max_examples=50, deadline=None)
@@ -206,7 +206,7 @@ def test_chunked_summaries_equal_one_chunk(values, chunk, weighted):
         if a is None:
             assert b is None
             continue
-        power = {"m2": 2, "m3": 3, "weighted_m2": 2}.get(name, 1)
+        power = {"m2": 2, "m3": 3, "m4": 4, "weighted_m2": 2}.get(name, 1)
         tolerance = 1e-9 * max(scale, 1.0) ** power * values.shape[0]
         np.testing.assert_allclose(a, b, rtol=1e-9, atol=tolerance, err_msg=name)
     for name in ("minimum", "maximum", "n_at_min", "n_at_max"):
@@ -222,3 +222,18 @@ def test_chunked_summaries_equal_one_chunk(values, chunk, weighted):
             assert row.mean == pytest.approx(frame[t].mean(), rel=1e-9, abs=1e-9 * scale)
         if row.n > 1:
             assert row.sd == pytest.approx(frame[t].std(), rel=1e-7, abs=1e-7 * scale)
+
+
+def test_fourth_moment_matches_scipy_kurtosis():
+    """The merged fourth power sums give scipy.stats.kurtosis (reference library,
+    fisher=False, bias=True) per wave, with the panel summarised in uneven chunks."""
+    from scipy import stats as sps
+    rng = np.random.default_rng(11)
+    values = rng.standard_t(5, size=(997, 3)) * 10 + 500
+    values[rng.random(values.shape) < 0.1] = np.nan
+    panel = Panel(unit_ids=np.arange(997), wave_labels=("a", "b", "c"),
+                  wave_times=np.arange(3.0), values={"y": values})
+    m = summarise(panel, "y", [WaveMoments], chunk_units=101)[WaveMoments]
+    ours = (m.m4 / m.n) / (m.m2 / m.n) ** 2
+    ref = [sps.kurtosis(v[~np.isnan(v)], fisher=False, bias=True) for v in values.T]
+    np.testing.assert_allclose(ours, ref, rtol=1e-10)

@@ -61,6 +61,8 @@ def judge_context(ctx) -> Judgement:
         categories = 10 ** 6
     inp = inputs_from_patterns(patterns, em, ctx.panel.wave_times, categories)
     inp.wave_labels = tuple(str(label) for label in ctx.panel.wave_labels)
+    if moments is not None:
+        inp.kurtosis = relative_kurtosis(moments)
     slope_rel = _nested(ctx.results.get("growth"), "slope_reliability", "estimate")
     if slope_rel is not None and np.isfinite(slope_rel):
         inp.slope_reliability = float(slope_rel)
@@ -77,6 +79,19 @@ def judge_context(ctx) -> Judgement:
     inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
     return judge(inp, thresholds)
+
+
+def relative_kurtosis(moments) -> float:
+    """Mean relative kurtosis of the waves, m4 / (3 m2^2), at least 1: the elliptical
+    scaling of normal-theory likelihood-ratio statistics (Browne 1984, British Journal
+    of Mathematical and Statistical Psychology 37, 62-83; the mean of the univariate
+    kurtoses as its estimate, Bentler and Wu 1995, EQS manual, from memory). Light
+    tails (below 1) keep the normal-theory statistics."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        n = np.asarray(moments.n, dtype=float)
+        kurt = (moments.m4 / n) / (moments.m2 / n) ** 2 / 3.0
+    kurt = kurt[np.isfinite(kurt) & (n > 3)]
+    return float(max(1.0, np.mean(kurt))) if kurt.size else 1.0
 
 
 def _use_polychoric(inp, corr, em) -> None:
@@ -105,6 +120,7 @@ def _use_polychoric(inp, corr, em) -> None:
         inp.n_units
     inp.likelihood = st.CovarianceLikelihood(r)
     inp.moments_kind = "polychoric"
+    inp.kurtosis = 1.0   # the scores' kurtosis says nothing of the latent normal variables
 
 
 def _basis_section(ctx):

@@ -144,6 +144,7 @@ class PartPower(Result):
     power: float
     units_for_power_90: int | None
     evidenced: bool
+    target_power: float = 0.9     # the power the unit count is for
 
 
 @dataclass(frozen=True)

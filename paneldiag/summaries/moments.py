@@ -10,8 +10,8 @@ import pandas as pd
 
 @dataclass(frozen=True)
 class WaveMoments:
-    """Count, mean, centred second and third power sums, extremes and distinct values
-    per wave; weighted sums alongside when the panel has weights.
+    """Count, mean, centred second, third and fourth power sums, extremes and distinct
+    values per wave; weighted sums alongside when the panel has weights.
 
     Chunks combine with the pairwise update of Chan, Golub and LeVeque (1983,
     The American Statistician) extended to the third moment by Pebay (2008, Sandia
@@ -27,6 +27,7 @@ class WaveMoments:
     offset: np.ndarray
     m2: np.ndarray
     m3: np.ndarray
+    m4: np.ndarray
     minimum: np.ndarray
     maximum: np.ndarray
     n_at_min: np.ndarray
@@ -59,6 +60,8 @@ class WaveMoments:
             m2 = dd.sum(axis=0)
             dd *= d
             m3 = dd.sum(axis=0)
+            dd *= d
+            m4 = dd.sum(axis=0)
         del d, dd
         # fmin / fmax skip NaN; a wave with no value keeps +-inf and counts every row,
         # as the extremes of +-inf-filled columns would.
@@ -76,14 +79,15 @@ class WaveMoments:
                 wd = np.where(seen, x - wmean, 0.0)
             extra = dict(weight_sum=wsum, weighted_mean=wmean,
                          weighted_m2=(w * wd * wd).sum(axis=0))
-        return cls(n, shift, offset, m2, m3, lo, hi, n_lo, n_hi, distinct, **extra)
+        return cls(n, shift, offset, m2, m3, m4, lo, hi, n_lo, n_hi, distinct, **extra)
 
     def merge(self, other: "WaveMoments") -> "WaveMoments":
         mine = self.n > 0  # keep this side's shift; the other's offset is moved onto it
         shift = np.where(mine, self.shift, other.shift)
         moved = np.where(mine, (other.shift - self.shift) + other.offset, other.offset)
-        offset, m2, m3 = _combine(self.n, np.where(mine, self.offset, 0.0), self.m2, self.m3,
-                                  other.n, moved, other.m2, other.m3)
+        offset, m2, m3, m4 = _combine(self.n, np.where(mine, self.offset, 0.0), self.m2,
+                                      self.m3, self.m4, other.n, moved, other.m2, other.m3,
+                                      other.m4)
         lo, hi = np.minimum(self.minimum, other.minimum), np.maximum(self.maximum, other.maximum)
         n_lo = np.where(self.minimum == lo, self.n_at_min, 0) + \
             np.where(other.minimum == lo, other.n_at_min, 0)
@@ -92,13 +96,14 @@ class WaveMoments:
         distinct = tuple(np.union1d(a, b) for a, b in zip(self.distinct, other.distinct))
         extra = {}
         if self.weight_sum is not None:
-            wmean, wm2, _ = _combine(self.weight_sum, self.weighted_mean, self.weighted_m2,
-                                     np.zeros_like(self.n), other.weight_sum,
-                                     other.weighted_mean, other.weighted_m2,
-                                     np.zeros_like(other.n))
+            zero_a, zero_b = np.zeros_like(self.n), np.zeros_like(other.n)
+            wmean, wm2, _, _ = _combine(self.weight_sum, self.weighted_mean, self.weighted_m2,
+                                        zero_a, zero_a, other.weight_sum,
+                                        other.weighted_mean, other.weighted_m2, zero_b,
+                                        zero_b)
             extra = dict(weight_sum=self.weight_sum + other.weight_sum,
                          weighted_mean=wmean, weighted_m2=wm2)
-        return WaveMoments(self.n + other.n, shift, offset, m2, m3, lo, hi, n_lo, n_hi,
+        return WaveMoments(self.n + other.n, shift, offset, m2, m3, m4, lo, hi, n_lo, n_hi,
                            distinct, **extra)
 
 
@@ -108,14 +113,18 @@ def _distinct(column: np.ndarray) -> np.ndarray:
     return np.sort(found[~np.isnan(found)])
 
 
-def _combine(na, mean_a, m2a, m3a, nb, mean_b, m2b, m3b):
-    """Pebay (2008) pairwise update of mean, M2 and M3; empty sides pass through."""
+def _combine(na, mean_a, m2a, m3a, m4a, nb, mean_b, m2b, m3b, m4b):
+    """Pebay (2008) pairwise update of mean, M2, M3 and M4; empty sides pass through."""
     n = na + nb
     with np.errstate(invalid="ignore", divide="ignore"):
         delta = np.where(nb > 0, mean_b, 0.0) - np.where(na > 0, mean_a, 0.0)
         delta = np.where((na > 0) & (nb > 0), delta, 0.0)
         mean = np.where(na > 0, np.where(nb > 0, mean_a + delta * nb / n, mean_a), mean_b)
-        m2 = m2a + m2b + delta ** 2 * na * nb / np.where(n > 0, n, 1)
-        m3 = (m3a + m3b + delta ** 3 * na * nb * (na - nb) / np.where(n > 0, n * n, 1)
-              + 3.0 * delta * (na * m2b - nb * m2a) / np.where(n > 0, n, 1))
-    return mean, m2, m3
+        safe = np.where(n > 0, n, 1)
+        m2 = m2a + m2b + delta ** 2 * na * nb / safe
+        m3 = (m3a + m3b + delta ** 3 * na * nb * (na - nb) / safe ** 2
+              + 3.0 * delta * (na * m2b - nb * m2a) / safe)
+        m4 = (m4a + m4b + delta ** 4 * na * nb * (na * na - na * nb + nb * nb) / safe ** 3
+              + 6.0 * delta ** 2 * (na * na * m2b + nb * nb * m2a) / safe ** 2
+              + 4.0 * delta * (na * m3b - nb * m3a) / safe)
+    return mean, m2, m3, m4
