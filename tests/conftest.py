@@ -19,6 +19,13 @@ def pytest_addoption(parser):
 
 
 def pytest_collection_modifyitems(config, items):
+    if os.environ.get("PANELDIAG_DEPARTURE_XFAIL") == "1":
+        expected = pytest.mark.xfail(strict=False, reason="the verdicts' targets on the "
+                                     "departure grid are not met yet "
+                                     "(PANELDIAG_DEPARTURE_XFAIL=1)")
+        for item in items:
+            if "departures" in item.keywords:
+                item.add_marker(expected)
     if config.getoption("--full-grid"):
         return
     skip = pytest.mark.skip(reason="full simulation grid: run with --full-grid")
