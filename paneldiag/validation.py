@@ -1,7 +1,8 @@
 """The validation study of the process-family verdicts: panels of known truth.
 
-    python -m paneldiag.validation [--grid full|target|reduced] [--reps R] [--seed S]
-                                   [--workers W] [--out docs/validation-table.md]
+    python -m paneldiag.validation [--grid full|target|reduced|departures|departures-reduced]
+                                   [--reps R] [--seed S] [--workers W]
+                                   [--out docs/validation-table.md]
     paneldiag check-verdicts ...     (the same, as a paneldiag command)
 
 For every family of ``paneldiag.simulate.FAMILIES`` and every condition of the grid
@@ -13,6 +14,15 @@ family is supported) and the false support of every other family (that family is
 supported instead). Panels run on a process pool; every panel has its own seed drawn
 from one ``numpy.random.SeedSequence``, so the table is the same whatever the number
 of workers.
+
+The departure grids cross every departure from the textbook assumptions
+(``paneldiag.simulate.DEPARTURES``: error variances that differ by wave, a carry-over
+variance that rises over time, unit-specific curvature, skewed or heavy-tailed draws,
+ordinal scores) with the families it applies to (``simulate.DEPARTURE_FAMILIES``), and
+report recall and false support per departure. They use error-free measures (the
+wave_error departure brings its own error: reliability 0.9 at the first wave) and no
+dropout or MCAR dropout, so that each cell shows the departure's own effect; the full
+one includes the textbook processes ("none") as the reference.
 """
 
 from __future__ import annotations
@@ -25,7 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from paneldiag.simulate import FAMILIES
+from paneldiag.simulate import DEPARTURE_FAMILIES, DEPARTURES, FAMILIES
 
 FULL_GRID = {"n_units": (300, 1000, 3000), "n_waves": (4, 6, 10),
              "reliability": (1.0, 0.6), "dropout": ("none", "mcar", "dependent")}
@@ -33,8 +43,14 @@ TARGET_GRID = {"n_units": (1000, 3000), "n_waves": (6, 10), "reliability": (1.0,
                "dropout": ("none", "mcar", "dependent")}
 REDUCED_GRID = {"n_units": (1000,), "n_waves": (6,), "reliability": (1.0, 0.6),
                 "dropout": ("none", "dependent")}
+# departures: N {100, 300, 1000} x T {4, 6, 10} x dropout none/MCAR, error-free measures
+DEPARTURE_GRID = {"departure": DEPARTURES, "n_units": (100, 300, 1000), "n_waves": (4, 6, 10),
+                  "reliability": (1.0,), "dropout": ("none", "mcar")}
+DEPARTURE_REDUCED_GRID = {"departure": DEPARTURES[1:], "n_units": (1000,), "n_waves": (6,),
+                          "reliability": (1.0,), "dropout": ("none",)}
 SEED = 20240611
-GRIDS = {"full": FULL_GRID, "target": TARGET_GRID, "reduced": REDUCED_GRID}
+GRIDS = {"full": FULL_GRID, "target": TARGET_GRID, "reduced": REDUCED_GRID,
+         "departures": DEPARTURE_GRID, "departures-reduced": DEPARTURE_REDUCED_GRID}
 
 
 @dataclass(frozen=True)
@@ -44,6 +60,7 @@ class Condition:
     n_waves: int
     reliability: float
     dropout: str
+    departure: str = "none"   # paneldiag.simulate.DEPARTURES
 
     def in_target(self) -> bool:
         """The region the targets are set for: N >= 1000 and T >= 6."""
@@ -77,17 +94,26 @@ def _one(task) -> tuple[Condition, str | None]:
     from paneldiag.screen import ScreenOptions
     from paneldiag.simulate import family_values
     values = family_values(condition.family, condition.n_units, condition.n_waves,
-                           condition.reliability, condition.dropout, rng)
+                           condition.reliability, condition.dropout, rng, condition.departure)
     options = ScreenOptions(rules=load_thresholds(rules_path)) if rules_path else None
     families = verdicts_for_panel(panel_of(values), options=options)
     supported = [f["family"] for f in families if f["verdict"] == "supported"]
     return condition, (supported[0] if supported else None)
 
 
+def conditions_of(grid: dict) -> list[Condition]:
+    """The cells of ``grid``: every family (or, with a "departure" axis, every family
+    each departure applies to) crossed with units, waves, reliability and dropout."""
+    cells = list(itertools.product(grid["n_units"], grid["n_waves"], grid["reliability"],
+                                   grid["dropout"]))
+    if "departure" not in grid:
+        return [Condition(f, n, t, r, d) for f in FAMILIES for n, t, r, d in cells]
+    return [Condition(f, n, t, r, d, dep) for dep in grid["departure"]
+            for f in DEPARTURE_FAMILIES[dep] for n, t, r, d in cells]
+
+
 def tasks(grid: dict, reps: int, seed: int = SEED, rules_path: str | None = None):
-    conditions = [Condition(f, n, t, r, d) for f in FAMILIES
-                  for n, t, r, d in itertools.product(grid["n_units"], grid["n_waves"],
-                                                      grid["reliability"], grid["dropout"])]
+    conditions = conditions_of(grid)
     seeds = np.random.SeedSequence(seed).spawn(len(conditions) * reps)
     return [(c, seeds[i * reps + k], rules_path) for i, c in enumerate(conditions)
             for k in range(reps)]
@@ -143,18 +169,38 @@ def confusion(results, select=lambda c: True) -> dict[str, Rates]:
 
 def by_condition(results) -> list[tuple]:
     """(N, T, reliability, dropout, family, n, recall, worst false support, to which)."""
+    return [(*key[1:], *rest) for key, *rest in _by_cell(results)]
+
+
+def _by_cell(results) -> list[tuple]:
+    """((departure, N, T, reliability, dropout, family), n, recall, worst false support,
+    to which), sorted by departure in the order of DEPARTURES, then by the rest."""
     groups: dict = {}
     for c, s in results:
-        groups.setdefault((c.n_units, c.n_waves, c.reliability, c.dropout, c.family),
-                          []).append(s)
+        groups.setdefault((DEPARTURES.index(c.departure), c.n_units, c.n_waves,
+                           c.reliability, c.dropout, c.family), []).append(s)
     rows = []
     for key, picked in sorted(groups.items()):
         fam = key[-1]
         n = len(picked)
         others = {g: sum(1 for s in picked if s == g) / n for g in FAMILIES if g != fam}
         worst = max(others, key=others.get)
-        rows.append((*key, n, sum(1 for s in picked if s == fam) / n, others[worst], worst))
+        rows.append(((DEPARTURES[key[0]], *key[1:]), n,
+                     sum(1 for s in picked if s == fam) / n, others[worst], worst))
     return rows
+
+
+def departure_rates(results, select=lambda c: True) -> dict[str, dict[str, Rates]]:
+    """Per departure present in ``results`` (in the order of DEPARTURES): the
+    ``confusion`` of its panels that ``select`` keeps."""
+    present = {c.departure for c, _ in results}
+    out = {}
+    for dep in DEPARTURES:
+        if dep in present:
+            rates = confusion(results, lambda c, dep=dep: c.departure == dep and select(c))
+            if rates:
+                out[dep] = rates
+    return out
 
 
 SHORT = {"occasion_noise": "noise", "stable_trait": "trait", "autoregressive": "AR",
@@ -175,6 +221,8 @@ def confusion_markdown(rates: dict[str, Rates], title: str) -> str:
 
 
 def report_markdown(results, grid: dict, reps: int, seed: int) -> str:
+    if "departure" in grid:
+        return departures_markdown(results, grid, reps, seed)
     parts = [f"Grid: N {list(grid['n_units'])}, T {list(grid['n_waves'])}, reliability "
              f"{list(grid['reliability'])}, dropout {list(grid['dropout'])}; {reps} panels "
              f"per cell; seed {seed}.", ""]
@@ -191,11 +239,62 @@ def report_markdown(results, grid: dict, reps: int, seed: int) -> str:
     return "\n".join(parts) + "\n"
 
 
+def _largest_false(rates: Rates) -> tuple[float, str]:
+    to = max(rates.false_support, key=rates.false_support.get)
+    share = rates.false_support[to]
+    return share, (SHORT[to] if share > 0 else "–")
+
+
+def departures_markdown(results, grid: dict, reps: int, seed: int) -> str:
+    """The departure grid's report: per departure and true family, recall and false
+    support in the target region (a summary row each, then the confusion tables), over
+    the whole grid, and per condition."""
+    deps = list(grid["departure"])
+    parts = [f"Departures {deps}; N {list(grid['n_units'])}, T {list(grid['n_waves'])}, "
+             f"reliability {list(grid['reliability'])} (wave_error: 0.9 at the first wave "
+             f"when 1.0), dropout {list(grid['dropout'])}; {reps} panels per cell; "
+             f"seed {seed}.", ""]
+    in_target = departure_rates(results, lambda c: c.in_target())
+    whole = departure_rates(results)
+    parts += ["**Per departure** (recall of the true family and the largest false support of "
+              "another family, in the target region N >= 1000 and T >= 6, and over the "
+              "whole grid)", "",
+              "| departure | true family | panels (target) | recall (target) | "
+              "largest false support (target) | to | recall (whole grid) | "
+              "largest false support (whole grid) | to |",
+              "|---|---|---|---|---|---|---|---|---|"]
+    for dep, rates in whole.items():
+        for fam, r in rates.items():
+            cells = [dep, fam]
+            t = in_target.get(dep, {}).get(fam)
+            if t is None:
+                cells += ["0", "–", "–", "–"]
+            else:
+                share, to = _largest_false(t)
+                cells += [str(t.n), f"{t.recall:.3f}", f"{share:.3f}", to]
+            share, to = _largest_false(r)
+            cells += [f"{r.recall:.3f}", f"{share:.3f}", to]
+            parts.append("| " + " | ".join(cells) + " |")
+    for dep, rates in in_target.items():
+        parts += ["", confusion_markdown(rates, f"{dep}: target region, N >= 1000 and T >= 6")]
+    if any(not c.in_target() for c, _ in results):
+        for dep, rates in whole.items():
+            parts += ["", confusion_markdown(rates, f"{dep}: whole grid")]
+    parts += ["", "**Per condition** (recall of the true family; the largest false support "
+                  "and the family it went to)", "",
+              "| departure | N | T | reliability | dropout | true family | panels | recall | "
+              "worst false support | to |", "|---|---|---|---|---|---|---|---|---|---|"]
+    for (dep, n, t, rel, drop, fam), k, rec, worst, to in _by_cell(results):
+        parts.append(f"| {dep} | {n} | {t} | {rel} | {drop} | {fam} | {k} | {rec:.2f} | "
+                     f"{worst:.2f} | {SHORT[to] if worst > 0 else '–'} |")
+    return "\n".join(parts) + "\n"
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m paneldiag.validation",
                                      description="Validate the process-family verdicts on "
                                                  "simulated panels of known truth.")
-    parser.add_argument("--grid", choices=["full", "target", "reduced"], default="full")
+    parser.add_argument("--grid", choices=list(GRIDS), default="full")
     parser.add_argument("--reps", type=int, default=20, help="panels per cell")
     parser.add_argument("--seed", type=int, default=SEED)
     parser.add_argument("--workers", type=int, default=min(2, os.cpu_count() or 1))

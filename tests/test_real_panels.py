@@ -8,8 +8,7 @@ of the data; "from memory" where recalled) beside each. For every panel:
 (b) no family outside the accepted set is supported;
 (c) `measurement.reliability` is reported together with the text of how it was obtained.
 
-Marked `real_panels`: with PANELDIAG_REAL_XFAIL=1 in the environment they are expected
-failures (not strict), for checkouts whose rules do not yet commit on real panels.
+Marked `real_panels` (select them with `-m real_panels`).
 Print the table: python tests/real_panels.py
 """
 

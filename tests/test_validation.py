@@ -5,7 +5,9 @@ The reduced grid runs in the ordinary suite with asserted minimum rates; the ful
 (N 300/1000/3000, T 4/6/10, reliability 1/0.6, three dropout kinds) is marked slow and
 runs with `pytest --full-grid` (or `paneldiag check-verdicts`, which writes the table).
 The minimum rates asserted here are the ones docs/validation.md reports, with slack
-for the smaller number of panels.
+for the smaller number of panels. The reduced departure grid (processes that break one
+textbook assumption each; docs/validation.md, "Departures from the textbook
+assumptions") asserts the targets themselves (tests marked `departures`).
 """
 
 from __future__ import annotations
@@ -75,3 +77,65 @@ def test_full_grid_targets():
     noisy = validation.confusion(results, lambda c: c.in_target() and c.reliability == 0.6)
     for fam in FAMILIES:
         assert noisy[fam].recall >= (0.6 if fam in HARD else 0.9), (fam, noisy[fam])
+
+
+# ----------------------------------------------------------------- departure grid
+# Processes that break one textbook assumption each, truth unchanged
+# (paneldiag.simulate.apply_departure; simulations with known truth).
+
+DEPARTURES_TESTED = validation.DEPARTURE_REDUCED_GRID["departure"]
+
+
+@pytest.fixture(scope="module")
+def departures_reduced():
+    """N 1000, T 6, error-free measures, no dropout, 10 panels a cell: every departure
+    with the families it applies to (35 cells, about 10 seconds on two cores)."""
+    return validation.run(validation.DEPARTURE_REDUCED_GRID, reps=10, seed=validation.SEED,
+                          workers=2)
+
+
+@pytest.mark.departures
+@pytest.mark.parametrize("departure", DEPARTURES_TESTED)
+def test_departure_targets(departures_reduced, departure):
+    """The targets in the target region (N >= 1000, T >= 6), per departure and true
+    family: recall >= 0.9 and false support of any other family <= 0.05. With 10 panels
+    a cell one panel of slack: at most one miss, at most one panel given to another
+    family."""
+    rates = validation.departure_rates(departures_reduced, lambda c: c.in_target())[departure]
+    assert set(rates) == set(validation.DEPARTURE_FAMILIES[departure])
+    failures = {fam: (r.recall, max(r.false_support.items(), key=lambda kv: kv[1]))
+                for fam, r in rates.items()
+                if r.recall < 0.9 or max(r.false_support.values()) > 0.1}
+    assert not failures, failures
+
+
+def test_departure_grid_cells():
+    """Each departure is crossed with the families it applies to and every cell of
+    units, waves, reliability and dropout; the textbook grids keep departure 'none'."""
+    grid = validation.DEPARTURE_GRID
+    cells = (len(grid["n_units"]) * len(grid["n_waves"]) * len(grid["reliability"])
+             * len(grid["dropout"]))
+    conditions = validation.conditions_of(grid)
+    for dep in grid["departure"]:
+        mine = [c for c in conditions if c.departure == dep]
+        assert len(mine) == cells * len(validation.DEPARTURE_FAMILIES[dep])
+        assert {c.family for c in mine} == set(validation.DEPARTURE_FAMILIES[dep])
+    assert any(c.in_target() for c in conditions)
+    assert {1000} <= set(grid["n_units"]) and {6, 10} <= set(grid["n_waves"])
+    assert {c.departure for c in validation.conditions_of(validation.REDUCED_GRID)} == {"none"}
+
+
+def test_departure_report_whatever_the_workers():
+    """A small departure grid gives the same verdicts with one worker or two, and its
+    report has a row per departure and true family, and a confusion table each."""
+    grid = {"departure": ("rising_variance", "ordinal5"), "n_units": (300,),
+            "n_waves": (4,), "reliability": (1.0,), "dropout": ("mcar",)}
+    one = validation.run(grid, reps=1, seed=5, workers=1)
+    two = validation.run(grid, reps=1, seed=5, workers=2)
+    assert [(c, s) for c, s in one] == [(c, s) for c, s in two]
+    assert len(one) == 2 + 8
+    text = validation.report_markdown(one, grid, 1, 5)
+    assert "| rising_variance | trait_autoregressive |" in text
+    assert "| ordinal5 | free_shape_growth |" in text
+    assert "**ordinal5: whole grid**" in text
+    assert "| ordinal5 | 300 | 4 | 1.0 | mcar | stable_trait | 1 |" in text

@@ -2,10 +2,15 @@
 
     paneldiag check-verdicts                       # full grid, 20 panels a cell, both cores
     paneldiag check-verdicts --grid reduced --reps 5
+    paneldiag check-verdicts --grid departures --reps 20 --out departures.md
+    paneldiag check-verdicts --grid departures-reduced --reps 10
     paneldiag check-verdicts --out docs/validation-table.md --rules my-thresholds.toml
 Simulates panels from every family (paneldiag.simulate.family_process) over a grid of
 units, waves, reliability and dropout, screens each in-process and writes the
 confusion table: recall of the true family and false support of every other family.
+The departure grids do the same for processes that break one textbook assumption each
+(error variances that differ by wave, rising variance, unit-specific curvature, skewed,
+heavy-tailed or ordinal scores) and report the rates per departure.
 Seeded: the same options give the same table. Same as `python -m paneldiag.validation`.
 """
 
@@ -16,11 +21,14 @@ import sys
 
 import click
 
+GRID_NAMES = ["full", "target", "reduced", "departures", "departures-reduced"]
+
 
 @click.command("check-verdicts")
-@click.option("--grid", type=click.Choice(["full", "target", "reduced"]), default="full",
+@click.option("--grid", type=click.Choice(GRID_NAMES), default="full",
               show_default=True, help="The full grid, its target region (N >= 1000, "
-                                      "T >= 6), or the small grid the test suite runs.")
+                                      "T >= 6), the small grid the test suite runs, or "
+                                      "the departure grid (full or reduced).")
 @click.option("--reps", type=click.IntRange(1), default=20, show_default=True,
               help="Simulated panels per cell of the grid.")
 @click.option("--seed", type=int, default=None, help="Seed of the whole study.")
