@@ -218,3 +218,56 @@ def _start(n, rows, cols, total):
         sxx, syy = (rows * dx * dx).sum(-1), (cols * dy * dy).sum(-1)
         r = sxy / np.sqrt(sxx * syy)
     return np.clip(np.nan_to_num(r), -0.95, 0.95)
+
+
+def latent_scale(margins: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Means and standard deviations of the normal variables behind an ordinal measure
+    at each wave, with its thresholds held equal across waves and the first wave's
+    latent variable standardised (mean 0, SD 1).
+
+    ``margins`` is (T, L): the category counts of each wave. The thresholds and the
+    later waves' means and SDs are fitted jointly by maximising the multinomial
+    likelihood of the margins, so change in the latent mean and variance shows, as in
+    latent growth models of ordinal outcomes with invariant thresholds (Mehta, Neale and
+    Flay 2004, Psychological Methods 9(3), 301-333). Needs at least three categories
+    (two thresholds fix the scale); returns None otherwise or when the fit fails.
+
+    References
+    ----------
+    Mehta, P. D., Neale, M. C. and Flay, B. R. (2004). Squeezing interval change from
+    ordinal panel data: latent growth curves with ordinal outcomes. Psychological
+    Methods, 9, 301-333.
+    """
+    from scipy import optimize
+
+    margins = np.asarray(margins, dtype=float)
+    used = margins.sum(axis=0) > 0
+    margins = margins[:, used]
+    n_waves, n_cat = margins.shape
+    if n_cat < 3 or n_waves < 1 or np.any(margins.sum(axis=1) <= 0):
+        return None
+    pooled = thresholds(margins.sum(axis=0))[1:-1]
+    start = np.concatenate([pooled, np.zeros(n_waves - 1), np.zeros(n_waves - 1)])
+
+    def unpack(x):
+        tau = x[:n_cat - 1]
+        mu = np.concatenate([[0.0], x[n_cat - 1:n_cat - 1 + n_waves - 1]])
+        sd = np.concatenate([[1.0], np.exp(x[n_cat - 1 + n_waves - 1:])])
+        return tau, mu, sd
+
+    def negloglik(x):
+        tau, mu, sd = unpack(x)
+        if np.any(np.diff(tau) <= 0):
+            return 1e20
+        z = (tau[None, :] - mu[:, None]) / sd[:, None]
+        cdf = np.concatenate([np.zeros((n_waves, 1)), ndtr(z), np.ones((n_waves, 1))],
+                             axis=1)
+        prob = np.clip(np.diff(cdf, axis=1), 1e-300, None)
+        return -float(np.sum(margins * np.log(prob)))
+
+    res = optimize.minimize(negloglik, start, method="Nelder-Mead" if start.size <= 3
+                            else "BFGS", options={"maxiter": 5000})
+    if not np.isfinite(res.fun):
+        return None
+    _, mu, sd = unpack(res.x)
+    return mu, sd

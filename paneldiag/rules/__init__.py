@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from paneldiag.results import plain
+from paneldiag.summaries.contingency import PairwiseTables
 from paneldiag.rules.thresholds import Thresholds, default_thresholds, load_thresholds
 from paneldiag.rules.verdicts import FAMILY_IDS, Judgement, inputs_from_patterns, judge
 
@@ -47,8 +48,9 @@ def judge_context(ctx) -> Judgement:
 
     # the summaries of the screen when already built; else only the two kinds needed
     summaries = ctx.__dict__.get("summaries") or {}
-    if PatternMoments not in summaries or WaveMoments not in summaries:
-        summaries = summarise(ctx.panel, ctx.measure, [PatternMoments, WaveMoments],
+    needed = [PatternMoments, WaveMoments, PairwiseTables]
+    if any(kind not in summaries for kind in needed):
+        summaries = summarise(ctx.panel, ctx.measure, needed,
                               chunk_units=ctx.options.chunk_units,
                               n_replicates=ctx.options.n_replicates)
     patterns = summaries[PatternMoments]
@@ -74,7 +76,7 @@ def judge_context(ctx) -> Judgement:
             "expected": _nested(rac, "expected_under_independence")}
         if any(v is None for v in inp.residual_autocorrelation.values()):
             inp.residual_autocorrelation = None
-    _use_polychoric(inp, ctx.results.get("correlation"), em)
+    _use_polychoric(inp, _polychoric_matrix(ctx, summaries), em, _margins(summaries))
     never_observed = ctx.panel.n_units - inp.n_units
     inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
@@ -94,33 +96,86 @@ def relative_kurtosis(moments) -> float:
     return float(max(1.0, np.mean(kurt))) if kurt.size else 1.0
 
 
-def _use_polychoric(inp, corr, em) -> None:
-    """For an ordinal measure, the structures are fitted to the polychoric correlations
-    (two-stage, with the mean pairwise count as N) instead of Pearson moments; the
-    means are put in within-wave SD units to match. Kept Pearson when the polychoric
-    matrix is not positive definite."""
-    if corr is None or getattr(corr, "scale", None) != "ordinal" or \
-            corr.primary != "polychoric":
+def _margins(summaries) -> tuple | None:
+    """Category counts of each wave, (T, L), of all units and of each delete-a-group
+    copy, from the pairwise tables' diagonal."""
+    tables = summaries.get(PairwiseTables)
+    if tables is None or tables.counts is None:
+        return None
+    return (_wave_margins(tables.pooled()),
+            [_wave_margins(copy) for copy in tables.leave_one_out()])
+
+
+def _polychoric_matrix(ctx, summaries):
+    """(r, n_pairs, leave-one-group-out copies of r) of an ordinal measure: the
+    dependence section's polychoric matrices, or the same computed from the pairwise
+    tables when that section has not run; None for a continuous measure."""
+    corr = ctx.results.get("correlation")
+    if corr is not None:
+        if getattr(corr, "scale", None) != "ordinal" or corr.primary != "polychoric":
+            return None
+        return (np.asarray(corr.matrix, dtype=float), np.asarray(corr.n_pairs, dtype=float),
+                np.asarray(corr.replicates, dtype=float))
+    from paneldiag.diagnostics.dependence import _polychoric_matrices, decide_scale
+    tables = summaries.get(PairwiseTables)
+    if tables is None or decide_scale(tables, getattr(ctx.options, "scale", "auto"))[0] \
+            != "ordinal":
+        return None
+    r, n = _polychoric_matrices(tables)
+    return r[0], n[0], r[1:]
+
+
+def _wave_margins(counts: np.ndarray) -> np.ndarray:
+    """Category counts of each wave, (T, L), from (T, T, L, L) pairwise tables."""
+    return np.stack([np.diagonal(counts[w, w]) for w in range(counts.shape[0])])
+
+
+def _use_polychoric(inp, matrix, em, margins) -> None:
+    """For an ordinal measure, the structures are fitted to the covariance of the
+    normal variables behind the scores (two-stage, with the mean pairwise count as N)
+    instead of Pearson moments: the polychoric correlations, scaled by the latent SDs
+    and with the latent means that thresholds held equal across waves give
+    (``polychoric.latent_scale``), so growth in mean and spread still shows. With fewer
+    than three categories the latent variances are not identified: correlations and
+    standardised means. Kept Pearson when the polychoric matrix is not positive
+    definite."""
+    if matrix is None:
         return
-    r = np.asarray(corr.matrix, dtype=float)
-    n = np.asarray(corr.n_pairs, dtype=float)
+    r, n, copies = matrix
     if not (np.all(np.isfinite(r)) and np.all(np.isfinite(n))):
         return
     r = 0.5 * (r + r.T)
     np.fill_diagonal(r, 1.0)
     if np.linalg.eigvalsh(r)[0] <= 1e-8:
         return
+    from paneldiag.diagnostics.polychoric import latent_scale
     from paneldiag.rules import structures as st
-    sd = np.sqrt(np.diag(np.asarray(em.covariance, dtype=float)))
     t = len(r)
-    inp.mu = np.asarray(em.means, dtype=float) / np.where(sd > 0, sd, 1.0)
+    copies = np.array(copies, dtype=float)
+    np.einsum("kii->ki", copies)[:] = 1.0
+    scale = latent_scale(margins[0]) if margins is not None and len(margins[0]) == t \
+        else None
+    if scale is not None and np.all(np.isfinite(scale[0])) and np.all(scale[1] > 0):
+        inp.mu = scale[0]
+        r = r * np.outer(scale[1], scale[1])
+        for copy, counts in zip(copies, margins[1]):
+            own = latent_scale(counts)
+            sd = own[1] if own is not None and np.all(own[1] > 0) else scale[1]
+            copy *= np.outer(sd, sd)
+        inp.moments_kind = "polychoric-latent"
+    else:
+        sd = np.sqrt(np.diag(np.asarray(em.covariance, dtype=float)))
+        inp.mu = np.asarray(em.means, dtype=float) / np.where(sd > 0, sd, 1.0)
+        inp.moments_kind = "polychoric"
     inp.sigma = r
     inp.pair_n = n
     inp.n_units = int(round(float(np.mean(n[np.triu_indices(t, 1)])))) if t > 1 else \
         inp.n_units
     inp.likelihood = st.CovarianceLikelihood(r)
-    inp.moments_kind = "polychoric"
-    inp.kurtosis = 1.0   # the scores' kurtosis says nothing of the latent normal variables
+    # the scores' kurtosis says nothing of the latent normal variables: each test is
+    # scaled from the delete-a-group copies of the polychoric matrix instead
+    inp.kurtosis = 1.0
+    inp.copies = copies if np.all(np.isfinite(copies)) else None
 
 
 def _basis_section(ctx):

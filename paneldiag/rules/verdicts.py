@@ -231,10 +231,12 @@ class Inputs:
     # relative multivariate kurtosis (>= 1): the likelihood-ratio statistics are divided
     # by it (the elliptical correction of Browne 1984)
     kurtosis: float = 1.0
-    # 'pearson' (ML moments of the scores) or 'polychoric' (ordinal measure: the
-    # structures are fitted to the polychoric correlations)
+    # 'pearson' (ML moments of the scores), 'polychoric' (ordinal measure: the
+    # polychoric correlations) or 'polychoric-latent' (scaled by the latent SDs)
     moments_kind: str = "pearson"
     wave_labels: tuple | None = None
+    # delete-a-group copies of sigma (K, T, T) for the scaled difference tests
+    copies: np.ndarray | None = None
 
 
 def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
@@ -342,6 +344,7 @@ def moments_of(inp: Inputs) -> st.Moments:
     likelihood = inp.likelihood or st.CovarianceLikelihood(inp.sigma)
     m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
     m.kurtosis = max(float(inp.kurtosis), 1.0)
+    m.copies = inp.copies
     return m
 
 
@@ -401,11 +404,17 @@ def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary:
     if not isinstance(simple_fit, st.Fit):
         return None
     stat, df, p = st.likelihood_ratio(simple_fit, rich_fit, ev.moments.n_units, boundary)
-    if kurtosis > 1.0:
+    copies = ev.moments.copies
+    if copies is not None:
+        # scaled by the replicate groups; the scaling is itself estimated from K - 1
+        # degrees of freedom, so the scaled statistic / df is referred to F(df, K - 1)
+        stat = stat / st.scaling(simple_fit, rich_fit, ev.moments)
+        p = float(dist.f_sf(stat / df, df, len(copies) - 1))
+    elif kurtosis > 1.0:
         stat = stat / kurtosis
         p = float(dist.chi2_sf(stat, df))
-        if boundary:
-            p = 0.5 * p if stat > 0 else 1.0
+    if boundary and (copies is not None or kurtosis > 1.0):
+        p = 0.5 * p if stat > 0 else 1.0
     return stat, df, p, simple_fit, rich_fit
 
 
@@ -598,7 +607,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     led.value("n_effective", float(ev.n_eff), 1)
     led.value("likelihood", "full information from the response patterns"
               if ev.moments.full else "complete-data" if inp.moments_kind == "pearson"
-              else "polychoric correlations")
+              else inp.moments_kind)
 
     # ------------------------------------------------ caveats about identification
     general += _identification_caveats(inp, led, th, t)
@@ -612,6 +621,11 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         general.append("The structures are fitted to the polychoric correlations of the "
                        "ordinal scores, whose variances are fixed at 1: growth shows only "
                        "in the correlations, not in variances that fan out.")
+    elif inp.moments_kind == "polychoric-latent":
+        general.append("The structures are fitted to the covariance of the normal "
+                       "variables behind the ordinal scores (polychoric correlations scaled "
+                       "by latent SDs, thresholds held equal across waves): the verdicts "
+                       "assume the categories mean the same at every wave.")
 
     # ------------------------------------------------ dependence between waves
     sd = np.sqrt(np.diag(inp.sigma))
@@ -1022,7 +1036,7 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
     else:
         led.value("dropout_smd", float(inp.dropout_smd) if np.isfinite(inp.dropout_smd)
                   else None)
-    if inp.categories < th["min_categories"] and inp.moments_kind == "polychoric":
+    if inp.categories < th["min_categories"] and inp.moments_kind.startswith("polychoric"):
         out.append(f"Ordinal measure with {led.value('categories', int(inp.categories))} "
                    f"categories (fewer than {led.thr('min_categories')}): the structures are "
                    "fitted to polychoric correlations, with the mean pairwise count as the "
