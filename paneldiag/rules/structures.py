@@ -143,6 +143,14 @@ class Structure:
 
 # ------------------------------------------------------------------- likelihoods
 
+def _well_conditioned(chol: np.ndarray) -> bool:
+    """A structure's Sigma far from singular (its Cholesky diagonal within 1e-7 of
+    its largest entry): beyond that, log|Sigma| and Sigma^-1 lose every digit and a fit
+    could run down a numerical cliff to a discrepancy below the saturated model's."""
+    d = np.diag(chol)
+    return bool(np.all(np.isfinite(d)) and d.min() > 1e-7 * d.max())
+
+
 class CovarianceLikelihood:
     """F = log|Sigma| + tr(S Sigma^-1): complete data (S the ML covariance), or the
     first stage of a fit to the EM covariance."""
@@ -155,6 +163,8 @@ class CovarianceLikelihood:
             chol = np.linalg.cholesky(sigma)
             inv = np.linalg.inv(sigma)
         except np.linalg.LinAlgError:
+            return None
+        if not _well_conditioned(chol):
             return None
         logdet = 2.0 * np.log(np.diag(chol)).sum()
         value = logdet + float(np.sum(self.s * inv))
@@ -206,6 +216,8 @@ class PatternLikelihood:
                 chol = np.linalg.cholesky(sigma)
                 precision = np.linalg.inv(sigma)
             except np.linalg.LinAlgError:
+                return None
+            if not _well_conditioned(chol):
                 return None
             logdet_all = 2.0 * float(np.log(np.diag(chol)).sum())
             blocks = []
@@ -489,6 +501,8 @@ def _fit(structure: Structure, m: Moments) -> "Fit | Skipped":
     value = float(best.fun)
     if not np.isfinite(value) or value >= 1e9:
         return Skipped(structure, "the fit did not reach a positive definite covariance")
+    if np.isfinite(m.saturated) and value < m.saturated - 1e-8 * max(1.0, abs(m.saturated)):
+        return Skipped(structure, "the fit ran to a numerically singular covariance")
     theta = best.x
     sigma, grads = structure.build(theta, m.times)
     df = n_moments - q
