@@ -432,7 +432,7 @@ def _bic_and_power(report: dict, families: list) -> list[str]:
         parts = [f"{str(r['simpler']).replace('_', ' ')} from "
                  f"{str(r['richer']).replace('_', ' ')} (power {dec(r['power'])}"
                  + (f"; about {count(r['units_for_power_90'])} units for power "
-                    f"{dec(r.get('target_power'), 1)})" if r.get("units_for_power_90")
+                    f"{dec(r.get('target_power'))})" if r.get("units_for_power_90")
                     else ")") for r in weak]
         out.append("At these data's estimates the panel had little power to tell apart "
                    + _join(parts) + ", so the absence of those parts is weak evidence.")

@@ -95,17 +95,15 @@ def verdicts_block(report: dict, color: bool) -> list[str]:
 
 
 def power_lines(rows: list, display: dict) -> list[str]:
-    """What this panel can tell apart: the power of each part test at its estimates."""
-    if not rows:
-        return []
-    body = []
+    """The neighbouring families this panel did not tell apart, each with the power
+    (at these data's estimates) of the test between them."""
+    out = []
     for r in rows:
+        if r.get("evidenced"):
+            continue
         units = r.get("units_for_power_90")
-        body.append([f"{display.get(r['simpler'], r['simpler'])} vs "
-                     f"{display.get(r['richer'], r['richer'])}", f"{r['power']:.2f}",
-                     "–" if units is None else f"{units:,}",
-                     "yes" if r.get("evidenced") else "no"])
-    table = tabulate(body, headers=["neighbours", "power", "units for 0.9", "told apart"],
-                     tablefmt="plain", disable_numparse=True, stralign="left")
-    return (["  what this panel can tell apart (power of the test at these data's "
-             "estimates):"] + ["    " + line for line in table.splitlines()])
+        more = f"; about {units:,} units for {r['target_power']:.1f}" if units else ""
+        out.append(f"  not told apart: {display.get(r['simpler'], r['simpler'])} | "
+                   f"{display.get(r['richer'], r['richer'])} (power {r['power']:.2f} at "
+                   f"these estimates{more})")
+    return out

@@ -623,6 +623,25 @@ def scaling(simple: Fit, rich: Fit, m: Moments) -> float:
     return float(max(c, 1.0)) if np.isfinite(c) else 1.0
 
 
+def copy_inflation(sigma: np.ndarray, copies: np.ndarray, n: float) -> float:
+    """How much more the covariances vary across the delete-a-group copies than normal
+    theory says, (sigma_ss sigma_tt + sigma_st^2) / n, on average over the distinct
+    off-diagonal entries (at least 1): one scaling for the likelihood that BIC reads,
+    where each test has its own (``scaling``)."""
+    k, t = len(copies), sigma.shape[0]
+    if k < 2 or t < 2:
+        return 1.0
+    iu = np.triu_indices(t, 1)
+    reps = copies[:, iu[0], iu[1]]
+    jack = (k - 1) / k * np.sum((reps - reps.mean(axis=0)) ** 2, axis=0)
+    var = np.diag(sigma)
+    normal = (var[iu[0]] * var[iu[1]] + sigma[iu] ** 2) / n
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = jack / normal
+    ratio = ratio[np.isfinite(ratio)]
+    return float(max(1.0, np.mean(ratio))) if ratio.size else 1.0
+
+
 def noncentrality(simple: Structure, rich: Fit, m: Moments) -> float:
     """N times the discrepancy of ``simple`` from the covariance ``rich`` implies, at
     this panel's response patterns: the noncentrality of the test of the part that

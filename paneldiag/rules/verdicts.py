@@ -345,6 +345,8 @@ def moments_of(inp: Inputs) -> st.Moments:
     m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
     m.kurtosis = max(float(inp.kurtosis), 1.0)
     m.copies = inp.copies
+    if inp.copies is not None:
+        m.kurtosis = st.copy_inflation(inp.sigma, inp.copies, float(inp.n_units))
     return m
 
 
@@ -521,13 +523,17 @@ def _trait_share(fit: st.Fit, times: np.ndarray):
 
 
 def _slope_share(fit: st.Fit, times: np.ndarray):
-    """Share of the last wave's variance from the unit-specific change factors."""
+    """Share of the variance of change from the first to the last wave, y_T - y_1, that
+    the unit-specific change factors carry: individual differences in change, not in
+    level, are what growth adds to a stationary process."""
     def fn(p):
         part, values = _part_values(fit, p, "growth")
-        lam = part.loadings(values, len(times))[-1, 1:]
+        lam = part.loadings(values, len(times))
+        step = lam[-1, 1:] - lam[0, 1:]
         psi = part.psi(values)[1:, 1:]
         sigma = st.implied(fit.structure, _theta(p), times)
-        return float(lam @ psi @ lam) / sigma[-1, -1]
+        change = sigma[-1, -1] + sigma[0, 0] - 2 * sigma[0, -1]
+        return float(step @ psi @ step) / change
     return fn
 
 
@@ -611,12 +617,18 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
 
     # ------------------------------------------------ caveats about identification
     general += _identification_caveats(inp, led, th, t)
-    if inp.kurtosis > 1.0:
-        led.value("kurtosis_scaling", float(inp.kurtosis))
-    if inp.kurtosis >= 1.1:
+    scale = ev.moments.kurtosis
+    if scale > 1.0:
+        led.value("likelihood_scaling", float(scale))
+    if inp.copies is not None and scale >= 1.1:
+        general.append(f"The correlations vary more across the replicate groups than "
+                       f"normal theory says (by a factor of {_f(scale)} on average): each "
+                       "test is scaled by its own factor from the replicate groups and BIC "
+                       "reads the likelihood divided by the average.")
+    elif scale >= 1.1:
         general.append(f"Scores with heavier tails than normal (relative kurtosis "
-                       f"{_f(inp.kurtosis)}): every likelihood-ratio statistic is divided "
-                       "by it (Browne's elliptical correction).")
+                       f"{_f(scale)}): every likelihood-ratio statistic and BIC's "
+                       "likelihood are divided by it (Browne's elliptical correction).")
     if inp.moments_kind == "polychoric":
         general.append("The structures are fitted to the polychoric correlations of the "
                        "ordinal scores, whose variances are fixed at 1: growth shows only "
@@ -668,8 +680,9 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         slope = _clip(gfit.derived(_slope_share(gfit, times)))
         slope_text = led.estimate("slope_share", *slope)
         if p_growth is not None:
-            slope_sentence = (f"Unit-specific growth: share of the last wave's variance from "
-                              f"unit slopes {slope_text} (counts from "
+            slope_sentence = (f"Unit-specific growth: share of the variance of change from "
+                              f"the first to the last wave carried by unit slopes "
+                              f"{slope_text} (counts from "
                               f"{led.thr('min_slope_share')}); test against a stationary "
                               f"trait + carry-over structure: {growth_test_text} (threshold "
                               f"{led.thr('alpha')}).")
@@ -850,7 +863,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                  "growth_autoregressive": G and AG}
     for fam in GROWTH_SHAPES:
         evidenced[fam] = G and fam == target
-    _choose_by_bic(ev, evidenced, verdict, ev_text, led, th)
+    power = _power_rows(ev, th, inp.kurtosis)
+    _choose_by_bic(ev, evidenced, verdict, ev_text, led, th, power)
 
     # few waves and much error: richer neighbours hide behind the supported family
     rich = [ev.chosen(k) for k in ("autoregressive", "trait_autoregressive",
@@ -880,7 +894,6 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                 verdict[fam] = "plausible"
     own: dict[str, list[str]] = {}   # caveats of one family
     _judge_fit(ev, verdict, ev_text, general, led, th, inp, own)
-    power = _power_rows(ev, th, inp.kurtosis)
     _power_sentences(power, verdict, ev_text, led, th)
     return _finish(inp, th, led, verdict, strength, ev_text, general, ev,
                    dict(G=G, S=S, A=A, AG=AG, shape=shape_kind, flat=flat), power, own)
@@ -1060,7 +1073,7 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
 
 
 def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
-                   led: Citations, th: Thresholds) -> None:
+                   led: Citations, th: Thresholds, power: list) -> None:
     """Supported: of the families whose defining part is evidenced (a candidate nested in
     another candidate giving way to it), the one with the best BIC, unless a family it
     does not nest is ahead by more than ``bic_margin``. An unlikely family within the
@@ -1096,7 +1109,22 @@ def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
         ahead = [f for f, d in ev.difference.items()
                  if ev.difference[chosen] - d > margin
                  and not covers(ev.chosen(chosen).structure, ev.chosen(f).structure)]
-        if not ahead:
+        # random slopes make correlations decay like carry-over: a carry-over family is
+        # not supported while a growth family it does not nest is as good by BIC and the
+        # growth test could not have seen growth of the estimated size
+        growth_power = next((r.power for r in power if r.test == "growth"), np.nan)
+        close = [g for g in GROWTH if g in ev.difference and chosen in
+                 ("autoregressive", "trait_autoregressive")
+                 and ev.difference[g] - ev.difference[chosen] <= margin
+                 and not covers(ev.chosen(chosen).structure, ev.chosen(g).structure)]
+        if close and not growth_power >= MIN_GUARD_POWER:
+            verdict[chosen] = "plausible"
+            ev_text[chosen].append(
+                f"Not told apart from {DISPLAY[close[0]]}, whose BIC is within "
+                f"{led.thr('bic_margin')}: the test of unit-specific growth has power "
+                f"{led.value('power_growth', float(growth_power))} at these estimates, and "
+                "random slopes make correlations decay like carry-over.")
+        elif not ahead:
             verdict[chosen] = "supported"
         else:
             rival = min(ahead, key=lambda f: ev.difference[f])
@@ -1199,6 +1227,8 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
                 verdict[fam] = "plausible"
 
 
+# power below which a test that did not reject cannot rule its part out (common practice)
+MIN_GUARD_POWER = 0.8
 # the test whose power decides each family's defining part
 DEFINING_TEST = {"stable_trait": "trait", "autoregressive": "carry",
                  "trait_autoregressive": "trait", "linear_growth": "growth",
@@ -1226,8 +1256,9 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
             continue
         power, _ = lr_power(lam, df, alpha, boundary)
         lam90 = noncentrality_for_power(0.9, df, alpha, boundary)
-        n90 = (int(np.ceil(ev.moments.n_units * lam90 / lam)) if lam > 0 and
-               np.isfinite(lam90) else None)
+        # no effect at the estimates (the richer fit is the simpler one): no unit count
+        n90 = (int(np.ceil(ev.moments.n_units * lam90 / lam)) if lam > 1e-6 and
+               np.isfinite(lam90) and ev.moments.n_units * lam90 / lam < 1e9 else None)
         rows.append(PartPower(name, simple_fit.structure.name, rich_fit.structure.name,
                               int(df), round(float(lam), 3), round(float(power), 3), n90,
                               bool(p < alpha)))
@@ -1265,7 +1296,7 @@ def _power_sentences(power: list, verdict: dict, ev_text: dict, led: Citations,
         row = by_test.get(test)
         if row is None or verdict.get(fam) != "plausible" or row.evidenced:
             continue
-        if row.power < 0.8:
+        if row.power < MIN_GUARD_POWER:
             more = (f"; about {row.units_for_power_90} units would give 0.9"
                     if row.units_for_power_90 else "")
             ev_text[fam].append(
