@@ -48,9 +48,12 @@ DEPARTURE_GRID = {"departure": DEPARTURES, "n_units": (100, 300, 1000), "n_waves
                   "reliability": (1.0,), "dropout": ("none", "mcar")}
 DEPARTURE_REDUCED_GRID = {"departure": DEPARTURES[1:], "n_units": (1000,), "n_waves": (6,),
                           "reliability": (1.0,), "dropout": ("none",)}
+DEPARTURE_TARGET_GRID = {"departure": DEPARTURES, "n_units": (1000,), "n_waves": (6, 10),
+                         "reliability": (1.0,), "dropout": ("none", "mcar")}
 SEED = 20240611
 GRIDS = {"full": FULL_GRID, "target": TARGET_GRID, "reduced": REDUCED_GRID,
-         "departures": DEPARTURE_GRID, "departures-reduced": DEPARTURE_REDUCED_GRID}
+         "departures": DEPARTURE_GRID, "departures-target": DEPARTURE_TARGET_GRID,
+         "departures-reduced": DEPARTURE_REDUCED_GRID}
 
 
 @dataclass(frozen=True)

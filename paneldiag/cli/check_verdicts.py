@@ -21,14 +21,16 @@ import sys
 
 import click
 
-GRID_NAMES = ["full", "target", "reduced", "departures", "departures-reduced"]
+GRID_NAMES = ["full", "target", "reduced", "departures", "departures-target",
+              "departures-reduced"]
 
 
 @click.command("check-verdicts")
 @click.option("--grid", type=click.Choice(GRID_NAMES), default="full",
               show_default=True, help="The full grid, its target region (N >= 1000, "
                                       "T >= 6), the small grid the test suite runs, or "
-                                      "the departure grid (full or reduced).")
+                                      "the departure grid (full, its target region, or "
+                                      "reduced).")
 @click.option("--reps", type=click.IntRange(1), default=20, show_default=True,
               help="Simulated panels per cell of the grid.")
 @click.option("--seed", type=int, default=None, help="Seed of the whole study.")
