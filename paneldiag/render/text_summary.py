@@ -57,9 +57,11 @@ def key_figures(report: dict, heading) -> list[str]:
         parts.append(f"r at distance {d:g}: {_est(node)}")
     fit = report.get("decay_fit") or {}
     if fit.get("identified"):
-        for key, label in (("stable_share", "stable share"),
-                           ("rho", "carry-over per " + ("wave interval"
-                                    if fit.get("distance") == "lag" else time_unit(report)))):
+        # named after the lag-profile fit, apart from the verdicts' structure estimates
+        for key, label in (("stable_share", "lag-profile stable share"),
+                           ("rho", "lag-profile carry-over per " + (
+                               "wave interval" if fit.get("distance") == "lag"
+                               else time_unit(report)))):
             if _est(fit.get(key)):
                 parts.append(f"{label} {_est(fit.get(key))}")
     elif fit.get("shape"):

@@ -864,7 +864,9 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     for fam in GROWTH_SHAPES:
         evidenced[fam] = G and fam == target
     power = _power_rows(ev, th, inp.kurtosis)
-    _choose_by_bic(ev, evidenced, verdict, ev_text, led, th, power)
+    # relevant growth ruled out: the slopes' share interval lies below its threshold
+    growth_excluded = bool(np.isfinite(slope[2]) and slope[2] < th["min_slope_share"])
+    _choose_by_bic(ev, evidenced, verdict, ev_text, led, th, power, growth_excluded)
 
     # few waves and much error: richer neighbours hide behind the supported family
     rich = [ev.chosen(k) for k in ("autoregressive", "trait_autoregressive",
@@ -1073,7 +1075,8 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
 
 
 def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
-                   led: Citations, th: Thresholds, power: list) -> None:
+                   led: Citations, th: Thresholds, power: list,
+                   growth_excluded: bool = False) -> None:
     """Supported: of the families whose defining part is evidenced (a candidate nested in
     another candidate giving way to it), the one with the best BIC, unless a family it
     does not nest is ahead by more than ``bic_margin``. An unlikely family within the
@@ -1110,11 +1113,12 @@ def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
                  if ev.difference[chosen] - d > margin
                  and not covers(ev.chosen(chosen).structure, ev.chosen(f).structure)]
         # random slopes make correlations decay like carry-over: a carry-over family is
-        # not supported while a growth family it does not nest is as good by BIC and the
-        # growth test could not have seen growth of the estimated size
+        # not supported while a growth family it does not nest is as good by BIC, the
+        # growth test could not have seen growth of the estimated size, and the slopes'
+        # share interval does not rule relevant growth out
         growth_power = next((r.power for r in power if r.test == "growth"), np.nan)
-        close = [g for g in GROWTH if g in ev.difference and chosen in
-                 ("autoregressive", "trait_autoregressive")
+        close = [g for g in GROWTH if g in ev.difference and not growth_excluded
+                 and chosen in ("autoregressive", "trait_autoregressive")
                  and ev.difference[g] - ev.difference[chosen] <= margin
                  and not covers(ev.chosen(chosen).structure, ev.chosen(g).structure)]
         if close and not growth_power >= MIN_GUARD_POWER:
@@ -1156,8 +1160,8 @@ def comparative_fit(fit: st.Fit, baseline: st.Fit | None, n: float, t: int) -> f
 
 
 def _independence(ev: Evidence) -> st.Fit | None:
-    for structure, fit in ev.families["occasion_noise"].options:
-        if structure.part("error").kind == "wave" and isinstance(fit, st.Fit):
+    for spec, fit in ev.families["occasion_noise"].options:
+        if spec.part("error").kind == "wave" and isinstance(fit, st.Fit):
             return fit
     return None
 
@@ -1402,12 +1406,12 @@ def _spec_table(ev: Evidence, inp: Inputs) -> dict:
     out = {}
     for fam, ff in ev.families.items():
         rows = []
-        for structure, fit in ff.options:
+        for spec, fit in ff.options:
             if isinstance(fit, st.Skipped):
-                rows.append({"specification": structure.label, "skipped": fit.reason})
+                rows.append({"specification": spec.label, "skipped": fit.reason})
                 continue
             rows.append({
-                "specification": structure.label, "chosen": fit is ff.chosen,
+                "specification": spec.label, "chosen": fit is ff.chosen,
                 "parameters": {k: _r(v, 4) for k, v in fit.params.items()},
                 "chi2": _r(fit.chi2, 2), "df": int(fit.df), "p_value": _r(fit.p_value, 4),
                 "bic": _r(fit.bic, 2),
