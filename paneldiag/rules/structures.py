@@ -143,12 +143,20 @@ class Structure:
 
 # ------------------------------------------------------------------- likelihoods
 
-def _well_conditioned(chol: np.ndarray) -> bool:
-    """A structure's Sigma far from singular (its Cholesky diagonal within 1e-7 of
-    its largest entry): beyond that, log|Sigma| and Sigma^-1 lose every digit and a fit
-    could run down a numerical cliff to a discrepancy below the saturated model's."""
+def _factor(sigma: np.ndarray):
+    """(log|Sigma|, Sigma^-1), or None unless Sigma is positive definite and far from
+    singular (its Cholesky diagonal within 1e-7 of its largest entry): beyond that,
+    log|Sigma| and Sigma^-1 lose every digit and a fit could run down a numerical cliff
+    to a discrepancy below the saturated model's."""
+    try:
+        chol = np.linalg.cholesky(sigma)
+        inv = np.linalg.inv(sigma)
+    except np.linalg.LinAlgError:
+        return None
     d = np.diag(chol)
-    return bool(np.all(np.isfinite(d)) and d.min() > 1e-7 * d.max())
+    if not (np.all(np.isfinite(d)) and d.min() > 1e-7 * d.max()):
+        return None
+    return 2.0 * float(np.log(d).sum()), inv
 
 
 class CovarianceLikelihood:
@@ -159,14 +167,10 @@ class CovarianceLikelihood:
         self.s = np.asarray(s, dtype=float)
 
     def value_grad(self, sigma: np.ndarray):
-        try:
-            chol = np.linalg.cholesky(sigma)
-            inv = np.linalg.inv(sigma)
-        except np.linalg.LinAlgError:
+        factored = _factor(sigma)
+        if factored is None:
             return None
-        if not _well_conditioned(chol):
-            return None
-        logdet = 2.0 * np.log(np.diag(chol)).sum()
+        logdet, inv = factored
         value = logdet + float(np.sum(self.s * inv))
         return value, inv - inv @ self.s @ inv
 
@@ -212,14 +216,10 @@ class PatternLikelihood:
         from paneldiag.diagnostics.missingness import _scatter
         t = self.t
         with np.errstate(all="ignore"):
-            try:
-                chol = np.linalg.cholesky(sigma)
-                precision = np.linalg.inv(sigma)
-            except np.linalg.LinAlgError:
+            factored = _factor(sigma)
+            if factored is None:
                 return None
-            if not _well_conditioned(chol):
-                return None
-            logdet_all = 2.0 * float(np.log(np.diag(chol)).sum())
+            logdet_all, precision = factored
             blocks = []
             a = np.zeros(t * t)
             b = np.zeros(t)

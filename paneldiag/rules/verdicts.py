@@ -886,14 +886,12 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     # with a singular covariance of the waves (fewer effective units than waves) no
     # structure can be tested against the data: nothing is more than plausible
     if ev.moments.singular:
-        general.append(f"The covariance of the waves is singular (about "
-                       f"{led.value('n_effective', float(ev.n_eff), 1)} units with data for "
-                       f"{led.value('n_waves', int(t))} waves): no family can be tested "
-                       "against it, so none is rated above plausible; the specifications "
-                       "are still compared by BIC.")
-        for fam in FAMILY_IDS:
-            if verdict.get(fam) == "supported":
-                verdict[fam] = "plausible"
+        _cap_at_plausible(verdict, general,
+                          f"The covariance of the waves is singular (about "
+                          f"{led.value('n_effective', float(ev.n_eff), 1)} units with data "
+                          f"for {led.value('n_waves', int(t))} waves): no family can be "
+                          "tested against it, so none is rated above plausible; the "
+                          "specifications are still compared by BIC.")
     own: dict[str, list[str]] = {}   # caveats of one family
     _judge_fit(ev, verdict, ev_text, general, led, th, inp, own)
     _power_sentences(power, verdict, ev_text, led, th)
@@ -1220,15 +1218,22 @@ def _judge_fit(ev: Evidence, verdict: dict, ev_text: dict, general: list, led: C
              and ev.chosen(fam).rmsea_ci[0] > th["gross_rmsea"]]
     if cfis and len(gross) == len(cfis):
         best_cfi = max(cfis.values())
-        general.append(f"No family reproduces the covariances even roughly (the best "
-                       f"comparative fit index is {led.value('best_cfi', float(best_cfi))}, "
-                       f"below {led.thr('min_cfi')}, and every RMSEA interval lies above "
-                       f"{led.thr('gross_rmsea')}): no family is rated above plausible; a "
-                       "transformation of the measure (e.g. logarithms for scores that fan "
-                       "out multiplicatively) or another kind of model may be needed.")
-        for fam in FAMILY_IDS:
-            if verdict.get(fam) == "supported":
-                verdict[fam] = "plausible"
+        _cap_at_plausible(verdict, general,
+                          f"No family reproduces the covariances even roughly (the best "
+                          f"comparative fit index is "
+                          f"{led.value('best_cfi', float(best_cfi))}, below "
+                          f"{led.thr('min_cfi')}, and every RMSEA interval lies above "
+                          f"{led.thr('gross_rmsea')}): no family is rated above plausible; "
+                          "a transformation of the measure (e.g. logarithms for scores that "
+                          "fan out multiplicatively) or another kind of model may be needed.")
+
+
+def _cap_at_plausible(verdict: dict, general: list, reason: str) -> None:
+    """No family above plausible, with the reason as a caveat of every family."""
+    general.append(reason)
+    for fam in FAMILY_IDS:
+        if verdict.get(fam) == "supported":
+            verdict[fam] = "plausible"
 
 
 # power below which a test that did not reject cannot rule its part out (common practice)
