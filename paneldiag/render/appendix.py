@@ -160,6 +160,32 @@ def families_table(report: dict) -> Table | None:
                   "caveats"), body, tuple(notes), align="llrrpp")
 
 
+def specifications_table(report: dict) -> Table | None:
+    """Every specification tried for each family: its BIC against the family's chosen
+    one and its RMSEA, or why it was skipped."""
+    section = (report.get("verdict_basis") or {}).get("specifications") or {}
+    body = []
+    for family, entry in section.items():
+        for row in entry.get("specifications") or []:
+            name = str(family).replace("_", " ")
+            if row.get("skipped"):
+                body.append((name, row["specification"], "–", "–", f"skipped: {row['skipped']}"))
+                continue
+            body.append((name, row["specification"],
+                         "chosen" if row.get("chosen") else _v(row.get("bic_vs_chosen"), 1),
+                         "–" if row.get("rmsea") is None else _v(row["rmsea"], 3), ""))
+    if not body:
+        return None
+    return Table(f"{slug(report.get('measure'))}-specifications",
+                 f"{report.get('measure')}: the specifications each family was judged by",
+                 ("family", "specification", "BIC vs chosen", "RMSEA", "note"), tuple(body),
+                 ("Fitted by full-information maximum likelihood under missing at random; "
+                  "the chosen specification has the lowest BIC in its family. A "
+                  "specification is skipped when it has more parameters than distinct "
+                  "covariances, is not identified at these waves, or its fit does not "
+                  "reach a positive definite covariance.",), align="llrrl")
+
+
 def power_table(report: dict) -> Table | None:
     """What this panel can tell apart: the power of each part test at its estimates."""
     rows = [r for r in report.get("power") or [] if isinstance(r, dict)]
@@ -379,7 +405,7 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
                 "Distribution by wave": [wave_table(rep, min_cell)],
                 "Dependence over time": [lag_table(rep, min_cell)],
                 "Process families": [families_table(rep), power_table(rep),
-                                     family_evidence(rep)],
+                                     family_evidence(rep), specifications_table(rep)],
                 "Groups": [group_table(rep)],
             }.get(title, [])
             drawn = [f"{stem}-{n}" for n in figure_names if f"{stem}-{n}" in figures]

@@ -10,7 +10,7 @@ from paneldiag.render.text import heading
 # the statistics that sum up each family's case, by key of verdict_basis.statistics
 KEY_STATS = {
     "occasion_noise": [("adjacent r", "adjacent_correlation")],
-    "stable_trait": [("stable share", "stable_share"), ("trait share", "trait_share"),
+    "stable_trait": [("trait share", "trait_share"), ("stable share", "stable_share"),
                      ("decline", "profile_decline")],
     "autoregressive": [("rho", "carry_rho"), ("stable share", "stable_share")],
     "trait_autoregressive": [("stable share", "stable_share"), ("rho", "carry_rho")],
