@@ -1260,7 +1260,9 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
         _, df, p, simple_fit, rich_fit = res
         boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
         with _one_thread():
-            lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / kurtosis
+            scale = (st.scaling(simple_fit, rich_fit, ev.moments)
+                     if ev.moments.copies is not None else kurtosis)
+            lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / scale
         if not np.isfinite(lam):
             continue
         power, _ = lr_power(lam, df, alpha, boundary)
