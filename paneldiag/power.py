@@ -106,30 +106,66 @@ def neyman_pearson_bound(sigma_true: np.ndarray, sigma_null: np.ndarray, n: floa
     return float(stats.norm.sf((critical - mean1) / sd1))
 
 
+def monotone_patterns(n_waves: int, hazard: float) -> tuple[np.ndarray, np.ndarray]:
+    """Response patterns of monotone dropout with a constant hazard after each wave:
+    (observed (T, T) booleans, shares) for units seen through wave 1, 2, ..., T."""
+    observed = np.tril(np.ones((n_waves, n_waves), dtype=bool))
+    stay = (1.0 - hazard) ** np.arange(n_waves)
+    shares = np.append(stay[:-1] * hazard, stay[-1])
+    return observed, shares
+
+
+def pattern_population(sigma: np.ndarray, observed: np.ndarray, shares: np.ndarray,
+                       n: float) -> st.PatternLikelihood:
+    """The full-information likelihood of n units split over response patterns in the
+    given shares, each pattern's moments at their expectation under ``sigma``: N times
+    a structure's discrepancy from it is the noncentrality of a test at these patterns."""
+    from types import SimpleNamespace
+
+    from paneldiag.diagnostics.missingness import _groups
+    t = sigma.shape[0]
+    counts = np.asarray(shares, dtype=float) * n
+    m2 = counts[:, None, None] * sigma[None] * (observed[:, :, None] & observed[:, None, :])
+    patterns = SimpleNamespace(observed=observed, n=counts, mean=np.zeros(observed.shape),
+                               m2=m2)
+    return st.PatternLikelihood(_groups(patterns, np.ones(t, dtype=bool)), t)
+
+
 def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
-                     alpha: float | None = None) -> dict:
-    """The rules' part tests run on population moments (complete data, N = n): by
-    test, (noncentrality, df, p, simpler fit, richer fit)."""
+                     alpha: float | None = None, hazard: float = 0.0) -> dict:
+    """The rules' part tests run on population moments (N = n): by test,
+    (noncentrality, df, p, simpler fit, richer fit). With a dropout ``hazard`` the units
+    fall into the response patterns of monotone dropout (``monotone_patterns``) and the
+    tests use the full-information likelihood of those patterns."""
     times = np.asarray(times, dtype=float)
     t = len(times)
-    inp = verdicts.Inputs(mu=np.asarray(mean, float), sigma=np.asarray(sigma, float),
-                          pair_n=np.full((t, t), float(n)), times=times, n_units=int(n),
-                          retention=1.0, dropout_smd=np.nan, categories=10 ** 6)
+    sigma = np.asarray(sigma, float)
+    likelihood, pair_n = None, np.full((t, t), float(n))
+    if hazard > 0:
+        observed, shares = monotone_patterns(t, hazard)
+        likelihood = pattern_population(sigma, observed, shares, n)
+        pair_n = n * (observed.T * shares) @ observed.astype(float)
+    inp = verdicts.Inputs(mu=np.asarray(mean, float), sigma=sigma, pair_n=pair_n,
+                          times=times, n_units=int(n), retention=1.0, dropout_smd=np.nan,
+                          categories=10 ** 6, likelihood=likelihood)
     alpha = float(default_thresholds()["alpha"] if alpha is None else alpha)
     with verdicts._one_thread():
         return verdicts._fit_all(inp, alpha).tests
 
 
 def part_test_power(test: str, family: str, n_units: int, n_waves: int,
-                    reliability: float = 1.0, alpha: float | None = None) -> TestPower:
+                    reliability: float = 1.0, alpha: float | None = None,
+                    hazard: float = 0.0) -> TestPower:
     """Asymptotic power of the rules' part test ``test`` (a key of
     ``verdicts.PART_TESTS``) when the data come from ``simulate.family_process(family,
-    ...)`` at waves 0..T-1, complete, with ``n_units`` units."""
+    ...)`` at waves 0..T-1 with ``n_units`` units: complete, or with monotone dropout
+    at the given ``hazard`` (the response patterns of the validation's dropout)."""
     alpha = float(default_thresholds()["alpha"] if alpha is None else alpha)
     times = np.arange(n_waves, dtype=float)
     process = family_process(family, times, reliability)
     sigma = population_covariance(process, times)
-    res = population_tests(sigma, population_mean(process, times), times, n_units, alpha)
+    res = population_tests(sigma, population_mean(process, times), times, n_units, alpha,
+                           hazard)
     lam, df, _, simple_fit, rich_fit = res[test]
     boundary = verdicts.PART_TESTS[test][4]
     power, critical = lr_power(lam, df, alpha, boundary)

@@ -223,7 +223,49 @@ def confusion_markdown(rates: dict[str, Rates], title: str) -> str:
     return "\n".join(lines)
 
 
-def report_markdown(results, grid: dict, reps: int, seed: int) -> str:
+# the part tests a family's verdict needs to reject (its defining parts)
+REQUIRED_TESTS = {"occasion_noise": (), "stable_trait": ("dependence",),
+                  "autoregressive": ("carry",), "trait_autoregressive": ("trait", "carry"),
+                  "linear_growth": ("growth",), "quadratic_growth": ("growth",),
+                  "free_shape_growth": ("growth",),
+                  "growth_autoregressive": ("growth", "growth_carry")}
+
+
+def power_bound(condition: Condition) -> float:
+    """The asymptotic power of the weakest of the tests the true family's verdict needs,
+    for the cell's units, waves, reliability and response patterns (monotone dropout at
+    the simulation's hazard; paneldiag.power): recall cannot be expected above it."""
+    from paneldiag.power import part_test_power
+    from paneldiag.simulate import DROPOUT_HAZARD
+    hazard = 0.0 if condition.dropout == "none" else DROPOUT_HAZARD
+    powers = [part_test_power(test, condition.family, condition.n_units, condition.n_waves,
+                              condition.reliability, hazard=hazard).power
+              for test in REQUIRED_TESTS[condition.family]]
+    return min(powers) if powers else 1.0
+
+
+def power_markdown(results) -> str:
+    """Recall against the power bound, per cell of the target region: the target is
+    recall >= 0.95 where the bound is >= 0.95, and recall within 0.05 of the bound
+    elsewhere (with 10 panels a cell, one panel is 0.1 of recall)."""
+    lines = ["**Recall against the power of the tests the verdict needs** (target region; "
+             "bound: the asymptotic power of the weakest required part test at the cell's "
+             "response patterns)", "",
+             "| N | T | reliability | dropout | true family | panels | power bound | recall "
+             "| target |", "|---|---|---|---|---|---|---|---|---|"]
+    for (dep, n, t, rel, drop, fam), k, rec, _, _ in _by_cell(results):
+        condition = Condition(fam, n, t, rel, drop, dep)
+        if not condition.in_target() or dep != "none":
+            continue
+        bound = power_bound(condition)
+        goal = 0.95 if bound >= 0.95 else bound - 0.05
+        lines.append(f"| {n} | {t} | {rel} | {drop} | {fam} | {k} | {bound:.3f} | "
+                     f"{rec:.2f} | {'met' if rec >= goal else 'missed'} |")
+    return "\n".join(lines)
+
+
+def report_markdown(results, grid: dict, reps: int, seed: int,
+                    with_power: bool = False) -> str:
     if "departure" in grid:
         return departures_markdown(results, grid, reps, seed)
     parts = [f"Grid: N {list(grid['n_units'])}, T {list(grid['n_waves'])}, reliability "
@@ -239,6 +281,8 @@ def report_markdown(results, grid: dict, reps: int, seed: int) -> str:
     for n, t, rel, drop, fam, k, rec, worst, to in by_condition(results):
         parts.append(f"| {n} | {t} | {rel} | {drop} | {fam} | {k} | {rec:.2f} | "
                      f"{worst:.2f} | {SHORT[to] if worst > 0 else '–'} |")
+    if with_power and any(c.in_target() for c, _ in results):
+        parts += ["", power_markdown(results)]
     return "\n".join(parts) + "\n"
 
 
@@ -303,6 +347,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--workers", type=int, default=min(2, os.cpu_count() or 1))
     parser.add_argument("--out", help="write the Markdown tables here (else stdout)")
     parser.add_argument("--rules", help="a thresholds file, as for paneldiag screen --rules")
+    parser.add_argument("--no-power", action="store_true",
+                        help="leave out the table of recall against the power bound")
     args = parser.parse_args(argv)
     grid = GRIDS[args.grid]
     if args.rules:
@@ -312,7 +358,7 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.write(f"{done}/{total} panels\n")
         sys.stderr.flush()
     results = run(grid, args.reps, args.seed, args.workers, args.rules, progress)
-    text = report_markdown(results, grid, args.reps, args.seed)
+    text = report_markdown(results, grid, args.reps, args.seed, not args.no_power)
     if args.out:
         from paneldiag.io.output import write_atomic
         write_atomic(args.out, text)

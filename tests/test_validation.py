@@ -139,3 +139,17 @@ def test_departure_report_whatever_the_workers():
     assert "| ordinal5 | free_shape_growth |" in text
     assert "**ordinal5: whole grid**" in text
     assert "| ordinal5 | 300 | 4 | 1.0 | mcar | stable_trait | 1 |" in text
+
+
+def test_power_bound_uses_the_cells_response_patterns():
+    """The bound of a cell is the power of the weakest required test (paneldiag.power,
+    Satorra and Saris 1985, checked against simulated panels in tests/test_power.py);
+    monotone dropout lowers it, and the table marks a cell by the stated target."""
+    complete = validation.Condition("trait_autoregressive", 1000, 6, 0.6, "none")
+    dropout = validation.Condition("trait_autoregressive", 1000, 6, 0.6, "mcar")
+    bound = validation.power_bound(complete)
+    assert bound == pytest.approx(0.656, abs=0.005)   # the information limit, complete data
+    assert validation.power_bound(dropout) < bound - 0.1
+    results = [(complete, "trait_autoregressive")] * 7 + [(complete, "autoregressive")] * 3
+    text = validation.power_markdown(results)
+    assert "| 1000 | 6 | 0.6 | none | trait_autoregressive | 10 | 0.656 | 0.70 | met |" in text

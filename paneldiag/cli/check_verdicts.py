@@ -38,7 +38,10 @@ GRID_NAMES = ["full", "target", "reduced", "departures", "departures-target",
               show_default=True, help="Worker processes.")
 @click.option("--rules", "rules_path", metavar="FILE", help="Verdict thresholds to use.")
 @click.option("--out", metavar="PATH", help="Write the Markdown tables here (else stdout).")
-def command(grid, reps, seed, workers, rules_path, out):
+@click.option("--power/--no-power", default=True, show_default=True,
+              help="Add the table of recall against the power of the tests the verdicts "
+                   "need (the target region; a few minutes).")
+def command(grid, reps, seed, workers, rules_path, out, power):
     """Validate the process-family verdicts on simulated panels of known truth."""
     from paneldiag import validation
     from paneldiag.io.output import write_atomic
@@ -48,7 +51,7 @@ def command(grid, reps, seed, workers, rules_path, out):
     seed = validation.SEED if seed is None else seed
     chosen = validation.GRIDS[grid]
     results = validation.run(chosen, reps, seed, workers, rules_path)
-    text = validation.report_markdown(results, chosen, reps, seed)
+    text = validation.report_markdown(results, chosen, reps, seed, power)
     if out:
         write_atomic(out, text)
     else:
