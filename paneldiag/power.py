@@ -79,9 +79,15 @@ def alpha_for_power(noncentrality: float, df: int, boundary: bool = False,
     lam = max(float(noncentrality), 0.0)
     if boundary and df == 1:
         return float(stats.norm.sf(np.sqrt(lam) - stats.norm.isf(1.0 - power)))
+    if boundary:
+        from scipy.optimize import brentq
+        if lr_power(lam, df, 0.5, True)[0] < power:   # not even at level 0.5
+            return float("nan")
+        if lr_power(lam, df, 1e-15, True)[0] >= power:  # at any level worth stating
+            return 1e-15
+        return float(brentq(lambda a: lr_power(lam, df, a, True)[0] - power, 1e-15, 0.5))
     critical = float(stats.ncx2.isf(power, df, max(lam, 1e-12)))
-    tail = float(stats.chi2.sf(critical, df))
-    return 0.5 * tail if boundary else tail
+    return float(stats.chi2.sf(critical, df))
 
 
 def neyman_pearson_bound(sigma_true: np.ndarray, sigma_null: np.ndarray, n: float,

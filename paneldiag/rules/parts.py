@@ -219,7 +219,13 @@ class QuasiSimplex(Part):
 class Growth(Part):
     """Random intercept and slope (``order`` 1) or intercept, slope and curvature
     (``order`` 2), loadings on ``basis`` (T values from 0 to 1); with ``free_loadings``
-    the slope loadings between the first (0) and the last wave (1) are estimated."""
+    the slope loadings between the first (0) and the last wave (1) are estimated.
+
+    The factors' covariance is Psi = C C' with C lower triangular and a non-negative
+    diagonal (the Cholesky parameterisation of random-effect covariances; Lindstrom and
+    Bates 1988, JASA 83, 1014-1022), so Psi is never indefinite: a zero slope variance
+    forces a zero covariance with the intercept, and growth cannot be mimicked by a
+    covariance without a variance."""
 
     basis: tuple = ()
     order: int = 1
@@ -234,10 +240,9 @@ class Growth(Part):
         return [(i, j) for i in range(q) for j in range(i + 1)]
 
     def names(self, t):
-        out = []
-        for i, j in self._cov_names():
-            out.append(f"{self.FACTORS[i]}_var" if i == j
-                       else f"{self.FACTORS[j]}_{self.FACTORS[i]}_cov")
+        out = [f"{self.FACTORS[i]}_factor" if i == j
+               else f"{self.FACTORS[i]}_on_{self.FACTORS[j]}_factor"
+               for i, j in self._cov_names()]
         if self.free_loadings:
             out += [f"loading_{w + 1}" for w in range(1, t - 1)]
         return out
@@ -251,8 +256,8 @@ class Growth(Part):
     def starts(self, scale):
         start = []
         for i, j in self._cov_names():
-            start.append(0.5 * scale.level if i == j == 0 else
-                         0.1 * scale.mean_var if i == j else 0.0)
+            start.append(np.sqrt(0.5 * scale.level) if i == j == 0 else
+                         np.sqrt(0.1 * scale.mean_var) if i == j else 0.0)
         if self.free_loadings:
             start += list(np.asarray(self.basis, float)[1:-1])
         return [start]
@@ -264,21 +269,28 @@ class Growth(Part):
         columns = [np.ones(t), lam] + ([lam ** 2] if self.order == 2 else [])
         return np.column_stack(columns)
 
-    def psi(self, theta) -> np.ndarray:
+    def factor(self, theta) -> np.ndarray:
         q = self.order + 1
-        psi = np.zeros((q, q))
+        c = np.zeros((q, q))
         for k, (i, j) in enumerate(self._cov_names()):
-            psi[i, j] = psi[j, i] = theta[k]
-        return psi
+            c[i, j] = theta[k]
+        return c
+
+    def psi(self, theta) -> np.ndarray:
+        c = self.factor(theta)
+        return c @ c.T
 
     def share(self, theta, times):
         t = len(times)
         lam = self.loadings(theta, t)
-        psi = self.psi(theta)
+        c = self.factor(theta)
+        psi = c @ c.T
         grads = []
         for i, j in self._cov_names():
-            d = np.outer(lam[:, i], lam[:, j])
-            grads.append(d if i == j else d + d.T)
+            # dPsi/dc_ij = e_i (C e_j)' + (C e_j) e_i', so dSigma = a b' + b a'
+            a, b = lam[:, i], lam @ c[:, j]
+            d = np.outer(a, b)
+            grads.append(d + d.T)
         if self.free_loadings:
             w = lam @ psi[:, 1]
             for s in range(1, t - 1):

@@ -577,19 +577,26 @@ def likelihood_ratio(simple: Fit, rich: Fit, n_units: float, boundary: bool = Fa
     """(statistic, df, p) of the nested test simple -> rich: N (F_simple - F_rich) on
     the difference in parameters.
 
-    ``boundary``: one added variance sits on the boundary under the null, so the
-    statistic follows an equal mixture of chi-square(0) and chi-square(df) (Self and
-    Liang 1987, J. American Statistical Association 82, 605-610).
+    ``boundary``: the added parts include one variance on its boundary under the null
+    (with its covariances, when df > 1), so the statistic follows an equal mixture of
+    chi-square(df - 1) and chi-square(df) (Self and Liang 1987, J. American Statistical
+    Association 82, 605-610; Stram and Lee 1994, Biometrics 50, 1171-1177).
     """
     df = max(rich.n_params - simple.n_params, 1)
     gain = simple.discrepancy - rich.discrepancy
     if gain < TIE * max(1.0, abs(simple.discrepancy)):
         gain = 0.0   # within the optimiser's precision: the richer fit gains nothing
     stat = n_units * gain
-    p = float(dist.chi2_sf(stat, df))
-    if boundary:
-        p = 0.5 * p if stat > 0 else 1.0
-    return stat, df, p
+    return stat, df, chi2_mixture_sf(stat, df) if boundary else float(dist.chi2_sf(stat, df))
+
+
+def chi2_mixture_sf(stat: float, df: int) -> float:
+    """Tail of the 50:50 mixture of chi-square(df - 1) and chi-square(df), chi-square(0)
+    being a point mass at 0 (Stram and Lee 1994)."""
+    if stat <= 0:
+        return 1.0
+    lower = float(dist.chi2_sf(stat, df - 1)) if df > 1 else 0.0
+    return 0.5 * (lower + float(dist.chi2_sf(stat, df)))
 
 
 def scaling(simple: Fit, rich: Fit, m: Moments) -> float:

@@ -411,12 +411,14 @@ def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary:
         # scaled by the replicate groups; the scaling is itself estimated from K - 1
         # degrees of freedom, so the scaled statistic / df is referred to F(df, K - 1)
         stat = stat / st.scaling(simple_fit, rich_fit, ev.moments)
-        p = float(dist.f_sf(stat / df, df, len(copies) - 1))
+        k = len(copies) - 1
+        p = float(dist.f_sf(stat / df, df, k))
+        if boundary:   # the equal mixture of the df - 1 and df references
+            p = 0.5 * (p + (float(dist.f_sf(stat / (df - 1), df - 1, k)) if df > 1
+                            else 0.0)) if stat > 0 else 1.0
     elif kurtosis > 1.0:
         stat = stat / kurtosis
-        p = float(dist.chi2_sf(stat, df))
-    if boundary and (copies is not None or kurtosis > 1.0):
-        p = 0.5 * p if stat > 0 else 1.0
+        p = st.chi2_mixture_sf(stat, df) if boundary else float(dist.chi2_sf(stat, df))
     return stat, df, p, simple_fit, rich_fit
 
 
@@ -439,12 +441,12 @@ def nested(rich: st.Structure, name: str, drop: tuple, add=None) -> st.Structure
 PART_TESTS = {
     "trait": ("autoregressive", "trait_autoregressive", (Trait,), None, True),
     "carry": ("stable_trait", "trait_autoregressive", (Carry, QuasiSimplex), None, False),
-    "growth": ("trait_autoregressive", "growth_autoregressive", (Growth,), Trait(), False),
+    "growth": ("trait_autoregressive", "growth_autoregressive", (Growth,), Trait(), True),
     "growth_carry": ("linear_growth", "growth_autoregressive", (Carry,), None, False),
     "dependence": ("occasion_noise", "stable_trait", (Trait,), None, True),
 }
 # the growth test when growth + carry-over cannot be fitted (too few moments)
-GROWTH_WITHOUT_CARRY = ("stable_trait", "linear_growth", (Growth,), Trait(), False)
+GROWTH_WITHOUT_CARRY = ("stable_trait", "linear_growth", (Growth,), Trait(), True)
 
 
 def _one_thread():
@@ -1281,14 +1283,29 @@ def lr_power(lam: float, df: int, alpha: float, boundary: bool = False
     """(power, critical value) of the likelihood-ratio test at level ``alpha`` when the
     statistic is asymptotically noncentral chi-square(df, lam) (Satorra and Saris 1985).
     With a variance on its boundary under the null, the null distribution is the 50:50
-    mixture of chi-square(0) and chi-square(df) (Self and Liang 1987): the critical value
-    is chi-square(df)'s upper 2 alpha point, and with one df the statistic is
+    mixture of chi-square(df - 1) and chi-square(df) (Self and Liang 1987; Stram and Lee
+    1994), whose upper alpha point is the critical value; with one df the statistic is
     max(0, Z)^2 with Z ~ N(sqrt(lam), 1)."""
     lam = max(float(lam), 0.0)
-    critical = float(special.chdtri(df, 2.0 * alpha if boundary else alpha))
+    critical = _mixture_critical(df, alpha) if boundary else float(special.chdtri(df, alpha))
     if boundary and df == 1:
         return float(dist.norm_sf(np.sqrt(critical) - np.sqrt(lam))), critical
-    return float(1.0 - special.chndtr(critical, df, lam)), critical
+    power = float(1.0 - special.chndtr(critical, df, lam))
+    if boundary:   # the same mixture under the alternative, so the power at lam 0 is alpha
+        power = 0.5 * (power + float(1.0 - special.chndtr(critical, df - 1, lam)))
+    return power, critical
+
+
+def _mixture_critical(df: int, alpha: float) -> float:
+    """The upper alpha point of the 50:50 mixture of chi-square(df - 1) and
+    chi-square(df)."""
+    if df == 1:
+        return float(special.chdtri(1, 2.0 * alpha))
+    from scipy.optimize import brentq
+    # chi-square(df - 1) lies below chi-square(df): the root is between their df's
+    # upper 2 alpha and alpha points
+    low, high = float(special.chdtri(df, 2 * alpha)), float(special.chdtri(df, alpha))
+    return float(brentq(lambda x: st.chi2_mixture_sf(x, df) - alpha, low, high))
 
 
 def noncentrality_for_power(power: float, df: int, alpha: float, boundary: bool = False
@@ -1297,6 +1314,11 @@ def noncentrality_for_power(power: float, df: int, alpha: float, boundary: bool 
     _, critical = lr_power(0.0, df, alpha, boundary)
     if boundary and df == 1:
         return float((np.sqrt(critical) + dist.norm_ppf(power)) ** 2)
+    if boundary:
+        from scipy.optimize import brentq
+        high = float(special.chndtrinc(critical, df - 1, 1.0 - power))
+        return float(brentq(lambda lam: lr_power(lam, df, alpha, True)[0] - power, 0.0,
+                            max(high, 1e-6)))
     return float(special.chndtrinc(critical, df, 1.0 - power))
 
 
