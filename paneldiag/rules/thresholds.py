@@ -31,6 +31,7 @@ RANGES = {
     "bic_margin": (0.0, 1000.0, False),
     "bic_positive": (0.0, 1000.0, False),
     "bic_decisive": (0.0, 10000.0, False),
+    "min_power": (0.0, 1.0, False),
     "reliability_negligible": (0.0, 1.0, False),
     "reliability_substantial": (0.0, 1.0, False),
     "min_waves_separate": (3, 100, True),

@@ -1121,12 +1121,13 @@ def _choose_by_bic(ev: Evidence, evidenced: dict, verdict: dict, ev_text: dict,
                  and chosen in ("autoregressive", "trait_autoregressive")
                  and ev.difference[g] - ev.difference[chosen] <= margin
                  and not covers(ev.chosen(chosen).structure, ev.chosen(g).structure)]
-        if close and not growth_power >= MIN_GUARD_POWER:
+        if close and not growth_power >= th["min_power"]:
             verdict[chosen] = "plausible"
             ev_text[chosen].append(
                 f"Not told apart from {DISPLAY[close[0]]}, whose BIC is within "
                 f"{led.thr('bic_margin')}: the test of unit-specific growth has power "
-                f"{led.value('power_growth', float(growth_power))} at these estimates, and "
+                f"{led.value('power_growth', float(growth_power))} at these estimates "
+                f"(below {led.thr('min_power')}), and "
                 "random slopes make correlations decay like carry-over.")
         elif not ahead:
             verdict[chosen] = "supported"
@@ -1238,8 +1239,6 @@ def _cap_at_plausible(verdict: dict, general: list, reason: str) -> None:
             verdict[fam] = "plausible"
 
 
-# power below which a test that did not reject cannot rule its part out (common practice)
-MIN_GUARD_POWER = 0.8
 # the test whose power decides each family's defining part
 DEFINING_TEST = {"stable_trait": "trait", "autoregressive": "carry",
                  "trait_autoregressive": "trait", "linear_growth": "growth",
@@ -1329,7 +1328,7 @@ def _power_sentences(power: list, verdict: dict, ev_text: dict, led: Citations,
         row = by_test.get(test)
         if row is None or verdict.get(fam) != "plausible" or row.evidenced:
             continue
-        if row.power < MIN_GUARD_POWER:
+        if row.power < th["min_power"]:
             more = (f"; about {row.units_for_power_90} units would give 0.9"
                     if row.units_for_power_90 else "")
             ev_text[fam].append(
