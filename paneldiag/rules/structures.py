@@ -480,6 +480,15 @@ def _typical(structure: Structure, scale: Scale) -> np.ndarray:
 
 
 def _fit(structure: Structure, m: Moments) -> "Fit | Skipped":
+    """The fit of one specification, or why it was skipped: a numerical failure of one
+    specification skips it, never the screen."""
+    try:
+        return _fit_or_skip(structure, m)
+    except (np.linalg.LinAlgError, FloatingPointError, ValueError) as problem:
+        return Skipped(structure, f"the fit failed numerically ({problem})")
+
+
+def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
     t = m.n_waves
     q = len(structure.names(t))
     n_moments = t * (t + 1) // 2

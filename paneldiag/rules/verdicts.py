@@ -1260,10 +1260,13 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
             continue
         _, df, p, simple_fit, rich_fit = res
         boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
-        with _one_thread():
-            scale = (st.scaling(simple_fit, rich_fit, ev.moments)
-                     if ev.moments.copies is not None else kurtosis)
-            lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / scale
+        try:
+            with _one_thread():
+                scale = (st.scaling(simple_fit, rich_fit, ev.moments)
+                         if ev.moments.copies is not None else kurtosis)
+                lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / scale
+        except (np.linalg.LinAlgError, FloatingPointError, ValueError):
+            continue   # no power row for this test: its noncentrality could not be fitted
         if not np.isfinite(lam):
             continue
         power, _ = lr_power(lam, df, alpha, boundary)
