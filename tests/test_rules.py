@@ -23,7 +23,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.rules import default_thresholds, load_thresholds
 from paneldiag.rules.verdicts import FAMILY_IDS
 from paneldiag.simulate import family_values
-from paneldiag.validation import panel_of
+from paneldiag.validation import panel_of, verdicts_for_panel
 
 VERDICTS = {"supported", "plausible", "unlikely", "undetermined"}
 
@@ -339,3 +339,23 @@ def test_demo_trust_is_trait_plus_carry_over(tmp_path):
     assert _check_citations(rep) > 5
     assert "Process families" in text and "next models" in text
     assert text.index("Process families") < text.index("Cautions")
+
+
+def test_verdicts_never_fail_on_small_odd_panels():
+    """Random small panels (2-40 units, 2-8 waves, any scale, rounding, heavy
+    missingness, a constant wave): the rule sections return a verdict for every family,
+    whatever specification cannot be fitted (simulation; a specification that fails is
+    skipped with its reason, never a crash)."""
+    rng = np.random.default_rng(123)
+    for _ in range(40):  # a loop over panels
+        n, t = int(rng.integers(2, 40)), int(rng.integers(2, 9))
+        y = rng.normal(size=(n, t)) * rng.uniform(0.1, 100) + \
+            rng.normal(size=(n, 1)) * rng.uniform(0, 3)
+        if rng.random() < 0.3:
+            y = np.round(y)
+        y[rng.random(y.shape) < rng.uniform(0, 0.5)] = np.nan
+        if rng.random() < 0.1:
+            y[:, 0] = 1.0
+        fams = verdicts_for_panel(panel_of(y))
+        assert sorted(f["family"] for f in fams) == sorted(FAMILY_IDS)
+        assert all(f["verdict"] in VERDICTS for f in fams)
