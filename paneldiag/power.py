@@ -182,11 +182,3 @@ def part_test_power(test: str, family: str, n_units: int, n_waves: int,
                      df=int(df), boundary=boundary, noncentrality=float(lam),
                      critical_value=critical, power=power, bound=bound,
                      alpha_for_95=alpha_for_power(lam, df, boundary, 0.95))
-
-
-def structure_fit(structure: st.Structure, sigma: np.ndarray, times, n: float) -> st.Fit:
-    """``structure`` fitted to the covariance ``sigma`` of n complete units."""
-    times = np.asarray(times, dtype=float)
-    m = st.Moments(np.zeros(len(times)), np.asarray(sigma, float), times,
-                   st.CovarianceLikelihood(sigma), float(n), float(n))
-    return m.fit(structure)

@@ -235,13 +235,24 @@ def power_bound(condition: Condition) -> float:
     """The asymptotic power of the weakest of the tests the true family's verdict needs,
     for the cell's units, waves, reliability and response patterns (monotone dropout at
     the simulation's hazard; paneldiag.power): recall cannot be expected above it."""
-    from paneldiag.power import part_test_power
-    from paneldiag.simulate import DROPOUT_HAZARD
+    from paneldiag.power import population_tests
+    from paneldiag.rules.thresholds import default_thresholds
+    from paneldiag.rules.verdicts import PART_TESTS, lr_power
+    from paneldiag.simulate import (DROPOUT_HAZARD, family_process, population_covariance,
+                                    population_mean)
+    required = REQUIRED_TESTS[condition.family]
+    if not required:
+        return 1.0
+    alpha = default_thresholds()["alpha"]
+    times = np.arange(condition.n_waves, dtype=float)
+    process = family_process(condition.family, times, condition.reliability)
     hazard = 0.0 if condition.dropout == "none" else DROPOUT_HAZARD
-    powers = [part_test_power(test, condition.family, condition.n_units, condition.n_waves,
-                              condition.reliability, hazard=hazard).power
-              for test in REQUIRED_TESTS[condition.family]]
-    return min(powers) if powers else 1.0
+    # every required test from one run of the rules on the population moments
+    tests = population_tests(population_covariance(process, times),
+                             population_mean(process, times), times, condition.n_units,
+                             alpha, hazard)
+    return min(lr_power(tests[test][0], tests[test][1], alpha, PART_TESTS[test][4])[0]
+               for test in required)
 
 
 def power_markdown(results) -> str:

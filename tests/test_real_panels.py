@@ -59,35 +59,30 @@ def test_table_entries_are_well_formed():
 
 @pytest.mark.real_panels
 @pytest.mark.parametrize("panel", PANELS, ids=_ids(PANELS))
-def test_report_lists_every_family(panel, screened):
-    """The report's `families` list holds each family id once (docs/json-report.md)."""
-    report, _ = screened(panel)
-    assert sorted(f["family"] for f in report["families"]) == sorted(FAMILIES)
+class TestRealPanel:
+    """Each panel screened through the command line, once for all four checks."""
 
+    def test_report_lists_every_family(self, panel, screened):
+        """The report's `families` list holds each family id once (docs/json-report.md)."""
+        report, _ = screened(panel)
+        assert sorted(f["family"] for f in report["families"]) == sorted(FAMILIES)
 
-@pytest.mark.real_panels
-@pytest.mark.parametrize("panel", PANELS, ids=_ids(PANELS))
-def test_an_accepted_family_is_supported(panel, screened):
-    """(a) A verdict that never commits on real data is a failure (docs/design.md)."""
-    _, result = screened(panel)
-    assert result.accepted_supported, (
-        f"{panel.name}: none of {sorted(panel.accepted)} supported; verdicts {result.verdicts}")
+    def test_an_accepted_family_is_supported(self, panel, screened):
+        """(a) A verdict that never commits on real data is a failure (docs/design.md)."""
+        _, result = screened(panel)
+        assert result.accepted_supported, (
+            f"{panel.name}: none of {sorted(panel.accepted)} supported; "
+            f"verdicts {result.verdicts}")
 
+    def test_no_rejected_family_is_supported(self, panel, screened):
+        """(b) A family outside the accepted set is clearly wrong for the panel."""
+        _, result = screened(panel)
+        assert not result.rejected_supported, (
+            f"{panel.name}: {result.rejected_supported} supported; {panel.rejected_because}")
 
-@pytest.mark.real_panels
-@pytest.mark.parametrize("panel", PANELS, ids=_ids(PANELS))
-def test_no_rejected_family_is_supported(panel, screened):
-    """(b) A family outside the accepted set is clearly wrong for the panel."""
-    _, result = screened(panel)
-    assert not result.rejected_supported, (
-        f"{panel.name}: {result.rejected_supported} supported; {panel.rejected_because}")
-
-
-@pytest.mark.real_panels
-@pytest.mark.parametrize("panel", PANELS, ids=_ids(PANELS))
-def test_reliability_is_reported_with_its_basis(panel, screened):
-    """(c) `measurement.reliability` is a share in (0, 1] with the text of its basis."""
-    report, result = screened(panel)
-    assert result.reliability_reported, (
-        f"{panel.name}: measurement {report.get('measurement')}")
-    assert 0.0 < result.reliability <= 1.0
+    def test_reliability_is_reported_with_its_basis(self, panel, screened):
+        """(c) `measurement.reliability` is a share in (0, 1] with the text of its basis."""
+        report, result = screened(panel)
+        assert result.reliability_reported, (
+            f"{panel.name}: measurement {report.get('measurement')}")
+        assert 0.0 < result.reliability <= 1.0

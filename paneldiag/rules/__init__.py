@@ -76,7 +76,7 @@ def judge_context(ctx) -> Judgement:
             "expected": _nested(rac, "expected_under_independence")}
         if any(v is None for v in inp.residual_autocorrelation.values()):
             inp.residual_autocorrelation = None
-    _use_polychoric(inp, _polychoric_matrix(ctx, summaries), em, _margins(summaries))
+    _use_polychoric(inp, _polychoric_matrix(ctx, summaries), em, summaries)
     never_observed = ctx.panel.n_units - inp.n_units
     inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
@@ -94,16 +94,6 @@ def relative_kurtosis(moments) -> float:
         kurt = (moments.m4 / n) / (moments.m2 / n) ** 2 / 3.0
     kurt = kurt[np.isfinite(kurt) & (n > 3)]
     return float(max(1.0, np.mean(kurt))) if kurt.size else 1.0
-
-
-def _margins(summaries) -> tuple | None:
-    """Category counts of each wave, (T, L), of all units and of each delete-a-group
-    copy, from the pairwise tables' diagonal."""
-    tables = summaries.get(PairwiseTables)
-    if tables is None or tables.counts is None:
-        return None
-    return (_wave_margins(tables.pooled()),
-            [_wave_margins(copy) for copy in tables.leave_one_out()])
 
 
 def _polychoric_matrix(ctx, summaries):
@@ -125,12 +115,17 @@ def _polychoric_matrix(ctx, summaries):
     return r[0], n[0], r[1:]
 
 
-def _wave_margins(counts: np.ndarray) -> np.ndarray:
-    """Category counts of each wave, (T, L), from (T, T, L, L) pairwise tables."""
-    return np.stack([np.diagonal(counts[w, w]) for w in range(counts.shape[0])])
+def _wave_margins(summaries) -> tuple[np.ndarray, np.ndarray] | None:
+    """Category counts of each wave, (T, L), of all units and (K, T, L) of each
+    delete-a-group copy: the diagonal of each wave's own table."""
+    tables = summaries.get(PairwiseTables)
+    if tables is None or tables.counts is None:
+        return None
+    return (np.einsum("ttii->ti", tables.pooled()),
+            np.einsum("kttii->kti", tables.leave_one_out()))
 
 
-def _use_polychoric(inp, matrix, em, margins) -> None:
+def _use_polychoric(inp, matrix, em, summaries) -> None:
     """For an ordinal measure, the structures are fitted to the covariance of the
     normal variables behind the scores (two-stage, with the mean pairwise count as N)
     instead of Pearson moments: the polychoric correlations, scaled by the latent SDs
@@ -153,6 +148,7 @@ def _use_polychoric(inp, matrix, em, margins) -> None:
     t = len(r)
     copies = np.array(copies, dtype=float)
     np.einsum("kii->ki", copies)[:] = 1.0
+    margins = _wave_margins(summaries)
     scale = latent_scale(margins[0]) if margins is not None and len(margins[0]) == t \
         else None
     if scale is not None and np.all(np.isfinite(scale[0])) and np.all(scale[1] > 0):

@@ -29,6 +29,7 @@ American Sociological Review, 35, 112-117.
 
 from __future__ import annotations
 
+from abc import ABC, abstractmethod
 from dataclasses import dataclass
 
 import numpy as np
@@ -54,24 +55,27 @@ class Scale:
         return float(np.mean(self.var))
 
 
-class Part:
-    """One additive share of Sigma. Subclasses set ``key`` and implement the methods."""
+class Part(ABC):
+    """One additive share of Sigma; each kind of part sets ``key`` and says its own
+    parameters, bounds, start values and share."""
 
     key = "part"
 
+    @abstractmethod
     def names(self, t: int) -> list[str]:
-        raise NotImplementedError
+        """The names of the part's parameters at ``t`` waves."""
 
+    @abstractmethod
     def bounds(self, scale: Scale) -> list[tuple]:
-        raise NotImplementedError
+        """(lower, upper) of each parameter, None where open."""
 
+    @abstractmethod
     def starts(self, scale: Scale) -> list[list[float]]:
         """One or more start vectors (the fit tries every combination over parts)."""
-        raise NotImplementedError
 
+    @abstractmethod
     def share(self, theta: np.ndarray, times: np.ndarray):
         """(this part's T x T share of Sigma, list of its derivatives by parameter)."""
-        raise NotImplementedError
 
 
 @dataclass(frozen=True)

@@ -107,6 +107,12 @@ class Structure:
     def bounds(self, scale: Scale) -> list[tuple]:
         return [b for p in self.parts for b in p.bounds(scale)]
 
+    def limits(self, scale: Scale) -> tuple[np.ndarray, np.ndarray]:
+        """The bounds as arrays of lower and upper limits (+-inf where open)."""
+        bounds = self.bounds(scale)
+        return (np.array([-np.inf if lo is None else lo for lo, _ in bounds]),
+                np.array([np.inf if hi is None else hi for _, hi in bounds]))
+
     def starts(self, scale: Scale) -> list[np.ndarray]:
         options = [p.starts(scale) for p in self.parts]
         return [np.concatenate([np.asarray(s, float) for s in combo])
@@ -126,9 +132,7 @@ class Structure:
         theta = self.starts(scale)[0]
         wobble = 1.0 + 0.07 * np.sin(1.0 + np.arange(len(theta)) * 2.3)
         theta = theta * wobble + 0.013 * _typical(self, scale) * np.cos(np.arange(len(theta)))
-        lo_hi = self.bounds(scale)
-        theta = np.array([min(max(v, lo if lo is not None else v), hi if hi is not None else v)
-                          for v, (lo, hi) in zip(theta, lo_hi)])
+        theta = np.clip(theta, *self.limits(scale))
         _, grads = self.build(theta, times)
         iu = np.triu_indices(t)
         jac = grads[:, iu[0], iu[1]].T
@@ -340,9 +344,11 @@ class Moments:
     n_units: float
     n_eff: float
     cache: dict = field(default_factory=dict)
-    kurtosis: float = 1.0    # the elliptical scaling of the likelihood ratios (>= 1)
+    # what the likelihood ratios and BIC's likelihood are divided by (>= 1): the
+    # elliptical kurtosis scaling, or the copies' average inflation (``copy_inflation``)
+    lr_scaling: float = 1.0
     # delete-a-group copies of ``sigma`` (K, T, T): when given, each nested test gets its
-    # own scaling from them (``scaling``) instead of ``kurtosis``
+    # own scaling from them (``scaling``)
     copies: np.ndarray | None = None
 
     def __post_init__(self):
@@ -448,12 +454,11 @@ class _Result:
     fun: float
 
 
-def _minimise(fn, structure: Structure, times, starts, bounds, typical: np.ndarray,
-              tol: float = 1e-12):
+def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float):
     """The best of Fisher scoring from each start, polished by L-BFGS-B (in units of
-    ``typical``) where scoring stops short of a stationary point."""
-    lower = np.array([-np.inf if lo is None else lo for lo, _ in bounds])
-    upper = np.array([np.inf if hi is None else hi for _, hi in bounds])
+    the parameters' typical sizes) where scoring stops short of a stationary point."""
+    lower, upper = structure.limits(scale)
+    typical = _typical(structure, scale)
 
     def scaled(z):
         value, grad = fn(z * typical)
@@ -497,16 +502,14 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
                                   f"of {t} waves")
     if not structure.identified(m.scale, m.times):
         return Skipped(structure, f"not identified with {t} waves at these times")
-    bounds = structure.bounds(m.scale)
     with np.errstate(all="ignore"):
-        typical = _typical(structure, m.scale)
         tol = 1e-7 / m.n_units     # a change of 1e-7 in a chi-square
         first = _minimise(_objective(m.first_stage, structure, m.times), structure,
-                          m.times, structure.starts(m.scale), bounds, typical, tol)
+                          m.times, structure.starts(m.scale), m.scale, tol)
         best = first
         if m.full:
             best = _minimise(_objective(m.likelihood, structure, m.times), structure,
-                             m.times, [first.x], bounds, typical, tol)
+                             m.times, [first.x], m.scale, tol)
     value = float(best.fun)
     if not np.isfinite(value) or value >= 1e9:
         return Skipped(structure, "the fit did not reach a positive definite covariance")
@@ -629,10 +632,8 @@ def scaling(simple: Fit, rich: Fit, m: Moments) -> float:
     total = 0.0
     for fit, sign in ((rich, 1.0), (simple, -1.0)):
         _, grads = fit.structure.build(fit.theta, m.times)
-        mats = inv @ grads                                  # S^-1 G_k
-        half = 0.5 * (mats.reshape(len(mats), -1) @
-                      np.swapaxes(mats, 1, 2).reshape(len(mats), -1).T)
-        b = 0.5 * np.einsum("kij,gji->gk", mats, inv @ dev)
+        half = 0.5 * _expected_hessian(rich.sigma, grads)
+        b = 0.5 * np.einsum("kij,gji->gk", inv @ grads, inv @ dev)   # S^-1 G_k, S^-1 d_g
         total += sign * float(np.einsum("gk,kl,gl->", b, np.linalg.pinv(half), b))
     df = max(rich.n_params - simple.n_params, 1)
     c = m.n_units * (k - 1) / k * total / df
@@ -670,8 +671,7 @@ def noncentrality(simple: Structure, rich: Fit, m: Moments) -> float:
         simple.starts(m.scale)
     with np.errstate(all="ignore"):
         best = _minimise(_objective(population, simple, m.times), simple, m.times, starts,
-                         simple.bounds(m.scale), _typical(simple, m.scale),
-                         1e-7 / m.n_units)
+                         m.scale, 1e-7 / m.n_units)
     return float(max(0.0, m.n_units * (best.fun - base[0])))
 
 

@@ -229,7 +229,7 @@ class Inputs:
     # patterns, or the covariance ``sigma`` itself (complete data; polychoric input)
     likelihood: object = None
     # relative multivariate kurtosis (>= 1): the likelihood-ratio statistics are divided
-    # by it (the elliptical correction of Browne 1984)
+    # by it (the elliptical correction of Browne 1984), unless ``copies`` are given
     kurtosis: float = 1.0
     # 'pearson' (ML moments of the scores), 'polychoric' (ordinal measure: the
     # polychoric correlations) or 'polychoric-latent' (scaled by the latent SDs)
@@ -299,7 +299,6 @@ class Evidence:
     families: dict = field(default_factory=dict)   # family -> FamilyFit
     tests: dict = field(default_factory=dict)      # test -> (stat, df, p, simple, rich)
     shape: st.MeanShape | None = None
-    n_eff: float = np.nan
     best: str | None = None
     difference: dict = field(default_factory=dict)  # family -> BIC difference
     weight: dict = field(default_factory=dict)
@@ -307,7 +306,6 @@ class Evidence:
     def chosen(self, family: str) -> st.Fit | None:
         ff = self.families.get(family)
         return ff.chosen if ff is not None else None
-
 
 
 def covers(rich: st.Structure, simple: st.Structure) -> bool:
@@ -343,17 +341,16 @@ def moments_of(inp: Inputs) -> st.Moments:
     n_eff = float(np.mean(inp.pair_n[iu])) if t > 1 else float(inp.n_units)
     likelihood = inp.likelihood or st.CovarianceLikelihood(inp.sigma)
     m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
-    m.kurtosis = max(float(inp.kurtosis), 1.0)
     m.copies = inp.copies
-    if inp.copies is not None:
-        m.kurtosis = st.copy_inflation(inp.sigma, inp.copies, float(inp.n_units))
+    m.lr_scaling = (st.copy_inflation(inp.sigma, inp.copies, float(inp.n_units))
+                    if inp.copies is not None else max(float(inp.kurtosis), 1.0))
     return m
 
 
 def _criterion(fit: st.Fit, m: st.Moments) -> float:
-    """BIC of the covariance part up to a constant: N F / kurtosis + q ln N (the
+    """BIC of the covariance part up to a constant: N F / scaling + q ln N (the
     likelihood scaled like the test statistics)."""
-    return m.n_units * fit.discrepancy / m.kurtosis + fit.n_params * np.log(m.n_units)
+    return m.n_units * fit.discrepancy / m.lr_scaling + fit.n_params * np.log(m.n_units)
 
 
 def _fit_all(inp: Inputs, alpha: float) -> Evidence:
@@ -361,7 +358,7 @@ def _fit_all(inp: Inputs, alpha: float) -> Evidence:
     BIC, and the part tests."""
     t = len(inp.times)
     m = moments_of(inp)
-    ev = Evidence(m, n_eff=m.n_eff)
+    ev = Evidence(m)
     if t >= 3:
         ev.shape = st.mean_shape(inp.mu, inp.sigma, inp.pair_n, inp.times)
     means = st.mean_terms(inp.mu, inp.sigma, inp.pair_n, inp.times)
@@ -388,14 +385,13 @@ def _fit_all(inp: Inputs, alpha: float) -> Evidence:
         total = sum(raw.values())
         ev.weight = {f: w / total for f, w in raw.items()}
     for name, test in PART_TESTS.items():
-        ev.tests[name] = _part_test(ev, *test, inp.kurtosis)
+        ev.tests[name] = _part_test(ev, *test)
     if ev.tests["growth"] is None:
-        ev.tests["growth"] = _part_test(ev, *GROWTH_WITHOUT_CARRY, inp.kurtosis)
+        ev.tests["growth"] = _part_test(ev, *GROWTH_WITHOUT_CARRY)
     return ev
 
 
-def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary: bool,
-               kurtosis: float):
+def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary: bool):
     """(statistic, df, p, simpler fit, richer fit): the richer family's chosen
     specification against the simpler family's structure made from it by dropping the
     part the test is about (and putting ``add`` in its place): nested by construction."""
@@ -406,20 +402,30 @@ def _part_test(ev: Evidence, simple: str, rich: str, drop: tuple, add, boundary:
     if not isinstance(simple_fit, st.Fit):
         return None
     stat, df, p = st.likelihood_ratio(simple_fit, rich_fit, ev.moments.n_units, boundary)
+    scale = _test_scaling(ev, simple_fit, rich_fit)
     copies = ev.moments.copies
     if copies is not None:
         # scaled by the replicate groups; the scaling is itself estimated from K - 1
         # degrees of freedom, so the scaled statistic / df is referred to F(df, K - 1)
-        stat = stat / st.scaling(simple_fit, rich_fit, ev.moments)
+        stat = stat / scale
         k = len(copies) - 1
         p = float(dist.f_sf(stat / df, df, k))
         if boundary:   # the equal mixture of the df - 1 and df references
             p = 0.5 * (p + (float(dist.f_sf(stat / (df - 1), df - 1, k)) if df > 1
                             else 0.0)) if stat > 0 else 1.0
-    elif kurtosis > 1.0:
-        stat = stat / kurtosis
+    elif scale > 1.0:
+        stat = stat / scale
         p = st.chi2_mixture_sf(stat, df) if boundary else float(dist.chi2_sf(stat, df))
     return stat, df, p, simple_fit, rich_fit
+
+
+def _test_scaling(ev: Evidence, simple_fit: st.Fit, rich_fit: st.Fit) -> float:
+    """What a part test's statistic (and its noncentrality) is divided by: the test's
+    own factor from the replicate copies for ordinal measures, else the panel's
+    elliptical kurtosis scaling (1 for normal tails)."""
+    if ev.moments.copies is not None:
+        return st.scaling(simple_fit, rich_fit, ev.moments)
+    return ev.moments.lr_scaling
 
 
 def nested(rich: st.Structure, name: str, drop: tuple, add=None) -> st.Structure:
@@ -612,14 +618,14 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     with _one_thread():
         ev = _fit_all(inp, alpha)
     tests, shape, times = ev.tests, ev.shape, inp.times
-    led.value("n_effective", float(ev.n_eff), 1)
+    led.value("n_effective", float(ev.moments.n_eff), 1)
     led.value("likelihood", "full information from the response patterns"
               if ev.moments.full else "complete-data" if inp.moments_kind == "pearson"
               else inp.moments_kind)
 
     # ------------------------------------------------ caveats about identification
     general += _identification_caveats(inp, led, th, t)
-    scale = ev.moments.kurtosis
+    scale = ev.moments.lr_scaling
     if scale > 1.0:
         led.value("likelihood_scaling", float(scale))
     if inp.copies is not None and scale >= 1.1:
@@ -865,7 +871,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
                  "growth_autoregressive": G and AG}
     for fam in GROWTH_SHAPES:
         evidenced[fam] = G and fam == target
-    power = _power_rows(ev, th, inp.kurtosis)
+    power = _power_rows(ev, th)
     # relevant growth ruled out: the slopes' share interval lies below its threshold
     growth_excluded = bool(np.isfinite(slope[2]) and slope[2] < th["min_slope_share"])
     _choose_by_bic(ev, evidenced, verdict, ev_text, led, th, power, growth_excluded)
@@ -890,7 +896,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     if ev.moments.singular:
         _cap_at_plausible(verdict, general,
                           f"The covariance of the waves is singular (about "
-                          f"{led.value('n_effective', float(ev.n_eff), 1)} units with data "
+                          f"{led.value('n_effective', float(ev.moments.n_eff), 1)} units with data "
                           f"for {led.value('n_waves', int(t))} waves): no family can be "
                           "tested against it, so none is rated above plausible; the "
                           "specifications are still compared by BIC.")
@@ -1249,7 +1255,7 @@ TEST_WORDS = {"dependence": "dependence between waves", "trait": "a stable trait
               "growth_carry": "carry-over in the deviations from growth"}
 
 
-def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower]:
+def _power_rows(ev: Evidence, th: Thresholds) -> list[PartPower]:
     """Power of each part test at this panel (Satorra and Saris 1985): noncentrality
     from the richer family's estimated covariance at the panel's response patterns."""
     alpha = th["alpha"]
@@ -1262,9 +1268,8 @@ def _power_rows(ev: Evidence, th: Thresholds, kurtosis: float) -> list[PartPower
         boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
         try:
             with _one_thread():
-                scale = (st.scaling(simple_fit, rich_fit, ev.moments)
-                         if ev.moments.copies is not None else kurtosis)
-                lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / scale
+                lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / \
+                    _test_scaling(ev, simple_fit, rich_fit)
         except (np.linalg.LinAlgError, FloatingPointError, ValueError):
             continue   # no power row for this test: its noncentrality could not be fitted
         if not np.isfinite(lam):
