@@ -154,9 +154,10 @@ def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
     inp = verdicts.Inputs(mu=np.asarray(mean, float), sigma=sigma, pair_n=pair_n,
                           times=times, n_units=int(n), retention=1.0, dropout_smd=np.nan,
                           categories=10 ** 6, likelihood=likelihood)
-    alpha = float(default_thresholds()["alpha"] if alpha is None else alpha)
+    table = default_thresholds()
+    alpha = float(table["alpha"] if alpha is None else alpha)
     with verdicts._one_thread():
-        return verdicts._fit_all(inp, alpha).tests
+        return verdicts._fit_all(inp, alpha, int(table["max_waves_per_wave"])).tests
 
 
 def part_test_power(test: str, family: str, n_units: int, n_waves: int,

@@ -43,6 +43,7 @@ class ScreenOptions:
     by_group: bool = True            # screen each group too when the panel has groups
     rules: object = None             # paneldiag.rules.Thresholds (None: the defaults)
     audit_only: bool = False         # only the audit areas (AUDIT_SECTIONS)
+    triplet_table: bool = False      # every triplet's reliability, for a file of its own
 
 
 @dataclass
@@ -145,6 +146,19 @@ def cautions(options: ScreenOptions) -> list[str]:
     return [CAUTION_SCREENING,
             f"Disclosure control: any count below {options.min_cell} units is suppressed and "
             "never shown on its own."] + ([CAUTION_AUDIT_ONLY] if options.audit_only else [])
+
+
+def take_triplet_tables(report: dict) -> list[dict]:
+    """Remove each measure's table of every triplet (``ScreenOptions.triplet_table``)
+    from the report and return them as columns with the measure's name: the tables
+    have T^3 / 6 rows and go to a file of their own, not into the report."""
+    measures = report.get("measures") or {report.get("measure"): report}
+    tables = []
+    for name, one in measures.items():
+        table = (one.get("reliability") or {}).pop("all_triplets", None)
+        if table:
+            tables.append({"measure": [name] * len(table["wave_first"]), **table})
+    return tables
 
 
 def one_blas_thread():

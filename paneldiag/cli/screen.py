@@ -89,6 +89,9 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--format", "fmt", type=click.Choice(FORMATS), help="File format (default: by extension).")
 @click.option("--delimiter", metavar="CHAR", help="Field delimiter of a text file.")
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
+@click.option("--triplet-table", "triplet_path", metavar="PATH",
+              help="Write every triplet of waves' reliability values to this CSV file "
+                   "(the report lists adjacent and evenly spaced triplets above 12 waves).")
 @click.option("--min-cell", type=click.IntRange(1), default=5, show_default=True,
               help="Smallest count shown on its own (disclosure control).")
 @click.option("--ordinal/--continuous", "ordinal", default=None,
@@ -115,7 +118,8 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
 def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
             wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
-            delimiter, json_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
+            delimiter, json_path, triplet_path, min_cell, ordinal, report_dir, trajectory_sample,
+            trajectory_seed,
             rules_path, audit_only, details, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
@@ -133,8 +137,9 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     if rules_path:
         from paneldiag.rules.thresholds import load_thresholds
         thresholds = load_thresholds(rules_path)
-    if json_path:
-        refuse_input_overwrite(json_path, [data])
+    for output in (json_path, triplet_path):
+        if output:
+            refuse_input_overwrite(output, [data])
     if report_dir:
         from paneldiag.render.appendix import check_report_folder, write_report
         check_report_folder(report_dir, [data])
@@ -162,8 +167,15 @@ def command(data, id_column, wave_column, values, wide, items, wave_labels, wave
     from paneldiag.screen import ScreenOptions, screen
     report = screen(panel, ledgers, input_info,
                     ScreenOptions(min_cell=min_cell, scale=_scale(ordinal), group_column=group,
-                                  rules=thresholds, audit_only=audit_only))
+                                  rules=thresholds, audit_only=audit_only,
+                                  triplet_table=bool(triplet_path)))
     progress.done()
+    if triplet_path:
+        import pandas as pd
+        from paneldiag.screen import take_triplet_tables
+        tables = [pd.DataFrame(t) for t in take_triplet_tables(report)]
+        write_atomic(triplet_path, (pd.concat(tables) if tables else pd.DataFrame())
+                     .to_csv(index=False))
     if json_path:
         write_atomic(json_path, report_json(report))
     if report_dir:

@@ -325,31 +325,36 @@ def lag_profile(corr: WaveCorrelations, times: np.ndarray, level: float = LEVEL)
 
 # ------------------------------------------------------------------- Markov summary
 
-def partial_beyond(r: np.ndarray) -> np.ndarray:
+MARKOV_MAX_LAG = 10   # memory beyond lag 1 is judged from lags 2..10: cost O(T L^4), not O(T^5)
+
+
+def partial_beyond(r: np.ndarray, max_lag: int = MARKOV_MAX_LAG) -> np.ndarray:
     """Partial correlations of waves s and s + k given the waves between them, for
-    k >= 2, over leading axes: (..., T, T), NaN elsewhere. From the inverse of the
-    correlation block of waves s..s+k: -P_0m / sqrt(P_00 P_mm)."""
+    2 <= k <= ``max_lag``, over leading axes: (..., T, T), NaN elsewhere. From the
+    inverse of the correlation block of waves s..s+k: -P_0m / sqrt(P_00 P_mm), the blocks
+    of one lag inverted together."""
     t = r.shape[-1]
     out = np.full(r.shape, np.nan)
-    for k in range(2, t):  # a loop over lags and wave pairs
-        for s in range(t - k):
-            block = r[..., s:s + k + 1, s:s + k + 1]
-            ok = np.all(np.isfinite(block), axis=(-2, -1))
-            safe = np.where(ok[..., None, None], block, np.eye(k + 1))
-            with np.errstate(invalid="ignore", divide="ignore"):
-                try:
-                    p = np.linalg.inv(safe)
-                except np.linalg.LinAlgError:
-                    p = np.full(safe.shape, np.nan)
-                    for idx in np.ndindex(safe.shape[:-2]):
-                        try:
-                            p[idx] = np.linalg.inv(safe[idx])
-                        except np.linalg.LinAlgError:
-                            pass
-                d0, dm = p[..., 0, 0], p[..., -1, -1]
-                value = -p[..., 0, -1] / np.sqrt(d0 * dm)
-            value = np.where(ok & (d0 > 0) & (dm > 0), value, np.nan)
-            out[..., s, s + k] = out[..., s + k, s] = value
+    for k in range(2, min(t, max_lag + 1)):  # a loop over lags
+        starts = np.arange(t - k)
+        idx = starts[:, None] + np.arange(k + 1)
+        block = r[..., idx[:, :, None], idx[:, None, :]]          # (..., S, k+1, k+1)
+        ok = np.all(np.isfinite(block), axis=(-2, -1))
+        safe = np.where(ok[..., None, None], block, np.eye(k + 1))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            try:
+                p = np.linalg.inv(safe)
+            except np.linalg.LinAlgError:
+                p = np.full(safe.shape, np.nan)
+                for at in np.ndindex(safe.shape[:-2]):
+                    try:
+                        p[at] = np.linalg.inv(safe[at])
+                    except np.linalg.LinAlgError:
+                        pass
+            d0, dm = p[..., 0, 0], p[..., -1, -1]
+            value = -p[..., 0, -1] / np.sqrt(d0 * dm)
+        value = np.where(ok & (d0 > 0) & (dm > 0), value, np.nan)
+        out[..., starts, starts + k] = out[..., starts + k, starts] = value
     return out
 
 
@@ -376,8 +381,10 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
     """Memory beyond one lag: partial correlations of waves s and s + k given the waves
     between them, summarised by k (mean on Fisher's z scale, range).
 
-    Under a first-order (Markov, simplex) process without measurement error these
-    partial correlations are zero (Guttman 1954; Joreskog 1970); a stable trait, or
+    Lags 2 to ``MARKOV_MAX_LAG`` are summarised (memory beyond ten waves is not needed
+    to tell a first-order process from one with more memory, and the cost grows with
+    the fourth power of the lag). Under a first-order (Markov, simplex) process without
+    measurement error these partial correlations are zero (Guttman 1954; Joreskog 1970); a stable trait, or
     error in the measure, leaves them positive. The interval for each mean is the
     delete-a-group jackknife (Kott 2001) of the same mean, from the basis matrix's own
     leave-one-group-out copies when they exist (EM refitted without each group), else
@@ -401,7 +408,7 @@ def markov_summary(corr: WaveCorrelations, level: float = LEVEL) -> MarkovSummar
     k_groups = reps.shape[0]
     q = dist.t_ppf(0.5 + level / 2, k_groups - 1) if k_groups > 1 else np.nan
     rows = []
-    for k in range(2, t):
+    for k in range(2, min(t, MARKOV_MAX_LAG + 1)):
         s_idx = np.arange(t - k)
         vals = point[s_idx, s_idx + k]
         z_point = np.nanmean(fisher_z(vals)) if np.isfinite(vals).any() else np.nan

@@ -29,9 +29,52 @@ BASIS_EM = "em_missing_at_random"
 
 # ----------------------------------------------------------------------------- formulas
 
+MAX_WAVES_ALL_TRIPLETS = 12   # 220 triplets: above it only a selection is listed
+
+
 def triplets(n_waves: int) -> np.ndarray:
     """All (s, t, u) with s < t < u, as an (m, 3) integer array in lexicographic order."""
     return np.array(list(combinations(range(n_waves), 3)), dtype=np.int64).reshape(-1, 3)
+
+
+def listed_triplets(n_waves: int) -> np.ndarray:
+    """The triplets listed one by one: all of them up to ``MAX_WAVES_ALL_TRIPLETS`` waves,
+    else the adjacent ones (s, s+1, s+2) and the evenly spaced ones from the first wave
+    (0, d, 2d): O(T) rows where all would be O(T^3)."""
+    if n_waves <= MAX_WAVES_ALL_TRIPLETS:
+        return triplets(n_waves)
+    adjacent = [(s, s + 1, s + 2) for s in range(n_waves - 2)]
+    spread = [(0, d, 2 * d) for d in range(2, (n_waves - 1) // 2 + 1)]
+    return np.array(sorted(adjacent + spread), dtype=np.int64)
+
+
+def triplet_table(corr: np.ndarray, cov: np.ndarray, wave_labels: tuple[str, ...]) -> dict:
+    """Every triplet's Heise and Wiley-Wiley values as columns (lists), for a table of
+    its own file: O(T^3) rows, so only on request. No standard errors (the listed
+    triplets of the report carry them)."""
+    trip = triplets(len(wave_labels))
+    h, w = heise_values(corr, trip), wiley_wiley_values(cov, trip)
+    labels = np.asarray(wave_labels, dtype=object)
+    out = {"wave_first": labels[trip[:, 0]], "wave_middle": labels[trip[:, 1]],
+           "wave_last": labels[trip[:, 2]], "heise_reliability": h["reliability"],
+           "heise_stability_first": h["stability_first"],
+           "heise_stability_second": h["stability_second"],
+           "heise_impossible": heise_impossible(h),
+           "wiley_error_variance": w["error_variance"]}
+    for k, name in enumerate(("first", "middle", "last")):
+        out[f"wiley_reliability_{name}"] = w["reliability"][:, k]
+    return {key: list(value) for key, value in out.items()}
+
+
+def heise_impossible(v: dict) -> np.ndarray:
+    """Per triplet: a defined Heise value outside its range (the vectorised test of
+    ``_heise_problems``)."""
+    finite = np.isfinite(v["r_st"]) & np.isfinite(v["r_tu"]) & np.isfinite(v["r_su"])
+    with np.errstate(invalid="ignore"):
+        bad = (v["r_su"] <= 0) | (v["reliability"] > 1) | (v["reliability"] < 0) | \
+            (v["stability_first"] > 1) | (v["stability_second"] > 1) | \
+            (v["stability_outer"] > 1)
+    return finite & bad
 
 
 def heise_values(corr: np.ndarray, trip: np.ndarray) -> dict[str, np.ndarray]:
@@ -153,6 +196,10 @@ class ReliabilitySummary(Result):
     n_triplets: int
     n_impossible: int
     n_undefined: int = 0
+    quartile_low: float = float("nan")     # spread of the Heise values over all triplets
+    quartile_high: float = float("nan")
+    wiley_middle_median: float = float("nan")  # Wiley-Wiley middle-wave reliability, median
+    listed: str = "all triplets"           # which triplets the per-triplet rows hold
 
 
 @dataclass(frozen=True)
@@ -168,20 +215,25 @@ class ReliabilityScreen(Result):
     alternative_basis: str | None = None          # the other basis, when both were computed
     alternative_summary: ReliabilitySummary | None = None
     basis_note: str | None = None                 # why this basis was chosen
+    all_triplets: dict | None = None              # triplet_table, only when asked for
 
     def to_dict(self) -> dict:
         out = super().to_dict()
         for key in ("internal_consistency", "alternative_basis", "alternative_summary",
-                    "basis_note"):
+                    "basis_note", "all_triplets"):
             if out[key] is None:
                 del out[key]
         return out
 
 
 def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
-                              basis: str = BASIS_PAIRWISE, level: float = 0.95
-                              ) -> ReliabilityScreen | None:
-    """Heise and Wiley-Wiley reliabilities for every triplet of waves, with a summary.
+                              basis: str = BASIS_PAIRWISE, level: float = 0.95,
+                              all_triplets: bool = False) -> ReliabilityScreen | None:
+    """Heise and Wiley-Wiley reliabilities per triplet of waves, with a summary over all.
+
+    The rows list the triplets of ``listed_triplets`` (all of them up to
+    ``MAX_WAVES_ALL_TRIPLETS`` waves); the summary, its quartiles and the counts are over
+    every triplet, computed as arrays without listing them (``triplet_table`` lists all).
 
     ``moments`` provides ``correlation()``, ``covariance()`` and ``leave_one_out()``
     (each replicate group left out in turn), e.g. ``PairwiseMoments``. The summary is
@@ -202,21 +254,22 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
     n_waves = len(wave_labels)
     if n_waves < 3:
         return None
-    trip = triplets(n_waves)
+    trip, shown = triplets(n_waves), listed_triplets(n_waves)
     corr, cov = moments.correlation(), moments.covariance()
-    h, w = heise_values(corr, trip), wiley_wiley_values(cov, trip)
+    h_all = heise_values(corr, trip)
+    h, w = heise_values(corr, shown), wiley_wiley_values(cov, shown)
     rep_h, rep_w, rep_median = [], [], []
     for part in moments.leave_one_out():  # a loop over replicate groups
-        ph = heise_values(part.correlation(), trip)
-        rep_h.append(ph["reliability"])
-        rep_w.append(wiley_wiley_values(part.covariance(), trip))
-        rep_median.append(_median(ph["reliability"]))
+        part_corr = part.correlation()
+        rep_h.append(heise_values(part_corr, shown)["reliability"])
+        rep_w.append(wiley_wiley_values(part.covariance(), shown))
+        rep_median.append(_median(heise_values(part_corr, trip)["reliability"]))
     k = len(rep_h)
     se_h = jackknife_se(h["reliability"], np.array(rep_h))
     se_w_rel = jackknife_se(w["reliability"], np.array([r["reliability"] for r in rep_w]))
     se_w_err = jackknife_se(w["error_variance"], np.array([r["error_variance"] for r in rep_w]))
     heise_rows, wiley_rows = [], []
-    for i, (s, t, u) in enumerate(trip):
+    for i, (s, t, u) in enumerate(shown):
         labels = (wave_labels[s], wave_labels[t], wave_labels[u])
         hp, wp = _heise_problems(h, i), _wiley_problems(w, i)
         heise_rows.append(HeiseRow(
@@ -234,21 +287,31 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
             stability_first=float(w["stability_first"][i]),
             stability_second=float(w["stability_second"][i]),
             impossible=_impossible(wp), problems=tuple(wp)))
-    estimate = _median(h["reliability"])
-    n_undefined = int(np.isnan(h["reliability"]).sum())
+    values = h_all["reliability"]
+    estimate = _median(values)
+    n_undefined = int(np.isnan(values).sum())
+    defined = values[~np.isnan(values)]
+    quartiles = np.percentile(defined, [25, 75]) if len(defined) else (np.nan, np.nan)
     reps = np.array(rep_median)
     low, high = jackknife_ci(estimate, reps, level) if k > 1 else (np.nan, np.nan)
-    n_bad = sum(r.impossible for r in heise_rows)
     undefined = (f", {n_undefined} undefined triplet(s) left out" if n_undefined else "")
     method = (f"median of the Heise reliabilities over {len(trip)} triplet(s) of waves "
               f"({basis.replace('_', ' ')} correlations{undefined}); {int(100 * level)}% "
               f"interval from the delete-a-group jackknife over {k} replicate groups")
+    listed = "all triplets" if len(shown) == len(trip) else \
+        "adjacent triplets and evenly spaced triplets from the first wave"
     summary = ReliabilitySummary(
         estimate=estimate, ci_low=float(low), ci_high=float(high),
         se=float(jackknife_se(estimate, reps)), method=method,
-        n_triplets=len(trip), n_impossible=int(n_bad), n_undefined=n_undefined)
+        n_triplets=len(trip), n_impossible=int(heise_impossible(h_all).sum()),
+        n_undefined=n_undefined, quartile_low=float(quartiles[0]),
+        quartile_high=float(quartiles[1]),
+        wiley_middle_median=_median(wiley_wiley_values(cov, trip)["reliability"][:, 1]),
+        listed=listed)
     return ReliabilityScreen(basis=basis, n_replicates=k, heise=tuple(heise_rows),
-                             wiley_wiley=tuple(wiley_rows), summary=summary)
+                             wiley_wiley=tuple(wiley_rows), summary=summary,
+                             all_triplets=triplet_table(corr, cov, wave_labels)
+                             if all_triplets else None)
 
 
 def _impossible(problems: list[str]) -> bool:
@@ -482,14 +545,17 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
     from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
 
     labels = ctx.panel.wave_labels
-    result = quasi_simplex_reliability(ctx.summary(PairwiseMoments), labels)
+    table = ctx.options.triplet_table
+    result = quasi_simplex_reliability(ctx.summary(PairwiseMoments), labels,
+                                       all_triplets=table)
     if result is not None and np.isnan(ctx.values).any():
         em = None
         if ReplicatePatternMoments in ctx.summaries:
             em = em_basis(ctx.summary(ReplicatePatternMoments),
                           getattr(ctx.results.get("missingness"), "em", None))
         if em is not None:
-            em_result = quasi_simplex_reliability(em, labels, basis=BASIS_EM)
+            em_result = quasi_simplex_reliability(em, labels, basis=BASIS_EM,
+                                                  all_triplets=table)
             result = replace(em_result, alternative_basis=BASIS_PAIRWISE,
                              alternative_summary=result.summary,
                              basis_note="missing cells present: ML moments under missing at "

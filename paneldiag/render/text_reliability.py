@@ -34,11 +34,13 @@ def render_reliability(report: dict, color: bool) -> list[str]:
     if summary["n_impossible"]:
         lines.append(f"  {summary['n_impossible']} triplet(s) give impossible values "
                      "(kept as computed; reasons in the JSON report)")
-    middle = sorted(r["reliability"][1] for r in rel["wiley_wiley"]
-                    if r["reliability"][1] is not None)
-    if middle:
+    if summary.get("quartile_low") is not None:
+        lines.append(f"  spread over the triplets: quartiles {number(summary['quartile_low'])} "
+                     f"to {number(summary['quartile_high'])}; listed one by one in the JSON "
+                     f"report: {summary['listed']}")
+    if summary.get("wiley_middle_median") is not None:
         lines.append("  Wiley-Wiley (one error variance), median middle-wave reliability: "
-                     f"{number(_median(middle))}")
+                     f"{number(summary['wiley_middle_median'])}")
     items = rel.get("internal_consistency")
     if items:
         rows = [[w["wave"], number(w["n"]), number(w["alpha"]),
@@ -83,9 +85,3 @@ def render_growth(report: dict, color: bool) -> list[str]:
                  f"{_interval(icc['ci_low'], icc['ci_high'])}"
                  + (" (impossible: negative)" if icc["impossible"] else ""))
     return lines
-
-
-def _median(values: list[float]) -> float:
-    n = len(values)
-    mid = n // 2
-    return values[mid] if n % 2 else 0.5 * (values[mid - 1] + values[mid])

@@ -60,6 +60,8 @@ class Part(ABC):
     parameters, bounds, start values and share."""
 
     key = "part"
+    # whether the part has a parameter per wave (their number grows with the waves)
+    per_wave = False
 
     @abstractmethod
     def names(self, t: int) -> list[str]:
@@ -85,6 +87,10 @@ class Error(Part):
 
     kind: str = "equal"
     key = "error"
+
+    @property
+    def per_wave(self) -> bool:
+        return self.kind != "equal"
 
     def groups(self, t: int) -> np.ndarray:
         if self.kind == "equal":
@@ -174,6 +180,7 @@ class QuasiSimplex(Part):
     quasi-simplex of Joreskog 1970): the true-score variances may change over waves."""
 
     key = "carry"
+    per_wave = True
 
     def names(self, t):
         return (["start_var"] + [f"innovation_var_{w + 1}" for w in range(1, t)]
@@ -236,6 +243,10 @@ class Growth(Part):
     free_loadings: bool = False
     basis_name: str = "time"     # what the basis is: 'time' or 'mean' (the mean's shape)
     key = "growth"
+
+    @property
+    def per_wave(self) -> bool:
+        return self.free_loadings
 
     FACTORS = ("intercept", "slope", "curvature")
 

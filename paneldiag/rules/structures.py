@@ -79,6 +79,11 @@ class Structure:
     def part(self, key: str) -> Part | None:
         return next((p for p in self.parts if p.key == key), None)
 
+    @property
+    def per_wave(self) -> bool:
+        """Whether the structure has parameters per wave (their number grows with T)."""
+        return any(p.per_wave for p in self.parts)
+
     def sizes(self, t: int) -> list[int]:
         key = (self, t)
         if key not in _SIZES:
@@ -350,6 +355,8 @@ class Moments:
     # delete-a-group copies of ``sigma`` (K, T, T): when given, each nested test gets its
     # own scaling from them (``scaling``)
     copies: np.ndarray | None = None
+    # above this many waves, specifications with a parameter per wave are not fitted
+    max_waves_per_wave: int | None = None
 
     def __post_init__(self):
         self.scale = Scale.of(self.sigma)
@@ -500,6 +507,10 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
     if q > n_moments:
         return Skipped(structure, f"{q} parameters for {n_moments} distinct covariances "
                                   f"of {t} waves")
+    if structure.per_wave and m.max_waves_per_wave is not None and t > m.max_waves_per_wave:
+        return Skipped(structure, f"parameters per wave are not fitted with more than "
+                                  f"{m.max_waves_per_wave} waves ({t} here; the "
+                                  f"max_waves_per_wave threshold)")
     if not structure.identified(m.scale, m.times):
         return Skipped(structure, f"not identified with {t} waves at these times")
     with np.errstate(all="ignore"):

@@ -35,6 +35,7 @@ RANGES = {
     "reliability_negligible": (0.0, 1.0, False),
     "reliability_substantial": (0.0, 1.0, False),
     "min_waves_separate": (3, 100, True),
+    "max_waves_per_wave": (3, 100000, True),
     "min_units": (2, 10 ** 9, True),
     "min_retention": (0.0, 1.0, False),
     "max_dropout_smd": (0.0, 10.0, False),

@@ -335,13 +335,14 @@ def _restricts(part, rich_part) -> bool:
     return type(part) is type(rich_part)
 
 
-def moments_of(inp: Inputs) -> st.Moments:
+def moments_of(inp: Inputs, max_waves_per_wave: int | None = None) -> st.Moments:
     t = len(inp.times)
     iu = np.triu_indices(t, 1)
     n_eff = float(np.mean(inp.pair_n[iu])) if t > 1 else float(inp.n_units)
     likelihood = inp.likelihood or st.CovarianceLikelihood(inp.sigma)
     m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
     m.copies = inp.copies
+    m.max_waves_per_wave = max_waves_per_wave
     m.lr_scaling = (st.copy_inflation(inp.sigma, inp.copies, float(inp.n_units))
                     if inp.copies is not None else max(float(inp.kurtosis), 1.0))
     return m
@@ -353,11 +354,11 @@ def _criterion(fit: st.Fit, m: st.Moments) -> float:
     return m.n_units * fit.discrepancy / m.lr_scaling + fit.n_params * np.log(m.n_units)
 
 
-def _fit_all(inp: Inputs, alpha: float) -> Evidence:
+def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None) -> Evidence:
     """Every family's specifications fitted, the choice within and across families by
     BIC, and the part tests."""
     t = len(inp.times)
-    m = moments_of(inp)
+    m = moments_of(inp, max_waves_per_wave)
     ev = Evidence(m)
     if t >= 3:
         ev.shape = st.mean_shape(inp.mu, inp.sigma, inp.pair_n, inp.times)
@@ -616,7 +617,7 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
 
     with _one_thread():
-        ev = _fit_all(inp, alpha)
+        ev = _fit_all(inp, alpha, int(th["max_waves_per_wave"]))
     tests, shape, times = ev.tests, ev.shape, inp.times
     led.value("n_effective", float(ev.moments.n_eff), 1)
     led.value("likelihood", "full information from the response patterns"
