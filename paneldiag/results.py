@@ -17,6 +17,12 @@ def plain(value):
     if isinstance(value, (list, tuple)):
         return [plain(v) for v in value]
     if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f":   # vectorised: a T x T matrix is T^2 values
+            out = value.astype(object)
+            out[~np.isfinite(value)] = None
+            return out.tolist()
+        if value.dtype.kind in "iub":
+            return value.tolist()
         return plain(value.tolist())
     if isinstance(value, (np.bool_, bool)):
         return bool(value)

@@ -465,9 +465,10 @@ def lawley_equal_correlations(r: np.ndarray, n: float) -> TestResult:
     return TestResult("lawley_1963", float(stat), df, float(dist.chi2_sf(stat, df)))
 
 
-def adjusted_wald(estimate: np.ndarray, replicates: np.ndarray, contrasts: np.ndarray,
-                  name: str) -> TestResult:
-    """Wald test of C theta = 0 with the delete-a-group jackknife covariance of theta.
+def adjusted_wald(diff: np.ndarray, rep: np.ndarray, name: str) -> TestResult:
+    """Wald test of C theta = 0 with the delete-a-group jackknife covariance of theta,
+    given the contrasts' values ``diff`` = C theta (q,) and their values in each
+    leave-one-group-out copy ``rep`` (K, q) (``equality_contrasts``).
 
     With q contrasts and d = K - 1 degrees of freedom of the covariance, the adjusted
     statistic F = (d - q + 1) / (d q) W is referred to F(q, d - q + 1) (Korn and
@@ -481,17 +482,14 @@ def adjusted_wald(estimate: np.ndarray, replicates: np.ndarray, contrasts: np.nd
     coefficients with complex survey data: use of Bonferroni t statistics. The
     American Statistician 44, 270-276.
     """
-    c = np.atleast_2d(contrasts)
-    q = c.shape[0]
-    k = replicates.shape[0]
+    q = len(diff)
+    k = rep.shape[0]
     d = k - 1
-    if q == 0 or k < 3 or not np.all(np.isfinite(estimate)) or not np.all(np.isfinite(replicates)):
+    if q == 0 or k < 3 or not np.all(np.isfinite(diff)) or not np.all(np.isfinite(rep)):
         return TestResult(name, np.nan, None, np.nan, "not computable")
-    diff = c @ estimate
-    rep = replicates @ c.T
     centred = rep - rep.mean(axis=0)
-    cov = (k - 1) / k * centred.T @ centred
     if q <= d - 1:
+        cov = (k - 1) / k * centred.T @ centred
         try:
             w = float(diff @ np.linalg.solve(cov, diff))
         except np.linalg.LinAlgError:
@@ -499,21 +497,27 @@ def adjusted_wald(estimate: np.ndarray, replicates: np.ndarray, contrasts: np.nd
         f = (d - q + 1) / (d * q) * w
         return TestResult(name, f, (q, d - q + 1), float(dist.f_sf(f, q, d - q + 1)),
                           "adjusted Wald F, jackknife covariance")
+    variances = (k - 1) / k * (centred ** 2).sum(axis=0)   # only the diagonal is needed
     with np.errstate(invalid="ignore", divide="ignore"):
-        t_vals = np.abs(diff) / np.sqrt(np.diag(cov))
+        t_vals = np.abs(diff) / np.sqrt(variances)
     p = float(min(1.0, q * 2 * dist.t_sf(np.nanmax(t_vals), d)))
     return TestResult(name, float(np.nanmax(t_vals)), (q, d), p,
                       "Bonferroni over single-contrast t tests (too many contrasts for a "
                       "joint test with this many replicate groups)")
 
 
-def _difference_contrasts(m: int, total: int, positions: list[int]) -> np.ndarray:
-    """Rows e_{p_i} - e_{p_0}: equality of the entries at ``positions``."""
-    c = np.zeros((m - 1, total))
-    for i in range(1, m):
-        c[i - 1, positions[i]] = 1.0
-        c[i - 1, positions[0]] = -1.0
-    return c
+def equality_contrasts(estimate: np.ndarray, replicates: np.ndarray, positions
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """The contrasts theta_{p_i} - theta_{p_0} (equality of the entries at
+    ``positions``) in the estimate and in each copy (K, ...): by indexing, not by a
+    dense contrast matrix. Not computable (NaN) when any entry of the estimate or the
+    copies is undefined."""
+    positions = np.asarray(positions)
+    diff = estimate[positions[1:]] - estimate[positions[0]]
+    rep = replicates[:, positions[1:]] - replicates[:, positions[:1]]
+    if not (np.all(np.isfinite(estimate)) and np.all(np.isfinite(replicates))):
+        diff = np.full_like(diff, np.nan)
+    return diff, rep
 
 
 @dataclass(frozen=True)
@@ -584,13 +588,14 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
         if kind != basis or len(pairs) < 2:
             continue
         positions = [position[pair] for pair in pairs]
-        c = _difference_contrasts(len(positions), len(z), positions)
-        res = adjusted_wald(z, z_reps, c, f"band_{lag}")
+        contrast = equality_contrasts(z, z_reps, positions)
+        res = adjusted_wald(*contrast, f"band_{lag}")
         bands.append(BandTest(kind, lag, distance, len(positions), res.statistic, res.df,
                               res.p_value))
-        joint_rows.append(c)
+        joint_rows.append(contrast)
     if joint_rows:
-        joint = adjusted_wald(z, z_reps, np.vstack(joint_rows), "equal_within_lag_bands")
+        joint = adjusted_wald(np.concatenate([d for d, _ in joint_rows]),
+                              np.hstack([r for _, r in joint_rows]), "equal_within_lag_bands")
         if joint.note.startswith("Bonferroni"):
             ps = [b.p_value for b in bands if np.isfinite(b.p_value)]
             p = min(1.0, len(ps) * min(ps)) if ps else np.nan
@@ -606,8 +611,8 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
     # variances: log variance per wave, full and leave-one-group-out
     logv = _log_variances(pairwise.pooled())
     logv_reps = np.array([_log_variances(part) for part in pairwise.leave_one_out()])
-    c = _difference_contrasts(t, t, list(range(t))) if t >= 2 else np.zeros((0, t))
-    variances = adjusted_wald(logv, logv_reps, c, "equal_variances")
+    variances = adjusted_wald(*equality_contrasts(logv, logv_reps, range(t)),
+                              "equal_variances")
     return Stationarity(lawley, joint, tuple(bands), variances)
 
 
