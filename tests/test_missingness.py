@@ -464,3 +464,42 @@ def test_units_never_observed_are_not_given_away(tmp_path):
     report3 = json.loads(out3.read_text())
     assert report3["missingness"]["em"]["n_units"] == 57
     assert report3["verdict_basis"]["statistics"]["n_units"] == 57
+
+
+def test_pairwise_moments_from_patterns_match_pandas():
+    """Source: pandas DataFrame.cov (pairwise-complete, n - 1 divisor) and mean."""
+    from paneldiag.summaries import summarise
+    from paneldiag.summaries.patterns import PatternMoments
+    from paneldiag.validation import panel_of
+    rng = np.random.default_rng(11)
+    x = rng.normal(size=(400, 6)) @ rng.normal(size=(6, 6))
+    x[rng.random(x.shape) < 0.25] = np.nan
+    patterns = summarise(panel_of(x), "score", [PatternMoments])[PatternMoments]
+    means, cov = patterns.pairwise_moments()
+    frame = pd.DataFrame(x)
+    observed = ~np.isnan(x)
+    pair_n = observed.T.astype(float) @ observed
+    np.testing.assert_allclose(means, frame.mean(), rtol=1e-12)
+    np.testing.assert_allclose(cov * pair_n / (pair_n - 1), frame.cov().to_numpy(), rtol=1e-10)
+
+
+def test_beyond_the_cost_limit_the_moments_are_pairwise(monkeypatch):
+    """Simulation with known truth (a stable trait with MCAR gaps): with the cost limit
+    of likelihood fits set below this panel's, EM and Little's test are not run, the
+    verdicts are fitted to the pairwise-complete moments in two stages and say so."""
+    import paneldiag.summaries.patterns as patterns_module
+    from paneldiag.diagnostics.missingness import PAIRWISE_FALLBACK
+    from paneldiag.screen import ScreenOptions, screen_measure
+    from paneldiag.io.ledger import Ledger
+    from paneldiag.validation import panel_of
+    rng = np.random.default_rng(5)
+    x = rng.normal(size=(600, 1)) + rng.normal(size=(600, 6))
+    x[rng.random(x.shape) < 0.2] = np.nan
+    monkeypatch.setattr(patterns_module, "ML_COST_LIMIT", 10.0)
+    report = screen_measure(panel_of(x), "score", Ledger(rows_read=0, rows_used=0), {},
+                            ScreenOptions(by_group=False))
+    assert report["missingness"]["em"]["method"] == PAIRWISE_FALLBACK
+    assert report["missingness"]["little_mcar"]["statistic"] is None
+    assert report["verdict_basis"]["statistics"]["likelihood"] == "pairwise-complete"
+    stable = next(f for f in report["families"] if f["family"] == "stable_trait")
+    assert stable["verdict"] == "supported"

@@ -38,6 +38,24 @@ class EMResult(Result):
     covariance: np.ndarray
     loglik: float
     n_units: int
+    method: str = "em"    # or PAIRWISE_FALLBACK: likelihood fits beyond ML_COST_LIMIT
+
+
+PAIRWISE_FALLBACK = "pairwise_complete"
+PAIRWISE_FALLBACK_NOTE = (
+    "ML moments under missing at random were not computed: with this many waves and "
+    "response patterns each likelihood iteration costs more than the screen's limit "
+    "(paneldiag.summaries.patterns.ML_COST_LIMIT); the moments are pairwise-complete, "
+    "which assumes missingness completely at random")
+
+
+def pairwise_fallback(patterns: PatternMoments) -> EMResult:
+    """Available-case means and pairwise-complete covariances in place of the ML
+    moments, when a likelihood fit over the patterns would cost too much."""
+    means, cov = patterns.pairwise_moments()
+    return EMResult(converged=True, iterations=0, means=means, covariance=cov,
+                    loglik=float("nan"), n_units=int(patterns.n[patterns.observed.any(axis=1)]
+                                                     .sum()), method=PAIRWISE_FALLBACK)
 
 
 @dataclass(frozen=True)
@@ -226,6 +244,8 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     Little, R. J. A. and Rubin, D. B. (2002). Statistical Analysis with Missing Data,
     2nd ed., chapter 11 (the multivariate normal with any pattern). Wiley.
     """
+    if not patterns.ml_affordable:
+        return pairwise_fallback(patterns)
     if start is not None or not loglik:   # a refit: not cached
         return _em(patterns, max_iter, tol, start, loglik)
     # several sections ask for the same estimates: compute them once per summary
@@ -320,6 +340,8 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
     83(404), 1198-1202.
     """
     em = em if em is not None else em_moments(patterns)
+    if em.method != "em":   # the test needs the ML estimates
+        return LittleMCAR(np.nan, 0, np.nan, patterns.n_patterns)
     wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
     groups = _groups(patterns, used)

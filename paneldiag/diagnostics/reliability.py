@@ -518,6 +518,8 @@ def _em_basis(replicates, full) -> EMBasis | None:
             np.all(np.isfinite(em.means))
         return em if ok else None
 
+    if (full is not None and full.method != "em") or not replicates.pooled().ml_affordable:
+        return None   # beyond the cost limit of likelihood fits: pairwise moments instead
     full = full if full is not None and full.converged else fit(replicates.pooled())
     if full is None or not np.all(np.isfinite(full.covariance)):
         return None
@@ -541,7 +543,9 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
     missing at random (EM), and the pairwise-complete summary is given beside it;
     with complete data, or when EM fails, the basis is the pairwise-complete moments.
     """
+    from paneldiag.diagnostics.missingness import PAIRWISE_FALLBACK_NOTE
     from paneldiag.summaries.pairwise import PairwiseMoments
+    from paneldiag.summaries.patterns import PatternMoments
     from paneldiag.summaries.replicate_patterns import ReplicatePatternMoments
 
     labels = ctx.panel.wave_labels
@@ -560,6 +564,8 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
                              alternative_summary=result.summary,
                              basis_note="missing cells present: ML moments under missing at "
                                         "random (EM); pairwise-complete summary beside it")
+        elif not ctx.summary(PatternMoments).ml_affordable:
+            result = replace(result, basis_note=PAIRWISE_FALLBACK_NOTE)
         else:
             result = replace(result, basis_note="missing cells present but no converging EM "
                                                 "fit for every replicate group: "

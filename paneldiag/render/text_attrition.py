@@ -101,7 +101,10 @@ def missingness_block(report: dict, color: bool) -> list[str]:
                      f"{mcar['df']:,} df, {_p(mcar['pvalue'])}, {mcar['n_patterns']:,} "
                      f"patterns: {verdict}")
     em = section["em"]
-    if not em["converged"]:
+    if em.get("method", "em") != "em":
+        lines.append("  ML moments under MAR not computed (too many waves x response patterns "
+                     "for the cost limit): pairwise-complete moments")
+    elif not em["converged"]:
         lines.append(f"  EM moments did not converge in {em['iterations']:,} iterations")
     for code in section["codes"]["rows"]:
         name = code["code"] + (f" {code['label']}" if code["label"] else "")

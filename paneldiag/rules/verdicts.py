@@ -270,13 +270,14 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
     used = n > 0
     complete = bool(np.all(obs[used & obs.any(axis=1)]))
     likelihood = None
-    if np.all(np.isfinite(sigma)):
+    if np.all(np.isfinite(sigma)) and em.method == "em":
         likelihood = (st.CovarianceLikelihood(sigma) if complete else
                       st.PatternLikelihood(_groups(patterns, np.ones(t, dtype=bool)), t))
     return Inputs(mu=np.asarray(em.means, float), sigma=sigma, pair_n=pair_n,
                   times=np.asarray(times, float), n_units=int(em.n_units),
                   retention=retention, dropout_smd=smd, categories=categories,
-                  likelihood=likelihood)
+                  likelihood=likelihood,
+                  moments_kind="pearson" if em.method == "em" else "pairwise-complete")
 
 
 # -------------------------------------------------------------------- the fits
@@ -620,6 +621,9 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         ev = _fit_all(inp, alpha, int(th["max_waves_per_wave"]))
     tests, shape, times = ev.tests, ev.shape, inp.times
     led.value("n_effective", float(ev.moments.n_eff), 1)
+    if inp.moments_kind == "pairwise-complete":
+        from paneldiag.diagnostics.missingness import PAIRWISE_FALLBACK_NOTE
+        general.append(PAIRWISE_FALLBACK_NOTE + ".")
     led.value("likelihood", "full information from the response patterns"
               if ev.moments.full else "complete-data" if inp.moments_kind == "pearson"
               else inp.moments_kind)

@@ -277,6 +277,13 @@ def display_order(patterns: "PatternMoments") -> np.ndarray:
     return np.lexsort((pattern_text(patterns.observed), -patterns.n))
 
 
+# Largest cost, in sum over patterns of k^3 (k observed waves), of one iteration of a
+# likelihood fit over the patterns (about a second of array arithmetic here); above it,
+# with many occasions and most units on a pattern of their own, the moments are
+# pairwise-complete instead (docs/design.md, "Cost in occasions").
+ML_COST_LIMIT = 1e9
+
+
 @dataclass(frozen=True)
 class PatternMoments:
     """Sufficient statistics per distinct response pattern, patterns in key order."""
@@ -303,6 +310,29 @@ class PatternMoments:
     def n_observed(self) -> np.ndarray:
         """Observed waves per pattern, (P,)."""
         return self.observed.sum(axis=1)
+
+    @property
+    def ml_affordable(self) -> bool:
+        """Whether likelihood fits over the patterns (EM, full information) are within
+        ``ML_COST_LIMIT``: each of their iterations costs sum over patterns of k^3 for k
+        observed waves, O(N T^3) when most units have a pattern of their own."""
+        return float(np.sum(self.n_observed.astype(float) ** 3)) <= ML_COST_LIMIT
+
+    def pairwise_moments(self) -> tuple[np.ndarray, np.ndarray]:
+        """Available-case means (T,) and pairwise-complete covariances (T, T), ML divisor,
+        from the pattern sums: O(P T^2), the fallback when ``ml_affordable`` is False."""
+        obs = self.observed.astype(float)
+        weighted = self.n[:, None] * obs
+        n_wave = weighted.sum(axis=0)
+        n_pair = weighted.T @ obs
+        sums = weighted * self.mean                   # per pattern, sums of the waves
+        with np.errstate(invalid="ignore", divide="ignore"):
+            means = sums.sum(axis=0) / n_wave
+            a = sums.T @ obs                         # a[s, t]: sum of wave s where t seen
+            cross = self.m2.sum(axis=0) + sums.T @ (self.mean * obs)
+            cov = (cross - a * a.T / n_pair) / n_pair
+        cov = np.where(n_pair > 0, cov, np.nan)
+        return np.where(n_wave > 0, means, np.nan), cov
 
     shared_pass = staticmethod(shared_pattern_cells)
 
