@@ -278,10 +278,12 @@ def display_order(patterns: "PatternMoments") -> np.ndarray:
 
 
 # Largest cost, in sum over patterns of k^3 (k observed waves), of one iteration of a
-# likelihood fit over the patterns (about a second of array arithmetic here); above it,
-# with many occasions and most units on a pattern of their own, the moments are
+# likelihood fit over the patterns. A screen makes about a thousand such iterations (EM
+# for all units and each replicate group, the full-information fits): 1.3e8 took 18 s of
+# CPU at 6,000 units x 50 waves here, so the limit keeps them under about 40 s. Above it
+# (many occasions, most units on a pattern of their own) the moments are
 # pairwise-complete instead (docs/design.md, "Cost in occasions").
-ML_COST_LIMIT = 1e9
+ML_COST_LIMIT = 3e8
 
 
 @dataclass(frozen=True)
