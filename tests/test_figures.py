@@ -128,12 +128,27 @@ def test_reliability_by_wave_uses_adjacent_triplets():
     assert [w for w, _, _ in rows["wiley_wiley"]] == ["2015", "2016", "2017"]
 
 
-def test_response_patterns_mark_answered_waves():
-    fig = F.response_pattern_figure(_report())
-    grid = fig.axes[0]
-    filled = sum(1 for coll in grid.collections
-                 if tuple(np.round(coll.get_facecolor()[0][:3], 3)) != (1.0, 1.0, 1.0))
-    assert filled == 4 + 3 + 3  # 'o' marks in the three patterns
+def test_response_patterns_draw_the_reported_patterns():
+    """The lanes follow the JSON section: a line over each run of answered waves at
+    the waves' times, a dot on each answered wave, thicker for a larger share, and the
+    share written at the lane's end (a property of the drawing)."""
+    report = _report()
+    fig = F.response_pattern_figure(report)
+    ax = fig.axes[0]
+    lanes = [line for line in ax.get_lines() if line.get_linestyle() == "-"]
+    runs = [(int(line.get_ydata()[0]), tuple(np.round(line.get_xdata(), 2)))
+            for line in lanes]
+    # "oooo", "ooo.", "o.oo": the third pattern breaks at the missed 2016 wave; a lone
+    # answered wave gets a stub of 0.15 of the shortest spacing either side
+    assert runs == [(0, (2015.0, 2016.0, 2017.0, 2019.0)), (1, (2015.0, 2016.0, 2017.0)),
+                    (2, (2014.85, 2015.15)), (2, (2017.0, 2019.0))]
+    dots = [line for line in ax.get_lines() if line.get_marker() == "o"]
+    assert [len(line.get_xdata()) for line in dots] == [4, 3, 3]
+    widths = [lanes[0].get_linewidth(), lanes[1].get_linewidth(), lanes[2].get_linewidth()]
+    assert widths[0] > widths[1] > widths[2]
+    texts = [t.get_text() for t in ax.texts]
+    assert texts == [f"{100 * r['share']:.1f}%"
+                     for r in report["missingness"]["patterns"]["rows"]]
 
 
 def test_trajectory_sample_is_seeded_and_needs_two_observations():

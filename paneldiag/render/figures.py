@@ -116,9 +116,28 @@ def _pattern_rows(report: dict):
     return out or None
 
 
+def _answered_runs(marks: list[str]) -> list[tuple[int, int]]:
+    """(first, last) wave index of each run of consecutive answered waves."""
+    runs, begin = [], None
+    for j, mark in enumerate(marks + ["."]):
+        seen = mark in "1xXoO+"
+        if seen and begin is None:
+            begin = j
+        elif not seen and begin is not None:
+            runs.append((begin, j - 1))
+            begin = None
+    return runs
+
+
+def lane_width(share: float) -> float:
+    """Line width (points) of a pattern's lane: its area grows with its share."""
+    return 1.5 + 10.0 * float(np.sqrt(max(share, 0.0)))
+
+
 def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
-    """A grid of the most frequent response patterns: a filled square for a wave
-    answered, an open square for a wave missed, and each pattern's share as a bar."""
+    """The most frequent response patterns as lanes along the wave times: a line where
+    waves are answered in a row, a gap where a wave is missed, a dot on every answered
+    wave; the lane's thickness grows with its share of units, written at its end."""
     rows = _pattern_rows(report)
     waves = report.get("panel", {}).get("waves", [])
     if not rows or not waves:
@@ -126,39 +145,40 @@ def response_pattern_figure(report: dict, max_rows: int = 12) -> Figure | None:
     rows = [r for r in rows if r[1] is not None][:max_rows]
     if not rows:
         return None
-    height = 1.5 + 0.28 * len(rows)
-    fig = Figure(figsize=(6.4, height), layout="constrained")
-    grid, bars = fig.subplots(1, 2, width_ratios=[max(len(waves), 3), 3], sharey=True)
+    times = _wave_times(report)
+    x = np.array([times.get(w, j) if times.get(w) is not None else j
+                  for j, w in enumerate(waves)], dtype=float)
+    fig, ax = _figure(6.4, 1.4 + 0.34 * (len(rows) + 1))
+    stub = 0.15 * (float(np.min(np.diff(x))) if len(x) > 1 else 1.0)  # a lone wave's lane
+    labels = []
     for i, (pattern, share, _) in enumerate(rows):
-        marks = [c for c in pattern if c not in " .-|"] if len(pattern) != len(waves) else \
-            list(pattern)
-        for j, mark in enumerate(marks[:len(waves)]):
-            seen = mark in "1xXoO+"
-            grid.scatter(j, i, s=70, marker="s", color=BLUE if seen else "white",
-                         edgecolors=BLACK, linewidths=0.8)
-        bars.barh(i, 100 * share, color=SKY, edgecolor=BLACK, linewidth=0.6, hatch="//")
-        bars.text(100 * share, i, f" {100 * share:.1f}%", va="center", fontsize=7)
-    labels = [f"#{i + 1}" for i in range(len(rows))]
+        marks = [c for c in pattern if c not in " |"][:len(waves)]
+        for first, last in _answered_runs(marks):
+            span = x[first:last + 1] if last > first else [x[first] - stub, x[first] + stub]
+            ax.plot(span, [i] * len(span), color=BLUE, linewidth=lane_width(share),
+                    solid_capstyle="round")
+        seen = [j for j, mark in enumerate(marks) if mark in "1xXoO+"]
+        ax.plot(x[seen], [i] * len(seen), linestyle="none", marker="o", markersize=3,
+                color=BLACK)
+        ax.text(x[-1] + 0.04 * (x[-1] - x[0] or 1), i, f"{100 * share:.1f}%",
+                va="center", fontsize=7)
+        labels.append(f"pattern {i + 1}")
     rest = ((report.get("missingness") or {}).get("patterns") or {}).get("remainder") or {}
     if _finite(rest.get("share"), rest.get("n_patterns")) and rest["share"] > 0:
         i = len(rows)
-        grid.text((len(waves) - 1) / 2, i, f"{rest['n_patterns']} other patterns",
-                  ha="center", va="center", fontsize=8, style="italic")
-        bars.barh(i, 100 * rest["share"], color="#dddddd", edgecolor=BLACK, linewidth=0.6)
-        bars.text(100 * rest["share"], i, f" {100 * rest['share']:.1f}%", va="center",
-                  fontsize=7)
-        labels.append("rest")
-    grid.set_xticks(range(len(waves)), waves, rotation=45)
-    grid.set_yticks(range(len(labels)), labels)
-    grid.invert_yaxis()
-    grid.set_xlabel("wave (filled: answered, open: missed)")
-    grid.set_ylabel("response pattern (most frequent first)")
-    for side in ("left", "bottom"):
-        grid.spines[side].set_visible(False)
-    grid.tick_params(length=0)
-    bars.set_xlabel("share of units (%)")
-    bars.grid(axis="x", color="#dddddd", linewidth=0.6)
-    fig.suptitle("Response patterns", fontsize=10)
+        ax.plot([x[0], x[-1]], [i, i], color="#bbbbbb", linestyle=(0, (2, 2)),
+                linewidth=lane_width(rest["share"]))
+        ax.text(x[-1] + 0.04 * (x[-1] - x[0] or 1), i, f"{100 * rest['share']:.1f}%",
+                va="center", fontsize=7)
+        labels.append(f"{rest['n_patterns']} others")
+    ax.set_yticks(range(len(labels)), labels)
+    ax.set_ylim(len(labels) - 0.4, -0.6)
+    ax.set_xticks(x, waves, rotation=45 if len(waves) > 8 else 0)
+    ax.set_xlim(x[0] - 0.03 * (x[-1] - x[0] or 1), x[-1] + 0.14 * (x[-1] - x[0] or 1))
+    ax.set_xlabel(wave_axis(report) + "; line: answered in a row, gap: missed")
+    ax.spines["left"].set_visible(False)
+    ax.tick_params(axis="y", length=0)
+    ax.set_title("Response patterns, most frequent first (share of units at the right)")
     return fig
 
 
@@ -483,8 +503,9 @@ MEASURE_FIGURES = (
      "Retention (share of the first wave's respondents still responding) and response "
      "(share of all units responding) by wave."),
     ("response_patterns", response_pattern_figure,
-     "The most frequent response patterns; filled squares mark waves answered. Patterns "
-     "held by fewer units than the minimum cell size are not shown."),
+     "The most frequent response patterns as lanes along the wave times: a line where "
+     "waves are answered in a row, a gap where one is missed; thicker lanes hold more "
+     "units. Patterns held by fewer units than the minimum cell size are not shown."),
     ("wave_means", wave_means_figure,
      "Wave means with 95% confidence intervals and a band of one standard deviation, "
      "placed at the actual wave times."),
