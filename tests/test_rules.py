@@ -359,3 +359,17 @@ def test_verdicts_never_fail_on_small_odd_panels():
         fams = verdicts_for_panel(panel_of(y))
         assert sorted(f["family"] for f in fams) == sorted(FAMILY_IDS)
         assert all(f["verdict"] in VERDICTS for f in fams)
+
+
+def test_units_seen_once_leave_every_family_undetermined():
+    """Simulation with known truth (a stable trait, but every unit is observed at one
+    wave only): no covariance between waves is estimable, so no family can be judged,
+    and the evidence says why."""
+    from paneldiag.validation import panel_of, verdicts_for_panel
+    rng = np.random.default_rng(8)
+    trait = rng.normal(size=300)
+    values = np.full((300, 5), np.nan)
+    values[np.arange(300), np.arange(300) % 5] = trait + rng.normal(size=300)
+    families = verdicts_for_panel(panel_of(values))
+    assert {f["verdict"] for f in families} == {"undetermined"}
+    assert all("observed at both" in " ".join(f["evidence"]) for f in families)

@@ -596,6 +596,11 @@ def _margin(est, lo, hi, threshold):
 
 # --------------------------------------------------------------------- the rules
 
+# fewest units seen at both waves of some pair for any covariance between waves to count
+# (with two, a correlation is +-1 whatever the process)
+MIN_UNITS_SHARED = 3
+
+
 def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
     """The verdicts, measurement judgement, power and next models from the panel."""
     th = thresholds or default_thresholds()
@@ -615,6 +620,14 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
             verdict[fam] = "undetermined"
             ev_text[fam].append("Too few waves or units, or a wave without variation: the "
                                 "covariance of the waves cannot be used.")
+        return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
+    iu = np.triu_indices(t, 1)
+    if np.max(inp.pair_n[iu]) < MIN_UNITS_SHARED:
+        for fam in FAMILY_IDS:
+            verdict[fam] = "undetermined"
+            ev_text[fam].append(f"No pair of waves has {MIN_UNITS_SHARED} or more units "
+                                "observed at both: the dependence between waves cannot be "
+                                "estimated.")
         return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
 
     with _one_thread():
