@@ -260,8 +260,9 @@ def test_date_waves_from_stata(tmp_path):
     pyreadstat.write_dta(frame, str(path))
     panel, _ = build_panel(read_table(str(path), columns=SPEC.columns()), SPEC)
     assert panel.wave_labels == ("2020-01-01", "2020-07-02")
-    # 2020 is a leap year: 1 July 2020 ends day 183 of 366 (pandas day_of_year)
-    np.testing.assert_array_equal(panel.wave_times, [2020.0, 2020.5])
+    # 2020 is a leap year: 2 July 2020 is 183 days after 1 January (pandas day_of_year - 1)
+    np.testing.assert_array_equal(panel.wave_times, [0, 183])
+    assert panel.time_unit == "day"
 
 
 def test_blank_lines_and_quoted_breaks_keep_line_numbers(tmp_path):
