@@ -171,7 +171,8 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     labels, times = reading.labels, _override_times(spec, reading.times, len(reading.labels))
     n_units, n_waves = len(unit_ids), len(labels)
     _check_extent(raw, n_units, n_waves)
-    check_shared_waves(wave_index, n_waves, f"the wave column '{spec.wave}'",
+    check_shared_waves(wave_index, reading.times, f"the wave column '{spec.wave}'",
+                       lambda what: InputProblem(what, file=raw.source, column=spec.wave),
                        spec.wave_grouping, spec.max_waves, reading.kind)
 
     cell = unit_index * n_waves + wave_index

@@ -570,24 +570,35 @@ def _ordered(times: np.ndarray, labels: list[str], unit: str | None, kind: str,
 
 # ----------------------------------------------------------------------------- checks
 
-def check_shared_waves(wave_index: np.ndarray, n_waves: int, where: str,
+def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, problem: Problem,
                        grouping: WaveGrouping, max_waves: int, kind: str) -> None:
     """Stop when the wave column holds continuous time rather than shared waves: more
     distinct values than ``max_waves``, or most rows alone at their time."""
-    remedy = ("group them with --wave-bins EDGES (e.g. 0,5,10,15) or --wave-bins N (N "
-              "equal-width bins), or round them with --wave-round STEP")
+    n_waves = len(times)
+    step = _round_step((times[-1] - times[0]) / 8)
+    edges = np.arange(np.floor(times[0] / step), np.ceil(times[-1] / step) + 1) * step
+    remedy = (f"group them with --wave-bins EDGES (e.g. {','.join(map(number_text, edges))}) "
+              "or --wave-bins N (N equal-width bins), or round them with --wave-round STEP")
     if kind == "dates":
         remedy = f"group them with --wave-round {'|'.join(PERIODS)}"
     if n_waves > max_waves:
         after = " after grouping" if grouping.active else ""
         looks = "" if kind == "text" else ": it looks like continuous time, not waves; " + remedy
-        raise InputProblem(
+        raise problem(
             f"{where} has {n_waves:,} distinct values{after}, more than the {max_waves} waves "
             f"a panel screen takes{looks} (or raise the limit with --max-waves)")
     if grouping.active or kind == "text":
         return
     alone = np.bincount(wave_index, minlength=n_waves)[wave_index] == 1
     if alone.mean() > UNIT_SPECIFIC_SHARE:
-        raise InputProblem(
+        raise problem(
             f"{where}: {int(alone.sum()):,} of {len(alone):,} rows are the only row at their "
             f"time, so the units have their own times, not shared waves; {remedy}")
+
+
+def _round_step(width: float) -> float:
+    """The smallest of 1, 2 or 5 times a power of ten that is at least ``width``."""
+    if not width > 0:
+        return 1.0
+    power = 10.0 ** np.floor(np.log10(width))
+    return next(m * power for m in (1, 2, 5, 10) if m * power >= width)

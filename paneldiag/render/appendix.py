@@ -19,6 +19,7 @@ from importlib import metadata
 
 from paneldiag.errors import InputProblem
 from paneldiag.render import figures as figs
+from paneldiag.render import intake
 from paneldiag.render import prose
 from paneldiag.render.document import (Code, FigureRef, Heading, ListBlock, Note, Paragraph,
                                        Table, to_html, to_markdown)
@@ -269,7 +270,9 @@ def cross_lag_table(pair: dict, min_cell: int) -> Table:
 OPTION_FLAGS = (  # options-record key -> command-line flag, in the order written
     ("id", "--id"), ("wave", "--wave"), ("values", "--value"), ("wide", "--wide"), ("items", "--items"),
     ("wave_labels", "--wave-labels"), ("wave_times", "--wave-times"),
-    ("wave_order", "--wave-order"), ("weight", "--weight"), ("group", "--group"),
+    ("wave_order", "--wave-order"), ("date_format", "--date-format"),
+    ("wave_bins", "--wave-bins"), ("wave_round", "--wave-round"), ("max_waves", "--max-waves"),
+    ("weight", "--weight"), ("group", "--group"),
     ("covariates", "--covariate"), ("missing_codes", "--missing-codes"),
     ("duplicates", "--duplicates"), ("drop_bad_rows", "--drop-bad-rows"),
     ("format", "--format"), ("delimiter", "--delimiter"), ("min_cell", "--min-cell"),
@@ -335,6 +338,11 @@ def reproducibility(report: dict) -> list:
              + "; ".join(_versions()),
              f"Input file: {_input_name(info)} (format {info.get('format', 'unknown')})",
              f"SHA-256 of the input: {info.get('sha256', 'unknown')}"]
+    first = next(iter(measure_reports(report).values()))
+    if first.get("panel"):
+        grouped = intake.grouping(first.get("ledger") or {})
+        facts.append(f"Waves: {intake.time_basis(first['panel'])}"
+                     + (f"; grouped by {grouped}" if grouped else ""))
     return [Heading(2, "Reproducibility", "reproducibility"), ListBlock(tuple(facts)),
             Table("options", "Options of the screen", ("option", "value"), rows,
                   align="ll"),
