@@ -396,3 +396,47 @@ def test_integer_codes_equal_pandas_factorize(values, presorted):
         assert not presorted and max(values) - min(values) + 1 > 4 * len(values) + 1024
         return
     assert np.array_equal(got[0], codes) and np.array_equal(got[1], np.asarray(uniques))
+
+
+# ------------------------------------------------------------------------ composite ids
+
+SITES = ("site,person,wave,y\n"
+         "B,2,1,1\nB,2,2,2\nA,10,1,3\nA,10,2,4\nA,2,1,5\nA,2,2,6\nB,10,1,7\nB,10,2,8\n"
+         "A,3,1,9\nA,3,2,10\n")
+
+
+def test_an_id_of_two_columns(tmp_path):
+    panel, ledgers = panel_from_text(tmp_path, SITES, id=("site", "person"))
+    # ordered by site, then by person as a number (2 before 10), shown joined by '/'
+    assert panel.unit_ids.tolist() == ["A/2", "A/3", "A/10", "B/2", "B/10"]
+    np.testing.assert_array_equal(panel.values["y"], [[5, 6], [9, 10], [3, 4], [1, 2], [7, 8]])
+    assert ledgers["y"].units == 5 and ledgers["y"].balances()
+
+
+def test_a_missing_part_of_the_id_is_a_missing_id(tmp_path):
+    text = SITES.replace("A,3,2,10", ",3,2,10")
+    with pytest.raises(InputProblem, match="missing unit id") as info:
+        panel_from_text(tmp_path, text, id=("site", "person"))
+    assert (info.value.row, info.value.column) == (11, "site")
+    _, ledgers = panel_from_text(tmp_path, text, id=("site", "person"), bad_values="drop")
+    assert ledgers["y"].dropped_by_reason["missing_id"] == 1
+
+
+def test_ids_unique_only_within_a_site_are_named(tmp_path):
+    with pytest.raises(InputProblem) as info:
+        panel_from_text(tmp_path, SITES, id="person")
+    message = info.value.what
+    assert "the repeated ids differ in 'site'" in message
+    assert "give both, --id site --id person" in message
+    assert "--duplicates" not in message            # merging different people is no remedy
+    assert info.value.column == "person" and info.value.row == 2
+
+
+def test_a_column_that_varies_within_units_is_not_offered(tmp_path):
+    # the interviewer differs between the repeated rows but also within person 3's waves
+    text = ("person,interviewer,wave,y\n"
+            "1,K,1,1\n1,L,1,2\n2,K,1,3\n2,K,2,4\n3,K,1,5\n3,M,2,6\n4,K,1,7\n4,K,2,8\n"
+            "5,L,1,9\n5,L,2,10\n")
+    with pytest.raises(InputProblem, match="choose --duplicates first, last or mean") as info:
+        panel_from_text(tmp_path, text, id="person")
+    assert "interviewer" not in info.value.what
