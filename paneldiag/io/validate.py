@@ -746,10 +746,11 @@ def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
             labels = tuple(str(n) for n in numbers)
         else:
             labels = tuple(str(t) for t in range(1, n_waves + 1))
-    def problem(what: str, index: int | None = None) -> InputProblem:
-        return InputProblem(what)
-
-    reading = read_waves(labels, "--wave-labels", problem, spec.date_format, "given")
+            order = WaveReading(np.arange(n_waves), labels, np.arange(1, n_waves + 1.0), None,
+                                "columns")
+            return labels, _override_times(spec, order.times, n_waves), _time_basis(spec, order)
+    reading = read_waves(labels, "--wave-labels", lambda what, index=None: InputProblem(what),
+                         spec.date_format, "given")
     if reading.kind == "text" or len(reading.labels) != n_waves or \
             not np.array_equal(reading.position, np.arange(n_waves)):
         # text, or labels out of time order: the columns' order with times 1..T

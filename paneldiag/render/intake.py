@@ -36,7 +36,7 @@ def time_basis(panel: dict) -> str:
     elif unit:
         start = reading.get("times_from")
         times = f"times in {unit}s" + (f" from {start}" if start else "")
-    elif kind == "text":
+    elif kind in ("text", "columns"):
         times = "times 1 to T"
     else:
         times = "times as written (their unit is not named)"
