@@ -114,16 +114,21 @@ def test_day_month_year_round_trip_with_the_reading_named(dates, day_first, sep)
     assert read(texts, date_format=pattern).labels == reading.labels
 
 
+def reference_period_times(periods: pd.PeriodIndex, parts: list[int], unit: str):
+    """One month (or quarter) of the year in every label: calendar years; else months (or
+    quarters) from the first, from pandas Period ordinals."""
+    if len(set(parts)) == 1:
+        return periods.year.to_numpy(float), "year"
+    return (periods.asi8 - periods.asi8.min()).astype(float), unit
+
+
 @settings(max_examples=40, deadline=None)
 @given(months=st.lists(st.tuples(st.integers(1950, 2049), st.integers(1, 12)), min_size=2,
                        max_size=10, unique=True),
        form=st.sampled_from(sorted(MONTH_FORMS)))
 def test_month_forms_round_trip(months, form):
     periods = pd.PeriodIndex([pd.Period(year=y, month=m, freq="M") for y, m in months])
-    if len({m for _, m in months}) == 1:   # one month of the year: yearly
-        times, unit = np.array([y for y, _ in months], float), "year"
-    else:
-        times, unit = (periods.asi8 - periods.asi8.min()).astype(float), "month"
+    times, unit = reference_period_times(periods, [m for _, m in months], "month")
     reading = check_round_trip([MONTH_FORMS[form](y, m) for y, m in months], periods.asi8,
                                times, unit)
     assert reading.labels == tuple(sorted(str(p) for p in periods))
@@ -135,10 +140,7 @@ def test_month_forms_round_trip(months, form):
        form=st.sampled_from(sorted(QUARTER_FORMS)))
 def test_quarter_forms_round_trip(quarters, form):
     periods = pd.PeriodIndex([pd.Period(year=y, quarter=q, freq="Q") for y, q in quarters])
-    if len({q for _, q in quarters}) == 1:
-        times, unit = np.array([y for y, _ in quarters], float), "year"
-    else:
-        times, unit = (periods.asi8 - periods.asi8.min()).astype(float), "quarter"
+    times, unit = reference_period_times(periods, [q for _, q in quarters], "quarter")
     check_round_trip([QUARTER_FORMS[form](y, q) for y, q in quarters], periods.asi8, times, unit)
 
 
@@ -307,6 +309,14 @@ def test_cli_day_first_interview_dates(tmp_path):
     assert panel["time_unit"] == "day"
     assert panel["wave_reading"] == {"read_as": "dates", "form": "DD/MM/YYYY",
                                      "times_from": "2015-11-03"}
+    # the intake block of the terminal and the appendix say how the waves were read
+    from paneldiag.render.prose import Citations, sample
+    from paneldiag.render.terminal import render_terminal
+    basis = "dates written DD/MM/YYYY; times in days from 2015-11-03"
+    text = render_terminal(report, details=True)
+    assert basis in text and "waves in order (time): 2015-11-03 (0), 2016-10-28 (360)," in text
+    assert f"The waves were read as {basis}; in order, with their times: 2015-11-03 (0)" in \
+        sample(report, Citations())[0]
 
 
 def test_cli_ambiguous_dates_with_the_reading_named_are_yearly(tmp_path):

@@ -160,7 +160,7 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     if len(valid_rows) == 0:
         raise InputProblem("no row has both a unit id and a wave", file=raw.source)
     wave_index, reading, label_index = _parse_waves(raw, spec, valid_rows)
-    outside = wave_index < 0
+    outside = wave_index < 0 if spec.wave_grouping.active else np.zeros(0, dtype=bool)
     if outside.any():  # rows beyond the --wave-bins edges
         valid_rows, wave_index, label_index = (a[~outside] for a in
                                                (valid_rows, wave_index, label_index))

@@ -274,7 +274,6 @@ def _refuse_year_words(texts: list[str], where: str, problem: Problem, order: st
 
 # Each written form: (family, pattern). A family is parsed as one; the day-first or
 # month-first reading of the numeric day-month-year family is decided over all labels.
-_SEP = r"\s*([-/.])\s*"
 _FORMS = [
     ("iso-time", re.compile(r"\d{4}-\d{1,2}-\d{1,2}[T ]\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?"
                             r"(Z|[+-]\d{2}:?\d{2})?")),
@@ -589,10 +588,10 @@ def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, pr
             f"a panel screen takes{looks} (or raise the limit with --max-waves)")
     if grouping.active or kind == "text":
         return
-    alone = np.bincount(wave_index, minlength=n_waves)[wave_index] == 1
-    if alone.mean() > UNIT_SPECIFIC_SHARE:
+    alone = int(np.count_nonzero(np.bincount(wave_index, minlength=n_waves) == 1))
+    if alone > UNIT_SPECIFIC_SHARE * len(wave_index):  # (a wave of one row: one row alone)
         raise problem(
-            f"{where}: {int(alone.sum()):,} of {len(alone):,} rows are the only row at their "
+            f"{where}: {alone:,} of {len(wave_index):,} rows are the only row at their "
             f"time, so the units have their own times, not shared waves; {remedy}")
 
 
