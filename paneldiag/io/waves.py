@@ -586,10 +586,10 @@ def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, pr
         raise problem(
             f"{where} has {n_waves:,} distinct values{after}, more than the {max_waves} waves "
             f"a panel screen takes{looks} (or raise the limit with --max-waves)")
-    if grouping.active or kind == "text":
-        return
+    if grouping.active or kind == "text" or len(wave_index) * UNIT_SPECIFIC_SHARE >= n_waves:
+        return  # (a row alone is a wave of one row: at most n_waves rows are alone)
     alone = int(np.count_nonzero(np.bincount(wave_index, minlength=n_waves) == 1))
-    if alone > UNIT_SPECIFIC_SHARE * len(wave_index):  # (a wave of one row: one row alone)
+    if alone > UNIT_SPECIFIC_SHARE * len(wave_index):
         raise problem(
             f"{where}: {alone:,} of {len(wave_index):,} rows are the only row at their "
             f"time, so the units have their own times, not shared waves; {remedy}")
