@@ -99,8 +99,8 @@ def wave_table(report: dict, min_cell: int) -> Table | None:
                  for r in rows)
     return Table(f"{slug(report.get('measure'))}-waves",
                  f"{report.get('measure')}: distribution by wave",
-                 ("wave", "time", "n", "mean", "SD", "min", "max", "% at floor",
-                  "% at ceiling"), body,
+                 ("wave", f"time ({intake.time_unit(report)}s)", "n", "mean", "SD", "min",
+                  "max", "% at floor", "% at ceiling"), body,
                  (f"Counts below {min_cell} are shown as '< {min_cell}' (disclosure control).",))
 
 
@@ -130,8 +130,8 @@ def lag_table(report: dict, min_cell: int) -> Table | None:
                   _n(r.get("wave_pairs"), 0), _n(r.get("n_pairs"), min_cell)) for r in rows)
     return Table(f"{slug(report.get('measure'))}-lags",
                  f"{report.get('measure')}: mean correlation by lag and by time distance",
-                 ("grouped by", "lag (waves)", "time distance", "mean r [95% CI]",
-                  "wave pairs", "unit pairs"), body,
+                 ("grouped by", "lag (waves)", f"time distance ({intake.time_unit(report)}s)",
+                  "mean r [95% CI]", "wave pairs", "unit pairs"), body,
                  ("Fisher-z averages weighted by n - 3; '–': the band mixes lags or time "
                   "distances. Unit pairs count a unit once per wave pair.",), align="lrrrrr")
 
