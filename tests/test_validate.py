@@ -440,3 +440,14 @@ def test_a_column_that_varies_within_units_is_not_offered(tmp_path):
     with pytest.raises(InputProblem, match="choose --duplicates first, last or mean") as info:
         panel_from_text(tmp_path, text, id="person")
     assert "interviewer" not in info.value.what
+
+
+def test_standard_input_gets_no_site_hint(monkeypatch):
+    # standard input cannot be read a second time for the file's other columns
+    import io
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(SITES.encode())))
+    spec = LayoutSpec(id="person", wave="wave", values=("y",))
+    raw = read_table("-", "csv", columns=spec.columns())
+    assert raw.all_columns is None
+    with pytest.raises(InputProblem, match="choose --duplicates first, last or mean"):
+        build_panel(raw, spec)

@@ -379,6 +379,12 @@ def test_cli_ages_in_bins(tmp_path):
     assert grouping["rows_sharing_a_wave"] == after - before
     assert ledger["rows_read"] == ledger["rows_used"] + ledger["rows_dropped"]
     assert report["input"]["options"]["wave_bins"] == "20,40,60"
+    # the reproducibility block records the grouping and the command that repeats it
+    from paneldiag.render.appendix import command_line, reproducibility
+    facts = " ".join(str(block) for block in reproducibility(report))
+    assert "Waves: numbers; times as written (their unit is not named); grouped by bins " \
+           "with edges 20, 40, 60" in facts
+    assert "--wave-bins 20,40,60 --duplicates mean" in command_line(report["input"])
 
 
 def test_cli_own_visit_dates_by_quarter(tmp_path):
