@@ -8,16 +8,20 @@ class InputProblem(Exception):
 
     It carries what went wrong and, where known, where: the file, the row
     (a line number for text files, a record number otherwise) and the column.
-    The CLI prints it as one line and exits with status 2.
+    The CLI prints it as one line and exits with status 2. ``listing`` is an optional
+    (title, items) pair the CLI shows below that line, wrapped to the terminal (e.g. the
+    whole header of a file when a column is not found).
     """
 
     def __init__(self, what: str, file: str | None = None, row: int | None = None,
-                 column: str | None = None):
+                 column: str | None = None,
+                 listing: tuple[str, tuple[str, ...]] | None = None):
         super().__init__(what)
         self.what = what
         self.file = file
         self.row = row
         self.column = column
+        self.listing = listing
 
     def where(self) -> str:
         parts = [str(p) for p in (self.file, self.row, self.column) if p is not None]

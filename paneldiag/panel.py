@@ -30,6 +30,10 @@ class Panel:
     # ``item_columns[measure]`` names the item columns; values[measure] is their mean.
     items: dict[str, np.ndarray] = field(default_factory=dict)
     item_columns: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    # The unit of wave_times (year, quarter, month, week, day; None when unknown) and how
+    # the waves were read (``io.waves.WaveReading.describe``).
+    time_unit: str | None = None
+    wave_reading: dict = field(default_factory=dict)
 
     @property
     def n_units(self) -> int:
@@ -54,5 +58,6 @@ class Panel:
             groups=None if self.groups is None else self.groups[mask],
             covariates={k: v[mask] for k, v in self.covariates.items()},
             items={k: v[mask] for k, v in self.items.items()},
-            item_columns=self.item_columns,
+            item_columns=self.item_columns, time_unit=self.time_unit,
+            wave_reading=self.wave_reading,
         )

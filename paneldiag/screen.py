@@ -73,7 +73,8 @@ class MeasureContext:
 
 def _panel_section(ctx: MeasureContext) -> dict:
     return {"n_units": ctx.panel.n_units, "n_waves": ctx.panel.n_waves,
-            "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times)}
+            "waves": list(ctx.panel.wave_labels), "times": plain(ctx.panel.wave_times),
+            "time_unit": ctx.panel.time_unit, "wave_reading": dict(ctx.panel.wave_reading)}
 
 
 SUMMARY_KINDS: list[type] = [WaveMoments, PairwiseMoments, PairwiseTables, TrajectorySummary,

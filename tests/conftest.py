@@ -28,7 +28,9 @@ def pytest_collection_modifyitems(config, items):
 
 
 def run_cli(*args, stdin: bytes | None = None, cwd=None):
-    """Run the installed console entry point in a subprocess, as a user would."""
-    env = dict(os.environ, NO_COLOR="1")
+    """Run the console entry point in a subprocess, as a user would, with the package of
+    this checkout first on the path (whatever the working folder)."""
+    path = os.pathsep.join(filter(None, [str(ROOT), os.environ.get("PYTHONPATH")]))
+    env = dict(os.environ, NO_COLOR="1", PYTHONPATH=path)
     return subprocess.run([sys.executable, "-m", "paneldiag", *map(str, args)], input=stdin,
                           capture_output=True, cwd=cwd, env=env)

@@ -2,8 +2,10 @@
 
 Every file in fixtures/bad/ is one case; fixtures/bad/expected.txt gives the options, the
 expected message fragment and the expected location. Each run must exit with status 2,
-print exactly one line on stderr (``paneldiag: error: WHAT (FILE:ROW:COLUMN)``), show no
-traceback, write nothing and leave the input byte for byte as it was.
+print one line on stderr (``paneldiag: error: WHAT (FILE:ROW:COLUMN)``), show no
+traceback, write nothing and leave the input byte for byte as it was. Only a listing that
+belongs to the message (the whole header of a file whose column is not found) may follow
+that line, indented.
 
 Each case runs in its own child process. To keep the corpus fast, the child is forked
 from the test process (which has already imported paneldiag) and runs the command line's
@@ -128,7 +130,8 @@ def test_bad_input(outcomes, name, options, fragment, location):
     assert result.returncode == 2, stderr
     assert "Traceback" not in stderr
     lines = stderr.splitlines()
-    assert len(lines) == 1, stderr
+    assert all(extra.startswith("  ") for extra in lines[1:]), stderr
+    assert len(lines) == 1 or "listed below" in lines[0], stderr
     line = lines[0]
     assert line.startswith("paneldiag: error: ")
     assert fragment in line

@@ -131,10 +131,11 @@ def test_report_foundation_keys(quiet_run, demo_file, demo_bytes):
     assert ledger["rows_read"] == ledger["rows_used"] + ledger["rows_dropped"]
     assert ledger["rows_dropped"] == sum(ledger["dropped_by_reason"].values())
     panel = report["panel"]
-    assert list(panel) == ["n_units", "n_waves", "waves", "times"]
+    assert list(panel) == ["n_units", "n_waves", "waves", "times", "time_unit", "wave_reading"]
     # the demo's years: 2015-2023 without 2020 (paneldiag/demo.py)
     assert panel["waves"] == ["2015", "2016", "2017", "2018", "2019", "2021", "2022", "2023"]
     assert panel["times"] == [2015, 2016, 2017, 2018, 2019, 2021, 2022, 2023]
+    assert panel["time_unit"] == "year" and panel["wave_reading"] == {"read_as": "numbers"}
     assert panel["n_units"] == ledger["units"] == 100 and panel["n_waves"] == 8
     rows = report["wave_profile"]
     assert [r["wave"] for r in rows] == panel["waves"]

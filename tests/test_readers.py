@@ -260,8 +260,9 @@ def test_date_waves_from_stata(tmp_path):
     pyreadstat.write_dta(frame, str(path))
     panel, _ = build_panel(read_table(str(path), columns=SPEC.columns()), SPEC)
     assert panel.wave_labels == ("2020-01-01", "2020-07-02")
-    # 2020 is a leap year: 1 July 2020 ends day 183 of 366 (pandas day_of_year)
-    np.testing.assert_array_equal(panel.wave_times, [2020.0, 2020.5])
+    # 2020 is a leap year: 2 July 2020 is 183 days after 1 January (pandas day_of_year - 1)
+    np.testing.assert_array_equal(panel.wave_times, [0, 183])
+    assert panel.time_unit == "day"
 
 
 def test_blank_lines_and_quoted_breaks_keep_line_numbers(tmp_path):
@@ -288,3 +289,44 @@ def test_spss_wide_user_missing_per_wave_column(tmp_path):
         {"-8": [0, 1, 0], "-9": [1, 0, 1]}
     assert panel.code_labels["trust"] == {"-9": "refused", "-8": "don't know"}
     assert ledgers["trust"].cells["declared_missing_code"] == 3
+
+
+# ----------------------------------------------------------------------------- column not found
+
+def test_column_not_found_offers_near_matches_and_the_whole_header(tmp_path):
+    header = ["NR", "YEAR"] + [f"ITEM_{i:02d}" for i in range(30)] + ["Satisfaction"]
+    path = tmp_path / "wide_header.csv"
+    path.write_text(",".join(header) + "\n" + ",".join("1" * len(header)) + "\n")
+    for asked, offered in (("nr", "'NR'"), ("satisfacton", "'Satisfaction'"),
+                           ("ITEM_7", "'ITEM_07'")):
+        with pytest.raises(InputProblem) as info:
+            read_table(str(path), columns=[asked, "YEAR"])
+        # near matches: the same name in another case first, then difflib close matches
+        # (difflib.get_close_matches, cutoff 0.6; ITEM_27 and ITEM_17 tie with ITEM_07)
+        assert f"column '{asked}' not found (did you mean " in info.value.what
+        assert offered in info.value.what.split("?")[0]
+        assert info.value.listing == ("header", tuple(header))   # every column, none cut
+        assert "listed below" in info.value.what and info.value.row == 1
+    with pytest.raises(InputProblem) as info:
+        read_table(str(path), columns=["tenure"])
+    assert "did you mean" not in info.value.what
+
+
+def test_a_short_header_stays_on_the_line(tmp_path):
+    path = tmp_path / "short.csv"
+    path.write_text("Household,year,trust\nH1,2015,3\n")
+    with pytest.raises(InputProblem) as info:
+        read_table(str(path), columns=["household"])
+    assert info.value.what == ("column 'household' not found (did you mean 'Household'?); "
+                               "the header has: Household, year, trust")
+    assert info.value.listing is None
+
+
+def test_the_listing_wraps_between_names():
+    from paneldiag.cli import wrap_items
+    names = [f"COLUMN_{i:02d}" for i in range(20)] + ["A_NAME_LONGER_THAN_THE_LINE" * 3]
+    lines = wrap_items("header:", names, 40)
+    assert all(len(line) <= 40 for line in lines[:-1])
+    assert lines[-1].strip() == names[-1]            # too long for a line: a line of its own
+    items = " ".join(line.strip() for line in lines).removeprefix("header: ").split(", ")
+    assert items == names                            # every name, in order, none broken

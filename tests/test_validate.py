@@ -71,15 +71,17 @@ def test_text_waves_given_order(tmp_path):
     assert natural.wave_labels == ("exit", "follow-up", "intake")
 
 
-def test_iso_dates_become_decimal_years(tmp_path):
+def test_iso_dates_count_days(tmp_path):
     dates = ["2020-01-01", "2020-07-02", "2021-04-01"]
     panel, _ = panel_from_text(tmp_path, long_text(dates))
     assert panel.wave_labels == tuple(dates)
-    # reference: year + (day of year - 1) / days in that year, from pandas Timestamp fields
+    # reference: days between the dates from pandas Timestamp arithmetic
     stamps = pd.to_datetime(dates)
-    expected = stamps.year + (stamps.day_of_year - 1) / np.where(stamps.is_leap_year, 366, 365)
-    np.testing.assert_allclose(panel.wave_times, expected, rtol=0, atol=1e-12)
-    assert panel.wave_times[1] == 2020.5          # 183 of the 366 days of 2020 have passed
+    np.testing.assert_array_equal(panel.wave_times, (stamps - stamps[0]).days)
+    assert panel.wave_times[1] == 183           # 2020 is a leap year: 31+29+31+30+31+30+1
+    assert panel.time_unit == "day"
+    assert panel.wave_reading == {"read_as": "dates", "form": "YYYY-MM-DD",
+                                  "times_from": "2020-01-01"}
 
 
 def test_wave_times_override(tmp_path):
@@ -224,9 +226,11 @@ def test_long_ledger_balances(rows, policy):
         expected[reason] = int((outcome == reason).sum())
     observed = kept[outcome == "observed"].assign(y=lambda f: f["y"].astype(float))
     n_units, n_waves = valid["unit"].nunique(), valid["wave"].nunique()
+    # most rows alone at their wave: the units have their own times (io.waves)
+    alone = (valid.groupby("wave")["wave"].transform("size") == 1).mean() > 0.5
     with tempfile.TemporaryDirectory() as folder:
         path = write_csv(folder, ["unit", "wave", "y"], rows)
-        if n_units < 2 or n_waves < 2 or observed.empty:
+        if n_units < 2 or n_waves < 2 or observed.empty or alone:
             with pytest.raises(InputProblem):
                 build_panel(read_table(path, columns=spec.columns()), spec)
             return
@@ -392,3 +396,58 @@ def test_integer_codes_equal_pandas_factorize(values, presorted):
         assert not presorted and max(values) - min(values) + 1 > 4 * len(values) + 1024
         return
     assert np.array_equal(got[0], codes) and np.array_equal(got[1], np.asarray(uniques))
+
+
+# ------------------------------------------------------------------------ composite ids
+
+SITES = ("site,person,wave,y\n"
+         "B,2,1,1\nB,2,2,2\nA,10,1,3\nA,10,2,4\nA,2,1,5\nA,2,2,6\nB,10,1,7\nB,10,2,8\n"
+         "A,3,1,9\nA,3,2,10\n")
+
+
+def test_an_id_of_two_columns(tmp_path):
+    panel, ledgers = panel_from_text(tmp_path, SITES, id=("site", "person"))
+    # ordered by site, then by person as a number (2 before 10), shown joined by '/'
+    assert panel.unit_ids.tolist() == ["A/2", "A/3", "A/10", "B/2", "B/10"]
+    np.testing.assert_array_equal(panel.values["y"], [[5, 6], [9, 10], [3, 4], [1, 2], [7, 8]])
+    assert ledgers["y"].units == 5 and ledgers["y"].balances()
+
+
+def test_a_missing_part_of_the_id_is_a_missing_id(tmp_path):
+    text = SITES.replace("A,3,2,10", ",3,2,10")
+    with pytest.raises(InputProblem, match="missing unit id") as info:
+        panel_from_text(tmp_path, text, id=("site", "person"))
+    assert (info.value.row, info.value.column) == (11, "site")
+    _, ledgers = panel_from_text(tmp_path, text, id=("site", "person"), bad_values="drop")
+    assert ledgers["y"].dropped_by_reason["missing_id"] == 1
+
+
+def test_ids_unique_only_within_a_site_are_named(tmp_path):
+    with pytest.raises(InputProblem) as info:
+        panel_from_text(tmp_path, SITES, id="person")
+    message = info.value.what
+    assert "the repeated ids differ in 'site'" in message
+    assert "give both, --id site --id person" in message
+    assert "--duplicates" not in message            # merging different people is no remedy
+    assert info.value.column == "person" and info.value.row == 2
+
+
+def test_a_column_that_varies_within_units_is_not_offered(tmp_path):
+    # the interviewer differs between the repeated rows but also within person 3's waves
+    text = ("person,interviewer,wave,y\n"
+            "1,K,1,1\n1,L,1,2\n2,K,1,3\n2,K,2,4\n3,K,1,5\n3,M,2,6\n4,K,1,7\n4,K,2,8\n"
+            "5,L,1,9\n5,L,2,10\n")
+    with pytest.raises(InputProblem, match="choose --duplicates first, last or mean") as info:
+        panel_from_text(tmp_path, text, id="person")
+    assert "interviewer" not in info.value.what
+
+
+def test_standard_input_gets_no_site_hint(monkeypatch):
+    # standard input cannot be read a second time for the file's other columns
+    import io
+    monkeypatch.setattr(sys, "stdin", io.TextIOWrapper(io.BytesIO(SITES.encode())))
+    spec = LayoutSpec(id="person", wave="wave", values=("y",))
+    raw = read_table("-", "csv", columns=spec.columns())
+    assert raw.all_columns is None
+    with pytest.raises(InputProblem, match="choose --duplicates first, last or mean"):
+        build_panel(raw, spec)

@@ -84,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         cli.main(args=args, prog_name="paneldiag", standalone_mode=False)
     except InputProblem as problem:
-        _fail(f"paneldiag: error: {problem}", 2, debug)
+        _fail(f"paneldiag: error: {problem}", 2, debug, problem.listing)
     except click.exceptions.Exit as done:
         return done.exit_code
     except click.Abort:
@@ -99,9 +99,29 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
-def _fail(message: str, status: int, debug: bool) -> None:
+def _fail(message: str, status: int, debug: bool, listing=None) -> None:
     if debug:
         import traceback
         traceback.print_exc()
     sys.stderr.write(" ".join(message.split("\n")) + "\n")
+    if listing:
+        import shutil
+        title, items = listing
+        width = shutil.get_terminal_size((80, 24)).columns
+        sys.stderr.write("".join(line + "\n" for line in wrap_items(f"{title}:", items, width)))
     sys.exit(status)
+
+
+def wrap_items(title: str, items, width: int, indent: str = "  ") -> list[str]:
+    """``title`` and the items, comma-separated, in lines of at most ``width`` characters
+    (an item longer than a line gets a line of its own), never breaking inside an item."""
+    lines, line = [], indent + title
+    for i, item in enumerate(items):
+        piece = f"{item}," if i < len(items) - 1 else str(item)
+        if len(line) + 1 + len(piece) > width and line.strip():
+            lines.append(line)
+            line = indent * 2 + piece
+        else:
+            line += " " + piece
+    lines.append(line)
+    return lines

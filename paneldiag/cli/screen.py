@@ -2,6 +2,9 @@
 
 Long data (a row per unit and wave):
     paneldiag screen panel.csv --id person --wave year --value score [--value other ...]
+    (--id twice, e.g. --id site --id person: the unit is the pair, shown as site/person;
+    date waves in their written forms, --date-format when day and month could swap;
+    continuous times such as age grouped with --wave-bins or --wave-round)
 Wide data (a row per unit, a column per wave, columns in wave order):
     paneldiag screen panel.csv --id person --wide score=s1,s2,s3 [--wave-labels 2019,2020,2022]
 A scale measured by several items at each wave (long data only):
@@ -22,6 +25,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.output import refuse_input_overwrite, write_atomic
 from paneldiag.io.readers import FORMATS, read_table
 from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.io.waves import MAX_WAVES, WaveGrouping
 
 
 def _wide_option(items: tuple[str, ...]) -> tuple[tuple[str, tuple[str, ...]], ...]:
@@ -61,7 +65,9 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 
 @click.command("screen")
 @click.argument("data", type=str)
-@click.option("--id", "id_column", metavar="COL", help="Column with the unit id.")
+@click.option("--id", "id_columns", metavar="COL", multiple=True,
+              help="Column with the unit id; repeat when the id is made of several columns "
+                   "(e.g. --id site --id person: ids unique only within a site).")
 @click.option("--wave", "wave_column", metavar="COL", help="Column with the wave (long data).")
 @click.option("--value", "values", metavar="COL", multiple=True,
               help="A measure column (long data); repeat for several measures.")
@@ -75,6 +81,18 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
               help="Numeric time of each wave (overrides times read from the labels).")
 @click.option("--wave-order", type=click.Choice(["natural", "given"]), default="natural",
               show_default=True, help="Order of text wave labels.")
+@click.option("--date-format", metavar="FORM",
+              help="How wave dates are written when the data cannot tell: day-first, "
+                   "month-first, or a strftime pattern such as '%d.%m.%y'.")
+@click.option("--wave-bins", metavar="EDGES|N",
+              help="Group numeric wave values (e.g. age) into bins: edges such as 0,5,10,15, "
+                   "or a number of equal-width bins.")
+@click.option("--wave-round", metavar="STEP",
+              help="Round numeric wave values to the nearest multiple of STEP, or take date "
+                   "waves as their month, quarter or year.")
+@click.option("--max-waves", type=click.IntRange(2), default=MAX_WAVES, show_default=True,
+              help="Most distinct wave values a screen takes (above 40, only when most units "
+                   "answer a quarter of them or more; else they look like continuous time).")
 @click.option("--weight", metavar="COL", help="Longitudinal weight, one per unit.")
 @click.option("--group", metavar="COL", help="A grouping column, constant within unit.")
 @click.option("--covariate", "covariates", metavar="COL", multiple=True,
@@ -116,19 +134,22 @@ def _list_option(text: str | None, name: str, numeric: bool = False):
 @click.option("--details", is_flag=True,
               help="Show every area in full in the terminal summary, not just key figures.")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")
-def command(data, id_column, wave_column, values, wide, items, wave_labels, wave_times,
-            wave_order, weight, group, covariates, missing_codes, duplicates, drop_bad_rows, fmt,
-            delimiter, json_path, triplet_path, min_cell, ordinal, report_dir, trajectory_sample,
-            trajectory_seed,
+def command(data, id_columns, wave_column, values, wide, items, wave_labels, wave_times,
+            wave_order, date_format, wave_bins, wave_round, max_waves, weight, group,
+            covariates, missing_codes, duplicates, drop_bad_rows, fmt, delimiter, json_path,
+            triplet_path, min_cell, ordinal, report_dir, trajectory_sample, trajectory_seed,
             rules_path, audit_only, details, quiet):
     """Audit a panel file and screen which process families it can support."""
     progress = Progress(quiet)
     spec = LayoutSpec(
-        id=id_column, wave=wave_column, values=tuple(values), wide=_wide_option(wide),
+        id=id_columns[0] if len(id_columns) == 1 else (tuple(id_columns) or None),
+        wave=wave_column, values=tuple(values), wide=_wide_option(wide),
         items=_items_option(items),
         wave_labels=_list_option(wave_labels, "--wave-labels"),
         wave_times=_list_option(wave_times, "--wave-times", numeric=True),
-        wave_order=wave_order, weight=weight, group=group, covariates=tuple(covariates),
+        wave_order=wave_order, date_format=date_format,
+        wave_grouping=WaveGrouping.parse(wave_bins, wave_round), max_waves=max_waves,
+        weight=weight, group=group, covariates=tuple(covariates),
         missing_codes=MissingCodes.parse(missing_codes), duplicates=duplicates,
         bad_values="drop" if drop_bad_rows else "error")
     if not spec.measure_names():
@@ -193,12 +214,16 @@ def _scale(ordinal: bool | None) -> str:
 def _options_record(spec: LayoutSpec, fmt, delimiter, min_cell) -> dict:
     """The options that shaped the result, for the reproducibility record."""
     record = {
-        "layout": spec.layout, "id": spec.id, "wave": spec.wave, "values": list(spec.values),
+        "layout": spec.layout,
+        "id": spec.id if isinstance(spec.id, str) or spec.id is None else list(spec.id), "wave": spec.wave, "values": list(spec.values),
         "wide": {name: list(cols) for name, cols in spec.wide},
         "items": {name: list(cols) for name, cols in spec.items},
         "wave_labels": list(spec.wave_labels) if spec.wave_labels else None,
         "wave_times": list(spec.wave_times) if spec.wave_times else None,
-        "wave_order": spec.wave_order, "weight": spec.weight, "group": spec.group,
+        "wave_order": spec.wave_order, "date_format": spec.date_format,
+        **spec.wave_grouping.record(),
+        "max_waves": spec.max_waves if spec.max_waves != MAX_WAVES else None,
+        "weight": spec.weight, "group": spec.group,
         "covariates": list(spec.covariates), "missing_codes": spec.missing_codes.describe(),
         "duplicates": spec.duplicates, "drop_bad_rows": spec.bad_values == "drop",
         "format": fmt, "delimiter": delimiter, "min_cell": min_cell,

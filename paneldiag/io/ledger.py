@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 DROP_REASONS = (
     "missing_id",
     "missing_wave",
+    "wave_outside_bins",
     "duplicate_unit_wave",
     "non_numeric_value",
     "infinite_value",
@@ -28,6 +29,8 @@ class Ledger:
     waves: int = 0
     layout: str = "long"
     cells: dict[str, int] | None = None  # wide data: what happened to each wave cell
+    # --wave-bins / --wave-round: the rule and the rows it moved, left out or put together
+    wave_grouping: dict | None = None
 
     @property
     def rows_dropped(self) -> int:
@@ -46,4 +49,5 @@ class Ledger:
             "waves": self.waves,
             "layout": self.layout,
             **({"cells": dict(self.cells)} if self.cells is not None else {}),
+            **({"wave_grouping": dict(self.wave_grouping)} if self.wave_grouping else {}),
         }

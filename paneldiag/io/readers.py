@@ -8,6 +8,7 @@ validator's job.
 from __future__ import annotations
 
 import csv
+import difflib
 import gzip
 import hashlib
 import io
@@ -49,6 +50,9 @@ class RawTable:
     # text files: record index -> line number, worked out only when a message needs it
     # (blank lines and quoted line breaks move records off first_row_number + index)
     locate: Callable[[int], int] | None = None
+    # every column of the file, read again only when a message needs them (None for
+    # standard input, which cannot be read twice)
+    all_columns: Callable[[], pd.DataFrame] | None = None
 
     def row_number(self, index: int) -> int:
         if self.locate is not None:
@@ -92,6 +96,8 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
         table = _read_stat_file(path, data, fmt, columns, digest)
     if hashing is not None:
         table.sha256 = hashing.result()
+    if path != "-" and columns is not None:
+        table.all_columns = lambda: read_table(path, fmt, None, delimiter).frame
     return table
 
 
@@ -288,9 +294,31 @@ def _require_columns(path, header, columns, sep, header_line) -> None:
                 shown = "\\t" if other == "\t" else other
                 hint = f"; the header looks '{shown}'-separated: try --delimiter '{shown}'"
                 break
-    shown_header = ", ".join(header[:8]) + (", ..." if len(header) > 8 else "")
-    raise InputProblem(f"column '{missing[0]}' not found; the header has: {shown_header}{hint}",
-                       file=path, row=1)
+    raise column_not_found(missing[0], list(header), path, row=1, hint=hint)
+
+
+INLINE_HEADER = 60  # characters: a longer header is listed below the message, wrapped
+
+
+def column_not_found(name: str, header: list[str], path: str, row: int | None = None,
+                     hint: str = "") -> InputProblem:
+    """Column ``name`` is not in ``header``: near matches (case aside, or close spellings)
+    in the message, and the whole header, in it when short, else in its listing."""
+    near = []
+    if not hint:  # a header read with the wrong delimiter has no near match
+        lowered = {h.strip().lower(): h for h in reversed(header)}
+        key = name.strip().lower()
+        near = [lowered[key]] if key in lowered else []
+        near += [lowered[m] for m in difflib.get_close_matches(key, list(lowered), 3, 0.6)]
+        near = list(dict.fromkeys(near))[:3]
+    offer = f" (did you mean {' or '.join(repr(n) for n in near)}?)" if near else ""
+    shown = ", ".join(header)
+    if len(shown) <= INLINE_HEADER:
+        return InputProblem(f"column '{name}' not found{offer}; the header has: {shown}{hint}",
+                            file=path, row=row)
+    return InputProblem(f"column '{name}' not found{offer}; the header's {len(header)} "
+                        f"columns are listed below{hint}", file=path, row=row,
+                        listing=("header", tuple(header)))
 
 
 def _text_parse_problem(path, raw, sep, message) -> InputProblem:

@@ -15,10 +15,13 @@ import pandas as pd
 
 from paneldiag.errors import InputProblem
 from paneldiag.io.ledger import Ledger
-from paneldiag.io.readers import RawTable
+from paneldiag.io.readers import RawTable, column_not_found
+from paneldiag.io.waves import (MAX_WAVES, WaveGrouping, WaveReading, check_shared_waves,
+                                number_text, read_waves)
 from paneldiag.panel import Panel
 
 DUPLICATE_POLICIES = ("error", "first", "last", "mean")
+ID_SEPARATOR = "/"  # a unit id made of several columns is shown as siteA/17
 BAD_VALUE_POLICIES = ("error", "drop")
 
 # Per-cell outcome codes, used while classifying values.
@@ -54,7 +57,7 @@ class MissingCodes:
         return cls(tuple(values), negative)
 
     def describe(self) -> str:
-        parts = [_number_text(v) for v in self.values] + (["negative"] if self.negative else [])
+        parts = [number_text(v) for v in self.values] + (["negative"] if self.negative else [])
         return ",".join(parts)
 
 
@@ -62,7 +65,7 @@ class MissingCodes:
 class LayoutSpec:
     """How the file is laid out and what the user asked for."""
 
-    id: str | None = None
+    id: str | tuple[str, ...] | None = None  # several columns: the id is their combination
     wave: str | None = None
     values: tuple[str, ...] = ()
     wide: tuple[tuple[str, tuple[str, ...]], ...] = ()
@@ -76,14 +79,23 @@ class LayoutSpec:
     duplicates: str = "error"
     bad_values: str = "error"
     items: tuple[tuple[str, tuple[str, ...]], ...] = ()  # long data: scale NAME = item columns
+    date_format: str | None = None     # day-first, month-first or a strftime pattern
+    wave_grouping: WaveGrouping = field(default_factory=WaveGrouping)
+    max_waves: int = MAX_WAVES
 
     @property
     def layout(self) -> str:
         return "wide" if self.wide else "long"
 
+    @property
+    def id_columns(self) -> tuple[str, ...]:
+        if not self.id:
+            return ()
+        return (self.id,) if isinstance(self.id, str) else tuple(self.id)
+
     def columns(self) -> list[str]:
         """The file columns this layout needs, in a stable order without repeats."""
-        names = [self.id, self.wave, *self.values]
+        names = [*self.id_columns, self.wave, *self.values]
         for _, cols in (*self.wide, *self.items):
             names.extend(cols)
         names += [self.weight, self.group, *self.covariates]
@@ -100,9 +112,8 @@ def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     _check_spec(spec)
     absent = [c for c in spec.columns() if c not in raw.frame.columns]
     if absent:  # the CLI's reader already checks; this guards direct library calls
-        shown = ", ".join(map(str, raw.frame.columns[:8]))
-        raise InputProblem(f"column '{absent[0]}' not found; the table has: {shown}",
-                           file=raw.source, row=1 if raw.first_row_number == 2 else None)
+        raise column_not_found(absent[0], list(map(str, raw.frame.columns)), raw.source,
+                               row=1 if raw.first_row_number == 2 else None)
     if spec.layout == "wide":
         return _build_wide(raw, spec)
     return _build_long(raw, spec)
@@ -112,7 +123,7 @@ def _check_spec(spec: LayoutSpec) -> None:
     if spec.duplicates not in DUPLICATE_POLICIES:
         raise InputProblem(f"--duplicates must be one of {', '.join(DUPLICATE_POLICIES)}")
     if spec.layout == "long":
-        if not spec.id or not spec.wave:
+        if not spec.id_columns or not spec.wave:
             raise InputProblem("long data needs --id and --wave (or give --wide columns)")
         if not spec.values and not spec.items:
             raise InputProblem("name at least one measure with --value")
@@ -124,6 +135,8 @@ def _check_spec(spec: LayoutSpec) -> None:
     names = spec.measure_names()
     if len(set(names)) != len(names):
         raise InputProblem("a measure is named twice")
+    if len(set(spec.id_columns)) != len(spec.id_columns):
+        raise InputProblem("--id names a column twice")
 
 
 # ----------------------------------------------------------------------------- long
@@ -131,10 +144,10 @@ def _check_spec(spec: LayoutSpec) -> None:
 def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
     frame = raw.frame
     n_rows = len(frame)
-    id_missing = _missing_mask(frame[spec.id])
+    id_missing = _ids_missing(frame, spec)
     wave_missing = _missing_mask(frame[spec.wave]) & ~id_missing
-    for mask, column, what in ((id_missing, spec.id, "unit id"),
-                               (wave_missing, spec.wave, "wave")):
+    for mask, column, what in ((id_missing, _first_missing_id(frame, spec, id_missing),
+                                "unit id"), (wave_missing, spec.wave, "wave")):
         if mask.any() and spec.bad_values == "error":
             raise InputProblem(f"missing {what} in {int(mask.sum())} row(s); fix them or pass "
                                "--drop-bad-rows to drop and count them",
@@ -146,10 +159,21 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         valid_rows = np.arange(n_rows)
     if len(valid_rows) == 0:
         raise InputProblem("no row has both a unit id and a wave", file=raw.source)
-    unit_index, unit_ids = _factorize_ids(frame[spec.id], valid_rows)
-    wave_index, labels, times = _parse_waves(raw, spec, valid_rows)
+    wave_index, reading, label_index = _parse_waves(raw, spec, valid_rows)
+    outside = wave_index < 0 if spec.wave_grouping.active else np.zeros(0, dtype=bool)
+    if outside.any():  # rows beyond the --wave-bins edges
+        valid_rows, wave_index, label_index = (a[~outside] for a in
+                                               (valid_rows, wave_index, label_index))
+        if len(valid_rows) == 0:
+            raise InputProblem("no row has a wave inside the --wave-bins edges",
+                               file=raw.source, column=spec.wave)
+    unit_index, unit_ids = _factorize_ids(frame, spec.id_columns, valid_rows)
+    labels, times = reading.labels, _override_times(spec, reading.times, len(reading.labels))
     n_units, n_waves = len(unit_ids), len(labels)
     _check_extent(raw, n_units, n_waves)
+    check_shared_waves(wave_index, reading.times, f"the wave column '{spec.wave}'",
+                       lambda what: InputProblem(what, file=raw.source, column=spec.wave),
+                       spec.wave_grouping, spec.max_waves, reading.kind, n_units)
 
     cell = unit_index * n_waves + wave_index
     kept, n_duplicate = _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves)
@@ -157,7 +181,10 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         kept = slice(None)
     rows = valid_rows[kept]
     structural = {"missing_id": int(id_missing.sum()), "missing_wave": int(wave_missing.sum()),
-                  "duplicate_unit_wave": n_duplicate}
+                  "wave_outside_bins": int(outside.sum()), "duplicate_unit_wave": n_duplicate}
+    grouping = None
+    if spec.wave_grouping.active:
+        grouping = _grouping_record(reading, label_index, unit_index, cell, int(outside.sum()))
 
     values, codes, code_labels, ledgers = {}, {}, {}, {}
     items, item_columns = {}, {}
@@ -193,7 +220,8 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
             reasons[reason] = int((outcome_kept == code).sum())
         used = int((outcome_kept == OBSERVED).sum())
         ledgers[measure] = Ledger(rows_read=n_rows, rows_used=used, dropped_by_reason=reasons,
-                                  units=n_units, waves=n_waves, layout="long")
+                                  units=n_units, waves=n_waves, layout="long",
+                                  wave_grouping=grouping)
         values[measure] = matrix
         codes[measure] = _code_counts(code_kept, wave_kept, n_waves)
         code_labels[measure] = _code_label_text(raw, measure, codes[measure])
@@ -201,7 +229,7 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     unit_rows = unit_index[kept]
     panel = Panel(
         unit_ids=unit_ids, wave_labels=labels, wave_times=times, values=values,
-        codes=codes, code_labels=code_labels,
+        codes=codes, code_labels=code_labels, **_time_basis(spec, reading),
         weights=_unit_weights(raw, spec, rows, unit_rows, unit_ids),
         groups=_unit_groups(raw, spec, rows, unit_rows, unit_ids),
         covariates={c: _scatter(raw, c, rows, unit_rows, wave_index[kept], n_units, n_waves)
@@ -248,7 +276,43 @@ def _missing_mask(column: pd.Series) -> np.ndarray:
     return mask
 
 
-def _factorize_ids(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _ids_missing(frame: pd.DataFrame, spec: LayoutSpec) -> np.ndarray:
+    """Rows where any column of the unit id is missing."""
+    mask = _missing_mask(frame[spec.id_columns[0]])
+    for column in spec.id_columns[1:]:
+        mask |= _missing_mask(frame[column])
+    return mask
+
+
+def _first_missing_id(frame: pd.DataFrame, spec: LayoutSpec, missing: np.ndarray) -> str:
+    if not missing.any():
+        return spec.id_columns[0]
+    row = int(np.flatnonzero(missing)[0])
+    return next(c for c in spec.id_columns if _missing_mask(frame[c].iloc[row:row + 1])[0])
+
+
+def _factorize_ids(frame: pd.DataFrame, columns: tuple[str, ...],
+                   rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Unit index per row and the sorted unit ids. An id of several columns is their
+    combination, ordered column by column and shown joined by ``ID_SEPARATOR``."""
+    parts = [_factorize_column(frame[c], rows) for c in columns]
+    if len(parts) == 1:
+        return parts[0]
+    combined = np.zeros(len(rows), dtype=np.int64)
+    for codes, uniques in parts:  # mixed-radix number of the columns' sorted codes
+        combined = combined * len(uniques) + codes
+    distinct, index = np.unique(combined, return_inverse=True)
+    texts = []
+    for codes, uniques in reversed(parts):  # the digits back, last column first
+        texts.append(np.asarray(uniques).astype(str)[distinct % len(uniques)])
+        distinct = distinct // len(uniques)
+    ids = texts[-1].astype(object)
+    for column_text in reversed(texts[:-1]):
+        ids = ids + ID_SEPARATOR + column_text.astype(object)
+    return index.astype(np.int64), ids
+
+
+def _factorize_column(column: pd.Series, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     ids = column.iloc[rows] if len(rows) != len(column) else column
     dense = _dense_integer_codes(ids)
     if dense is not None:
@@ -311,80 +375,49 @@ def _check_extent(raw: RawTable, n_units: int, n_waves: int) -> None:
 
 
 def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
-    """Wave index per row, ordered labels and numeric times."""
+    """Wave index per row (-1 outside the --wave-bins), the reading of the waves, and the
+    index of each row's distinct label (for the grouping record)."""
     column = raw.frame[spec.wave]
     column = column.iloc[rows] if len(rows) != len(column) else column
     dense = _dense_integer_codes(column)  # integer waves: codes already in sorted order
     codes, uniques = dense if dense is not None else pd.factorize(_trimmed(column), sort=False)
-    kind, keys = _wave_kind(raw, spec.wave, column, codes, uniques)
-    if kind == "text" and spec.wave_order == "given":
-        order = np.arange(len(keys))
-    elif kind == "text":
-        order = np.array(sorted(range(len(keys)), key=lambda i: _natural_key(keys[i])))
-    else:
-        order = np.argsort(keys, kind="stable")
-    rank = np.empty(len(order), dtype=np.int64)
-    rank[order] = np.arange(len(order))
-    ordered = [keys[i] for i in order]
-    if kind == "number":
-        labels = tuple(_number_text(k) for k in ordered)
-        times = np.array(ordered, dtype=float)
-    elif kind == "date":
-        stamps = pd.DatetimeIndex(ordered)
-        labels = tuple(s.strftime("%Y-%m-%d") if s == s.normalize() else s.isoformat()
-                       for s in stamps)
-        times = _decimal_years(stamps)
-    else:
-        labels = tuple(str(k) for k in ordered)
-        times = np.arange(1, len(ordered) + 1, dtype=float)
-    times = _override_times(spec, times, len(labels))
-    if np.array_equal(order, np.arange(len(order))):  # codes already follow wave order
-        return codes.astype(np.int64, copy=False), labels, times
-    return rank[codes], labels, times
+    codes = codes.astype(np.int64, copy=False)
+
+    def problem(what: str, index: int | None = None) -> InputProblem:
+        row = None if index is None else raw.row_number(rows[np.flatnonzero(codes == index)[0]])
+        return InputProblem(what, file=raw.source, row=row, column=spec.wave)
+
+    reading = read_waves(uniques, f"the wave column '{spec.wave}'", problem, spec.date_format,
+                         spec.wave_order, spec.wave_grouping)
+    if np.array_equal(reading.position, np.arange(len(uniques))):  # codes follow wave order
+        return codes, reading, codes
+    return reading.position[codes], reading, codes
 
 
-def _wave_kind(raw, name, column, codes, uniques):
-    if pd.api.types.is_datetime64_any_dtype(column):
-        return "date", list(pd.DatetimeIndex(uniques))
-    if pd.api.types.is_numeric_dtype(column):
-        keys = np.asarray(uniques, dtype=float)
-        bad = ~np.isfinite(keys)
-        if bad.any():
-            row = np.flatnonzero(codes == np.flatnonzero(bad)[0])[0]
-            raise InputProblem("wave is not a finite number", file=raw.source,
-                               row=raw.row_number(row), column=name)
-        return "number", list(keys)
-    text = [str(u).strip() for u in uniques]
-    numbers = pd.to_numeric(pd.Series(text), errors="coerce")
-    if numbers.notna().all():
-        return "number", list(numbers.astype(float))
-    dates = pd.to_datetime(pd.Series(text), errors="coerce", format="ISO8601")
-    if dates.notna().all():
-        return "date", list(dates)
-    if numbers.notna().any() or dates.notna().any():
-        typed = numbers.notna() | dates.notna()
-        a, b = int(np.flatnonzero(typed)[0]), int(np.flatnonzero(~typed)[0])
-        kinds = "numbers" if numbers.notna().any() else "dates"
-        raise InputProblem(
-            f"wave column mixes {kinds} and text: '{text[a]}' and '{text[b]}'",
-            file=raw.source, row=raw.row_number(np.flatnonzero(codes == b)[0]), column=name)
-    return "text", text
+def _time_basis(spec: LayoutSpec, reading: WaveReading) -> dict:
+    """The Panel's time unit and how its waves were read (times given override both)."""
+    if spec.wave_times is not None:
+        return {"time_unit": None, "wave_reading": {"read_as": reading.kind,
+                                                    "times": "given with --wave-times"}}
+    return {"time_unit": reading.unit, "wave_reading": reading.describe()}
 
 
-def _natural_key(text: str):
-    return [(0, int(part), "") if part.isdigit() else (1, 0, part.lower())
-            for part in re.split(r"(\d+)", text) if part]
-
-
-def _decimal_years(stamps: pd.DatetimeIndex) -> np.ndarray:
-    start = pd.DatetimeIndex([pd.Timestamp(year=s.year, month=1, day=1) for s in stamps])
-    length = np.where(stamps.is_leap_year, 366.0, 365.0)
-    return stamps.year.to_numpy(float) + (stamps - start).days.to_numpy(float) / length
+def _grouping_record(reading: WaveReading, label_index, unit_index, cell, n_outside) -> dict:
+    """What --wave-bins or --wave-round did to the rows: moved to another wave label, left
+    outside the bins, or landed in a wave already holding a row of their unit."""
+    n_labels = len(reading.position)
+    before = unit_index * n_labels + label_index
+    repeats_before = len(before) - len(np.unique(before))
+    repeats_after = len(cell) - len(np.unique(cell))
+    return {"rule": reading.grouping,
+            "rows_moved": int(reading.moved[label_index].sum()),
+            "rows_outside": n_outside,
+            "rows_sharing_a_wave": int(repeats_after - repeats_before)}
 
 
 def _override_times(spec: LayoutSpec, times: np.ndarray, n_waves: int) -> np.ndarray:
     if spec.wave_times is None:
-        return times
+        return np.asarray(times, dtype=float)
     if len(spec.wave_times) != n_waves:
         raise InputProblem(f"--wave-times gives {len(spec.wave_times)} times for {n_waves} waves")
     given = np.array(spec.wave_times, dtype=float)
@@ -402,22 +435,7 @@ def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     if n_duplicate == 0:
         return np.arange(len(cell)), 0
     if spec.duplicates == "error":
-        dup_positions = np.flatnonzero(counts[cell] > 1)
-        first = dup_positions[0]
-        shown = []
-        for c in pd.unique(cell[dup_positions])[:3]:  # name the first few repeated pairs
-            same = dup_positions[cell[dup_positions] == c][:2]
-            lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
-            where = "" if labels == ("",) else f" at wave {labels[c % n_waves]}"
-            shown.append(f"{unit_ids[c // n_waves]}{where} (rows {lines})")
-        n_cells = int(np.count_nonzero(counts > 1))
-        what = "unit id(s) appear in more than one row" if labels == ("",) else \
-            "unit-wave pair(s) appear more than once"
-        more = ", ..." if n_cells > len(shown) else ""
-        raise InputProblem(
-            f"{n_cells} {what}: {', '.join(shown)}{more}; choose --duplicates first"
-            f"{' or last' if labels == ('',) else ', last or mean'}",
-            file=raw.source, row=raw.row_number(valid_rows[first]), column=spec.id)
+        raise _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves)
     if spec.duplicates == "mean":
         return np.arange(len(cell)), n_duplicate
     order = np.argsort(cell, kind="stable")
@@ -427,6 +445,71 @@ def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     else:
         boundary = np.r_[sorted_cells[1:] != sorted_cells[:-1], True]
     return np.sort(order[boundary]), n_duplicate
+
+
+def _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves):
+    """The repeated unit-wave rows (or ids, in wide data), with the likeliest remedy."""
+    wide = labels == ("",)
+    dup_positions = np.flatnonzero(counts[cell] > 1)
+    shown = []
+    for c in pd.unique(cell[dup_positions])[:3]:  # name the first few repeated pairs
+        same = dup_positions[cell[dup_positions] == c][:2]
+        lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
+        where = "" if wide else f" at wave {labels[c % n_waves]}"
+        shown.append(f"{unit_ids[c // n_waves]}{where} (rows {lines})")
+    n_cells = int(np.count_nonzero(counts > 1))
+    what = "unit id(s) appear in more than one row" if wide else \
+        "unit-wave pair(s) appear more than once"
+    more = ", ..." if n_cells > len(shown) else ""
+    outer = _outer_id_column(raw, spec, cell // n_waves, cell % n_waves, valid_rows,
+                             dup_positions, wide)
+    if outer is not None:
+        ids = " ".join(f"--id {c}" for c in (outer, *spec.id_columns))
+        remedy = (f"the repeated ids differ in '{outer}', which is constant within each unit: "
+                  f"the ids look unique only within '{outer}'; give both, {ids}")
+    elif spec.wave_grouping.active and not wide:
+        what += " after grouping the waves"
+        remedy = "choose --duplicates mean (the average of a unit's rows in a wave), first or last"
+    else:
+        remedy = f"choose --duplicates first{' or last' if wide else ', last or mean'}"
+    return InputProblem(f"{n_cells} {what}: {', '.join(shown)}{more}; {remedy}",
+                        file=raw.source, row=raw.row_number(valid_rows[dup_positions[0]]),
+                        column=ID_SEPARATOR.join(spec.id_columns))
+
+
+def _outer_id_column(raw, spec, unit_index, wave_index, valid_rows, dup_positions, wide):
+    """A column of the file, coarser than the id, that tells the repeated rows apart and
+    is constant within the ids that are not repeated (a site, a school): the ids are then
+    probably unique only within it. None when there is none or the file cannot be read
+    again (standard input). Runs only on the way to an error."""
+    if raw.all_columns is None:
+        return None
+    try:
+        frame = raw.all_columns()
+    except InputProblem:
+        return None
+    frame = frame.iloc[valid_rows].reset_index(drop=True)
+    n_ids = int(unit_index.max()) + 1
+    repeated = np.isin(unit_index, np.unique(unit_index[dup_positions]))
+    found = []
+    for name in frame.columns:  # a loop over columns
+        if name in spec.columns():
+            continue
+        codes = pd.factorize(frame[name], use_na_sentinel=False)[0].astype(np.int64)
+        n_values = int(codes.max()) + 1
+        if n_values >= n_ids:
+            continue
+        units = unit_index * n_values + codes
+        cells = units * max(int(wave_index.max()) + 1, 1) + wave_index
+        if len(np.unique(cells)) != len(cells):
+            continue  # the rows stay repeated with it
+        single = units[~repeated]
+        if len(np.unique(single)) != len(np.unique(unit_index[~repeated])):
+            continue  # it varies within ids that are not repeated
+        if not wide and len(units) <= len(np.unique(units)):
+            continue  # with it every unit would hold one row
+        found.append((n_values, name))
+    return min(found)[1] if found else None
 
 
 def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
@@ -460,7 +543,7 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
         declared |= finite & (numbers < 0)
     if declared.any():
         distinct, position = np.unique(numbers[declared], return_inverse=True)
-        texts = np.array([_number_text(v) for v in distinct], dtype=object)  # per code
+        texts = np.array([number_text(v) for v in distinct], dtype=object)  # per code
         code_text = np.full(n, None, dtype=object)
         code_text[declared] = texts[position]
         coded |= declared
@@ -523,7 +606,7 @@ def _code_counts(code_text: np.ndarray | None, wave_index: np.ndarray, n_waves: 
 
 def _code_label_text(raw: RawTable, column: str, counts: dict) -> dict[str, str]:
     labels = raw.value_labels.get(column, {})
-    by_text = {_number_text(k): v for k, v in labels.items()}
+    by_text = {number_text(k): v for k, v in labels.items()}
     return {code: by_text[code] for code in counts if code in by_text}
 
 
@@ -586,24 +669,25 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         raise InputProblem("every --wide measure must list the same number of wave columns")
     n_waves = widths.pop()
     all_rows = np.arange(n_rows)
-    if spec.id:
-        id_missing = _missing_mask(frame[spec.id])
+    if spec.id_columns:
+        id_missing = _ids_missing(frame, spec)
         if id_missing.any() and spec.bad_values == "error":
             raise InputProblem("missing unit id; fix it or pass --drop-bad-rows",
                                file=raw.source, row=raw.row_number(np.flatnonzero(id_missing)[0]),
-                               column=spec.id)
+                               column=_first_missing_id(frame, spec, id_missing))
         rows = np.flatnonzero(~id_missing)
-        unit_index, unit_ids = _factorize_ids(frame[spec.id], rows)
+        unit_index, unit_ids = _factorize_ids(frame, spec.id_columns, rows)
     else:
         id_missing = np.zeros(n_rows, dtype=bool)
         rows, unit_index = all_rows, all_rows.copy()
         unit_ids = np.arange(1, n_rows + 1)
-    labels, times = _wide_waves(spec, spec.wide[0][1])
+    labels, times, basis = _wide_waves(spec, spec.wide[0][1])
     _check_extent(raw, len(unit_ids), n_waves)
     kept, n_duplicate = _resolve_duplicates(raw, spec, unit_index, rows, unit_ids, ("",), 1)
     if spec.duplicates == "mean" and n_duplicate:
         raise InputProblem("--duplicates mean is for long data; choose first or last for "
-                           "repeated ids in wide data", file=raw.source, column=spec.id)
+                           "repeated ids in wide data", file=raw.source,
+                           column=ID_SEPARATOR.join(spec.id_columns))
     rows, unit_rows = rows[kept], unit_index[kept]
     n_units = len(unit_ids)
     structural = {"missing_id": int(id_missing.sum()), "duplicate_unit_wave": n_duplicate}
@@ -637,7 +721,7 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     waves_of_rows = np.zeros(len(rows), dtype=np.int64)
     panel = Panel(
         unit_ids=unit_ids, wave_labels=labels, wave_times=times, values=values,
-        codes=codes, code_labels=code_labels,
+        codes=codes, code_labels=code_labels, **basis,
         weights=_unit_weights(raw, spec, rows, unit_rows, unit_ids),
         groups=_unit_groups(raw, spec, rows, unit_rows, unit_ids),
         covariates={c: np.repeat(_scatter(raw, c, rows, unit_rows, waves_of_rows, n_units, 1),
@@ -647,7 +731,8 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
 
 
 def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
-    """Labels from --wave-labels, else trailing numbers of the column names, else 1..T."""
+    """Labels from --wave-labels, else trailing numbers of the column names, else 1..T;
+    times from labels that are numbers or dates in increasing order, else 1..T."""
     n_waves = len(columns)
     if spec.wave_labels:
         if len(spec.wave_labels) != n_waves:
@@ -661,17 +746,17 @@ def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
             labels = tuple(str(n) for n in numbers)
         else:
             labels = tuple(str(t) for t in range(1, n_waves + 1))
-    numeric = pd.to_numeric(pd.Series(labels), errors="coerce")
-    if numeric.notna().all() and np.all(np.diff(numeric.to_numpy()) > 0):
-        times = numeric.to_numpy(dtype=float)
-    else:
-        times = np.arange(1, n_waves + 1, dtype=float)
-    return labels, _override_times(spec, times, n_waves)
-
-
-def _number_text(value: float) -> str:
-    value = float(value)
-    return str(int(value)) if value.is_integer() else repr(value)
+            order = WaveReading(np.arange(n_waves), labels, np.arange(1, n_waves + 1.0), None,
+                                "columns")
+            return labels, _override_times(spec, order.times, n_waves), _time_basis(spec, order)
+    reading = read_waves(labels, "--wave-labels", lambda what, index=None: InputProblem(what),
+                         spec.date_format, "given")
+    if reading.kind == "text" or len(reading.labels) != n_waves or \
+            not np.array_equal(reading.position, np.arange(n_waves)):
+        # text, or labels out of time order: the columns' order with times 1..T
+        reading = WaveReading(np.arange(n_waves), labels, np.arange(1, n_waves + 1.0), None,
+                              "text")
+    return labels, _override_times(spec, reading.times, n_waves), _time_basis(spec, reading)
 
 
 def _is_number(text: str) -> bool:

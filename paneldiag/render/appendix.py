@@ -19,6 +19,7 @@ from importlib import metadata
 
 from paneldiag.errors import InputProblem
 from paneldiag.render import figures as figs
+from paneldiag.render import intake
 from paneldiag.render import prose
 from paneldiag.render.document import (Code, FigureRef, Heading, ListBlock, Note, Paragraph,
                                        Table, to_html, to_markdown)
@@ -98,8 +99,8 @@ def wave_table(report: dict, min_cell: int) -> Table | None:
                  for r in rows)
     return Table(f"{slug(report.get('measure'))}-waves",
                  f"{report.get('measure')}: distribution by wave",
-                 ("wave", "time", "n", "mean", "SD", "min", "max", "% at floor",
-                  "% at ceiling"), body,
+                 ("wave", f"time ({intake.time_unit(report)}s)", "n", "mean", "SD", "min",
+                  "max", "% at floor", "% at ceiling"), body,
                  (f"Counts below {min_cell} are shown as '< {min_cell}' (disclosure control).",))
 
 
@@ -129,8 +130,8 @@ def lag_table(report: dict, min_cell: int) -> Table | None:
                   _n(r.get("wave_pairs"), 0), _n(r.get("n_pairs"), min_cell)) for r in rows)
     return Table(f"{slug(report.get('measure'))}-lags",
                  f"{report.get('measure')}: mean correlation by lag and by time distance",
-                 ("grouped by", "lag (waves)", "time distance", "mean r [95% CI]",
-                  "wave pairs", "unit pairs"), body,
+                 ("grouped by", "lag (waves)", f"time distance ({intake.time_unit(report)}s)",
+                  "mean r [95% CI]", "wave pairs", "unit pairs"), body,
                  ("Fisher-z averages weighted by n - 3; '–': the band mixes lags or time "
                   "distances. Unit pairs count a unit once per wave pair.",), align="lrrrrr")
 
@@ -269,7 +270,9 @@ def cross_lag_table(pair: dict, min_cell: int) -> Table:
 OPTION_FLAGS = (  # options-record key -> command-line flag, in the order written
     ("id", "--id"), ("wave", "--wave"), ("values", "--value"), ("wide", "--wide"), ("items", "--items"),
     ("wave_labels", "--wave-labels"), ("wave_times", "--wave-times"),
-    ("wave_order", "--wave-order"), ("weight", "--weight"), ("group", "--group"),
+    ("wave_order", "--wave-order"), ("date_format", "--date-format"),
+    ("wave_bins", "--wave-bins"), ("wave_round", "--wave-round"), ("max_waves", "--max-waves"),
+    ("weight", "--weight"), ("group", "--group"),
     ("covariates", "--covariate"), ("missing_codes", "--missing-codes"),
     ("duplicates", "--duplicates"), ("drop_bad_rows", "--drop-bad-rows"),
     ("format", "--format"), ("delimiter", "--delimiter"), ("min_cell", "--min-cell"),
@@ -335,6 +338,11 @@ def reproducibility(report: dict) -> list:
              + "; ".join(_versions()),
              f"Input file: {_input_name(info)} (format {info.get('format', 'unknown')})",
              f"SHA-256 of the input: {info.get('sha256', 'unknown')}"]
+    first = next(iter(measure_reports(report).values()))
+    if first.get("panel"):
+        grouped = intake.grouping(first.get("ledger") or {})
+        facts.append(f"Waves: {intake.time_basis(first['panel'])}"
+                     + (f"; grouped by {grouped}" if grouped else ""))
     return [Heading(2, "Reproducibility", "reproducibility"), ListBlock(tuple(facts)),
             Table("options", "Options of the screen", ("option", "value"), rows,
                   align="ll"),

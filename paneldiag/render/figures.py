@@ -24,6 +24,7 @@ import numpy as np  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
 from paneldiag import distributions as dist  # noqa: E402
+from paneldiag.render.intake import time_unit  # noqa: E402,F401  (used here and by others)
 
 OKABE_ITO = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00",
              "#CC79A7")
@@ -47,19 +48,6 @@ PNG_DPI = 150
 def _figure(width: float = 6.0, height: float = 3.4) -> tuple[Figure, object]:
     fig = Figure(figsize=(width, height), layout="constrained")
     return fig, fig.add_subplot()
-
-
-def time_unit(report: dict) -> str:
-    """The unit of the wave times, for axis labels: the panel's own if it names one,
-    'year' when every wave time is a calendar year (or a decimal year from dates),
-    else 'time unit'."""
-    panel = report.get("panel", {})
-    if panel.get("time_unit"):
-        return str(panel["time_unit"])
-    times = [t for t in panel.get("times") or [] if t is not None]
-    if times and all(1800 <= t <= 2200 for t in times):
-        return "year"
-    return "time unit"
 
 
 def wave_axis(report: dict) -> str:

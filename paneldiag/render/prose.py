@@ -11,6 +11,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from paneldiag.render import intake
+
 REFERENCES = {
     "campbell1963": ("Campbell 1963", "Campbell, D. T. (1963). From description to "
                      "experimentation: Interpreting trends as quasi-experiments. In C. W. "
@@ -134,7 +136,12 @@ def sample(report: dict, cite: Citations) -> list[str]:
         return []
     waves = panel.get("waves", [])
     text = (f"The panel holds {count(panel['n_units'])} units observed over "
-            f"{count(panel['n_waves'])} waves ({waves[0]} to {waves[-1]}).")
+            f"{count(panel['n_waves'])} waves ({waves[0]} to {waves[-1]}). The waves were "
+            f"read as {intake.time_basis(panel)}; in order, with their times: "
+            f"{intake.wave_times(panel)}.")
+    grouped = intake.grouping(ledger or {})
+    if grouped:
+        text += f" Times were grouped into waves by {grouped}."
     if ledger and ok(ledger.get("rows_read")):
         text += (f" Of the {count(ledger['rows_read'])} input rows, "
                  f"{count(ledger['rows_used'])} were used for {report.get('measure')} and "

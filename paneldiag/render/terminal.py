@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Callable
 
+from paneldiag.render import intake
 from paneldiag.render.text import heading, number, share, table
 from paneldiag.render.text_attrition import attrition_block, missingness_block
 from paneldiag.render.text_dependence import dependence_block
@@ -15,9 +16,12 @@ def _intake(report: dict, color: bool) -> list[str]:
     ledger, panel = report["ledger"], report["panel"]
     dropped = ", ".join(f"{reason.replace('_', ' ')} {count:,}"
                         for reason, count in ledger["dropped_by_reason"].items()) or "none"
+    grouped = intake.grouping(ledger)
     return [heading(f"Intake · {report['measure']}", color),
-            f"  {panel['n_units']:,} units × {panel['n_waves']} waves "
-            f"({', '.join(panel['waves'])})",
+            f"  {panel['n_units']:,} units × {panel['n_waves']} waves; "
+            f"{intake.time_basis(panel)}",
+            f"  waves in order (time): {intake.wave_times(panel)}",
+            *([f"  grouping: {grouped}"] if grouped else []),
             f"  rows read {ledger['rows_read']:,}; used {ledger['rows_used']:,}; "
             f"set aside {ledger['rows_dropped']:,} ({dropped})"]
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from paneldiag.render.intake import time_unit
 from paneldiag.render.text import heading, number
 
 SHAPES = {"flat": "flat (no decay with distance: carry-over not identified)",
@@ -39,7 +40,7 @@ def dependence_block(report: dict, color: bool) -> list[str]:
     basis = "time" if any(r["basis"] == "time" for r in rows) else "lag"
     shown = [r for r in rows if r["basis"] == basis]
     if shown:
-        label = "time distance" if basis == "time" else "lag"
+        label = f"time distance ({time_unit(report)}s)" if basis == "time" else "lag"
         parts = [f"{_distance(r)}: {number(r['mean_r'], 2)}" for r in shown]
         if len(parts) > 10:   # long panels: the first lags and the longest one
             parts = parts[:8] + ["…", parts[-1]]
@@ -56,7 +57,7 @@ def dependence_block(report: dict, color: bool) -> list[str]:
             lines.append(f"    level {_interval(fit['a'])}")
         elif fit["shape"] != "not_fitted":
             lines.append(f"    floor a {_interval(fit['a'])}; carry-over rho {_interval(fit['rho'])}"
-                         f" per {'unit of time' if fit['distance'] == 'time' else 'wave'}; "
+                         f" per {time_unit(report) if fit['distance'] == 'time' else 'wave'}; "
                          f"lag-0 a+b {_interval(fit['intercept'])}; "
                          f"stable share {_interval(fit['stable_share'])}")
         if fit.get("flat_vs_full"):

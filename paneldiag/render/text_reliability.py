@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+from paneldiag.render.intake import time_unit
 from paneldiag.render.text import heading, number, share, table
 
 
@@ -59,7 +60,7 @@ def render_growth(report: dict, color: bool) -> list[str]:
     lines = [heading("Growth", color)]
     lines.append(f"  per-unit lines for {number(fits['n_units'])} units "
                  f"(curvature for {number(fits['n_units_curvature'])}); mean slope "
-                 f"{number(fits['mean_slope'])} per unit of time"
+                 f"{number(fits['mean_slope'])} per {time_unit(report)}"
                  f"{_interval(fits['mean_slope_ci_low'], fits['mean_slope_ci_high'])}, "
                  f"sd {number(fits['sd_slope'])}")
     flag = " (impossible: negative slope variance)" if rel["impossible"] else \
@@ -78,7 +79,7 @@ def render_growth(report: dict, color: bool) -> list[str]:
     trend = g["variance_trend"]
     if trend["log_variance_slope"] is not None:
         factor = math.exp(trend["log_variance_slope"])
-        lines.append(f"  variance changes ×{factor:.3f} per unit of time "
+        lines.append(f"  variance changes ×{factor:.3f} per {time_unit(report)} "
                      f"(last/first {number(trend['ratio_last_first'])}, {_p(trend['pvalue'])})")
     icc = g["icc"]
     lines.append(f"  share of variance between units, ICC(1) {number(icc['estimate'])}"

@@ -5,6 +5,7 @@ and is shown with --details."""
 from __future__ import annotations
 
 from paneldiag.render.figures import lag_rows, time_unit
+from paneldiag.render.intake import distance, wave_span
 
 
 def _ok(*values) -> bool:
@@ -29,7 +30,7 @@ def key_figures(report: dict, heading) -> list[str]:
     lines = []
     panel, ledger = report.get("panel") or {}, report.get("ledger") or {}
     if panel:
-        text = f"{panel['n_units']:,} units × {panel['n_waves']} waves"
+        text = f"{panel['n_units']:,} units × {panel['n_waves']} waves ({wave_span(panel)})"
         if _ok(ledger.get("rows_read"), ledger.get("rows_used")):
             text += f"; rows used {ledger['rows_used']:,} of {ledger['rows_read']:,}"
         lines.append(text)
@@ -54,7 +55,7 @@ def key_figures(report: dict, heading) -> list[str]:
         node = {"estimate": rows[0]["mean_r"], "ci_low": rows[0].get("ci_low"),
                 "ci_high": rows[0].get("ci_high")}
         d = rows[0]["time_distance"]
-        parts.append(f"r at distance {d:g}: {_est(node)}")
+        parts.append(f"r at distance {distance(d, report.get('panel'))}: {_est(node)}")
     fit = report.get("decay_fit") or {}
     if fit.get("identified"):
         # named after the lag-profile fit, apart from the verdicts' structure estimates
