@@ -74,9 +74,9 @@ def coverage_shown(both: np.ndarray, min_cell: int) -> np.ndarray:
 
 def _retention_shown(patterns: PatternMoments, min_cell: int):
     observed = wave_observed(patterns)
-    first = patterns.observed[:, 0]
-    base = patterns.n[first].sum()
-    still = patterns.n[first] @ patterns.observed[first]
+    due = units_due(patterns.observed, follow_up_span(patterns.observed, patterns.n))
+    base = patterns.n @ due
+    still = patterns.n @ (due & patterns.observed)
     wave_ok = observed >= min_cell
     ret_ok = wave_ok & (base >= min_cell) & (still >= min_cell) & \
         ~_small(base - still, min_cell)
@@ -96,9 +96,9 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
     ``top`` most frequent (listed in the pattern table) or monotone dropout patterns
     (shown as counts by wave of last observation). Every total the report shows is a
     sum over a set of patterns: all units, the respondents at a wave, a coverage cell
-    and the two one-wave-only differences next to it, the first-wave respondents kept
-    or lost at a wave, a unit type, the withheld types together, the leavers after a
-    wave. For each such set the units of its withheld patterns must be none or at
+    and the two one-wave-only differences next to it, the units due at a wave kept or
+    lost there, those kept or lost to the end of their follow-up, the entrants at a
+    wave, a unit type, the withheld types together, the leavers after a wave. For each such set the units of its withheld patterns must be none or at
     least ``min_cell`` together; otherwise the smallest revealed pattern of the set
     is withheld too, until no set breaks the rule (each step only withholds more, so
     this ends).
@@ -117,11 +117,15 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
     top_big[order] = big[order] & (big_rank < top)
     known = big & (top_big | (codes == 1))
     _, _, _, wave_ok, ret_ok = _retention_shown(patterns, min_cell)
-    cov_ok = coverage_shown(coverage_counts(patterns), min_cell)
-    pair_ok = cov_ok.copy()
-    pair_ok[0] |= ret_ok                            # first-wave respondents kept at b
+    pair_ok = coverage_shown(coverage_counts(patterns), min_cell)
     np.fill_diagonal(pair_ok, False)
-    _, last, _, _ = response_history(obs)
+    first, last, _, _ = response_history(obs)
+    span = follow_up_span(obs, n)
+    due = units_due(obs, span)
+    entering = entry_counts(obs, n)
+    entry_ok = entry_shown(entering, n.sum(), min_cell)
+    end_due, end_kept = end_of_follow_up(obs, span)
+    end_ok = end_shown(n @ end_due, n @ end_kept, min_cell)
     n_types = len(UNIT_TYPES)
     leave_n = np.bincount(last[last >= 0], weights=n[last >= 0], minlength=t)[:t - 1]
     leave_ok = leave_n >= min_cell
@@ -130,9 +134,20 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
 
     def members(kind, a, b):
         """The patterns of one shown total (kinds: all, wave, both, only, type,
-        hidden types, leavers)."""
+        hidden types, leavers, entrants at a wave, units due at a wave kept or lost,
+        units kept or lost to the end of their follow-up)."""
         if kind == "all":
             return np.ones(p, dtype=bool)
+        if kind == "entry":
+            return first == a
+        if kind == "kept":
+            return due[:, a] & obs[:, a]
+        if kind == "lost":
+            return due[:, a] & ~obs[:, a]
+        if kind == "end_kept":
+            return end_kept
+        if kind == "end_lost":
+            return end_due & ~end_kept
         if kind == "wave":
             return obs[:, a]
         if kind == "both":
@@ -165,6 +180,15 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
             broken.append(("hidden_types", 0, 0))
         broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & _small(by_leave,
                                                                               min_cell))]
+        by_entry = np.bincount(first[first >= 0], weights=hid[first >= 0], minlength=t)
+        broken += [("entry", a, 0) for a in np.flatnonzero(entry_ok[:t] &
+                                                            _small(by_entry, min_cell))]
+        kept, lost = hid @ (due & obs), hid @ (due & ~obs)
+        broken += [("kept", a, 0) for a in np.flatnonzero(ret_ok & _small(kept, min_cell))]
+        broken += [("lost", a, 0) for a in np.flatnonzero(ret_ok & _small(lost, min_cell))]
+        broken += [(kind, 0, 0) for kind, rows in (("end_kept", end_kept),
+                                                   ("end_lost", end_due & ~end_kept))
+                   if end_ok and _small(hid[rows].sum(), min_cell)]
         picked = False
         for kind, a, b in broken:  # a loop over the totals that would reveal a count
             inside = members(kind, a, b)
@@ -178,6 +202,171 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
         if not picked:
             break
     return known
+
+
+# -------------------------------------------------------------------- entry design
+
+# How the design is named from the share of units entering at each wave (our own
+# convention, chosen so that the usual designs fall clearly on one side; the shares are
+# of the units observed at least once):
+SINGLE_COHORT_SHARE = 0.90  # single cohort: the first wave holds at least this share
+                            # (a trickle of late first responses does not change that)
+MAIN_SAMPLE_SHARE = 0.50    # refreshment samples: the first wave still holds the main
+                            # sample, at least half, and later waves add blocks
+ENTRY_BLOCK_SHARE = 0.05    # a wave adds a block of new units when this share enters
+SPREAD_MIN_WAVES = 3        # cohort-sequential: under half start at the first wave and
+                            # blocks enter at this many waves or more
+FOLLOW_UP_SHARE = 0.05      # cohort-sequential: the planned follow-up is the longest span
+                            # of waves that at least this share of units reaches
+
+ENTRY_DESIGNS = {
+    "single_cohort": "single cohort: nearly all units start at the first wave",
+    "refreshment": "refreshment samples: the first wave holds the main sample and later "
+                   "waves add blocks of new units",
+    "cohort_sequential": "cohort-sequential (accelerated) entry: units enter spread over "
+                         "many waves",
+    "mixed_entry": "mixed entry: units start at several waves, in none of the patterns "
+                   "of a single cohort, refreshment samples or cohort-sequential entry",
+}
+
+
+def entry_counts(observed: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """Units first observed at each wave, (T,) (units never observed are in none)."""
+    first = response_history(observed)[0]
+    return np.bincount(first[first >= 0], weights=n[first >= 0],
+                       minlength=observed.shape[1]).astype(float)
+
+
+def entry_shown(entering: np.ndarray, total: float, min_cell: int) -> np.ndarray:
+    """Which entry counts may be shown: they and the units never observed add up to all
+    units, so the never-observed count is a cell of the same additive table."""
+    cells = np.r_[entering, total - entering.sum()]
+    return shown_mask(cells, min_cell, additive=True)[:len(entering)]
+
+
+def classify_entry(entering: np.ndarray) -> str:
+    """The design's name (a key of ``ENTRY_DESIGNS``) from the entry counts by wave."""
+    total = entering.sum()
+    if total == 0:
+        return "single_cohort"
+    share = entering / total
+    blocks = int((share >= ENTRY_BLOCK_SHARE).sum())
+    if share[0] >= SINGLE_COHORT_SHARE:
+        return "single_cohort"
+    if share[0] >= MAIN_SAMPLE_SHARE and (share[1:] >= ENTRY_BLOCK_SHARE).any():
+        return "refreshment"
+    if share[0] < MAIN_SAMPLE_SHARE and blocks >= SPREAD_MIN_WAVES:
+        return "cohort_sequential"
+    return "mixed_entry"
+
+
+def follow_up_span(observed: np.ndarray, n: np.ndarray) -> int:
+    """Waves each unit is due to be followed from its own first wave.
+
+    All the remaining waves, except in a cohort-sequential design, where each cohort is
+    usually followed over a fixed number of waves: there it is the longest span (first
+    to last observed wave) that at least ``FOLLOW_UP_SHARE`` of the units reach, so that
+    a planned end of follow-up is not read as dropout while dropout within it still is.
+    """
+    t = observed.shape[1]
+    if classify_entry(entry_counts(observed, n)) != "cohort_sequential":
+        return t
+    first, last, _, _ = response_history(observed)
+    seen = first >= 0
+    by_span = np.bincount((last - first + 1)[seen], weights=n[seen], minlength=t + 1)
+    reach = np.cumsum(by_span[::-1])[::-1]        # units with a span of s waves or more
+    long_enough = np.flatnonzero(reach >= FOLLOW_UP_SHARE * n[seen].sum())
+    return int(long_enough.max()) if len(long_enough) else t
+
+
+def follow_up_end(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's first observed wave and the last wave it is due at (-1: never seen)."""
+    first = response_history(observed)[0]
+    end = np.where(first >= 0, np.minimum(first + span - 1, observed.shape[1] - 1), -1)
+    return first, end
+
+
+def units_due(observed: np.ndarray, span: int) -> np.ndarray:
+    """(rows, T): the row entered before the wave and is still within its follow-up
+    there, so the wave is a chance to keep or lose it."""
+    first, end = follow_up_end(observed, span)
+    waves = np.arange(observed.shape[1])
+    return (first[:, None] >= 0) & (first[:, None] < waves) & (waves <= end[:, None])
+
+
+def end_of_follow_up(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per row: due at a wave after its first (its follow-up is longer than one wave),
+    and observed at the last wave it is due at (kept to the end)."""
+    first, end = follow_up_end(observed, span)
+    due = (first >= 0) & (first < end)
+    kept = due & observed[np.arange(len(observed)), np.maximum(end, 0)]
+    return due, kept
+
+
+def end_shown(base: float, kept: float, min_cell: int) -> bool:
+    """The share kept may be shown: neither it nor the units lost reveal a small count."""
+    return bool(base >= min_cell and kept >= min_cell and not _small(base - kept, min_cell))
+
+
+@dataclass(frozen=True)
+class EntryWave(Result):
+    wave: str
+    n_entering: int | None
+    share: float | None
+
+
+@dataclass(frozen=True)
+class EntryDesign(Result):
+    """How units enter the panel, and retention counted from each unit's own entry."""
+
+    design: str
+    description: str
+    first_wave_share: float | None
+    entry_waves: tuple[str, ...]
+    follow_up_waves: int
+    retained_share: float | None
+    by_wave: tuple[EntryWave, ...]
+
+
+def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> EntryDesign:
+    """The entry design the response histories show, and retention from entry.
+
+    Units enter at their first observed wave. The design is a single cohort when at
+    least ``SINGLE_COHORT_SHARE`` of the units start at the first wave; refreshment
+    samples when the first wave holds at least ``MAIN_SAMPLE_SHARE`` and some later
+    wave adds a block (``ENTRY_BLOCK_SHARE`` or more); cohort-sequential when the first
+    wave holds less and blocks enter at ``SPREAD_MIN_WAVES`` waves or more; otherwise
+    mixed. ``entry_waves`` lists the waves that add a block. ``retained_share``: of the
+    units due at some wave after their first, the share observed at the last wave they
+    are due at (the final wave, or in a cohort-sequential design the end of the
+    ``follow_up_waves`` planned for each cohort, see ``follow_up_span``). Counts below
+    ``min_cell`` are withheld with their shares (secondary suppression as in
+    ``shown_mask``, the never-observed units being the table's last cell).
+
+    References
+    ----------
+    Lynn, P. (ed.) (2009). Methodology of Longitudinal Surveys, ch. 1 (retention; refreshment
+    samples). Wiley.
+    Schaie, K. W. (1965). A general model for the study of developmental problems.
+    Psychological Bulletin, 64(2), 92-107 (cohort-sequential designs).
+    """
+    obs, n = patterns.observed, patterns.n
+    entering = entry_counts(obs, n)
+    total = entering.sum()
+    show = entry_shown(entering, n.sum(), min_cell)
+    design = classify_entry(entering)
+    span = follow_up_span(obs, n)
+    due, kept = end_of_follow_up(obs, span)
+    base, still = float(n @ due), float(n @ kept)
+    share = entering / total if total > 0 else np.zeros_like(entering)
+    rows = tuple(EntryWave(str(label), _count(entering[i], show[i]),
+                           float(share[i]) if show[i] else None)
+                 for i, label in enumerate(wave_labels))
+    blocks = tuple(str(wave_labels[i]) for i in range(1, len(entering))
+                   if share[i] >= ENTRY_BLOCK_SHARE and show[i])
+    return EntryDesign(design, ENTRY_DESIGNS[design],
+                       float(share[0]) if len(show) and show[0] else None, blocks, span,
+                       still / base if end_shown(base, still, min_cell) else None, rows)
 
 
 # ------------------------------------------------------------------------ retention
@@ -205,13 +394,16 @@ def wave_observed(patterns: PatternMoments) -> np.ndarray:
 
 
 def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Retention:
-    """Units observed at each wave, the share of the first wave's respondents still
-    observed (retention) and the share of all units observed (response).
+    """Units observed at each wave, retention counted from each unit's own first
+    wave, and the share of all units observed (response).
 
     A unit counts as observed at a wave when the measure has a value there
-    (declared missing codes count as missing). Waves below ``min_cell`` observed
+    (declared missing codes count as missing). ``retained_share`` at a wave: of the
+    units that entered (were first observed) before it and are still due there (see
+    ``units_due``), the share observed at it; units entering at the wave itself are
+    not counted, and the first wave has none (null). Waves below ``min_cell`` observed
     units are suppressed with their shares; a retention share is withheld too when
-    it would reveal that 1 to ``min_cell`` - 1 first-wave respondents were missing.
+    the units due, kept or lost would be 1 to ``min_cell`` - 1.
 
     References
     ----------
@@ -225,7 +417,7 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
         ok, keep_ret = bool(wave_ok[t]), bool(ret_ok[t])
         rows.append(RetentionRow(
             wave=str(label), n_observed=_count(observed[t], ok),
-            retained_share=float(still[t] / base) if keep_ret else None,
+            retained_share=float(still[t] / base[t]) if keep_ret else None,
             response_share=float(observed[t] / n_all) if ok and n_all > 0 else None,
             suppressed=not ok))
     return Retention(tuple(rows))
@@ -643,6 +835,7 @@ class Selective(Result):
 
 @dataclass(frozen=True)
 class Attrition(Result):
+    entry: EntryDesign
     retention: Retention
     unit_types: UnitTypes
     selective: Selective
@@ -655,5 +848,6 @@ def attrition_section(ctx) -> Attrition:
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
     model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m)
-    return Attrition(retention(patterns, labels, m), unit_types(patterns, labels, m),
+    return Attrition(entry_design(patterns, labels, m), retention(patterns, labels, m),
+                     unit_types(patterns, labels, m),
                      Selective(dropout_differences(patterns, labels, m), model))

@@ -248,9 +248,11 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
     n = patterns.n
     t = obs.shape[1]
     pair_n = (obs.T * n) @ obs.astype(float)
-    first = obs[:, 0]
-    base = float(n[first].sum())
-    retention = float(n[first & obs[:, -1]].sum()) / base if base > 0 else np.nan
+    # kept to the end of follow-up, counted from each unit's own first wave
+    from paneldiag.diagnostics.attrition import end_of_follow_up, follow_up_span
+    due, kept = end_of_follow_up(obs, follow_up_span(obs, n))
+    base = float(n @ due)
+    retention = float(n @ kept) / base if base > 0 else np.nan
     # the previous score of units that leave after wave s vs units seen again later
     last = np.where(obs.any(axis=1), t - 1 - np.argmax(obs[:, ::-1], axis=1), -1)
     smds, weights = [], []
@@ -1046,8 +1048,9 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
                    "so a missing 'supported' is weak evidence.")
     if np.isfinite(inp.retention) and inp.retention < th["min_retention"]:
         out.append(f"Heavy dropout: {led.value('retention', float(inp.retention))} of the "
-                   f"first wave is seen at the last (below {led.thr('min_retention')}); the "
-                   "later waves weigh little.")
+                   "units, counted from their own first wave, are seen at the end of their "
+                   f"follow-up (below {led.thr('min_retention')}); the later waves weigh "
+                   "little.")
     else:
         led.value("retention", float(inp.retention))
     if np.isfinite(inp.dropout_smd) and abs(inp.dropout_smd) >= th["max_dropout_smd"]:
