@@ -466,7 +466,8 @@ def groups(report: dict, cite: Citations) -> list[str]:
     return out
 
 
-GROUP_FIGURE_WORDS = {"retention": "share retained from the first to the last wave"}
+GROUP_FIGURE_WORDS = {"retention": "share retained from each unit's first wave to the end "
+                                   "of its follow-up"}
 
 
 def group_summary(label: str, section: dict, cite: Citations) -> list[str]:
