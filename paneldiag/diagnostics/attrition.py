@@ -554,7 +554,8 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     J = 1 - 3 / (4 (n1 + n2) - 9), and a 95% interval g +- q sqrt(v) with the
     large-sample variance v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)) and q the
     0.975 quantile of Student's t on n1 + n2 - 2 df (close to 1.96 for large groups). Negative g: the leavers scored
-    lower. Units who skip the next wave but return later are in neither group.
+    lower. Units who skip the next wave but return later are in neither group, nor
+    are units whose follow-up ends at the wave by design (``follow_up_span``).
     When either group is below ``min_cell`` units both counts, the small group's
     mean and g are withheld.
 
@@ -566,10 +567,11 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     Academic Press, ch. 5 (the large-sample variance of g).
     """
     _, last, _, _ = response_history(patterns.observed)
+    _, end = follow_up_end(patterns.observed, follow_up_span(patterns.observed, patterns.n))
     out = []
     for t in range(patterns.n_waves - 1):  # a loop over waves
         stay = patterns.observed[:, t] & patterns.observed[:, t + 1]
-        leave = last == t
+        leave = (last == t) & (end > t)   # the planned end of follow-up is no dropout
         n1, m1, ss1 = _group_moments(patterns, stay, t)
         n2, m2, ss2 = _group_moments(patterns, leave, t)
         big1, ok2 = n1 >= min_cell, n2 >= min_cell
@@ -614,8 +616,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
         logit P(last observed at t | observed at t) = a_t + b z_t + c' w_t
 
-    Person-periods are the (unit, wave) cells with an observed value before the final
-    wave; the event is that the unit is never observed after t (so a unit that
+    Person-periods are the (unit, wave) cells with an observed value before the last
+    wave the unit is due at (the final wave, or the end of a cohort's planned
+    follow-up, ``follow_up_span``); the event is that the unit is never observed after t (so a unit that
     skips and returns is not an event). Covariates ``w_t`` (value at wave t) are
     standardised over the person-periods; cells with a missing covariate are left
     out. Waves without events (or without non-events) are left out, which is their
@@ -641,6 +644,8 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     # the last wave a unit is observed at (-1: never): the event at t is t == last
     last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
     last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
+    # the last wave each unit is due at: after it a unit is no longer at risk
+    due_end = follow_up_end(seen, follow_up_span(seen, np.ones(n_units)))[1]
     # person-periods wave by wave: predictor j of wave s's rows is xt[j, bounds[s]:...]
     n_rows = int(seen[:, :-1].sum())
     del seen, last_seen
@@ -658,6 +663,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                 else np.nan
         if not sd > 0:
             continue   # no spread at this wave: no standardised value
+        risk &= due_end > s
         for w in extra:  # a loop over covariates
             risk &= np.isfinite(w[:, s])
         rows = np.flatnonzero(risk)
@@ -674,7 +680,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
             xt[j + 1, lo:hi] = w[rows, s]
         y[lo:hi] = event
         bounds.append(hi)
-    del last
+    del last, due_end
     xt, y = xt[:, :bounds[-1]], y[:bounds[-1]]
     n_pp, n_ev = len(y), int(y.sum())
     n_at_risk = int(any_risk.sum())
