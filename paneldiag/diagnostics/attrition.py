@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from paneldiag import distributions as dist
+from paneldiag.disclosure import shown_mask, small
 from paneldiag.results import Result
 from paneldiag.summaries.patterns import PatternMoments, display_order
 
@@ -28,35 +29,8 @@ Z95 = float(dist.norm_ppf(0.975))
 
 # --------------------------------------------------------------- disclosure control
 
-def shown_mask(counts, min_cell: int, additive: bool = False) -> np.ndarray:
-    """True where a count may be shown.
-
-    A count below ``min_cell`` is never shown (primary suppression). With
-    ``additive`` (the counts add up to a total that is shown), the smallest shown
-    counts are suppressed too until the suppressed cells hold ``min_cell`` units or
-    more together (secondary suppression), so none can be recovered by subtraction.
-    When the suppressed cells are all zero nothing more is withheld: a zero that can
-    be recovered identifies no unit.
-    """
-    counts = np.asarray(counts, dtype=float)
-    show = counts >= min_cell
-    if additive and (~show).any():
-        for i in np.argsort(counts, kind="stable"):  # a loop over cells of a small table
-            hidden = counts[~show].sum()
-            if hidden == 0 or hidden >= min_cell or show.sum() == 0:
-                break
-            if show[i]:
-                show[i] = False
-    return show
-
-
 def _count(value: float, shown: bool):
     return int(value) if shown else None
-
-
-def _small(a, min_cell: int):
-    """Counts of 1 to min_cell - 1 (a zero identifies no unit)."""
-    return (a > 0) & (a < min_cell)
 
 
 def coverage_counts(patterns: PatternMoments) -> np.ndarray:
@@ -69,7 +43,7 @@ def coverage_shown(both: np.ndarray, min_cell: int) -> np.ndarray:
     """Which coverage cells may be shown: at least ``min_cell`` units, and the units
     seen at only one wave of the pair (diagonal minus cell) not 1 to min_cell - 1."""
     alone = np.diag(both)[:, None] - both
-    return (both >= min_cell) & ~_small(alone, min_cell) & ~_small(alone.T, min_cell)
+    return (both >= min_cell) & ~small(alone, min_cell) & ~small(alone.T, min_cell)
 
 
 def _retention_shown(patterns: PatternMoments, min_cell: int):
@@ -77,9 +51,10 @@ def _retention_shown(patterns: PatternMoments, min_cell: int):
     due = units_due(patterns.observed, follow_up_span(patterns.observed, patterns.n))
     base = patterns.n @ due
     still = patterns.n @ (due & patterns.observed)
-    wave_ok = observed >= min_cell
+    # a wave's respondents beside all units would give its non-respondents
+    wave_ok = (observed >= min_cell) & ~small(patterns.n.sum() - observed, min_cell)
     ret_ok = wave_ok & (base >= min_cell) & (still >= min_cell) & \
-        ~_small(base - still, min_cell)
+        ~small(base - still, min_cell)
     return observed, base, still, wave_ok, ret_ok
 
 
@@ -168,31 +143,31 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
         by_type = np.bincount(codes, weights=hid, minlength=n_types)
         by_leave = np.bincount(last[last >= 0], weights=hid[last >= 0], minlength=t)[:t - 1]
         broken = []
-        if _small(hid.sum(), min_cell):
+        if small(hid.sum(), min_cell):
             broken.append(("all", 0, 0))
-        broken += [("wave", a, 0) for a in np.flatnonzero(wave_ok & _small(at_wave, min_cell))]
-        both_bad = pair_ok & _small(pair, min_cell)
-        only_bad = pair_ok & _small(at_wave[:, None] - pair, min_cell)
+        broken += [("wave", a, 0) for a in np.flatnonzero(wave_ok & small(at_wave, min_cell))]
+        both_bad = pair_ok & small(pair, min_cell)
+        only_bad = pair_ok & small(at_wave[:, None] - pair, min_cell)
         broken += [("both", a, b) for a, b in zip(*np.nonzero(both_bad))]
         broken += [("only", a, b) for a, b in zip(*np.nonzero(only_bad))]
-        broken += [("type", k, 0) for k in np.flatnonzero(type_ok & _small(by_type, min_cell))]
-        if hidden_types.any() and _small(by_type[hidden_types].sum(), min_cell):
+        broken += [("type", k, 0) for k in np.flatnonzero(type_ok & small(by_type, min_cell))]
+        if hidden_types.any() and small(by_type[hidden_types].sum(), min_cell):
             broken.append(("hidden_types", 0, 0))
-        broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & _small(by_leave,
+        broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & small(by_leave,
                                                                               min_cell))]
         by_entry = np.bincount(first[first >= 0], weights=hid[first >= 0], minlength=t)
         broken += [("entry", a, 0) for a in np.flatnonzero(entry_ok[:t] &
-                                                            _small(by_entry, min_cell))]
+                                                            small(by_entry, min_cell))]
         kept, lost = hid @ (due & obs), hid @ (due & ~obs)
-        broken += [("kept", a, 0) for a in np.flatnonzero(ret_ok & _small(kept, min_cell))]
-        broken += [("lost", a, 0) for a in np.flatnonzero(ret_ok & _small(lost, min_cell))]
+        broken += [("kept", a, 0) for a in np.flatnonzero(ret_ok & small(kept, min_cell))]
+        broken += [("lost", a, 0) for a in np.flatnonzero(ret_ok & small(lost, min_cell))]
         broken += [(kind, 0, 0) for kind, rows in (("end_kept", end_kept),
                                                    ("end_lost", end_due & ~end_kept))
-                   if end_ok and _small(hid[rows].sum(), min_cell)]
+                   if end_ok and small(hid[rows].sum(), min_cell)]
         picked = False
         for kind, a, b in broken:  # a loop over the totals that would reveal a count
             inside = members(kind, a, b)
-            if not _small(n[inside & ~known].sum(), min_cell):
+            if not small(n[inside & ~known].sum(), min_cell):
                 continue    # an earlier pick of this pass already mended it
             pool = np.flatnonzero(inside & known)
             if len(pool):
@@ -305,7 +280,7 @@ def end_of_follow_up(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.nd
 
 def end_shown(base: float, kept: float, min_cell: int) -> bool:
     """The share kept may be shown: neither it nor the units lost reveal a small count."""
-    return bool(base >= min_cell and kept >= min_cell and not _small(base - kept, min_cell))
+    return bool(base >= min_cell and kept >= min_cell and not small(base - kept, min_cell))
 
 
 @dataclass(frozen=True)
@@ -402,7 +377,8 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
     units that entered (were first observed) before it and are still due there (see
     ``units_due``), the share observed at it; units entering at the wave itself are
     not counted, and the first wave has none (null). Waves below ``min_cell`` observed
-    units are suppressed with their shares; a retention share is withheld too when
+    units, or with 1 to ``min_cell`` - 1 units not observed, are suppressed with their
+    shares; a retention share is withheld too when
     the units due, kept or lost would be 1 to ``min_cell`` - 1.
 
     References
@@ -688,7 +664,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                 n_events=_count(n_ev, n_ev >= min_cell),
                 # against the panel's count it would give the units never at risk
                 n_units=_count(n_at_risk, n_at_risk >= min_cell and
-                               not _small(n_units - n_at_risk, min_cell)),
+                               not small(n_units - n_at_risk, min_cell)),
                 waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
 
     def empty(note, iterations=0):
