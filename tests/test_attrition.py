@@ -335,3 +335,7 @@ def test_demo_shows_dropout_depends_on_satisfaction(tmp_path):
                if r["smd"] is not None)
     text = done.stdout.decode()
     assert "dropout model: odds ratio per SD" in text and "Little's MCAR test" in text
+    # a refreshment sample of about 10% joins in 2017 (paneldiag/demo.py)
+    entry = report["attrition"]["entry"]
+    assert entry["design"] == "refreshment" and entry["entry_waves"] == ["2017"]
+    assert "entry: refreshment samples" in text

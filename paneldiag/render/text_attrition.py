@@ -69,9 +69,8 @@ def attrition_block(report: dict, color: bool) -> list[str]:
     shown = [f"{t['type'].replace('_', ' ')} {share(t['share'])}" for t in types
              if t["n"] is not None]
     hidden = [t["type"].replace("_", " ") for t in types if t["n"] is None]
-    text = "  unit types: " + " · ".join(shown)
-    if hidden:
-        text += f" · under {m} units or withheld: " + ", ".join(hidden)
+    text = "  unit types: " + " · ".join(shown + [f"under {m} units or withheld: "
+                                               + ", ".join(hidden)] * bool(hidden))
     lines.append(text)
     selective = section["selective"]
     gs = [r for r in selective["by_wave"] if r["smd"] is not None]
