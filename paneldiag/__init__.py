@@ -1,4 +1,4 @@
 """paneldiag: screen multi-wave panel data before fitting longitudinal models."""
 
 __version__ = "0.1.0"
-SCHEMA_VERSION = "2.0"
+SCHEMA_VERSION = "2.1"
