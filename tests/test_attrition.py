@@ -60,6 +60,9 @@ def test_btheb_retention_matches_pandas(btheb, btheb_report):
     assert [r["wave"] for r in rows] == ["0", "2", "4", "6", "8"]
     assert rows[0]["retained_share"] is None     # nobody entered before the first wave
     for t, (row, col) in enumerate(zip(rows, BDI)):
+        if 0 < len(seen) - seen[col].sum() < 5:   # 97 of 100 would reveal the 3 missing
+            assert row["n_observed"] is None and row["response_share"] is None
+            continue
         assert row["n_observed"] == int(seen[col].sum())
         assert row["response_share"] == pytest.approx(seen[col].mean())
         before = seen.any(axis=1).values & (entry < t)
