@@ -90,7 +90,7 @@ def test_refreshment_panel(tmp_path):
     assert entry["design"] == "refreshment"
     assert entry["entry_waves"] == ["2018", "2021"]
     assert entry["follow_up_waves"] == 8
-    assert [w["n_entering"] for w in entry["by_wave"]] == [300, None, None, 60, None, None,
+    assert [w["n"] for w in entry["by_wave"]] == [300, None, None, 60, None, None,
                                                           60, None]   # zeros are null too
     seen = _seen("refreshment", "household", "year", "trust")
     first = seen.argmax(axis=1)

@@ -278,15 +278,24 @@ def end_of_follow_up(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.nd
     return due, kept
 
 
+def retention_to_end(observed: np.ndarray, n: np.ndarray) -> tuple[float, float]:
+    """Units due after their own first wave, and of those, kept to the end of their
+    follow-up (``end_of_follow_up`` with the design's ``follow_up_span``)."""
+    due, kept = end_of_follow_up(observed, follow_up_span(observed, n))
+    return float(n @ due), float(n @ kept)
+
+
 def end_shown(base: float, kept: float, min_cell: int) -> bool:
     """The share kept may be shown: neither it nor the units lost reveal a small count."""
     return bool(base >= min_cell and kept >= min_cell and not small(base - kept, min_cell))
 
 
 @dataclass(frozen=True)
-class EntryWave(Result):
+class WaveCount(Result):
+    """Units at one wave (entering there, or last observed there) and their share."""
+
     wave: str
-    n_entering: int | None
+    n: int | None
     share: float | None
 
 
@@ -300,7 +309,7 @@ class EntryDesign(Result):
     entry_waves: tuple[str, ...]
     follow_up_waves: int
     retained_share: float | None
-    by_wave: tuple[EntryWave, ...]
+    by_wave: tuple[WaveCount, ...]
 
 
 def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> EntryDesign:
@@ -330,17 +339,16 @@ def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> En
     total = entering.sum()
     show = entry_shown(entering, n.sum(), min_cell)
     design = classify_entry(entering)
-    span = follow_up_span(obs, n)
-    due, kept = end_of_follow_up(obs, span)
-    base, still = float(n @ due), float(n @ kept)
+    base, still = retention_to_end(obs, n)
     share = entering / total if total > 0 else np.zeros_like(entering)
-    rows = tuple(EntryWave(str(label), _count(entering[i], show[i]),
+    rows = tuple(WaveCount(str(label), _count(entering[i], show[i]),
                            float(share[i]) if show[i] else None)
                  for i, label in enumerate(wave_labels))
     blocks = tuple(str(wave_labels[i]) for i in range(1, len(entering))
                    if share[i] >= ENTRY_BLOCK_SHARE and show[i])
     return EntryDesign(design, ENTRY_DESIGNS[design],
-                       float(share[0]) if len(show) and show[0] else None, blocks, span,
+                       float(share[0]) if len(show) and show[0] else None, blocks,
+                       follow_up_span(obs, n),
                        still / base if end_shown(base, still, min_cell) else None, rows)
 
 
@@ -436,16 +444,9 @@ class TypeRow(Result):
 
 
 @dataclass(frozen=True)
-class DropoutWave(Result):
-    wave: str
-    n: int | None
-    share: float | None
-
-
-@dataclass(frozen=True)
 class UnitTypes(Result):
     types: tuple[TypeRow, ...]
-    dropout_last_wave: tuple[DropoutWave, ...]
+    dropout_last_wave: tuple[WaveCount, ...]
 
     def to_dict(self) -> list[dict]:
         rows = [r.to_dict() for r in self.types]
@@ -489,7 +490,7 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5, top: in
     known = known_patterns(patterns, min_cell, top)
     show_w = np.zeros(t - 1, dtype=bool)
     show_w[last[drop & known]] = True
-    waves = tuple(DropoutWave(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
+    waves = tuple(WaveCount(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
                               float(by_wave[i] / total) if show_w[i] else None)
                   for i in range(t - 1))
     return UnitTypes(types, waves)

@@ -415,9 +415,10 @@ def cautions_note(report: dict) -> Note:
     first = next(iter(measure_reports(report).values()))
     items = list(first.get("cautions") or [])
     items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
-                 "and shares that would reveal them, appear as '<' the threshold; groups "
-                 "with fewer units are not reported; individual trajectories appear only "
-                 "when asked for.")
+                 "and shares that would reveal them, appear as '<' the threshold, and "
+                 "counts or shares that would give one by subtraction as '–' (each table's "
+                 "note says why a cell is empty); groups with fewer units are not reported; "
+                 "individual trajectories appear only when asked for.")
     return Note("Read this first", tuple(dict.fromkeys(items)))
 
 

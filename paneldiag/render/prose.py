@@ -240,6 +240,9 @@ def attrition(report: dict, cite: Citations) -> list[str]:
             if hidden:
                 text += (f" Types held by fewer units than the minimum cell size "
                          f"({_join(hidden)}) are not shown (disclosure control).")
+            if entry.get("design") == "cohort_sequential":
+                text += (" The types are read against the whole panel, so the planned end "
+                         "of a cohort's follow-up shows there as dropout.")
             out.append(text)
     model = (section.get("selective") or {}).get("model") or {}
     if model.get("fitted") and ok(model.get("odds_ratio_per_sd"), model.get("pvalue")):

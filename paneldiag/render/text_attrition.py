@@ -65,12 +65,19 @@ def attrition_block(report: dict, color: bool) -> list[str]:
              + "  of the units that entered before the wave",
              "  responding   " + " ".join(f"{_pct(r['response_share']):>5}" for r in rows)
              + (f"  of all {n_units:,} units" if isinstance(n_units, int) else "")]
+    why = ["no unit entered before the first wave"]
+    if any(r["retained_share"] is None for r in rows[1:]) or \
+            any(r["response_share"] is None for r in rows):
+        why.append(f"withheld (it would give a count of fewer than {m} units)")
+    lines.append("  –: " + "; ".join(why))
     types = section["unit_types"]
     shown = [f"{t['type'].replace('_', ' ')} {share(t['share'])}" for t in types
              if t["n"] is not None]
     hidden = [t["type"].replace("_", " ") for t in types if t["n"] is None]
     text = "  unit types: " + " · ".join(shown + [f"under {m} units or withheld: "
                                                + ", ".join(hidden)] * bool(hidden))
+    if entry and entry["design"] == "cohort_sequential":
+        text += " (against the whole panel: a cohort's planned end shows as dropout)"
     lines.append(text)
     selective = section["selective"]
     gs = [r for r in selective["by_wave"] if r["smd"] is not None]
