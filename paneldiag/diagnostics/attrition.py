@@ -205,9 +205,14 @@ ENTRY_DESIGNS = {
 }
 
 
+def first_observed(observed: np.ndarray) -> np.ndarray:
+    """Each row's first observed wave (-1: never observed)."""
+    return np.where(observed.any(axis=1), observed.argmax(axis=1), -1)
+
+
 def entry_counts(observed: np.ndarray, n: np.ndarray) -> np.ndarray:
     """Units first observed at each wave, (T,) (units never observed are in none)."""
-    first = response_history(observed)[0]
+    first = first_observed(observed)
     return np.bincount(first[first >= 0], weights=n[first >= 0],
                        minlength=observed.shape[1]).astype(float)
 
@@ -256,7 +261,7 @@ def follow_up_span(observed: np.ndarray, n: np.ndarray) -> int:
 
 def follow_up_end(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.ndarray]:
     """Each row's first observed wave and the last wave it is due at (-1: never seen)."""
-    first = response_history(observed)[0]
+    first = first_observed(observed)
     end = np.where(first >= 0, np.minimum(first + span - 1, observed.shape[1] - 1), -1)
     return first, end
 
@@ -621,8 +626,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     # the last wave a unit is observed at (-1: never): the event at t is t == last
     last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
     last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
-    # the last wave each unit is due at: after it a unit is no longer at risk
-    due_end = follow_up_end(seen, follow_up_span(seen, np.ones(n_units)))[1]
+    # the last wave each unit is due at, when a cohort's follow-up ends before the panel's
+    span = follow_up_span(seen, np.ones(n_units))
+    due_end = follow_up_end(seen, span)[1] if span < t else None
     # person-periods wave by wave: predictor j of wave s's rows is xt[j, bounds[s]:...]
     n_rows = int(seen[:, :-1].sum())
     del seen, last_seen
@@ -640,7 +646,8 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                 else np.nan
         if not sd > 0:
             continue   # no spread at this wave: no standardised value
-        risk &= due_end > s
+        if due_end is not None:
+            risk &= due_end > s   # no longer at risk after its follow-up
         for w in extra:  # a loop over covariates
             risk &= np.isfinite(w[:, s])
         rows = np.flatnonzero(risk)
