@@ -1,6 +1,6 @@
-"""Attrition: retention by wave, unit types by response history, and whether dropout
-is selective on the measure (standardised mean differences and a discrete-time
-dropout model).
+"""Attrition: the entry design, retention by wave counted from each unit's own first
+wave, unit types by response history, and whether dropout is selective on the measure
+(standardised mean differences and a discrete-time dropout model).
 
 Retention, unit types and the mean differences are functions of the per-pattern
 summary ``PatternMoments``. The dropout model needs each unit's value at each wave
