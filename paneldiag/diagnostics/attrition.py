@@ -1,6 +1,6 @@
-"""Attrition: retention by wave, unit types by response history, and whether dropout
-is selective on the measure (standardised mean differences and a discrete-time
-dropout model).
+"""Attrition: the entry design, retention by wave counted from each unit's own first
+wave, unit types by response history, and whether dropout is selective on the measure
+(standardised mean differences and a discrete-time dropout model).
 
 Retention, unit types and the mean differences are functions of the per-pattern
 summary ``PatternMoments``. The dropout model needs each unit's value at each wave
@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from paneldiag import distributions as dist
+from paneldiag.disclosure import shown_mask, small
 from paneldiag.results import Result
 from paneldiag.summaries.patterns import PatternMoments, display_order
 
@@ -28,35 +29,8 @@ Z95 = float(dist.norm_ppf(0.975))
 
 # --------------------------------------------------------------- disclosure control
 
-def shown_mask(counts, min_cell: int, additive: bool = False) -> np.ndarray:
-    """True where a count may be shown.
-
-    A count below ``min_cell`` is never shown (primary suppression). With
-    ``additive`` (the counts add up to a total that is shown), the smallest shown
-    counts are suppressed too until the suppressed cells hold ``min_cell`` units or
-    more together (secondary suppression), so none can be recovered by subtraction.
-    When the suppressed cells are all zero nothing more is withheld: a zero that can
-    be recovered identifies no unit.
-    """
-    counts = np.asarray(counts, dtype=float)
-    show = counts >= min_cell
-    if additive and (~show).any():
-        for i in np.argsort(counts, kind="stable"):  # a loop over cells of a small table
-            hidden = counts[~show].sum()
-            if hidden == 0 or hidden >= min_cell or show.sum() == 0:
-                break
-            if show[i]:
-                show[i] = False
-    return show
-
-
 def _count(value: float, shown: bool):
     return int(value) if shown else None
-
-
-def _small(a, min_cell: int):
-    """Counts of 1 to min_cell - 1 (a zero identifies no unit)."""
-    return (a > 0) & (a < min_cell)
 
 
 def coverage_counts(patterns: PatternMoments) -> np.ndarray:
@@ -69,17 +43,18 @@ def coverage_shown(both: np.ndarray, min_cell: int) -> np.ndarray:
     """Which coverage cells may be shown: at least ``min_cell`` units, and the units
     seen at only one wave of the pair (diagonal minus cell) not 1 to min_cell - 1."""
     alone = np.diag(both)[:, None] - both
-    return (both >= min_cell) & ~_small(alone, min_cell) & ~_small(alone.T, min_cell)
+    return (both >= min_cell) & ~small(alone, min_cell) & ~small(alone.T, min_cell)
 
 
 def _retention_shown(patterns: PatternMoments, min_cell: int):
     observed = wave_observed(patterns)
-    first = patterns.observed[:, 0]
-    base = patterns.n[first].sum()
-    still = patterns.n[first] @ patterns.observed[first]
-    wave_ok = observed >= min_cell
+    due = units_due(patterns.observed, follow_up_span(patterns.observed, patterns.n))
+    base = patterns.n @ due
+    still = patterns.n @ (due & patterns.observed)
+    # a wave's respondents beside all units would give its non-respondents
+    wave_ok = (observed >= min_cell) & ~small(patterns.n.sum() - observed, min_cell)
     ret_ok = wave_ok & (base >= min_cell) & (still >= min_cell) & \
-        ~_small(base - still, min_cell)
+        ~small(base - still, min_cell)
     return observed, base, still, wave_ok, ret_ok
 
 
@@ -96,9 +71,9 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
     ``top`` most frequent (listed in the pattern table) or monotone dropout patterns
     (shown as counts by wave of last observation). Every total the report shows is a
     sum over a set of patterns: all units, the respondents at a wave, a coverage cell
-    and the two one-wave-only differences next to it, the first-wave respondents kept
-    or lost at a wave, a unit type, the withheld types together, the leavers after a
-    wave. For each such set the units of its withheld patterns must be none or at
+    and the two one-wave-only differences next to it, the units due at a wave kept or
+    lost there, those kept or lost to the end of their follow-up, the entrants at a
+    wave, a unit type, the withheld types together, the leavers after a wave. For each such set the units of its withheld patterns must be none or at
     least ``min_cell`` together; otherwise the smallest revealed pattern of the set
     is withheld too, until no set breaks the rule (each step only withholds more, so
     this ends).
@@ -117,11 +92,15 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
     top_big[order] = big[order] & (big_rank < top)
     known = big & (top_big | (codes == 1))
     _, _, _, wave_ok, ret_ok = _retention_shown(patterns, min_cell)
-    cov_ok = coverage_shown(coverage_counts(patterns), min_cell)
-    pair_ok = cov_ok.copy()
-    pair_ok[0] |= ret_ok                            # first-wave respondents kept at b
+    pair_ok = coverage_shown(coverage_counts(patterns), min_cell)
     np.fill_diagonal(pair_ok, False)
-    _, last, _, _ = response_history(obs)
+    first, last, _, _ = response_history(obs)
+    span = follow_up_span(obs, n)
+    due = units_due(obs, span)
+    entering = entry_counts(obs, n)
+    entry_ok = entry_shown(entering, n.sum(), min_cell)
+    end_due, end_kept = end_of_follow_up(obs, span)
+    end_ok = end_shown(n @ end_due, n @ end_kept, min_cell)
     n_types = len(UNIT_TYPES)
     leave_n = np.bincount(last[last >= 0], weights=n[last >= 0], minlength=t)[:t - 1]
     leave_ok = leave_n >= min_cell
@@ -130,9 +109,20 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
 
     def members(kind, a, b):
         """The patterns of one shown total (kinds: all, wave, both, only, type,
-        hidden types, leavers)."""
+        hidden types, leavers, entrants at a wave, units due at a wave kept or lost,
+        units kept or lost to the end of their follow-up)."""
         if kind == "all":
             return np.ones(p, dtype=bool)
+        if kind == "entry":
+            return first == a
+        if kind == "kept":
+            return due[:, a] & obs[:, a]
+        if kind == "lost":
+            return due[:, a] & ~obs[:, a]
+        if kind == "end_kept":
+            return end_kept
+        if kind == "end_lost":
+            return end_due & ~end_kept
         if kind == "wave":
             return obs[:, a]
         if kind == "both":
@@ -153,22 +143,31 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
         by_type = np.bincount(codes, weights=hid, minlength=n_types)
         by_leave = np.bincount(last[last >= 0], weights=hid[last >= 0], minlength=t)[:t - 1]
         broken = []
-        if _small(hid.sum(), min_cell):
+        if small(hid.sum(), min_cell):
             broken.append(("all", 0, 0))
-        broken += [("wave", a, 0) for a in np.flatnonzero(wave_ok & _small(at_wave, min_cell))]
-        both_bad = pair_ok & _small(pair, min_cell)
-        only_bad = pair_ok & _small(at_wave[:, None] - pair, min_cell)
+        broken += [("wave", a, 0) for a in np.flatnonzero(wave_ok & small(at_wave, min_cell))]
+        both_bad = pair_ok & small(pair, min_cell)
+        only_bad = pair_ok & small(at_wave[:, None] - pair, min_cell)
         broken += [("both", a, b) for a, b in zip(*np.nonzero(both_bad))]
         broken += [("only", a, b) for a, b in zip(*np.nonzero(only_bad))]
-        broken += [("type", k, 0) for k in np.flatnonzero(type_ok & _small(by_type, min_cell))]
-        if hidden_types.any() and _small(by_type[hidden_types].sum(), min_cell):
+        broken += [("type", k, 0) for k in np.flatnonzero(type_ok & small(by_type, min_cell))]
+        if hidden_types.any() and small(by_type[hidden_types].sum(), min_cell):
             broken.append(("hidden_types", 0, 0))
-        broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & _small(by_leave,
+        broken += [("leave", a, 0) for a in np.flatnonzero(leave_ok & small(by_leave,
                                                                               min_cell))]
+        by_entry = np.bincount(first[first >= 0], weights=hid[first >= 0], minlength=t)
+        broken += [("entry", a, 0) for a in np.flatnonzero(entry_ok[:t] &
+                                                            small(by_entry, min_cell))]
+        kept, lost = hid @ (due & obs), hid @ (due & ~obs)
+        broken += [("kept", a, 0) for a in np.flatnonzero(ret_ok & small(kept, min_cell))]
+        broken += [("lost", a, 0) for a in np.flatnonzero(ret_ok & small(lost, min_cell))]
+        broken += [(kind, 0, 0) for kind, rows in (("end_kept", end_kept),
+                                                   ("end_lost", end_due & ~end_kept))
+                   if end_ok and small(hid[rows].sum(), min_cell)]
         picked = False
         for kind, a, b in broken:  # a loop over the totals that would reveal a count
             inside = members(kind, a, b)
-            if not _small(n[inside & ~known].sum(), min_cell):
+            if not small(n[inside & ~known].sum(), min_cell):
                 continue    # an earlier pick of this pass already mended it
             pool = np.flatnonzero(inside & known)
             if len(pool):
@@ -178,6 +177,184 @@ def known_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10) -
         if not picked:
             break
     return known
+
+
+# -------------------------------------------------------------------- entry design
+
+# How the design is named from the share of units entering at each wave (our own
+# convention, chosen so that the usual designs fall clearly on one side; the shares are
+# of the units observed at least once):
+SINGLE_COHORT_SHARE = 0.90  # single cohort: the first wave holds at least this share
+                            # (a trickle of late first responses does not change that)
+MAIN_SAMPLE_SHARE = 0.50    # refreshment samples: the first wave still holds the main
+                            # sample, at least half, and later waves add blocks
+ENTRY_BLOCK_SHARE = 0.05    # a wave adds a block of new units when this share enters
+SPREAD_MIN_WAVES = 3        # cohort-sequential: under half start at the first wave and
+                            # blocks enter at this many waves or more
+FOLLOW_UP_SHARE = 0.05      # cohort-sequential: the planned follow-up is the longest span
+                            # of waves that at least this share of units reaches
+
+ENTRY_DESIGNS = {
+    "single_cohort": "single cohort: nearly all units start at the first wave",
+    "refreshment": "refreshment samples: the first wave holds the main sample and later "
+                   "waves add blocks of new units",
+    "cohort_sequential": "cohort-sequential (accelerated) entry: units enter spread over "
+                         "many waves",
+    "mixed_entry": "mixed entry: units start at several waves, in none of the patterns "
+                   "of a single cohort, refreshment samples or cohort-sequential entry",
+}
+
+
+def first_observed(observed: np.ndarray) -> np.ndarray:
+    """Each row's first observed wave (-1: never observed)."""
+    return np.where(observed.any(axis=1), observed.argmax(axis=1), -1)
+
+
+def entry_counts(observed: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """Units first observed at each wave, (T,) (units never observed are in none)."""
+    first = first_observed(observed)
+    return np.bincount(first[first >= 0], weights=n[first >= 0],
+                       minlength=observed.shape[1]).astype(float)
+
+
+def entry_shown(entering: np.ndarray, total: float, min_cell: int) -> np.ndarray:
+    """Which entry counts may be shown: they and the units never observed add up to all
+    units, so the never-observed count is a cell of the same additive table."""
+    cells = np.r_[entering, total - entering.sum()]
+    return shown_mask(cells, min_cell, additive=True)[:len(entering)]
+
+
+def classify_entry(entering: np.ndarray) -> str:
+    """The design's name (a key of ``ENTRY_DESIGNS``) from the entry counts by wave."""
+    total = entering.sum()
+    if total == 0:
+        return "single_cohort"
+    share = entering / total
+    blocks = int((share >= ENTRY_BLOCK_SHARE).sum())
+    if share[0] >= SINGLE_COHORT_SHARE:
+        return "single_cohort"
+    if share[0] >= MAIN_SAMPLE_SHARE and (share[1:] >= ENTRY_BLOCK_SHARE).any():
+        return "refreshment"
+    if share[0] < MAIN_SAMPLE_SHARE and blocks >= SPREAD_MIN_WAVES:
+        return "cohort_sequential"
+    return "mixed_entry"
+
+
+def follow_up_span(observed: np.ndarray, n: np.ndarray) -> int:
+    """Waves each unit is due to be followed from its own first wave.
+
+    All the remaining waves, except in a cohort-sequential design, where each cohort is
+    usually followed over a fixed number of waves: there it is the longest span (first
+    to last observed wave) that at least ``FOLLOW_UP_SHARE`` of the units reach, so that
+    a planned end of follow-up is not read as dropout while dropout within it still is.
+    """
+    t = observed.shape[1]
+    if classify_entry(entry_counts(observed, n)) != "cohort_sequential":
+        return t
+    first, last, _, _ = response_history(observed)
+    seen = first >= 0
+    by_span = np.bincount((last - first + 1)[seen], weights=n[seen], minlength=t + 1)
+    reach = np.cumsum(by_span[::-1])[::-1]        # units with a span of s waves or more
+    long_enough = np.flatnonzero(reach >= FOLLOW_UP_SHARE * n[seen].sum())
+    return int(long_enough.max()) if len(long_enough) else t
+
+
+def follow_up_end(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """Each row's first observed wave and the last wave it is due at (-1: never seen)."""
+    first = first_observed(observed)
+    end = np.where(first >= 0, np.minimum(first + span - 1, observed.shape[1] - 1), -1)
+    return first, end
+
+
+def units_due(observed: np.ndarray, span: int) -> np.ndarray:
+    """(rows, T): the row entered before the wave and is still within its follow-up
+    there, so the wave is a chance to keep or lose it."""
+    first, end = follow_up_end(observed, span)
+    waves = np.arange(observed.shape[1])
+    return (first[:, None] >= 0) & (first[:, None] < waves) & (waves <= end[:, None])
+
+
+def end_of_follow_up(observed: np.ndarray, span: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per row: due at a wave after its first (its follow-up is longer than one wave),
+    and observed at the last wave it is due at (kept to the end)."""
+    first, end = follow_up_end(observed, span)
+    due = (first >= 0) & (first < end)
+    kept = due & observed[np.arange(len(observed)), np.maximum(end, 0)]
+    return due, kept
+
+
+def retention_to_end(observed: np.ndarray, n: np.ndarray) -> tuple[float, float]:
+    """Units due after their own first wave, and of those, kept to the end of their
+    follow-up (``end_of_follow_up`` with the design's ``follow_up_span``)."""
+    due, kept = end_of_follow_up(observed, follow_up_span(observed, n))
+    return float(n @ due), float(n @ kept)
+
+
+def end_shown(base: float, kept: float, min_cell: int) -> bool:
+    """The share kept may be shown: neither it nor the units lost reveal a small count."""
+    return bool(base >= min_cell and kept >= min_cell and not small(base - kept, min_cell))
+
+
+@dataclass(frozen=True)
+class WaveCount(Result):
+    """Units at one wave (entering there, or last observed there) and their share."""
+
+    wave: str
+    n: int | None
+    share: float | None
+
+
+@dataclass(frozen=True)
+class EntryDesign(Result):
+    """How units enter the panel, and retention counted from each unit's own entry."""
+
+    design: str
+    description: str
+    first_wave_share: float | None
+    entry_waves: tuple[str, ...]
+    follow_up_waves: int
+    retained_share: float | None
+    by_wave: tuple[WaveCount, ...]
+
+
+def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> EntryDesign:
+    """The entry design the response histories show, and retention from entry.
+
+    Units enter at their first observed wave. The design is a single cohort when at
+    least ``SINGLE_COHORT_SHARE`` of the units start at the first wave; refreshment
+    samples when the first wave holds at least ``MAIN_SAMPLE_SHARE`` and some later
+    wave adds a block (``ENTRY_BLOCK_SHARE`` or more); cohort-sequential when the first
+    wave holds less and blocks enter at ``SPREAD_MIN_WAVES`` waves or more; otherwise
+    mixed. ``entry_waves`` lists the waves that add a block. ``retained_share``: of the
+    units due at some wave after their first, the share observed at the last wave they
+    are due at (the final wave, or in a cohort-sequential design the end of the
+    ``follow_up_waves`` planned for each cohort, see ``follow_up_span``). Counts below
+    ``min_cell`` are withheld with their shares (secondary suppression as in
+    ``shown_mask``, the never-observed units being the table's last cell).
+
+    References
+    ----------
+    Lynn, P. (ed.) (2009). Methodology of Longitudinal Surveys, ch. 1 (retention; refreshment
+    samples). Wiley.
+    Schaie, K. W. (1965). A general model for the study of developmental problems.
+    Psychological Bulletin, 64(2), 92-107 (cohort-sequential designs).
+    """
+    obs, n = patterns.observed, patterns.n
+    entering = entry_counts(obs, n)
+    total = entering.sum()
+    show = entry_shown(entering, n.sum(), min_cell)
+    design = classify_entry(entering)
+    base, still = retention_to_end(obs, n)
+    share = entering / total if total > 0 else np.zeros_like(entering)
+    rows = tuple(WaveCount(str(label), _count(entering[i], show[i]),
+                           float(share[i]) if show[i] else None)
+                 for i, label in enumerate(wave_labels))
+    blocks = tuple(str(wave_labels[i]) for i in range(1, len(entering))
+                   if share[i] >= ENTRY_BLOCK_SHARE and show[i])
+    return EntryDesign(design, ENTRY_DESIGNS[design],
+                       float(share[0]) if len(show) and show[0] else None, blocks,
+                       follow_up_span(obs, n),
+                       still / base if end_shown(base, still, min_cell) else None, rows)
 
 
 # ------------------------------------------------------------------------ retention
@@ -205,13 +382,17 @@ def wave_observed(patterns: PatternMoments) -> np.ndarray:
 
 
 def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Retention:
-    """Units observed at each wave, the share of the first wave's respondents still
-    observed (retention) and the share of all units observed (response).
+    """Units observed at each wave, retention counted from each unit's own first
+    wave, and the share of all units observed (response).
 
     A unit counts as observed at a wave when the measure has a value there
-    (declared missing codes count as missing). Waves below ``min_cell`` observed
-    units are suppressed with their shares; a retention share is withheld too when
-    it would reveal that 1 to ``min_cell`` - 1 first-wave respondents were missing.
+    (declared missing codes count as missing). ``retained_share`` at a wave: of the
+    units that entered (were first observed) before it and are still due there (see
+    ``units_due``), the share observed at it; units entering at the wave itself are
+    not counted, and the first wave has none (null). Waves below ``min_cell`` observed
+    units, or with 1 to ``min_cell`` - 1 units not observed, are suppressed with their
+    shares; a retention share is withheld too when
+    the units due, kept or lost would be 1 to ``min_cell`` - 1.
 
     References
     ----------
@@ -225,7 +406,7 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
         ok, keep_ret = bool(wave_ok[t]), bool(ret_ok[t])
         rows.append(RetentionRow(
             wave=str(label), n_observed=_count(observed[t], ok),
-            retained_share=float(still[t] / base) if keep_ret else None,
+            retained_share=float(still[t] / base[t]) if keep_ret else None,
             response_share=float(observed[t] / n_all) if ok and n_all > 0 else None,
             suppressed=not ok))
     return Retention(tuple(rows))
@@ -268,16 +449,9 @@ class TypeRow(Result):
 
 
 @dataclass(frozen=True)
-class DropoutWave(Result):
-    wave: str
-    n: int | None
-    share: float | None
-
-
-@dataclass(frozen=True)
 class UnitTypes(Result):
     types: tuple[TypeRow, ...]
-    dropout_last_wave: tuple[DropoutWave, ...]
+    dropout_last_wave: tuple[WaveCount, ...]
 
     def to_dict(self) -> list[dict]:
         rows = [r.to_dict() for r in self.types]
@@ -321,7 +495,7 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5, top: in
     known = known_patterns(patterns, min_cell, top)
     show_w = np.zeros(t - 1, dtype=bool)
     show_w[last[drop & known]] = True
-    waves = tuple(DropoutWave(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
+    waves = tuple(WaveCount(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
                               float(by_wave[i] / total) if show_w[i] else None)
                   for i in range(t - 1))
     return UnitTypes(types, waves)
@@ -362,7 +536,8 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     J = 1 - 3 / (4 (n1 + n2) - 9), and a 95% interval g +- q sqrt(v) with the
     large-sample variance v = (n1 + n2) / (n1 n2) + g^2 / (2 (n1 + n2)) and q the
     0.975 quantile of Student's t on n1 + n2 - 2 df (close to 1.96 for large groups). Negative g: the leavers scored
-    lower. Units who skip the next wave but return later are in neither group.
+    lower. Units who skip the next wave but return later are in neither group, nor
+    are units whose follow-up ends at the wave by design (``follow_up_span``).
     When either group is below ``min_cell`` units both counts, the small group's
     mean and g are withheld.
 
@@ -374,10 +549,11 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     Academic Press, ch. 5 (the large-sample variance of g).
     """
     _, last, _, _ = response_history(patterns.observed)
+    _, end = follow_up_end(patterns.observed, follow_up_span(patterns.observed, patterns.n))
     out = []
     for t in range(patterns.n_waves - 1):  # a loop over waves
         stay = patterns.observed[:, t] & patterns.observed[:, t + 1]
-        leave = last == t
+        leave = (last == t) & (end > t)   # the planned end of follow-up is no dropout
         n1, m1, ss1 = _group_moments(patterns, stay, t)
         n2, m2, ss2 = _group_moments(patterns, leave, t)
         big1, ok2 = n1 >= min_cell, n2 >= min_cell
@@ -422,8 +598,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
         logit P(last observed at t | observed at t) = a_t + b z_t + c' w_t
 
-    Person-periods are the (unit, wave) cells with an observed value before the final
-    wave; the event is that the unit is never observed after t (so a unit that
+    Person-periods are the (unit, wave) cells with an observed value before the last
+    wave the unit is due at (the final wave, or the end of a cohort's planned
+    follow-up, ``follow_up_span``); the event is that the unit is never observed after t (so a unit that
     skips and returns is not an event). Covariates ``w_t`` (value at wave t) are
     standardised over the person-periods; cells with a missing covariate are left
     out. Waves without events (or without non-events) are left out, which is their
@@ -449,6 +626,9 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     # the last wave a unit is observed at (-1: never): the event at t is t == last
     last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
     last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
+    # the last wave each unit is due at, when a cohort's follow-up ends before the panel's
+    span = follow_up_span(seen, np.ones(n_units))
+    due_end = follow_up_end(seen, span)[1] if span < t else None
     # person-periods wave by wave: predictor j of wave s's rows is xt[j, bounds[s]:...]
     n_rows = int(seen[:, :-1].sum())
     del seen, last_seen
@@ -466,6 +646,8 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                 else np.nan
         if not sd > 0:
             continue   # no spread at this wave: no standardised value
+        if due_end is not None:
+            risk &= due_end > s   # no longer at risk after its follow-up
         for w in extra:  # a loop over covariates
             risk &= np.isfinite(w[:, s])
         rows = np.flatnonzero(risk)
@@ -482,7 +664,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
             xt[j + 1, lo:hi] = w[rows, s]
         y[lo:hi] = event
         bounds.append(hi)
-    del last
+    del last, due_end
     xt, y = xt[:, :bounds[-1]], y[:bounds[-1]]
     n_pp, n_ev = len(y), int(y.sum())
     n_at_risk = int(any_risk.sum())
@@ -490,7 +672,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
                 n_events=_count(n_ev, n_ev >= min_cell),
                 # against the panel's count it would give the units never at risk
                 n_units=_count(n_at_risk, n_at_risk >= min_cell and
-                               not _small(n_units - n_at_risk, min_cell)),
+                               not small(n_units - n_at_risk, min_cell)),
                 waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
 
     def empty(note, iterations=0):
@@ -643,6 +825,7 @@ class Selective(Result):
 
 @dataclass(frozen=True)
 class Attrition(Result):
+    entry: EntryDesign
     retention: Retention
     unit_types: UnitTypes
     selective: Selective
@@ -655,5 +838,6 @@ def attrition_section(ctx) -> Attrition:
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
     model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m)
-    return Attrition(retention(patterns, labels, m), unit_types(patterns, labels, m),
+    return Attrition(entry_design(patterns, labels, m), retention(patterns, labels, m),
+                     unit_types(patterns, labels, m),
                      Selective(dropout_differences(patterns, labels, m), model))

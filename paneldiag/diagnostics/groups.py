@@ -15,6 +15,7 @@ from typing import Callable
 import numpy as np
 
 from paneldiag import distributions as dist
+from paneldiag.diagnostics.attrition import end_of_follow_up, follow_up_span
 from paneldiag.diagnostics.crosslag import lag_correlations
 from paneldiag.results import Result, plain
 from paneldiag.summaries.pairwise import PairwiseMoments
@@ -124,19 +125,19 @@ def reportable_groups(groups: np.ndarray, values: np.ndarray, labels: list[str],
     Primary suppression: groups with fewer than ``min_cell`` units. Secondary
     suppression (common practice in statistical disclosure control, e.g. Hundepool et
     al. 2012, Statistical Disclosure Control, ch. 4): while the units of all hidden
-    groups together, their respondents at some wave, or those seen at both the first
-    and the last wave, number between 1 and min_cell - 1 (so the whole panel's count
-    minus the shown groups' would reveal a small count), the smallest shown group is
-    hidden too.
+    groups together, their respondents at some wave, or those kept to the end of their
+    follow-up (counted from each unit's own first wave), number between 1 and
+    min_cell - 1 (so the whole panel's count minus the shown groups' would reveal a
+    small count), the smallest shown group is hidden too.
     """
     seen = ~np.isnan(values)
-    both = seen[:, 0] & seen[:, -1]
+    kept = end_of_follow_up(seen, follow_up_span(seen, np.ones(len(seen))))[1]
     sizes = {label: int((groups == label).sum()) for label in labels}
     shown = [label for label in labels if sizes[label] >= min_cell]
 
     def leaks() -> bool:
         hidden = ~np.isin(groups, shown)
-        counts = [int(hidden.sum()), int(both[hidden].sum()), *seen[hidden].sum(axis=0)]
+        counts = [int(hidden.sum()), int(kept[hidden].sum()), *seen[hidden].sum(axis=0)]
         return any(0 < c < min_cell for c in counts)
 
     while shown and len(shown) < len(labels) and leaks():
@@ -144,11 +145,11 @@ def reportable_groups(groups: np.ndarray, values: np.ndarray, labels: list[str],
     return shown
 
 
-def _retention(values: np.ndarray, min_cell: int):
-    """Units observed at the first wave, and of those, observed at the last wave."""
-    base = ~np.isnan(values[:, 0])
-    kept = base & ~np.isnan(values[:, -1])
-    return int(base.sum()), int(kept.sum())
+def _retention(values: np.ndarray, span: int):
+    """Units due after their own first wave, and of those, kept to the end of their
+    follow-up (``attrition.end_of_follow_up``, with the whole panel's follow-up span)."""
+    due, kept = end_of_follow_up(~np.isnan(values), span)
+    return int(due.sum()), int(kept.sum())
 
 
 def _estimate_from(section, path: tuple[str, ...]):
@@ -195,8 +196,8 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
     ``run_group(panel)`` returns (report_sections, summaries) for a subset panel: it is
     the per-measure screen itself, so a group's report holds the same sections as the
     whole panel's. Compared across groups: the lag-1 autocorrelation (Fisher z average,
-    jackknife SE; Cochran's Q on the z scale), retention from the first to the last wave
-    (Pearson chi-square of the 2 x G table; Wilson intervals), and, where the
+    jackknife SE; Cochran's Q on the z scale), retention from each unit's own first wave
+    to the end of its follow-up (Pearson chi-square of the 2 x G table; Wilson intervals), and, where the
     diagnostics report them with an uncertainty, the stable share, the carry-over and the
     reliability (Cochran's Q with the reported SEs, or SEs read off symmetric CIs). Tests assume independent
     groups, which holds for a unit-level grouping column; they are unweighted.
@@ -206,6 +207,8 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
         return None
     labels = sorted(set(panel.groups.tolist()))
     shown = reportable_groups(panel.groups, panel.values[measure], labels, min_cell)
+    seen = ~np.isnan(panel.values[measure])
+    span = follow_up_span(seen, np.ones(len(seen)))
     reports, lag1, retention, reported = {}, [], [], {f: [] for f, _, _ in REPORTED_FIGURES}
     suppressed = len(labels) - len(shown)
     for label in shown:
@@ -217,7 +220,7 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
             lag = lag_correlations(summaries[PairwiseMoments], panel.wave_times, 1, min_cell)
             lag1.append(GroupValue(label, lag.r, lag.ci_low, lag.ci_high, lag.z_se,
                                    lag.n_pairs))
-        base, kept = _retention(sub.values[measure], min_cell)
+        base, kept = _retention(sub.values[measure], span)
         disclose = min(kept, base - kept) >= min_cell
         share = kept / base if base and disclose else np.nan
         se = np.sqrt(share * (1 - share) / base) if base and disclose else np.nan
@@ -239,7 +242,7 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
         ok = [(k, b) for _, k, b, d in retention if d]
         test = proportions_equality([k for k, _ in ok], [b for _, b in ok])
         comparison.append(Comparison(
-            "retention", "retained to the last wave (of units seen at the first)",
+            "retention", "retained to the end of follow-up (from each unit's first wave)",
             "counts", tuple(v for v, *_ in retention), test))
     for figure, label, _ in REPORTED_FIGURES:
         values = reported[figure]

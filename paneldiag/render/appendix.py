@@ -17,6 +17,7 @@ import tempfile
 from importlib import metadata
 
 
+from paneldiag.disclosure import count_shown, share_shown
 from paneldiag.errors import InputProblem
 from paneldiag.render import figures as figs
 from paneldiag.render import intake
@@ -70,8 +71,35 @@ def _share(share, n, min_cell: int) -> str:
     """A percentage, or '<' when the count it stands for is below the threshold."""
     if share is None or n is None:
         return "–"
-    hidden = 0 < round(share * n) < min_cell
-    return f"< {100 * min_cell / n:.1f}" if hidden and n else f"{100 * share:.1f}"
+    if not share_shown(share, n, min_cell):
+        return f"< {100 * min_cell / n:.1f}"
+    return f"{100 * share:.1f}"
+
+
+BLANK_REASONS = {  # why a table cell shows '–', in the order the footnote gives them
+    "withheld": "withheld by disclosure control (it would show, or give by subtraction, "
+                "a count of fewer than {m} units)",
+    "first_wave": "no unit entered before the first wave, so none is retained there",
+    "mixed": "the band mixes lags or time distances",
+    "not_estimable": "not estimable from these data (or not identified for that group)",
+}
+
+
+class Blanks:
+    """The empty cells of one table: each '–' records why, and the footnote names the
+    reasons that occur, and only those."""
+
+    def __init__(self, min_cell: int):
+        self.min_cell, self.used = min_cell, set()
+
+    def __call__(self, reason: str) -> str:
+        self.used.add(reason)
+        return "–"
+
+    def notes(self) -> tuple[str, ...]:
+        reasons = [text.format(m=self.min_cell) for key, text in BLANK_REASONS.items()
+                   if key in self.used]
+        return ("'–': " + "; ".join(reasons) + ".",) if reasons else ()
 
 
 def _ci(node: dict, key: str = "estimate", digits: int = 2, scale: float = 1.0) -> str:
@@ -92,7 +120,9 @@ def wave_table(report: dict, min_cell: int) -> Table | None:
     if not rows:
         return None
     times = dict(zip(report["panel"]["waves"], report["panel"]["times"]))
-    body = tuple((r["wave"], _number(times.get(r["wave"])), _n(r["n"], min_cell),
+    n_units, blank = report["panel"].get("n_units"), Blanks(min_cell)
+    body = tuple((r["wave"], _number(times.get(r["wave"])), wave_count(r["n"], n_units,
+                                                                       min_cell, blank),
                   _v(r["mean"]), _v(r["sd"]), _v(r["min"]), _v(r["max"]),
                   _share(r["floor_share"], r["n"], min_cell),
                   _share(r["ceiling_share"], r["n"], min_cell))
@@ -101,20 +131,39 @@ def wave_table(report: dict, min_cell: int) -> Table | None:
                  f"{report.get('measure')}: distribution by wave",
                  ("wave", f"time ({intake.time_unit(report)}s)", "n", "mean", "SD", "min",
                   "max", "% at floor", "% at ceiling"), body,
-                 (f"Counts below {min_cell} are shown as '< {min_cell}' (disclosure control).",))
+                 (f"Counts below {min_cell} are shown as '< {min_cell}' (disclosure control).",
+                  *blank.notes()))
+
+
+def wave_count(n, n_units, min_cell: int, blank: Blanks) -> str:
+    """A wave's count of units, withheld when the units missing there (all units
+    minus it) would be 1 to min_cell - 1."""
+    if n is None or n < min_cell or count_shown(n, min_cell, n_units):
+        return _n(n, min_cell)
+    return blank("withheld")
 
 
 def retention_table(report: dict, min_cell: int) -> Table | None:
     rows = (report.get("attrition") or {}).get("retention")
     if not rows:
         return None
-    body = tuple((r["wave"], _n(r.get("n_observed"), min_cell),
-                  "–" if r.get("retained_share") is None else f"{100 * r['retained_share']:.1f}",
-                  "–" if r.get("response_share") is None else f"{100 * r['response_share']:.1f}")
-                 for r in rows)
+    blank = Blanks(min_cell)
+
+    def pct(row, key, first):
+        if row.get(key) is not None:
+            return f"{100 * row[key]:.1f}"
+        return blank("first_wave" if first and key == "retained_share" else "withheld")
+
+    body = tuple((r["wave"], _n(r["n_observed"], min_cell) if r.get("n_observed") is not None
+                  else blank("withheld"),
+                  pct(r, "retained_share", i == 0), pct(r, "response_share", i == 0))
+                 for i, r in enumerate(rows))
     return Table(f"{slug(report.get('measure'))}-retention",
                  f"{report.get('measure')}: retention and response by wave",
-                 ("wave", "n observed", "% retained", "% responding"), body)
+                 ("wave", "n observed", "% retained", "% responding"), body,
+                 ("% retained: of the units that entered (were first observed) before the "
+                  "wave and are still due there, the share observed at it; % responding: "
+                  "of all units.", *blank.notes()))
 
 
 def lag_table(report: dict, min_cell: int) -> Table | None:
@@ -122,18 +171,26 @@ def lag_table(report: dict, min_cell: int) -> Table | None:
     if not rows:
         return None
     basis = {"lag": "waves apart", "time": "time apart"}
+    blank = Blanks(min_cell)
+
+    def mean_r(r):
+        if r.get("mean_r") is None:
+            return blank("withheld" if r.get("n_pairs") is None else "not_estimable")
+        return _ci({"estimate": r["mean_r"], "ci_low": r.get("ci_low"),
+                    "ci_high": r.get("ci_high")})
+
     body = tuple((basis.get(r.get("basis"), "waves apart"),
-                  "–" if r.get("lag") is None else str(r["lag"]),
-                  "–" if r.get("time_distance") is None else _number(r["time_distance"]),
-                  _ci({"estimate": r.get("mean_r"), "ci_low": r.get("ci_low"),
-                       "ci_high": r.get("ci_high")}),
-                  _n(r.get("wave_pairs"), 0), _n(r.get("n_pairs"), min_cell)) for r in rows)
+                  blank("mixed") if r.get("lag") is None else str(r["lag"]),
+                  blank("mixed") if r.get("time_distance") is None
+                  else _number(r["time_distance"]), mean_r(r),
+                  _n(r.get("wave_pairs"), 0), _n(r["n_pairs"], min_cell)
+                  if r.get("n_pairs") is not None else blank("withheld")) for r in rows)
     return Table(f"{slug(report.get('measure'))}-lags",
                  f"{report.get('measure')}: mean correlation by lag and by time distance",
                  ("grouped by", "lag (waves)", f"time distance ({intake.time_unit(report)}s)",
                   "mean r [95% CI]", "wave pairs", "unit pairs"), body,
-                 ("Fisher-z averages weighted by n - 3; '–': the band mixes lags or time "
-                  "distances. Unit pairs count a unit once per wave pair.",), align="lrrrrr")
+                 ("Fisher-z averages weighted by n - 3. Unit pairs count a unit once per "
+                  "wave pair.", *blank.notes()), align="lrrrrr")
 
 
 def families_table(report: dict) -> Table | None:
@@ -227,17 +284,21 @@ def group_table(report: dict) -> Table | None:
     if not isinstance(section, dict) or not section.get("comparison"):
         return None
     names = list(section.get("reports", {}))
-    rows = []
+    rows, blank = [], Blanks(int(section.get("min_cell") or 5))
     for comp in section["comparison"]:
         by = {v["group"]: v for v in comp["by_group"]}
         scale, digits = (100.0, 1) if comp["figure"] == "retention" else (1.0, 2)
-        cells = [_ci(by[g], digits=digits, scale=scale) if g in by else "–" for g in names]
+        cells = [_ci(by[g], digits=digits, scale=scale)
+                 if g in by and by[g].get("estimate") is not None else
+                 blank("withheld" if comp["figure"] == "retention" and g in by
+                       else "not_estimable") for g in names]
         test = comp["test"]
-        stat = "–" if test["statistic"] is None else \
+        stat = blank("not_estimable") if test["statistic"] is None else \
             f"{test['statistic']:.2f} ({test['df']})"
         rows.append((comp["label"] + (" (%)" if comp["figure"] == "retention" else ""),
-                     *cells, stat, _p(test["pvalue"])))
-    notes = [section["note"], "'–': not identified or not reported for that group.",
+                     *cells, stat, _p(test["pvalue"]) if test["pvalue"] is not None
+                     else blank("not_estimable")))
+    notes = [section["note"], *blank.notes(),
              "Tests: lag-1 autocorrelation, Cochran's Q on Fisher z with delete-a-group "
              "jackknife SEs; retention, Pearson chi-square of the groups x retained table; "
              "other figures, Cochran's Q with the SEs the diagnostics report. Cells show the "
@@ -362,9 +423,10 @@ def cautions_note(report: dict) -> Note:
     first = next(iter(measure_reports(report).values()))
     items = list(first.get("cautions") or [])
     items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
-                 "and shares that would reveal them, appear as '<' the threshold; groups "
-                 "with fewer units are not reported; individual trajectories appear only "
-                 "when asked for.")
+                 "and shares that would reveal them, appear as '<' the threshold, and "
+                 "counts or shares that would give one by subtraction as '–' (each table's "
+                 "note says why a cell is empty); groups with fewer units are not reported; "
+                 "individual trajectories appear only when asked for.")
     return Note("Read this first", tuple(dict.fromkeys(items)))
 
 

@@ -74,7 +74,7 @@ def retention_figure(report: dict) -> Figure | None:
     x = [times.get(r["wave"], np.nan) for r in rows]
     for (color, marker, style), key, label in zip(
             SERIES, ("retained_share", "response_share"),
-            ("retained (of the first wave's respondents)", "responding (of all units)")):
+            ("retained (of the units that entered before the wave)", "responding (of all units)")):
         y = [100 * r[key] if r.get(key) is not None else np.nan for r in rows]
         if np.isfinite(y).any():
             ax.plot(x, y, color=color, marker=marker, linestyle=style, label=label)
@@ -488,8 +488,8 @@ def cross_lag_figure(pair: dict) -> Figure | None:
 
 MEASURE_FIGURES = (
     ("retention", retention_figure,
-     "Retention (share of the first wave's respondents still responding) and response "
-     "(share of all units responding) by wave."),
+     "Retention (of the units that entered before a wave, the share still responding "
+     "there) and response (share of all units responding) by wave."),
     ("response_patterns", response_pattern_figure,
      "The most frequent response patterns as lanes along the wave times: a line where "
      "waves are answered in a row, a gap where one is missed; thicker lanes hold more "

@@ -9,6 +9,7 @@ reference list holds the works cited.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 from paneldiag.render import intake
@@ -98,6 +99,26 @@ def pval(p) -> str:
     return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
 
 
+def wave_name(label, unit: str | None = None) -> str:
+    """A wave label as a sentence names it: 'wave 3', 'the 2023 wave' (a calendar year
+    or a date), 'the wave at 2.5 years' (a fractional time in a named unit, else 'wave
+    2.5'), 'the baseline wave' (a word), 'wave T1' (other labels)."""
+    text = str(label)
+    try:
+        value = float(text)
+    except ValueError:
+        value = None
+    if value is not None:
+        if value.is_integer() and 1800 <= value <= 2200:
+            return f"the {text} wave"
+        if not value.is_integer() and value > 0 and unit and unit != "time unit":
+            return f"the wave at {text} {unit}s"
+        return f"wave {text}"
+    if re.fullmatch(r"\d{4}-\d{2}(-\d{2})?", text) or text.isalpha():
+        return f"the {text} wave"
+    return f"wave {text}"
+
+
 def ok(*values) -> bool:
     return all(isinstance(v, (int, float)) and not isinstance(v, bool) and v == v
                for v in values)
@@ -163,8 +184,10 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
         return []
     low = min(rows, key=lambda r: r["mean"])
     high = max(rows, key=lambda r: r["mean"])
+    unit = unit_of_time(report)
     text = (f"The wave means of {report.get('measure')} ranged from {dec(low['mean'])} "
-            f"(wave {low['wave']}) to {dec(high['mean'])} (wave {high['wave']}), with standard "
+            f"({wave_name(low['wave'], unit)}) to {dec(high['mean'])} "
+            f"({wave_name(high['wave'], unit)}), with standard "
             f"deviations between {dec(min(r['sd'] for r in rows if ok(r['sd'])))} and "
             f"{dec(max(r['sd'] for r in rows if ok(r['sd'])))}.")
     floor = max((r for r in rows if ok(r.get("floor_share"))), key=lambda r: r["floor_share"],
@@ -173,25 +196,45 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
                   key=lambda r: r["ceiling_share"], default=None)
     if floor and ceiling and max(floor["floor_share"], ceiling["ceiling_share"]) >= 0.15:
         text += (f" Scores pile up at the ends of the scale: up to {pct(floor['floor_share'])} "
-                 f"at the lowest value (wave {floor['wave']}) and up to "
-                 f"{pct(ceiling['ceiling_share'])} at the highest (wave {ceiling['wave']}).")
+                 f"at the lowest value ({wave_name(floor['wave'], unit)}) and up to "
+                 f"{pct(ceiling['ceiling_share'])} at the highest "
+                 f"({wave_name(ceiling['wave'], unit)}).")
     return [text]
+
+
+ENTRY_WORDS = {
+    "single_cohort": "a single cohort: nearly all units entered at the first wave",
+    "refreshment": "a main sample at the first wave with refreshment samples joining later",
+    "cohort_sequential": "cohort-sequential: units entered spread over many waves",
+    "mixed_entry": "mixed: units entered at several waves, in no regular pattern",
+}
 
 
 def attrition(report: dict, cite: Citations) -> list[str]:
     section = report.get("attrition") or {}
-    rows = [r for r in section.get("retention") or [] if ok(r.get("retained_share"))]
-    out = []
-    if rows:
-        last = rows[-1]
-        text = (f"Of the units that responded at the first wave, {pct(last['retained_share'])} "
-                f"still responded at the last wave ({last['wave']}).")
-        resp = [r for r in section.get("retention") if ok(r.get("response_share"))]
-        if resp:
-            low = min(resp, key=lambda r: r["response_share"])
-            text += (f" The share of all units responding was lowest at wave {low['wave']} "
-                     f"({pct(low['response_share'])}).")
-        out.append(text)
+    unit = unit_of_time(report)
+    entry = section.get("entry") or {}
+    out, text = [], ""
+    if entry.get("design") in ENTRY_WORDS:
+        text = ("By the wave at which units were first observed, the design was "
+                + ENTRY_WORDS[entry["design"]])
+        if ok(entry.get("first_wave_share")):
+            text += f" ({pct(entry['first_wave_share'])} at the first wave)"
+        text += "."
+        if entry["design"] == "cohort_sequential":
+            text += (f" Each unit is taken to be due at {count(entry['follow_up_waves'])} "
+                     "waves from its first, the longest follow-up a substantial share of "
+                     "units reached; leaving after that is not counted as dropout.")
+        if ok(entry.get("retained_share")):
+            text += (f" Counted from each unit's own first wave, {pct(entry['retained_share'])} "
+                     "of the units were still observed at the end of their follow-up.")
+    resp = [r for r in section.get("retention") or [] if ok(r.get("response_share"))]
+    if resp:
+        low = min(resp, key=lambda r: r["response_share"])
+        text += (f" The share of all units responding was lowest at "
+                 f"{wave_name(low['wave'], unit)} ({pct(low['response_share'])}).")
+    if text:
+        out.append(text.strip())
     types = section.get("unit_types") or {}
     types = types.get("types") if isinstance(types, dict) else types
     if isinstance(types, list) and types:
@@ -204,6 +247,9 @@ def attrition(report: dict, cite: Citations) -> list[str]:
             if hidden:
                 text += (f" Types held by fewer units than the minimum cell size "
                          f"({_join(hidden)}) are not shown (disclosure control).")
+            if entry.get("design") == "cohort_sequential":
+                text += (" The types are read against the whole panel, so the planned end "
+                         "of a cohort's follow-up shows there as dropout.")
             out.append(text)
     model = (section.get("selective") or {}).get("model") or {}
     if model.get("fitted") and ok(model.get("odds_ratio_per_sd"), model.get("pvalue")):
@@ -473,7 +519,8 @@ def groups(report: dict, cite: Citations) -> list[str]:
     return out
 
 
-GROUP_FIGURE_WORDS = {"retention": "share retained from the first to the last wave"}
+GROUP_FIGURE_WORDS = {"retention": "share retained from each unit's first wave to the end "
+                                   "of its follow-up"}
 
 
 def group_summary(label: str, section: dict, cite: Citations) -> list[str]:

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Callable
 
 from paneldiag.render import intake
+from paneldiag.disclosure import count_shown, share_shown
 from paneldiag.render.text import heading, number, share, table
 from paneldiag.render.text_attrition import attrition_block, missingness_block
 from paneldiag.render.text_dependence import dependence_block
@@ -27,9 +28,20 @@ def _intake(report: dict, color: bool) -> list[str]:
 
 
 def _wave_profile(report: dict, color: bool) -> list[str]:
-    rows = [[r["wave"], number(r["n"]), number(r["mean"]), number(r["sd"]), number(r["min"]),
-             number(r["max"]), number(r["skewness"], 2), share(r["floor_share"]),
-             share(r["ceiling_share"]), number(r["distinct"])]
+    m = int(report.get("input", {}).get("options", {}).get("min_cell", 5))
+    n_units = report.get("panel", {}).get("n_units")
+
+    def count(n):   # the appendix's rule: no count that gives a small one by subtraction
+        return number(n) if count_shown(n, m, n_units) else ("–" if n is None else
+                                                             f"<{m}" if n < m else "withheld")
+
+    def part(value, n):
+        return share(value) if value is None or share_shown(value, n, m) else \
+            f"<{100 * m / n:.1f}%"
+
+    rows = [[r["wave"], count(r["n"]), number(r["mean"]), number(r["sd"]), number(r["min"]),
+             number(r["max"]), number(r["skewness"], 2), part(r["floor_share"], r["n"]),
+             part(r["ceiling_share"], r["n"]), number(r["distinct"])]
             for r in report["wave_profile"]]
     headers = ["wave", "n", "mean", "sd", "min", "max", "skew", "at floor", "at ceiling",
                "distinct"]

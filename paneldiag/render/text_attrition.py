@@ -30,23 +30,54 @@ def _pct(value) -> str:
     return "–" if value is None else f"{100 * value:.0f}%"
 
 
+DESIGN_NAMES = {"single_cohort": "single cohort", "refreshment": "refreshment samples",
+                "cohort_sequential": "cohort-sequential entry", "mixed_entry": "mixed entry"}
+
+
+def entry_line(entry: dict, short: bool = False) -> str:
+    """The entry design in a few words: its name, the first wave's share of the units,
+    (unless ``short``) the waves that add blocks and, when it is not the whole panel,
+    the follow-up."""
+    text = DESIGN_NAMES.get(entry["design"], entry["design"])
+    facts = []
+    if entry.get("first_wave_share") is not None:
+        facts.append(f"{_pct(entry['first_wave_share'])} start at the first wave")
+    if entry.get("entry_waves") and not short:
+        facts.append("blocks of new units at " + ", ".join(entry["entry_waves"]))
+    if entry["design"] == "cohort_sequential":
+        facts.append(f"each unit due at {entry['follow_up_waves']} waves from its first")
+    return text + (f" ({'; '.join(facts)})" if facts else "")
+
+
 def attrition_block(report: dict, color: bool) -> list[str]:
     section, m = report["attrition"], _min_cell(report)
     rows = section["retention"]
     n_units = report.get("panel", {}).get("n_units")
-    lines = [heading("Attrition", color),
-             "  wave         " + " ".join(f"{r['wave']:>5}" for r in rows),
+    entry = section.get("entry")
+    lines = [heading("Attrition", color)]
+    if entry:
+        lines.append(f"  entry: {entry_line(entry)}")
+        if entry.get("retained_share") is not None:
+            lines.append(f"  retained from each unit's first wave to the end of its follow-up: "
+                         f"{share(entry['retained_share'])}")
+    lines += ["  wave         " + " ".join(f"{r['wave']:>5}" for r in rows),
              "  retained     " + " ".join(f"{_pct(r['retained_share']):>5}" for r in rows)
-             + "  of first-wave respondents",
+             + "  of the units that entered before the wave",
              "  responding   " + " ".join(f"{_pct(r['response_share']):>5}" for r in rows)
              + (f"  of all {n_units:,} units" if isinstance(n_units, int) else "")]
+    why = ["no unit entered before the first wave"]
+    if any(r["retained_share"] is None for r in rows[1:]) or \
+            any(r["response_share"] is None for r in rows):
+        why.append(f"withheld (it would give a count of fewer than {m} units)")
+    lines.append("  –: " + "; ".join(why))
     types = section["unit_types"]
     shown = [f"{t['type'].replace('_', ' ')} {share(t['share'])}" for t in types
              if t["n"] is not None]
     hidden = [t["type"].replace("_", " ") for t in types if t["n"] is None]
-    text = "  unit types: " + " · ".join(shown)
-    if hidden:
-        text += f" · under {m} units or withheld: " + ", ".join(hidden)
+    text = "  unit types: " + " · ".join(shown + [f"under {m} units or withheld: "
+                                               + ", ".join(hidden)] * bool(hidden))
+    if entry and entry["design"] == "cohort_sequential":
+        text += " (against the whole panel: a cohort's planned end shows as dropout)"
     lines.append(text)
     selective = section["selective"]
     gs = [r for r in selective["by_wave"] if r["smd"] is not None]

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 from paneldiag.render.figures import lag_rows, time_unit
 from paneldiag.render.intake import distance, wave_span
+from paneldiag.render.text_attrition import entry_line
 
 
 def _ok(*values) -> bool:
@@ -35,11 +36,13 @@ def key_figures(report: dict, heading) -> list[str]:
             text += f"; rows used {ledger['rows_used']:,} of {ledger['rows_read']:,}"
         lines.append(text)
     parts = []
-    retention = [r for r in (report.get("attrition") or {}).get("retention") or []
-                 if _ok(r.get("retained_share"))]
-    if retention:
-        parts.append(f"retained to {retention[-1]['wave']} "
-                     f"{100 * retention[-1]['retained_share']:.1f}%")
+    entry = (report.get("attrition") or {}).get("entry") or {}
+    if entry.get("design"):
+        text = entry_line(entry, short=True)
+        if _ok(entry.get("retained_share")):
+            text += (f"; retained from entry to the end of follow-up "
+                     f"{100 * entry['retained_share']:.1f}%")
+        parts.append(text)
     model = ((report.get("attrition") or {}).get("selective") or {}).get("model") or {}
     if model.get("fitted") and _ok(model.get("pvalue")):
         parts.append(f"dropout odds ratio per SD {_est(model, key='odds_ratio_per_sd')}, "

@@ -79,6 +79,9 @@ def judge_context(ctx) -> Judgement:
     _use_polychoric(inp, _polychoric_matrix(ctx, summaries), em, summaries)
     never_observed = ctx.panel.n_units - inp.n_units
     inp.units_disclosed = not 0 < never_observed < getattr(ctx.options, "min_cell", 5)
+    from paneldiag.diagnostics.attrition import end_shown, retention_to_end
+    inp.retention_disclosed = end_shown(*retention_to_end(patterns.observed, patterns.n),
+                                        getattr(ctx.options, "min_cell", 5))
     thresholds = getattr(ctx.options, "rules", None) or default_thresholds()
     return judge(inp, thresholds)
 

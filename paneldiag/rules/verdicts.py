@@ -225,6 +225,7 @@ class Inputs:
     # False when n_units must not be shown (disclosure control: it would give away a
     # small count of units never observed, against the panel's unit count)
     units_disclosed: bool = True
+    retention_disclosed: bool = True   # False when the share would give a small count
     # the likelihood the structures maximise: the full-information one of the response
     # patterns, or the covariance ``sigma`` itself (complete data; polychoric input)
     likelihood: object = None
@@ -248,9 +249,10 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
     n = patterns.n
     t = obs.shape[1]
     pair_n = (obs.T * n) @ obs.astype(float)
-    first = obs[:, 0]
-    base = float(n[first].sum())
-    retention = float(n[first & obs[:, -1]].sum()) / base if base > 0 else np.nan
+    # kept to the end of follow-up, counted from each unit's own first wave
+    from paneldiag.diagnostics.attrition import retention_to_end
+    base, kept = retention_to_end(obs, n)
+    retention = kept / base if base > 0 else np.nan
     # the previous score of units that leave after wave s vs units seen again later
     last = np.where(obs.any(axis=1), t - 1 - np.argmax(obs[:, ::-1], axis=1), -1)
     smds, weights = [], []
@@ -1062,11 +1064,13 @@ def _identification_caveats(inp: Inputs, led: Citations, th: Thresholds, t: int)
                    f"{led.thr('min_units')}); tests have little power and intervals are wide, "
                    "so a missing 'supported' is weak evidence.")
     if np.isfinite(inp.retention) and inp.retention < th["min_retention"]:
-        out.append(f"Heavy dropout: {led.value('retention', float(inp.retention))} of the "
-                   f"first wave is seen at the last (below {led.thr('min_retention')}); the "
-                   "later waves weigh little.")
+        share = led.value('retention', float(inp.retention)) if inp.retention_disclosed \
+            else "a share (withheld by disclosure control)"
+        out.append(f"Heavy dropout: {share} of the units, counted from their own first "
+                   f"wave, are seen at the end of their follow-up (below "
+                   f"{led.thr('min_retention')}); the later waves weigh little.")
     else:
-        led.value("retention", float(inp.retention))
+        led.value("retention", float(inp.retention) if inp.retention_disclosed else None)
     if np.isfinite(inp.dropout_smd) and abs(inp.dropout_smd) >= th["max_dropout_smd"]:
         out.append(f"Selective dropout: leavers differ from stayers on the previous score by "
                    f"{led.value('dropout_smd', float(inp.dropout_smd))} SD (from "
