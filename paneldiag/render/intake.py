@@ -43,11 +43,18 @@ def time_basis(panel: dict) -> str:
     return "; ".join(t for t in (read, times) if t)
 
 
+SHOWN_WAVES = 12   # more waves than this are shown as their first and last few
+
+
 def wave_times(panel: dict) -> str:
-    """Each wave in order with its time: '2015-11-03 (0), 2016-10-28 (360), ...'."""
+    """Each wave in order with its time: '2015-11-03 (0), 2016-10-28 (360), ...'; with
+    more than ``SHOWN_WAVES`` waves, the first eight and the last three around a count."""
     waves, times = panel.get("waves") or [], panel.get("times") or []
-    return ", ".join(w if str(w) == _number(t) else f"{w} ({_number(t)})"
-                     for w, t in zip(waves, times))
+    shown = [w if str(w) == _number(t) else f"{w} ({_number(t)})"
+             for w, t in zip(waves, times)]
+    if len(shown) > SHOWN_WAVES:
+        shown = shown[:8] + [f"... {len(shown) - 11} more ..."] + shown[-3:]
+    return ", ".join(shown)
 
 
 def wave_span(panel: dict) -> str:

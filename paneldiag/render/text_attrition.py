@@ -7,6 +7,7 @@ size; nothing below it is ever printed.
 
 from __future__ import annotations
 
+from paneldiag.render.intake import SHOWN_WAVES
 from paneldiag.render.text import heading, number, share
 
 TOP_PATTERNS = 5
@@ -60,11 +61,18 @@ def attrition_block(report: dict, color: bool) -> list[str]:
         if entry.get("retained_share") is not None:
             lines.append(f"  retained from each unit's first wave to the end of its follow-up: "
                          f"{share(entry['retained_share'])}")
-    lines += ["  wave         " + " ".join(f"{r['wave']:>5}" for r in rows),
-             "  retained     " + " ".join(f"{_pct(r['retained_share']):>5}" for r in rows)
-             + "  of the units that entered before the wave",
-             "  responding   " + " ".join(f"{_pct(r['response_share']):>5}" for r in rows)
-             + (f"  of all {n_units:,} units" if isinstance(n_units, int) else "")]
+    of_all = f" of all {n_units:,} units" if isinstance(n_units, int) else ""
+    if len(rows) <= SHOWN_WAVES:   # waves across
+        lines += ["  wave         " + " ".join(f"{r['wave']:>5}" for r in rows),
+                  "  retained     " + " ".join(f"{_pct(r['retained_share']):>5}" for r in rows)
+                  + "  of the units that entered before the wave",
+                  "  responding   " + " ".join(f"{_pct(r['response_share']):>5}" for r in rows)
+                  + " " + of_all]
+    else:   # too many waves for a line: one line per wave
+        lines.append(f"  {'wave':>12}  retained  responding   (retained: of the units that "
+                     f"entered before the wave; responding:{of_all})")
+        lines += [f"  {r['wave']:>12}  {_pct(r['retained_share']):>8}  "
+                  f"{_pct(r['response_share']):>10}" for r in rows]
     why = ["no unit entered before the first wave"]
     if any(r["retained_share"] is None for r in rows[1:]) or \
             any(r["response_share"] is None for r in rows):
