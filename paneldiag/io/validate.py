@@ -114,9 +114,33 @@ def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     if absent:  # the CLI's reader already checks; this guards direct library calls
         raise column_not_found(absent[0], list(map(str, raw.frame.columns)), raw.source,
                                row=1 if raw.first_row_number == 2 else None)
-    if spec.layout == "wide":
-        return _build_wide(raw, spec)
-    return _build_long(raw, spec)
+    panel, ledgers = (_build_wide if spec.layout == "wide" else _build_long)(raw, spec)
+    for measure, values in panel.values.items():
+        _check_magnitude(raw, measure, values)
+    return panel, ledgers
+
+
+# Squares and cross-products of the values must stay finite and above the smallest
+# normal double (about 1e-308): values beyond 1e150, or all within 1e-150 of zero, would
+# overflow or vanish in the moments.
+LARGEST_VALUE, SMALLEST_SPREAD = 1e150, 1e-150
+
+
+def _check_magnitude(raw: RawTable, measure: str, values: np.ndarray) -> None:
+    observed = np.abs(values[np.isfinite(values)])
+    if not len(observed):
+        return
+    largest = float(observed.max())
+    if largest > LARGEST_VALUE:
+        raise InputProblem(f"values of '{measure}' reach {largest:.3g}: their squares overflow "
+                           f"double precision; rescale the measure (e.g. divide it by "
+                           f"1e{int(np.log10(largest)) - 2}) and screen it again",
+                           file=raw.source, column=measure)
+    if 0 < largest < SMALLEST_SPREAD:
+        raise InputProblem(f"values of '{measure}' are all within {largest:.3g} of zero: their "
+                           f"squares vanish in double precision; rescale the measure (e.g. "
+                           f"multiply it by 1e{-int(np.log10(largest)) - 2}) and screen it again",
+                           file=raw.source, column=measure)
 
 
 def _check_spec(spec: LayoutSpec) -> None:
