@@ -224,13 +224,13 @@ def test_wide_layout(tmp_path):
 
 def test_a_bug_exits_1_with_one_line(monkeypatch, capsys):
     """Anything but an InputProblem is a bug: status 1, one line, no traceback."""
-    import paneldiag.cli.screen as screen_command
+    import paneldiag.io.readers as readers
     from paneldiag.cli import main
 
     def broken(*args, **kwargs):
         raise ZeroDivisionError("simulated fault")
 
-    monkeypatch.setattr(screen_command, "read_table", broken)
+    monkeypatch.setattr(readers, "read_table", broken)
     with pytest.raises(SystemExit) as done:
         main(["screen", "x.csv", "--id", "a", "--wave", "b", "--value", "c"])
     assert done.value.code == 1

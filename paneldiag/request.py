@@ -1,0 +1,188 @@
+"""What a screen is asked to do, in one place for the command and the Python API: the
+options with their defaults (``ScreenRequest``), and the run from the data to the report
+(``run_screen``). The command line and ``paneldiag.screen`` both build a request and
+call ``run_screen``; neither keeps its own defaults.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, fields
+from typing import Callable
+
+from paneldiag.errors import InputProblem
+from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.io.waves import MAX_WAVES, WaveGrouping
+
+
+@dataclass(frozen=True)
+class ScreenRequest:
+    """Every option of a screen, by the command's option names (dashes as underscores);
+    the defaults here are the command's defaults."""
+
+    id: tuple[str, ...] = ()
+    wave: str | None = None
+    value: tuple[str, ...] = ()
+    wide: tuple[str, ...] = ()           # NAME=C1,C2,... per measure
+    items: tuple[str, ...] = ()          # NAME=C1,C2,... per scale (long data)
+    wave_labels: str | None = None       # L1,L2,...
+    wave_times: str | None = None        # T1,T2,...
+    wave_order: str = "natural"
+    date_format: str | None = None
+    wave_bins: str | None = None
+    wave_round: str | None = None
+    max_waves: int = MAX_WAVES
+    weight: str | None = None
+    group: str | None = None
+    covariate: tuple[str, ...] = ()
+    missing_codes: str | None = None
+    duplicates: str = "error"
+    drop_bad_rows: bool = False
+    format: str | None = None
+    delimiter: str | None = None
+    min_cell: int = 5
+    ordinal: bool | None = None
+    rules: str | None = None             # a TOML file of thresholds
+    audit_only: bool = False
+    trajectory_sample: int = 0
+    trajectory_seed: int = 1
+    triplet_table: bool = False          # keep every triplet's values for a file of their own
+
+    @classmethod
+    def option_names(cls) -> tuple[str, ...]:
+        return tuple(f.name for f in fields(cls))
+
+    @classmethod
+    def default(cls, name: str):
+        return next(f.default for f in fields(cls) if f.name == name)
+
+    def layout(self) -> LayoutSpec:
+        ids = tuple(self.id)
+        return LayoutSpec(
+            id=ids[0] if len(ids) == 1 else (ids or None), wave=self.wave,
+            values=tuple(self.value), wide=wide_measures(self.wide),
+            items=item_scales(self.items),
+            wave_labels=list_option(self.wave_labels, "--wave-labels"),
+            wave_times=list_option(self.wave_times, "--wave-times", numeric=True),
+            wave_order=self.wave_order, date_format=self.date_format,
+            wave_grouping=WaveGrouping.parse(self.wave_bins, self.wave_round),
+            max_waves=self.max_waves, weight=self.weight, group=self.group,
+            covariates=tuple(self.covariate),
+            missing_codes=MissingCodes.parse(self.missing_codes), duplicates=self.duplicates,
+            bad_values="drop" if self.drop_bad_rows else "error")
+
+    @property
+    def scale(self) -> str:
+        return "auto" if self.ordinal is None else ("ordinal" if self.ordinal else "continuous")
+
+
+def wide_measures(items) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    measures = []
+    for item in items:
+        name, _, columns = item.rpartition("=")
+        cols = tuple(c.strip() for c in columns.split(",") if c.strip())
+        if len(cols) < 2:
+            raise InputProblem(f"--wide '{item}' needs at least two columns, comma-separated")
+        measures.append((name.strip() or "value", cols))
+    return tuple(measures)
+
+
+def item_scales(items) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    scales = []
+    for item in items:
+        name, sep, columns = item.partition("=")
+        cols = tuple(c.strip() for c in columns.split(",") if c.strip())
+        if not sep or not name.strip() or len(cols) < 2:
+            raise InputProblem(f"--items '{item}' needs NAME=COL1,COL2,... with at least two "
+                               "item columns")
+        scales.append((name.strip(), cols))
+    return tuple(scales)
+
+
+def list_option(text: str | None, name: str, numeric: bool = False):
+    if text is None:
+        return None
+    items = [t.strip() for t in text.split(",") if t.strip()]
+    if not numeric:
+        return tuple(items)
+    try:
+        return tuple(float(t) for t in items)
+    except ValueError:
+        raise InputProblem(f"{name} must be comma-separated numbers, got '{text}'") from None
+
+
+def options_record(spec: LayoutSpec, request: ScreenRequest) -> dict:
+    """The options that shaped the result, for the reproducibility record."""
+    record = {
+        "layout": spec.layout,
+        "id": spec.id if isinstance(spec.id, str) or spec.id is None else list(spec.id),
+        "wave": spec.wave, "values": list(spec.values),
+        "wide": {name: list(cols) for name, cols in spec.wide},
+        "items": {name: list(cols) for name, cols in spec.items},
+        "wave_labels": list(spec.wave_labels) if spec.wave_labels else None,
+        "wave_times": list(spec.wave_times) if spec.wave_times else None,
+        "wave_order": spec.wave_order, "date_format": spec.date_format,
+        **spec.wave_grouping.record(),
+        "max_waves": spec.max_waves if spec.max_waves != MAX_WAVES else None,
+        "weight": spec.weight, "group": spec.group,
+        "covariates": list(spec.covariates), "missing_codes": spec.missing_codes.describe(),
+        "duplicates": spec.duplicates, "drop_bad_rows": spec.bad_values == "drop",
+        "format": request.format, "delimiter": request.delimiter,
+        "min_cell": request.min_cell,
+    }
+    return {k: v for k, v in record.items() if v not in (None, [], {}, "")}
+
+
+def frame_table(frame, columns: list[str]):
+    """A DataFrame held in memory as the raw table of a screen: the named columns,
+    copied (the caller's frame is never changed), with a digest of their content."""
+    import pandas as pd
+
+    from paneldiag.io.readers import RawTable, column_not_found
+    absent = [c for c in columns if c not in frame.columns]
+    if absent:
+        raise column_not_found(absent[0], list(map(str, frame.columns)), "DataFrame")
+    part = frame.loc[:, columns].reset_index(drop=True).copy()
+    digest = hashlib.sha256(pd.util.hash_pandas_object(part, index=False).to_numpy()
+                            .tobytes()).hexdigest()
+    return RawTable(frame=part, source="DataFrame", format="dataframe", sha256=digest,
+                    first_row_number=1)
+
+
+def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lambda _: None
+               ) -> tuple[dict, object]:
+    """The report (JSON-ready dict) and the Panel of a screen of ``data`` (a path, '-'
+    for standard input, or a pandas DataFrame). Raises InputProblem for bad input."""
+    spec = request.layout()
+    if not spec.measure_names():
+        raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
+    thresholds = None
+    if request.rules:
+        from paneldiag.rules.thresholds import load_thresholds
+        thresholds = load_thresholds(request.rules)
+    if isinstance(data, str):
+        from paneldiag.io.readers import read_table
+        stage(f"reading {data}")
+        raw = read_table(data, request.format, columns=spec.columns(),
+                         delimiter=request.delimiter)
+    else:
+        raw = frame_table(data, spec.columns())
+    stage("building the panel")
+    panel, ledgers = build_panel(raw, spec)
+    stage("screening")
+    input_info = {"path": data if isinstance(data, str) else "DataFrame",
+                  "sha256": raw.sha256, "format": raw.format,
+                  "options": dict(options_record(spec, request), scale=request.scale)}
+    del raw  # the parsed columns are in the panel now: free them before the screen
+    if request.rules:
+        input_info["options"]["rules"] = request.rules
+    if request.audit_only:
+        input_info["options"]["audit_only"] = True
+    # the diagnostics are imported only once there is data to screen, so a bad input is
+    # reported without paying for their (heavy) imports
+    from paneldiag.screen import ScreenOptions, screen
+    options = ScreenOptions(min_cell=request.min_cell, scale=request.scale,
+                            group_column=request.group, rules=thresholds,
+                            audit_only=request.audit_only,
+                            triplet_table=request.triplet_table)
+    return screen(panel, ledgers, input_info, options), panel
