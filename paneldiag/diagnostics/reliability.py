@@ -21,7 +21,7 @@ from scipy import optimize
 
 from paneldiag import distributions as dist
 from paneldiag.results import Result
-from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
+from paneldiag.summaries.jackknife import jackknife_ci_bounded, jackknife_se
 
 BASIS_PAIRWISE = "pairwise_complete"
 BASIS_EM = "em_missing_at_random"
@@ -153,6 +153,8 @@ class ReliabilitySummary(Result):
     n_triplets: int
     n_impossible: int
     n_undefined: int = 0
+    interval_scale: str = "logit"   # "logit" (inside 0-1), or "linear" when the median
+    #                                 or a replicate is on or beyond a bound
 
 
 @dataclass(frozen=True)
@@ -187,13 +189,17 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
     (each replicate group left out in turn), e.g. ``PairwiseMoments``. The summary is
     the median of the Heise reliabilities over all triplets, impossible values
     included as they are, with a delete-a-group jackknife confidence interval over the
-    replicate groups (t quantile with K - 1 degrees of freedom). Returns None with
+    replicate groups (t quantile with K - 1 degrees of freedom), formed on the logit
+    scale so that it stays inside 0-1 (on the linear scale, unclipped, when the median
+    or a replicate is outside 0-1: an impossible value is shown as such). Returns None with
     fewer than three waves.
 
     References
     ----------
     Heise, D. R. (1969). Separating reliability and stability in test-retest
     correlation. American Sociological Review, 34(1), 93-101.
+    Efron, B., and Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapman
+    & Hall (the interval formed on the logit scale, so it stays inside 0-1).
     Wiley, D. E., and Wiley, J. A. (1970). The estimation of measurement error in
     panel data. American Sociological Review, 35(1), 112-117.
     Kott, P. S. (2001). The delete-a-group jackknife. Journal of Official
@@ -237,16 +243,19 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
     estimate = _median(h["reliability"])
     n_undefined = int(np.isnan(h["reliability"]).sum())
     reps = np.array(rep_median)
-    low, high = jackknife_ci(estimate, reps, level) if k > 1 else (np.nan, np.nan)
+    # a reliability lies in [0, 1]: the interval is formed on the logit scale
+    low, high, scale = jackknife_ci_bounded(estimate, reps, level)
     n_bad = sum(r.impossible for r in heise_rows)
     undefined = (f", {n_undefined} undefined triplet(s) left out" if n_undefined else "")
     method = (f"median of the Heise reliabilities over {len(trip)} triplet(s) of waves "
               f"({basis.replace('_', ' ')} correlations{undefined}); {int(100 * level)}% "
-              f"interval from the delete-a-group jackknife over {k} replicate groups")
+              f"interval from the delete-a-group jackknife over {k} replicate groups, on "
+              f"the {scale} scale")
     summary = ReliabilitySummary(
         estimate=estimate, ci_low=float(low), ci_high=float(high),
         se=float(jackknife_se(estimate, reps)), method=method,
-        n_triplets=len(trip), n_impossible=int(n_bad), n_undefined=n_undefined)
+        n_triplets=len(trip), n_impossible=int(n_bad), n_undefined=n_undefined,
+        interval_scale=scale)
     return ReliabilityScreen(basis=basis, n_replicates=k, heise=tuple(heise_rows),
                              wiley_wiley=tuple(wiley_rows), summary=summary)
 
