@@ -26,7 +26,7 @@ N_UNITS, N_WAVES = 250, 5
 STOPWORDS = {"the", "a", "an", "of", "and", "in", "at", "to", "from", "with", "by", "on",
              "was", "were", "is", "are", "averaged", "had", "gave", "value", "be"}
 # tests and their p-values are named by the sentence they sit in, not by a label
-TEST_WORDS = {"p", "df", "chi-square", "chi2", "q", "f", "z", "statistic"}
+TEST_WORDS = {"p", "df", "chi-square", "chi2", "q", "f", "z", "statistic", "test"}
 NUMBER = r"[-−]?\d+\.\d+"
 VALUE = re.compile(rf"(?P<value>{NUMBER})(?P<pct>%?)(?:\s*\[(?:95% ci )?(?P<lo>{NUMBER}),"
                    rf" (?P<hi>{NUMBER})\])?")
@@ -98,15 +98,23 @@ def _pairs_in(segment: str, prefix: str = "") -> list[tuple[str, str]]:
 
 
 def _segments(text: str) -> list[str]:
-    parts = re.split(r" · |; |\. (?=[A-Z])|\s{2,}|\|", text)
+    parts = re.split(r" · |; |\. (?=[A-Z])|\s{2,}", text)
     return [p for p in parts if p.strip()]
 
 
 def terminal_pairs(text: str) -> list[tuple[str, str]]:
     pairs = []
     rows = text.splitlines()
-    header = None
+    header, groups = None, False
     for line in rows:
+        if line.startswith("▸ "):
+            groups = line.startswith("▸ By ")
+        if groups:   # a range over groups: 'label by group: lowest to highest'
+            m = re.match(rf"  (.+ by group): ({NUMBER})%? to ({NUMBER})", line)
+            if m:
+                pairs += [(f"groups | {_normal(m.group(1))} [min]", m.group(2)),
+                          (f"groups | {_normal(m.group(1))} [max]", m.group(3))]
+            continue
         cells = [c for c in re.split(r"\s{2,}", line.strip()) if c]
         if cells and cells[0] == "family":
             header = cells
@@ -127,8 +135,16 @@ def terminal_pairs(text: str) -> list[tuple[str, str]]:
 
 def markdown_pairs(text: str) -> list[tuple[str, str]]:
     pairs = []
-    header = None
+    header, groups = None, None
     for line in text.splitlines():
+        if re.match(r"#{2,3} ", line):
+            groups = "groups | " if line == "### Groups" else None
+        elif groups and line.startswith("#### Group: "):
+            groups = f"groups | {line[12:]} | "
+        if groups and not line.startswith("|"):   # figures of one group, or ranges over them
+            for seg in _segments(line):
+                pairs += _pairs_in(seg, groups)
+            continue
         if line.startswith("|"):
             cells = [c.strip() for c in line.strip().strip("|").split("|")]
             if header is None:
@@ -145,7 +161,7 @@ def markdown_pairs(text: str) -> list[tuple[str, str]]:
         # family's (the BIC weight, the fit of its specification)
         item = re.match(r"- ([a-z +-]+) \((?:supported|plausible)\): ", line)
         for seg in _segments(line[item.end():] if item else line):
-            pairs += _pairs_in(seg, f"{item.group(1)} — " if item else "")
+            pairs += _pairs_in(seg, f"{item.group(1)} | " if item else "")
     return pairs
 
 
@@ -161,11 +177,15 @@ def json_pairs(report: dict) -> list[tuple[str, str]]:
                 if node.get(field) is not None:
                     pairs.append((_normal(labels[key]) + part, f"{node[field]:.3f}"))
     for comp in (report.get("groups") or {}).get("comparison") or []:
-        for v in comp["by_group"]:
-            if v.get("estimate") is not None:
-                scale = 100 if comp["figure"] == "retention" else 1
-                pairs.append((_normal(f"{comp['label']} | {v['group']}"),
-                              f"{scale * v['estimate']:.3f}"))
+        scale = 100 if comp["figure"] == "retention" else 1
+        values = [v for v in comp["by_group"] if v.get("estimate") is not None]
+        for v in values:
+            pairs.append((f"{_normal(comp['label'])} | {v['group']}",
+                          f"{scale * v['estimate']:.3f}"))
+        if values:
+            name = f"groups | {_normal(comp['label'] + ' by group')}"
+            pairs += [(f"{name} [min]", f"{scale * min(v['estimate'] for v in values):.3f}"),
+                      (f"{name} [max]", f"{scale * max(v['estimate'] for v in values):.3f}")]
     return pairs
 
 
@@ -209,8 +229,14 @@ def conflicts(pairs: list[tuple[str, str, str]]) -> list[str]:
 
 
 def _measure_blocks(summary, details, appendix, report):
+    if "measures" not in report:   # one measure: the outputs are its block
+        name = report["measure"]
+        summary, details = (f"▸ ═══ {name}\n" + t for t in (summary, details))
+        appendix = appendix.replace(f"## Measure: {name}", f"## Measure: {name}")
+        report = {"measures": {name: report}}
     """Per measure: (name, [(label, value, output)])."""
     def split_terminal(text):
+        text = text.split("▸ Cross-lagged correlations")[0].split("▸ Cautions")[0]
         blocks = re.split(r"^▸ ═══ (\S+)$", text, flags=re.M)
         return dict(zip(blocks[1::2], blocks[2::2]))
 
@@ -243,6 +269,34 @@ def test_no_label_carries_two_values(outputs):
     for name, pairs in _measure_blocks(summary, details, appendix, report):
         problems += [f"{name}: {c}" for c in conflicts(pairs)]
     assert not problems, "\n".join(problems[:40])
+
+
+@pytest.fixture(scope="module")
+def grouped(tmp_path_factory):
+    """One measure (trait + carry-over, simulated with known truth) in two groups."""
+    tmp = tmp_path_factory.mktemp("grouped")
+    y = family_values("trait_autoregressive", 400, N_WAVES, 0.8, "mcar",
+                      np.random.default_rng(11))
+    unit, wave = np.meshgrid(np.arange(400), np.arange(N_WAVES), indexing="ij")
+    frame = pd.DataFrame({"unit": unit.ravel(), "wave": wave.ravel(), "score": y.ravel(),
+                          "site": np.where(unit.ravel() % 2, "north", "south")})
+    path = tmp / "panel.csv"
+    frame.to_csv(path, index=False)
+    done = run_cli("screen", path, "--id", "unit", "--wave", "wave", "--value", "score",
+                   "--group", "site", "--json", tmp / "report.json", "--details")
+    assert done.returncode == 0, done.stderr.decode()
+    report = json.loads((tmp / "report.json").read_text())
+    return (render_terminal(report, details=False), done.stdout.decode(),
+            to_markdown(build(report, {})[0]), report)
+
+
+def test_group_figures_keep_their_names(grouped):
+    summary, details, appendix, report = grouped
+    (name, pairs), = _measure_blocks(summary, details, appendix, report)
+    assert any(label.startswith("groups |") and where == "terminal"
+               for label, _, where in pairs)
+    assert any(label.startswith("groups |") and where == "JSON" for label, _, where in pairs)
+    assert not conflicts(pairs), "\n".join(conflicts(pairs)[:20])
 
 
 def test_the_checker_sees_a_planted_conflict():

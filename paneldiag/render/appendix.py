@@ -18,6 +18,7 @@ from importlib import metadata
 
 
 from paneldiag.errors import InputProblem
+from paneldiag.labels import family_name
 from paneldiag.render import figures as figs
 from paneldiag.render import prose
 from paneldiag.render.document import (Code, FigureRef, Heading, ListBlock, Note, Paragraph,
@@ -141,7 +142,7 @@ def families_table(report: dict) -> Table | None:
         return None
     lists = [list(map(str, f.get("caveats") or [])) for f in fams]
     common = [c for c in lists[0] if all(c in other for other in lists[1:])]
-    body = tuple((str(f.get("family", "")).replace("_", " "),
+    body = tuple((family_name(f.get("family", "")),
                   str(f.get("verdict", "")).replace("_", " "),
                   "–" if f.get("bic_difference") is None else _v(f["bic_difference"], 1),
                   "–" if f.get("bic_weight") is None else _v(f["bic_weight"]),
@@ -167,7 +168,7 @@ def specifications_table(report: dict) -> Table | None:
     body = []
     for family, entry in section.items():
         for row in entry.get("specifications") or []:
-            name = str(family).replace("_", " ")
+            name = family_name(family)
             if row.get("skipped"):
                 body.append((name, row["specification"], "–", "–", f"skipped: {row['skipped']}"))
                 continue
@@ -191,8 +192,7 @@ def power_table(report: dict) -> Table | None:
     rows = [r for r in report.get("power") or [] if isinstance(r, dict)]
     if not rows:
         return None
-    body = tuple((f"{str(r['simpler']).replace('_', ' ')} vs "
-                  f"{str(r['richer']).replace('_', ' ')}", str(r["df"]),
+    body = tuple((f"{family_name(r['simpler'])} vs {family_name(r['richer'])}", str(r["df"]),
                   _v(r["power"]),
                   "–" if r.get("units_for_power_90") is None
                   else f"{r['units_for_power_90']:,}",
@@ -216,7 +216,7 @@ def family_evidence(report: dict) -> ListBlock | None:
         if isinstance(fam, dict) and fam.get("verdict") in ("supported", "plausible"):
             evidence = " ".join(map(str, fam.get("evidence") or []))
             if evidence:
-                items.append(f"{str(fam['family']).replace('_', ' ')} ({fam['verdict']}): "
+                items.append(f"{family_name(fam['family'])} ({fam['verdict']}): "
                              f"{evidence}")
     return ListBlock(tuple(items)) if items else None
 
@@ -237,7 +237,7 @@ def group_table(report: dict) -> Table | None:
         rows.append((comp["label"] + (" (%)" if comp["figure"] == "retention" else ""),
                      *cells, stat, _p(test["pvalue"])))
     notes = [section["note"], "'–': not identified or not reported for that group.",
-             "Tests: lag-1 autocorrelation, Cochran's Q on Fisher z with delete-a-group "
+             "Tests: mean r one wave apart, Cochran's Q on Fisher z with delete-a-group "
              "jackknife SEs; retention, Pearson chi-square of the groups x retained table; "
              "other figures, Cochran's Q with the SEs the diagnostics report. Cells show the "
              "estimate and its 95% CI."]
