@@ -29,6 +29,8 @@ def pytest_collection_modifyitems(config, items):
 
 def run_cli(*args, stdin: bytes | None = None, cwd=None):
     """Run the installed console entry point in a subprocess, as a user would."""
-    env = dict(os.environ, NO_COLOR="1")
+    # this checkout's package, also when the run's folder is elsewhere
+    path = os.pathsep.join(p for p in (str(ROOT), os.environ.get("PYTHONPATH")) if p)
+    env = dict(os.environ, NO_COLOR="1", PYTHONPATH=path)
     return subprocess.run([sys.executable, "-m", "paneldiag", *map(str, args)], input=stdin,
                           capture_output=True, cwd=cwd, env=env)

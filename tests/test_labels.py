@@ -21,7 +21,7 @@ from paneldiag.render.terminal import render_terminal
 from paneldiag.simulate import FAMILIES, family_values
 from conftest import run_cli
 
-N_UNITS, N_WAVES = 250, 5
+N_UNITS, N_WAVES = 200, 4
 # words that do not name a figure (a label's content is the rest)
 STOPWORDS = {"the", "a", "an", "of", "and", "in", "at", "to", "from", "with", "by", "on",
              "was", "were", "is", "are", "averaged", "had", "gave", "value", "be"}
@@ -275,9 +275,9 @@ def test_no_label_carries_two_values(outputs):
 def grouped(tmp_path_factory):
     """One measure (trait + carry-over, simulated with known truth) in two groups."""
     tmp = tmp_path_factory.mktemp("grouped")
-    y = family_values("trait_autoregressive", 400, N_WAVES, 0.8, "mcar",
+    y = family_values("trait_autoregressive", 300, N_WAVES, 0.8, "mcar",
                       np.random.default_rng(11))
-    unit, wave = np.meshgrid(np.arange(400), np.arange(N_WAVES), indexing="ij")
+    unit, wave = np.meshgrid(np.arange(300), np.arange(N_WAVES), indexing="ij")
     frame = pd.DataFrame({"unit": unit.ravel(), "wave": wave.ravel(), "score": y.ravel(),
                           "site": np.where(unit.ravel() % 2, "north", "south")})
     path = tmp / "panel.csv"

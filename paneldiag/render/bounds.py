@@ -18,8 +18,8 @@ from __future__ import annotations
 
 # why a value beyond its range is impossible, by kind of figure
 REASONS = {
-    "heise": {"high": "above 1: the simplex assumption fails (correlations fall faster "
-                      "with distance than a lag-1 process with error allows)",
+    "heise": {"high": "above 1: the simplex assumption fails, as the correlations fall "
+                      "faster with distance than a lag-1 process with error allows",
               "low": "below 0: a negative correlation in the triplets"},
     "share": {"high": "above 1: a variance share cannot exceed the whole",
               "low": "below 0: a negative variance estimate"},
@@ -66,7 +66,7 @@ def text(est, lo=None, hi=None, kind: str = "share", low: float = 0.0, high: flo
     value = f"{est:.{digits}f}"
     if state == "impossible":
         side = "high" if est > high else "low"
-        return f"{value}, impossible: {REASONS.get(kind, REASONS['share'])[side]}"
+        return f"{value}, impossible ({REASONS.get(kind, REASONS['share'])[side]})"
     if state == "uninformative":
         return f"{value}, not estimable here (interval {low:g} to {high:g})"
     if state == "degenerate":

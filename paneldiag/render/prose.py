@@ -171,7 +171,8 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
         text += (f" Scores pile up at the ends of the scale: up to {pct(floor['floor_share'])} "
                  f"at the lowest value (wave {floor['wave']}) and up to "
                  f"{pct(ceiling['ceiling_share'])} at the highest (wave {ceiling['wave']}).")
-    return [text]
+    caveats = (report.get("distribution") or {}).get("caveats") or []
+    return [text] + ([" ".join(caveats)] if caveats else [])
 
 
 def attrition(report: dict, cite: Citations) -> list[str]:
