@@ -19,6 +19,7 @@ from importlib import metadata
 
 from paneldiag.errors import InputProblem
 from paneldiag.labels import family_name
+from paneldiag.render import bounds
 from paneldiag.render import figures as figs
 from paneldiag.render import prose
 from paneldiag.render.document import (Code, FigureRef, Heading, ListBlock, Note, Paragraph,
@@ -229,8 +230,13 @@ def group_table(report: dict) -> Table | None:
     rows = []
     for comp in section["comparison"]:
         by = {v["group"]: v for v in comp["by_group"]}
-        scale, digits = (100.0, 1) if comp["figure"] == "retention" else (1.0, 2)
-        cells = [_ci(by[g], digits=digits, scale=scale) if g in by else "–" for g in names]
+        if comp["figure"] == "retention":
+            cells = [_ci(by[g], digits=1, scale=100.0) if g in by else "–" for g in names]
+        else:   # shares and correlations, flagged at their bounds
+            low = -1.0 if comp["figure"] == "lag1_correlation" else 0.0
+            cells = [(bounds.text(by[g].get("estimate"), by[g].get("ci_low"),
+                                  by[g].get("ci_high"), low=low) or "–") if g in by else "–"
+                     for g in names]
         test = comp["test"]
         stat = "–" if test["statistic"] is None else \
             f"{test['statistic']:.2f} ({test['df']})"

@@ -318,11 +318,15 @@ def reliability(report: dict, cite: Citations) -> list[str]:
     method = str(summary.get("method") or "")
     refs = [k for k, word in (("heise1969", "heise"), ("wiley1970", "wiley"))
             if word in method.lower()] or ["heise1969", "wiley1970"]
+    from paneldiag.render.text_summary import heise_unreadable
     value = bounds.prose(summary["estimate"], summary.get("ci_low"), summary.get("ci_high"),
                          "heise")
+    why = heise_unreadable(report, summary)
+    caution = (f" It is not read as a reliability here ({why}): Heise's formula assumes a "
+               "lag-1 simplex with error." if why and "impossible value" not in value else "")
     return [f"The Heise test-retest reliability of {report.get('measure')} (the median over "
             f"triplets of waves, from the pattern of their correlations {cite(*refs)}) was "
-            f"{value}."]
+            f"{value}.{caution}"]
 
 
 def growth(report: dict, cite: Citations) -> list[str]:
@@ -482,11 +486,15 @@ def group_summary(label: str, section: dict, cite: Citations) -> list[str]:
         value = next((v for v in comp["by_group"] if v["group"] == label), None)
         if not value or not ok(value.get("estimate")):
             continue
-        fmt = pct if comp["figure"] == "retention" else dec
-        ci = (f" ({fmt(value['ci_low'])} to {fmt(value['ci_high'])})"
-              if ok(value.get("ci_low"), value.get("ci_high")) else "")
-        parts.append(f"{GROUP_FIGURE_WORDS.get(comp['figure'], comp['label'])} "
-                     f"{fmt(value['estimate'])}{ci}")
+        if comp["figure"] == "retention":
+            ci = (f" ({pct(value['ci_low'])} to {pct(value['ci_high'])})"
+                  if ok(value.get("ci_low"), value.get("ci_high")) else "")
+            shown = f"{pct(value['estimate'])}{ci}"
+        else:   # the other figures are shares or correlations: flagged at their bounds
+            low = -1.0 if comp["figure"] == "lag1_correlation" else 0.0
+            shown = bounds.prose(value["estimate"], value.get("ci_low"), value.get("ci_high"),
+                                 low=low)
+        parts.append(f"{GROUP_FIGURE_WORDS.get(comp['figure'], comp['label'])} {shown}")
     text = f"The group {label} has {count(report['n_units'])} units"
     text += ("; " + "; ".join(parts) + "." if parts else ".")
     fams = [f for f in report.get("families") or [] if isinstance(f, dict)]

@@ -133,18 +133,26 @@ GROWTH_FAMILIES = ("linear_growth", "quadratic_growth", "free_shape_growth",
                    "growth_autoregressive")
 
 
-def heise_figure(report: dict, rel: dict) -> str:
-    """The Heise median under its own name, flagged when it is impossible, or why it is
-    not read as a reliability: Heise's formula assumes a lag-1 simplex, which growth and
-    impossible triplets break."""
+def heise_unreadable(report: dict, rel: dict) -> str | None:
+    """Why the Heise median is not read as a reliability (its formula assumes a lag-1
+    simplex, which growth and impossible triplets break), or None."""
     leading = next((f["family"] for f in report.get("families") or []
                     if f.get("verdict") in ("supported", "plausible")), None)
+    if leading in GROWTH_FAMILIES:
+        return "a growth family leads"
+    if rel.get("n_triplets") and 2 * (rel.get("n_impossible") or 0) > rel["n_triplets"]:
+        return "most triplets impossible"
+    return None
+
+
+def heise_figure(report: dict, rel: dict) -> str:
+    """The Heise median under its own name, flagged when it is impossible, or why it is
+    not read as a reliability."""
     if bounds.status(rel["estimate"], None, None) == "impossible":
         return ("Heise test-retest reliability (median of triplets) "
                 + bounds.text(rel["estimate"], kind="heise"))
-    if leading in GROWTH_FAMILIES:
-        return "Heise test-retest figure not interpretable (a growth family leads)"
-    if rel.get("n_triplets") and 2 * (rel.get("n_impossible") or 0) > rel["n_triplets"]:
-        return "Heise test-retest figure not interpretable (most triplets impossible)"
+    why = heise_unreadable(report, rel)
+    if why:
+        return f"Heise test-retest figure not interpretable ({why})"
     return ("Heise test-retest reliability (median of triplets) "
             + bounds.text(rel["estimate"], rel.get("ci_low"), rel.get("ci_high"), "heise"))
