@@ -113,6 +113,23 @@ def grubbs_critical(n: np.ndarray, alpha: float) -> np.ndarray:
     return out
 
 
+CAVEATS = {
+    "skew": "Strong skew at wave(s) {waves} (skewness up to {top.skewness:.2f}; above {skew:g} "
+            "in size): Pearson correlations and the normal-theory structure fits understate "
+            "the dependence between skewed waves and the kurtosis scaling of the tests does "
+            "not correct it, so shares and reliabilities may read low; a transformation of "
+            "the scores, or the ordinal screen (--ordinal), is worth comparing.",
+    "tails": "Heavy tails at wave(s) {waves} (excess kurtosis up to "
+             "{top.excess_kurtosis:.1f}; above {kurtosis:g}): the tests and BIC are scaled "
+             "for kurtosis, but the estimates and their normal-theory intervals rest on a "
+             "few extreme scores.",
+    "outlier": "An outlying unit at wave(s) {waves} (a score {top.largest_z:.1f} SDs from the "
+               "wave mean at {top.wave}; Grubbs' test at {alpha:g}): one unit moves that "
+               "wave's variance and correlations and so the verdicts; check the value and "
+               "rerun without the unit to see whether the verdicts hold.",
+}
+
+
 def _waves_text(waves) -> str:
     return ", ".join(waves) if len(waves) <= 4 else f"{', '.join(waves[:3])} and {len(waves) - 3} more"
 
@@ -150,30 +167,16 @@ def distribution_check(moments: WaveMoments, wave_labels: tuple[str, ...],
     skewed = tuple(r.wave for r in rows if abs(r.skewness) > max_abs_skew)
     heavy = tuple(r.wave for r in rows if r.excess_kurtosis > max_excess_kurtosis)
     outlying = tuple(r.wave for r in rows if r.largest_z > r.grubbs_critical)
+    found = {"skew": skewed, "tails": heavy, "outlier": outlying}
+    sizes = {"skew": lambda r: abs(r.skewness), "tails": lambda r: r.excess_kurtosis,
+             "outlier": lambda r: r.largest_z}
     caveats = []
-    if skewed:
-        top = max((r for r in rows if r.wave in skewed), key=lambda r: abs(r.skewness))
-        caveats.append(
-            f"Strong skew at wave(s) {_waves_text(skewed)} (skewness up to "
-            f"{top.skewness:.2f}; above {max_abs_skew:g} in size): Pearson correlations and "
-            "the normal-theory structure fits understate the dependence between skewed "
-            "waves and the kurtosis scaling of the tests does not correct it, so shares "
-            "and reliabilities may read low; a transformation of the scores, or the "
-            "ordinal screen (--ordinal), is worth comparing.")
-    if heavy:
-        top = max((r for r in rows if r.wave in heavy), key=lambda r: r.excess_kurtosis)
-        caveats.append(
-            f"Heavy tails at wave(s) {_waves_text(heavy)} (excess kurtosis up to "
-            f"{top.excess_kurtosis:.1f}; above {max_excess_kurtosis:g}): the tests and BIC "
-            "are scaled for kurtosis, but the estimates and their normal-theory intervals "
-            "rest on a few extreme scores.")
-    if outlying:
-        top = max((r for r in rows if r.wave in outlying), key=lambda r: r.largest_z)
-        caveats.append(
-            f"An outlying unit at wave(s) {_waves_text(outlying)} (a score {top.largest_z:.1f} "
-            f"SDs from the wave mean at {top.wave}; Grubbs' test at {outlier_alpha:g}): one "
-            "unit moves that wave's variance and correlations and so the verdicts; check "
-            "the value and rerun without the unit to see whether the verdicts hold.")
+    for kind, waves in found.items():   # a loop over the three kinds of departure
+        if waves:
+            top = max((r for r in rows if r.wave in waves), key=sizes[kind])
+            caveats.append(CAVEATS[kind].format(
+                waves=_waves_text(waves), top=top, skew=max_abs_skew,
+                kurtosis=max_excess_kurtosis, alpha=outlier_alpha))
     return DistributionCheck(rows, skewed, heavy, outlying,
                              {"max_abs_skew": max_abs_skew,
                               "max_excess_kurtosis": max_excess_kurtosis,

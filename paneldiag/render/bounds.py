@@ -57,47 +57,44 @@ def status(est, lo, hi, low: float = 0.0, high: float = 1.0, digits: int = 2) ->
     return "ok"
 
 
-def text(est, lo=None, hi=None, kind: str = "share", low: float = 0.0, high: float = 1.0,
-         digits: int = 2) -> str | None:
-    """The terminal form: '0.47 [0.42, 0.51]', or the value with its flag."""
+# the words of each state: (terminal form, appendix form); {v} the value, {r} the reason,
+# {lo} {hi} the interval ends, {low} {high} the range
+WORDS = {
+    "impossible": ("{v}, impossible ({r})", "{v}, an impossible value ({r})"),
+    "uninformative": ("{v}, not estimable here (interval {low} to {high})",
+                      "{v}, which is not estimable here (its confidence interval spans "
+                      "{low} to {high})"),
+    "degenerate": ("{v}, at the boundary (an interval of zero width)",
+                   "{v}, at the boundary of its range (no uncertainty could be measured)"),
+    "at_bound": ("{v} at the boundary{ci}", "{v} at the boundary of its range{ci}"),
+    "truncated": ("{v}{ci} (interval cut at the bound)", "{v}{ci}"),
+    "ok": ("{v}{ci}", "{v}{ci}"),
+}
+INTERVALS = (" [{lo}, {hi}]", " (confidence interval {lo} to {hi}{cut})")
+
+
+def _write(form: int, est, lo, hi, kind, low, high, digits) -> str | None:
     state = status(est, lo, hi, low, high, digits)
     if state == "missing":
         return None
-    value = f"{est:.{digits}f}"
-    if state == "impossible":
-        side = "high" if est > high else "low"
-        return f"{value}, impossible ({REASONS.get(kind, REASONS['share'])[side]})"
-    if state == "uninformative":
-        return f"{value}, not estimable here (interval {low:g} to {high:g})"
-    if state == "degenerate":
-        return f"{value}, at the boundary (an interval of zero width)"
-    interval = f" [{lo:.{digits}f}, {hi:.{digits}f}]" if _num(lo) is not None and \
-        _num(hi) is not None else ""
-    if state == "at_bound":
-        return f"{value} at the boundary{interval}"
-    if state == "truncated":
-        return f"{value}{interval} (interval cut at the bound)"
-    return value + interval
+    side = "high" if est > high else "low"
+    ci = ""
+    if _num(lo) is not None and _num(hi) is not None:
+        ci = INTERVALS[form].format(lo=f"{lo:.{digits}f}", hi=f"{hi:.{digits}f}",
+                                    cut=", cut at the bound" if state == "truncated" else "")
+    return WORDS[state][form].format(v=f"{est:.{digits}f}", ci=ci, low=f"{low:g}",
+                                     high=f"{high:g}",
+                                     r=REASONS.get(kind, REASONS["share"])[side])
+
+
+def text(est, lo=None, hi=None, kind: str = "share", low: float = 0.0, high: float = 1.0,
+         digits: int = 2) -> str | None:
+    """The terminal form: '0.47 [0.42, 0.51]', or the value with its flag."""
+    return _write(0, est, lo, hi, kind, low, high, digits)
 
 
 def prose(est, lo=None, hi=None, kind: str = "share", low: float = 0.0, high: float = 1.0,
           digits: int = 2) -> str | None:
     """The appendix form: '0.47 (confidence interval 0.42 to 0.51)', or the value with
     its flag in words."""
-    state = status(est, lo, hi, low, high, digits)
-    if state == "missing":
-        return None
-    value = f"{est:.{digits}f}"
-    if state == "impossible":
-        side = "high" if est > high else "low"
-        return (f"{value}, an impossible value "
-                f"({REASONS.get(kind, REASONS['share'])[side]})")
-    if state == "uninformative":
-        return (f"{value}, which is not estimable here (its confidence interval spans "
-                f"{low:g} to {high:g})")
-    if state == "degenerate":
-        return f"{value}, at the boundary of its range (no uncertainty could be measured)"
-    ci = (f" (confidence interval {lo:.{digits}f} to {hi:.{digits}f}"
-          + (", cut at the bound" if state == "truncated" else "") + ")"
-          if _num(lo) is not None and _num(hi) is not None else "")
-    return value + (" at the boundary of its range" if state == "at_bound" else "") + ci
+    return _write(1, est, lo, hi, kind, low, high, digits)
