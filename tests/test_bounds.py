@@ -159,3 +159,17 @@ def test_the_demo_share_at_its_boundary_reads_as_not_estimable(tmp_path):
     text = "\n".join(verdicts_block(report, False))
     assert "stable share (trait + carry-over fit) 0.00, not estimable here" in text
     assert "0.00 [0.00, 1.00]" not in text
+
+
+def test_evidence_sentences_do_not_cite_an_uninformative_interval_as_a_figure():
+    """The verdicts' cited estimates (values of our own making): a share clipped to
+    [0, 1] and a zero-width interval read as such; the stored statistic is unchanged."""
+    from paneldiag.rules.thresholds import default_thresholds
+    from paneldiag.rules.verdicts import Citations
+    led = Citations(default_thresholds())
+    assert led.estimate("stable_share", 0.0, 0.0, 1.0) == \
+        "0.000, not estimable here (95% CI spans 0 to 1)"
+    assert led.estimate("slope_share", 0.0, 0.0, 0.0) == \
+        "0.000, at the boundary (an interval of zero width)"
+    assert led.estimate("carry_rho", 0.71, 0.64, 0.78) == "0.710 [95% CI 0.640, 0.780]"
+    assert led.stats["stable_share"] == {"estimate": 0.0, "ci_low": 0.0, "ci_high": 1.0}

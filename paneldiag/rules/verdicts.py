@@ -180,6 +180,11 @@ class Citations:
                             "ci_high": _r(hi, digits)}
         if not (np.isfinite(lo) and np.isfinite(hi)):
             return f"{_f(est, digits)} (no interval available)"
+        low, high = _r(lo, digits), _r(hi, digits)
+        if low == high:   # every replicate on a bound: no uncertainty could be measured
+            return f"{_f(est, digits)}, at the boundary (an interval of zero width)"
+        if low == 0 and high == 1:   # a share whose interval was clipped at both ends
+            return f"{_f(est, digits)}, not estimable here (95% CI spans 0 to 1)"
         return f"{_f(est, digits)} [95% CI {_f(lo, digits)}, {_f(hi, digits)}]"
 
     def test(self, name, stat, df, p) -> str:
