@@ -97,10 +97,12 @@ def sections(audit_only: bool = False) -> list[Section]:
     if audit_only:
         return AUDIT_SECTIONS
     from paneldiag.diagnostics.dependence import SECTIONS as DEPENDENCE_SECTIONS
+    from paneldiag.diagnostics.profile import distribution_section
     from paneldiag.diagnostics.growth import growth_section
     from paneldiag.diagnostics.reliability import reliability_section
     from paneldiag.rules import RULE_SECTIONS
-    return [*AUDIT_SECTIONS, *DEPENDENCE_SECTIONS, ("reliability", reliability_section),
+    return [*AUDIT_SECTIONS, ("distribution", distribution_section), *DEPENDENCE_SECTIONS,
+            ("reliability", reliability_section),
             ("growth", growth_section),
             *RULE_SECTIONS]  # always last: the verdicts read every earlier section
 

@@ -381,7 +381,7 @@ def test_demo_energy_use_shows_growth(demo_report):
     trust = report["measures"]["trust"]["growth"]["residual_autocorrelation"]
     assert trust["excess"] > 0.05 and trust["pvalue"] < 1e-6
     assert "▸ Growth" in text and "slope reliability" in text
-    assert "Heise reliability" in text
+    assert "Heise test-retest reliability" in text
 
 
 def test_demo_energy_use_reliability(demo_report):

@@ -237,3 +237,51 @@ def test_fourth_moment_matches_scipy_kurtosis():
     ours = (m.m4 / m.n) / (m.m2 / m.n) ** 2
     ref = [sps.kurtosis(v[~np.isnan(v)], fisher=False, bias=True) for v in values.T]
     np.testing.assert_allclose(ours, ref, rtol=1e-10)
+
+
+# ------------------------------------------------------------------ distribution caveats
+
+def _shape_check(values: np.ndarray, chunk_units: int = 1 << 18):
+    from paneldiag.diagnostics.profile import distribution_check
+    panel = Panel(unit_ids=np.arange(values.shape[0]),
+                  wave_labels=tuple(str(w) for w in range(values.shape[1])),
+                  wave_times=np.arange(float(values.shape[1])), values={"y": values})
+    moments = summarise(panel, "y", [WaveMoments], chunk_units=chunk_units)[WaveMoments]
+    return distribution_check(moments, panel.wave_labels, 2.0, 7.0, 0.001)
+
+
+def test_shape_figures_match_scipy_in_chunks():
+    """Skewness and excess kurtosis against scipy.stats.skew / scipy.stats.kurtosis
+    (reference library, default biased moments); Grubbs' G and its critical value
+    against the formula with scipy.stats.t.ppf (Grubbs 1969, Technometrics 11, 1-21)."""
+    rng = np.random.default_rng(4)
+    y = np.column_stack([rng.normal(size=900), rng.lognormal(size=900),
+                         rng.standard_t(4, size=900)])
+    y[rng.random(y.shape) < 0.1] = np.nan
+    check = _shape_check(y, chunk_units=128)   # several chunks, merged
+    for t, row in enumerate(check.waves):
+        x = y[~np.isnan(y[:, t]), t]
+        n = len(x)
+        assert row.skewness == pytest.approx(scipy.stats.skew(x), rel=1e-9)
+        assert row.excess_kurtosis == pytest.approx(scipy.stats.kurtosis(x), rel=1e-9)
+        assert row.largest_z == pytest.approx(np.max(np.abs(x - x.mean())) / x.std(ddof=1))
+        tq = scipy.stats.t.ppf(1 - 0.001 / (2 * n), n - 2)
+        assert row.grubbs_critical == pytest.approx(
+            (n - 1) / np.sqrt(n) * np.sqrt(tq ** 2 / (n - 2 + tq ** 2)), rel=1e-8)
+
+
+def test_normal_scores_raise_no_caveat_and_planted_departures_do():
+    """Simulation with known truth: normal scores (skew 0, excess kurtosis 0, no
+    outlier) raise nothing; a lognormal wave (skewness about 6) is named as skewed
+    and heavy-tailed; one unit placed 8 SDs out (beyond the Grubbs critical value of about
+    4.9 for n = 2000, not enough to lift the kurtosis to 7) is named as outlying."""
+    rng = np.random.default_rng(8)
+    y = rng.normal(size=(2000, 4))
+    assert _shape_check(y).caveats == ()
+    y[:, 1] = rng.lognormal(size=2000)
+    y[17, 3] = 8.0
+    check = _shape_check(y)
+    assert check.skewed == ("1",) and check.heavy_tailed == ("1",)
+    assert "3" in check.outlying and "0" not in check.outlying and "2" not in check.outlying
+    assert check.caveats[0].startswith("Strong skew at wave(s) 1 (skewness up to")
+    assert "An outlying unit at wave(s)" in check.caveats[-1]

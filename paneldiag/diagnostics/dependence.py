@@ -26,7 +26,7 @@ from paneldiag.diagnostics.attrition import coverage_shown
 from paneldiag.diagnostics.polychoric import polychoric
 from paneldiag.results import Result, plain
 from paneldiag.summaries.contingency import PairwiseTables
-from paneldiag.summaries.jackknife import jackknife_se
+from paneldiag.summaries.jackknife import jackknife_ci_bounded, jackknife_se
 from paneldiag.summaries.pairwise import PairwiseMoments
 
 LEVEL = 0.95
@@ -749,7 +749,9 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
     and with pure decay (a = 0) by F ratios of weighted sums of squares (nested
     least squares; approximate, because neighbouring lags share units) and by AIC.
     Intervals: the delete-a-group jackknife, refitting each leave-one-group-out
-    profile (Kott 2001). The shape: flat when b or rho is near 0 or b's jackknife
+    profile (Kott 2001), formed on the logit scale of each parameter's range when the
+    estimate and every replicate lie inside it (Efron and Tibshirani 1993, An
+    Introduction to the Bootstrap, ch. 12), else clipped to the bounds. The shape: flat when b or rho is near 0 or b's jackknife
     interval reaches 0 (then b and rho are not identified); decay to zero when a is
     near 0 or its interval reaches 0; otherwise decay to a floor. The jackknife
     intervals decide rather than the F ratios: the profile has few points, so the F
@@ -809,9 +811,10 @@ def decay_fit(profile: LagProfile, level: float = LEVEL) -> DecayFit:
     q = dist.t_ppf(0.5 + level / 2, k - 1) if k > 1 else np.nan
 
     def est(value, replicate_values, low=0.0, high=1.0):
-        se = jackknife_se(value, replicate_values)
-        return Estimate(float(value), float(np.clip(value - q * se, low, high)),
-                        float(np.clip(value + q * se, low, high)))
+        # on the logit scale inside the bounds; at a bound, clipped to it
+        lo, hi, _ = jackknife_ci_bounded(value, replicate_values, level, low, high)
+        return Estimate(float(value), float(np.clip(lo, low, high)),
+                        float(np.clip(hi, low, high)))
 
     se_a, se_b = jackknife_se(a, fits[:, 0]), jackknife_se(b, fits[:, 1])
     b_above_zero = bool(b - q * se_b > 0)   # NaN compares False: not shown to be above 0

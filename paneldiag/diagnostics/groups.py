@@ -181,11 +181,11 @@ def _estimate_from(section, path: tuple[str, ...]):
 
 # Figures read from each group's own report: (figure, label, path candidates).
 REPORTED_FIGURES: tuple[tuple[str, str, tuple[tuple[str, ...], ...]], ...] = (
-    ("stable_share", "stable share a/(a+b)",
+    ("stable_share", "lag-profile stable share a/(a+b)",
      (("decay_fit", "stable_share"),)),
-    ("carry_over", "carry-over rho",
+    ("carry_over", "lag-profile carry-over rho",
      (("decay_fit", "carry_over"), ("decay_fit", "rho"))),
-    ("reliability", "reliability",
+    ("reliability", "Heise test-retest reliability (median of triplets)",
      (("reliability", "summary"),)),
 )
 
@@ -236,7 +236,7 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
         z = [np.arctanh(v.estimate) if v.estimate is not None and np.isfinite(v.estimate)
              else np.nan for v in lag1]
         comparison.append(Comparison(
-            "lag1_correlation", "lag-1 autocorrelation", "Fisher z, jackknife SE",
+            "lag1_correlation", "mean r one wave apart (pairwise)", "Fisher z, jackknife SE",
             tuple(lag1), homogeneity_test(z, [v.se for v in lag1])))
     if retention:
         ok = [(k, b) for _, k, b, d in retention if d]

@@ -17,7 +17,7 @@ import numpy as np
 
 from paneldiag import distributions as dist
 from paneldiag.results import Result
-from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
+from paneldiag.summaries.jackknife import jackknife_ci, jackknife_ci_bounded, jackknife_se
 from paneldiag.summaries.trajectories import LINEAR_MIN_WAVES, TrajectorySummary
 
 
@@ -106,6 +106,7 @@ class SlopeReliability(Result):
     n_units: int | None  # None: withheld (disclosure control)
     impossible: bool
     problem: str | None
+    interval_scale: str = "logit"   # "linear" when the estimate or a replicate is not in (0, 1)
 
 
 @dataclass(frozen=True)
@@ -168,6 +169,7 @@ class IntraclassCorrelation(Result):
     pvalue: float
     impossible: bool
     problem: str | None
+    interval_scale: str = "logit"   # "linear" when the estimate or a replicate is not in (0, 1)
 
 
 @dataclass(frozen=True)
@@ -311,7 +313,8 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
     and the reliability is the average of lambda_j = tau / (tau + v_j) over the J
     units. A negative tau (slopes vary less than sampling error alone would make
     them) is reported with the reason; the reliability is then not a proportion and
-    is not clipped.
+    is not clipped. The jackknife interval is formed on the logit scale, so it stays
+    inside 0-1 (``_bounded_ci``).
 
     Serial dependence of the residuals (carry-over) inflates the spread of OLS slopes
     beyond sigma^2 / SS_t, so a panel with carry-over and no growth can show a high
@@ -328,7 +331,7 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
     pooled, parts, pd_ = prepared or prepare(summary)
     point = _slope_reliability_point(pooled, pd_)
     reps = [_slope_reliability_point(part, pd_)["reliability"] for part in parts]
-    low, high = _ci(point["reliability"], reps, level)
+    low, high, scale = _bounded_ci(point["reliability"], reps, level)
     df = int(point["n"]) - 1
     problem, impossible = None, False
     if not np.isfinite(point["sigma2"]):
@@ -343,7 +346,8 @@ def slope_reliability(summary: TrajectorySummary, level: float = 0.95,
         mean_sampling_variance=float(point["mean_v"]), pooled_slope=float(point["pooled"]),
         chi_square=float(point["chi2"]), df=df,
         pvalue=float(dist.chi2_sf(point["chi2"], df)) if df > 0 else float("nan"),
-        n_units=int(point["n"]), impossible=impossible, problem=problem)
+        n_units=int(point["n"]), impossible=impossible, problem=problem,
+        interval_scale=scale)
 
 
 def residual_autocorrelation(summary: TrajectorySummary, level: float = 0.95,
@@ -391,7 +395,8 @@ def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95,
     average class size corrected for unequal sizes, and ICC = (MSB - MSW) /
     (MSB + (n0 - 1) MSW), tested by F = MSB / MSW on (J - 1, N - J) degrees of
     freedom. A negative estimate (MSB < MSW) is reported with the reason, not
-    clipped. Any trend over waves counts as within-unit variance here.
+    clipped. Any trend over waves counts as within-unit variance here. The jackknife
+    interval is formed on the logit scale, so it stays inside 0-1 (``_bounded_ci``).
 
     References
     ----------
@@ -403,7 +408,7 @@ def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95,
     pooled, parts, pd_ = prepared or prepare(summary)
     point = _icc_point(pooled, pd_)
     reps = [_icc_point(part, pd_)["icc"] for part in parts]
-    low, high = _ci(point["icc"], reps, level)
+    low, high, scale = _bounded_ci(point["icc"], reps, level)
     f = point["msb"] / point["msw"] if point["msw"] > 0 else float("nan")
     problem = None
     if np.isfinite(point["icc"]) and point["icc"] < 0:
@@ -415,7 +420,7 @@ def intraclass_correlation(summary: TrajectorySummary, level: float = 0.95,
         between_mean_square=float(point["msb"]), within_mean_square=float(point["msw"]),
         n0=float(point["n0"]), f=float(f), df_between=df_b, df_within=df_w,
         pvalue=float(dist.f_sf(f, df_b, df_w)) if np.isfinite(f) and df_w > 0 else float("nan"),
-        impossible=problem is not None, problem=problem)
+        impossible=problem is not None, problem=problem, interval_scale=scale)
 
 
 def orthogonal_polynomials(times: np.ndarray) -> np.ndarray:
@@ -577,6 +582,15 @@ def _ci(point, reps, level) -> tuple[float, float]:
         return float("nan"), float("nan")
     low, high = jackknife_ci(point, reps, level)
     return float(low), float(high)
+
+
+def _bounded_ci(point, reps, level) -> tuple[float, float, str]:
+    """The jackknife interval of a share (0-1) on the logit scale (see
+    ``jackknife_ci_bounded``); NaN when a replicate is undefined."""
+    reps = np.asarray(reps, dtype=float)
+    if len(reps) < 2 or not np.all(np.isfinite(reps)):
+        return float("nan"), float("nan"), "linear"
+    return jackknife_ci_bounded(point, reps, level)
 
 
 def growth_section(ctx) -> GrowthScreen:

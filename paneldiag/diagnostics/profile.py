@@ -72,3 +72,120 @@ def wave_profile(moments: WaveMoments, wave_labels: tuple[str, ...]) -> WaveProf
             weighted_sd=None if wsd is None else float(wsd[t]),
         ))
     return WaveProfile(rows=tuple(rows), floor=floor, ceiling=ceiling)
+
+
+# ------------------------------------------------------------------ distribution caveats
+
+@dataclass(frozen=True)
+class WaveShape(Result):
+    wave: str
+    n: int
+    skewness: float           # g1 = m3 / m2^(3/2)
+    excess_kurtosis: float    # g2 = m4 / m2^2 - 3
+    largest_z: float          # Grubbs' G: largest |value - mean| / SD (divisor n - 1)
+    grubbs_critical: float    # G beyond which one unit is an outlier at outlier_alpha
+
+
+@dataclass(frozen=True)
+class DistributionCheck(Result):
+    """Waves whose scores are strongly skewed, heavy-tailed or hold an outlying unit,
+    with the thresholds used and a caveat sentence for each kind found."""
+
+    waves: tuple[WaveShape, ...]
+    skewed: tuple[str, ...]
+    heavy_tailed: tuple[str, ...]
+    outlying: tuple[str, ...]
+    thresholds: dict
+    caveats: tuple[str, ...]
+
+
+def grubbs_critical(n: np.ndarray, alpha: float) -> np.ndarray:
+    """Two-sided critical value of Grubbs' statistic G = max |x - mean| / s for one
+    outlier among n normal values: (n - 1) / sqrt(n) * sqrt(t^2 / (n - 2 + t^2)), t the
+    upper alpha / (2 n) quantile of Student's t on n - 2 degrees of freedom (Grubbs
+    1969, Technometrics 11, 1-21, eq. for the two-sided test)."""
+    from paneldiag import distributions as dist
+    n = np.asarray(n, dtype=float)
+    out = np.full(n.shape, np.nan)
+    ok = n >= 3
+    t = np.asarray(dist.t_ppf(1 - alpha / (2 * n[ok]), n[ok] - 2), dtype=float)
+    out[ok] = (n[ok] - 1) / np.sqrt(n[ok]) * np.sqrt(t * t / (n[ok] - 2 + t * t))
+    return out
+
+
+CAVEATS = {
+    "skew": "Strong skew at wave(s) {waves} (skewness up to {top.skewness:.2f}; above {skew:g} "
+            "in size): Pearson correlations and the normal-theory structure fits understate "
+            "the dependence between skewed waves and the kurtosis scaling of the tests does "
+            "not correct it, so shares and reliabilities may read low; a transformation of "
+            "the scores, or the ordinal screen (--ordinal), is worth comparing.",
+    "tails": "Heavy tails at wave(s) {waves} (excess kurtosis up to "
+             "{top.excess_kurtosis:.1f}; above {kurtosis:g}): the tests and BIC are scaled "
+             "for kurtosis, but the estimates and their normal-theory intervals rest on a "
+             "few extreme scores.",
+    "outlier": "An outlying unit at wave(s) {waves} (a score {top.largest_z:.1f} SDs from the "
+               "wave mean at {top.wave}; Grubbs' test at {alpha:g}): one unit moves that "
+               "wave's variance and correlations and so the verdicts; check the value and "
+               "rerun without the unit to see whether the verdicts hold.",
+}
+
+
+def _waves_text(waves) -> str:
+    return ", ".join(waves) if len(waves) <= 4 else f"{', '.join(waves[:3])} and {len(waves) - 3} more"
+
+
+def distribution_check(moments: WaveMoments, wave_labels: tuple[str, ...],
+                       max_abs_skew: float, max_excess_kurtosis: float,
+                       outlier_alpha: float) -> DistributionCheck:
+    """Strong skew, heavy tails and an outlying unit, wave by wave, from the one-pass
+    moments (no second pass over the data).
+
+    Skewness g1 = m3 / m2^(3/2) and excess kurtosis g2 = m4 / m2^2 - 3 are the moment
+    coefficients with divisor n (Joanes and Gill 1998, J. Royal Statistical Society D,
+    47, 183-189; scipy.stats.skew and scipy.stats.kurtosis by default). A wave is
+    strongly skewed when |g1| exceeds ``max_abs_skew`` and heavy-tailed when g2
+    exceeds ``max_excess_kurtosis`` (Curran, West and Finch 1996, Psychological
+    Methods 1, 16-29: skew 2 and kurtosis 7 mark the non-normality at which
+    normal-theory tests of covariance structures start to fail). A wave holds an
+    outlying unit when Grubbs' statistic, the largest distance of a value from the
+    wave mean in SDs, exceeds its critical value at ``outlier_alpha`` for the wave's n
+    (Grubbs 1969, Technometrics 11, 1-21); a second outlier can mask the first, so the
+    check finds the clearest case, not every one.
+    """
+    n = moments.n
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var = moments.m2 / n
+        skew = np.where(moments.m2 > 0, (moments.m3 / n) / var ** 1.5, np.nan)
+        kurt = np.where(moments.m2 > 0, (moments.m4 / n) / var ** 2 - 3.0, np.nan)
+        sd = np.where(n > 1, np.sqrt(moments.m2 / (n - 1)), np.nan)
+        mean = moments.mean
+        far = np.maximum(moments.maximum - mean, mean - moments.minimum)
+        g = np.where((sd > 0) & (n > 2), far / sd, np.nan)
+    crit = grubbs_critical(n, outlier_alpha)
+    rows = tuple(WaveShape(label, int(n[t]), float(skew[t]), float(kurt[t]), float(g[t]),
+                           float(crit[t])) for t, label in enumerate(wave_labels))
+    skewed = tuple(r.wave for r in rows if abs(r.skewness) > max_abs_skew)
+    heavy = tuple(r.wave for r in rows if r.excess_kurtosis > max_excess_kurtosis)
+    outlying = tuple(r.wave for r in rows if r.largest_z > r.grubbs_critical)
+    found = {"skew": skewed, "tails": heavy, "outlier": outlying}
+    sizes = {"skew": lambda r: abs(r.skewness), "tails": lambda r: r.excess_kurtosis,
+             "outlier": lambda r: r.largest_z}
+    caveats = []
+    for kind, waves in found.items():   # a loop over the three kinds of departure
+        if waves:
+            top = max((r for r in rows if r.wave in waves), key=sizes[kind])
+            caveats.append(CAVEATS[kind].format(
+                waves=_waves_text(waves), top=top, skew=max_abs_skew,
+                kurtosis=max_excess_kurtosis, alpha=outlier_alpha))
+    return DistributionCheck(rows, skewed, heavy, outlying,
+                             {"max_abs_skew": max_abs_skew,
+                              "max_excess_kurtosis": max_excess_kurtosis,
+                              "outlier_alpha": outlier_alpha}, tuple(caveats))
+
+
+def distribution_section(ctx) -> DistributionCheck:
+    from paneldiag.rules.thresholds import default_thresholds
+    th = ctx.options.rules or default_thresholds()
+    return distribution_check(ctx.summary(WaveMoments), ctx.panel.wave_labels,
+                              th["max_abs_skew"], th["max_excess_kurtosis"],
+                              th["outlier_alpha"])

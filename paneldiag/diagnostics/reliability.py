@@ -21,7 +21,7 @@ from scipy import optimize
 
 from paneldiag import distributions as dist
 from paneldiag.results import Result
-from paneldiag.summaries.jackknife import jackknife_ci, jackknife_se
+from paneldiag.summaries.jackknife import jackknife_ci_bounded, jackknife_se
 
 BASIS_PAIRWISE = "pairwise_complete"
 BASIS_EM = "em_missing_at_random"
@@ -200,6 +200,8 @@ class ReliabilitySummary(Result):
     quartile_high: float = float("nan")
     wiley_middle_median: float = float("nan")  # Wiley-Wiley middle-wave reliability, median
     listed: str = "all triplets"           # which triplets the per-triplet rows hold
+    interval_scale: str = "logit"   # "logit" (inside 0-1), or "linear" when the median
+    #                                 or a replicate is on or beyond a bound
 
 
 @dataclass(frozen=True)
@@ -239,13 +241,17 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
     (each replicate group left out in turn), e.g. ``PairwiseMoments``. The summary is
     the median of the Heise reliabilities over all triplets, impossible values
     included as they are, with a delete-a-group jackknife confidence interval over the
-    replicate groups (t quantile with K - 1 degrees of freedom). Returns None with
+    replicate groups (t quantile with K - 1 degrees of freedom), formed on the logit
+    scale so that it stays inside 0-1 (on the linear scale, unclipped, when the median
+    or a replicate is outside 0-1: an impossible value is shown as such). Returns None with
     fewer than three waves.
 
     References
     ----------
     Heise, D. R. (1969). Separating reliability and stability in test-retest
     correlation. American Sociological Review, 34(1), 93-101.
+    Efron, B., and Tibshirani, R. J. (1993). An Introduction to the Bootstrap. Chapman
+    & Hall (the interval formed on the logit scale, so it stays inside 0-1).
     Wiley, D. E., and Wiley, J. A. (1970). The estimation of measurement error in
     panel data. American Sociological Review, 35(1), 112-117.
     Kott, P. S. (2001). The delete-a-group jackknife. Journal of Official
@@ -293,11 +299,13 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
     defined = values[~np.isnan(values)]
     quartiles = np.percentile(defined, [25, 75]) if len(defined) else (np.nan, np.nan)
     reps = np.array(rep_median)
-    low, high = jackknife_ci(estimate, reps, level) if k > 1 else (np.nan, np.nan)
+    # a reliability lies in [0, 1]: the interval is formed on the logit scale
+    low, high, scale = jackknife_ci_bounded(estimate, reps, level)
     undefined = (f", {n_undefined} undefined triplet(s) left out" if n_undefined else "")
     method = (f"median of the Heise reliabilities over {len(trip)} triplet(s) of waves "
               f"({basis.replace('_', ' ')} correlations{undefined}); {int(100 * level)}% "
-              f"interval from the delete-a-group jackknife over {k} replicate groups")
+              f"interval from the delete-a-group jackknife over {k} replicate groups, on "
+              f"the {scale} scale")
     listed = "all triplets" if len(shown) == len(trip) else \
         "adjacent triplets and evenly spaced triplets from the first wave"
     summary = ReliabilitySummary(
@@ -307,7 +315,7 @@ def quasi_simplex_reliability(moments, wave_labels: tuple[str, ...],
         n_undefined=n_undefined, quartile_low=float(quartiles[0]),
         quartile_high=float(quartiles[1]),
         wiley_middle_median=_median(wiley_wiley_values(cov, trip)["reliability"][:, 1]),
-        listed=listed)
+        listed=listed, interval_scale=scale)
     return ReliabilityScreen(basis=basis, n_replicates=k, heise=tuple(heise_rows),
                              wiley_wiley=tuple(wiley_rows), summary=summary,
                              all_triplets=triplet_table(corr, cov, wave_labels)

@@ -19,6 +19,8 @@ from importlib import metadata
 
 from paneldiag.disclosure import count_shown, share_shown
 from paneldiag.errors import InputProblem
+from paneldiag.labels import family_name
+from paneldiag.render import bounds
 from paneldiag.render import figures as figs
 from paneldiag.render import intake
 from paneldiag.render import prose
@@ -199,7 +201,7 @@ def families_table(report: dict) -> Table | None:
         return None
     lists = [list(map(str, f.get("caveats") or [])) for f in fams]
     common = [c for c in lists[0] if all(c in other for other in lists[1:])]
-    body = tuple((str(f.get("family", "")).replace("_", " "),
+    body = tuple((family_name(f.get("family", "")),
                   str(f.get("verdict", "")).replace("_", " "),
                   "–" if f.get("bic_difference") is None else _v(f["bic_difference"], 1),
                   "–" if f.get("bic_weight") is None else _v(f["bic_weight"]),
@@ -225,7 +227,7 @@ def specifications_table(report: dict) -> Table | None:
     body = []
     for family, entry in section.items():
         for row in entry.get("specifications") or []:
-            name = str(family).replace("_", " ")
+            name = family_name(family)
             if row.get("skipped"):
                 body.append((name, row["specification"], "–", "–", f"skipped: {row['skipped']}"))
                 continue
@@ -249,8 +251,7 @@ def power_table(report: dict) -> Table | None:
     rows = [r for r in report.get("power") or [] if isinstance(r, dict)]
     if not rows:
         return None
-    body = tuple((f"{str(r['simpler']).replace('_', ' ')} vs "
-                  f"{str(r['richer']).replace('_', ' ')}", str(r["df"]),
+    body = tuple((f"{family_name(r['simpler'])} vs {family_name(r['richer'])}", str(r["df"]),
                   _v(r["power"]),
                   "–" if r.get("units_for_power_90") is None
                   else f"{r['units_for_power_90']:,}",
@@ -274,7 +275,7 @@ def family_evidence(report: dict) -> ListBlock | None:
         if isinstance(fam, dict) and fam.get("verdict") in ("supported", "plausible"):
             evidence = " ".join(map(str, fam.get("evidence") or []))
             if evidence:
-                items.append(f"{str(fam['family']).replace('_', ' ')} ({fam['verdict']}): "
+                items.append(f"{family_name(fam['family'])} ({fam['verdict']}): "
                              f"{evidence}")
     return ListBlock(tuple(items)) if items else None
 
@@ -287,11 +288,15 @@ def group_table(report: dict) -> Table | None:
     rows, blank = [], Blanks(int(section.get("min_cell") or 5))
     for comp in section["comparison"]:
         by = {v["group"]: v for v in comp["by_group"]}
-        scale, digits = (100.0, 1) if comp["figure"] == "retention" else (1.0, 2)
-        cells = [_ci(by[g], digits=digits, scale=scale)
-                 if g in by and by[g].get("estimate") is not None else
-                 blank("withheld" if comp["figure"] == "retention" and g in by
-                       else "not_estimable") for g in names]
+        if comp["figure"] == "retention":
+            cells = [_ci(by[g], digits=1, scale=100.0)
+                     if g in by and by[g].get("estimate") is not None else
+                     blank("withheld" if g in by else "not_estimable") for g in names]
+        else:   # shares and correlations, flagged at their bounds
+            low = -1.0 if comp["figure"] == "lag1_correlation" else 0.0
+            cells = [(bounds.text(by[g].get("estimate"), by[g].get("ci_low"),
+                                  by[g].get("ci_high"), low=low) or blank("not_estimable"))
+                     if g in by else blank("not_estimable") for g in names]
         test = comp["test"]
         stat = blank("not_estimable") if test["statistic"] is None else \
             f"{test['statistic']:.2f} ({test['df']})"
@@ -299,7 +304,7 @@ def group_table(report: dict) -> Table | None:
                      *cells, stat, _p(test["pvalue"]) if test["pvalue"] is not None
                      else blank("not_estimable")))
     notes = [section["note"], *blank.notes(),
-             "Tests: lag-1 autocorrelation, Cochran's Q on Fisher z with delete-a-group "
+             "Tests: mean r one wave apart, Cochran's Q on Fisher z with delete-a-group "
              "jackknife SEs; retention, Pearson chi-square of the groups x retained table; "
              "other figures, Cochran's Q with the SEs the diagnostics report. Cells show the "
              "estimate and its 95% CI."]

@@ -13,6 +13,8 @@ import re
 from dataclasses import dataclass, field
 
 from paneldiag.render import intake
+from paneldiag.labels import LAG_PROFILE, family_name
+from paneldiag.render import bounds
 
 REFERENCES = {
     "campbell1963": ("Campbell 1963", "Campbell, D. T. (1963). From description to "
@@ -199,7 +201,8 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
                  f"at the lowest value ({wave_name(floor['wave'], unit)}) and up to "
                  f"{pct(ceiling['ceiling_share'])} at the highest "
                  f"({wave_name(ceiling['wave'], unit)}).")
-    return [text]
+    caveats = (report.get("distribution") or {}).get("caveats") or []
+    return [text] + ([" ".join(caveats)] if caveats else [])
 
 
 ENTRY_WORDS = {
@@ -326,13 +329,13 @@ def dependence(report: dict, cite: Citations) -> list[str]:
     per = "wave interval" if fit.get("distance") == "lag" else unit
     if fit.get("identified"):
         parts = []
-        for key, words in (("stable_share", "the stable share a/(a+b) was"),
-                           ("rho", f"the carry-over per {per} was")):
+        for key, words, kind, low in (
+                ("stable_share", f"the {LAG_PROFILE} stable share a/(a+b) was", "share", 0.0),
+                ("rho", f"the {LAG_PROFILE} carry-over per {per} was", "correlation", -1.0)):
             node = fit.get(key)
             if isinstance(node, dict) and ok(node.get("estimate")):
-                ci = (f" (confidence interval {dec(node['ci_low'])} to {dec(node['ci_high'])})"
-                      if ok(node.get("ci_low"), node.get("ci_high")) else "")
-                parts.append(f"{words} {dec(node['estimate'])}{ci}")
+                parts.append(f"{words} " + bounds.prose(node["estimate"], node.get("ci_low"),
+                                                        node.get("ci_high"), kind, low))
         if parts:
             d_unit = "waves" if fit.get("distance") == "lag" else f"{unit}s"
             text += (" Fitting a + b rho^d to the decay of correlation with the distance d "
@@ -364,14 +367,18 @@ def reliability(report: dict, cite: Citations) -> list[str]:
     summary = (report.get("reliability") or {}).get("summary")
     if not isinstance(summary, dict) or not ok(summary.get("estimate")):
         return []
-    ci = (f" (confidence interval {dec(summary['ci_low'])} to {dec(summary['ci_high'])})"
-          if ok(summary.get("ci_low"), summary.get("ci_high")) else "")
     method = str(summary.get("method") or "")
     refs = [k for k, word in (("heise1969", "heise"), ("wiley1970", "wiley"))
             if word in method.lower()] or ["heise1969", "wiley1970"]
-    return [f"The reliability of {report.get('measure')}, estimated from the pattern of "
-            f"correlations across three or more waves {cite(*refs)}, was "
-            f"{dec(summary['estimate'])}{ci}."]
+    from paneldiag.render.text_summary import heise_unreadable
+    value = bounds.prose(summary["estimate"], summary.get("ci_low"), summary.get("ci_high"),
+                         "heise")
+    why = heise_unreadable(report, summary)
+    caution = (f" It is not read as a reliability here ({why}): Heise's formula assumes a "
+               "lag-1 simplex with error." if why and "impossible value" not in value else "")
+    return [f"The Heise test-retest reliability of {report.get('measure')} (the median over "
+            f"triplets of waves, from the pattern of their correlations {cite(*refs)}) was "
+            f"{value}.{caution}"]
 
 
 def growth(report: dict, cite: Citations) -> list[str]:
@@ -391,19 +398,18 @@ def growth(report: dict, cite: Citations) -> list[str]:
                 f"{unit_of_time(report)}{ci}, and the slopes had a standard deviation of "
                 f"{dec(traj['sd_slope'], 3)} {cite('rogosa1982')}.")
         rel = section.get("slope_reliability") or {}
-        if ok(rel.get("estimate")) and not rel.get("impossible"):
-            ci = (f" (confidence interval {dec(rel['ci_low'])} to {dec(rel['ci_high'])})"
-                  if ok(rel.get("ci_low"), rel.get("ci_high")) else "")
-            text += (f" The reliability of these per-unit slopes, the share of their variance "
-                     f"that is not sampling error, was {dec(rel['estimate'])}{ci}.")
+        if ok(rel.get("estimate")):
+            text += (" The reliability of these per-unit slopes, the share of their variance "
+                     "that is not sampling error, was " + bounds.prose(
+                         rel["estimate"], rel.get("ci_low"), rel.get("ci_high"),
+                         "slope_reliability") + ".")
         out.append(text)
     icc = section.get("icc") or {}
     parts = []
-    if ok(icc.get("estimate")) and not icc.get("impossible"):
-        ci = (f" (confidence interval {dec(icc['ci_low'])} to {dec(icc['ci_high'])})"
-              if ok(icc.get("ci_low"), icc.get("ci_high")) else "")
-        parts.append(f"The intraclass correlation of the repeated measurements was "
-                     f"{dec(icc['estimate'])}{ci} {cite('shrout1979')}.")
+    if ok(icc.get("estimate")):
+        value = bounds.prose(icc["estimate"], icc.get("ci_low"), icc.get("ci_high"), "icc")
+        parts.append(f"The intraclass correlation ICC(1) of the repeated measurements, from "
+                     f"the one-way analysis of variance, was {value} {cite('shrout1979')}.")
     shape = section.get("mean_shape") or {}
     comps = [c for c in shape.get("components") or []
              if isinstance(c, dict) and ok(c.get("share_of_change"), c.get("pvalue"))]
@@ -431,7 +437,7 @@ def verdicts(report: dict, cite: Citations) -> list[str]:
         for fam in families:
             if isinstance(fam, dict) and fam.get("family") and fam.get("verdict"):
                 grouped.setdefault(str(fam["verdict"]), []).append(
-                    str(fam["family"]).replace("_", " "))
+                    family_name(fam["family"]))
         if grouped:
             parts = [f"{verdict.replace('_', ' ')}: {_join(names)}"
                      for verdict, names in grouped.items()]
@@ -450,11 +456,11 @@ def verdicts(report: dict, cite: Citations) -> list[str]:
             out += _bic_and_power(report, families)
     measurement = report.get("measurement")
     if isinstance(measurement, dict) and ok(measurement.get("reliability")):
-        ci = (f" (confidence interval {dec(measurement['ci_low'])} to "
-              f"{dec(measurement['ci_high'])})"
-              if ok(measurement.get("ci_low"), measurement.get("ci_high")) else "")
-        text = (f"The share of each wave's variance not due to measurement error was "
-                f"{dec(measurement['reliability'])}{ci}")
+        label = measurement.get("label") or "reliability"
+        value = bounds.prose(measurement["reliability"], measurement.get("ci_low"),
+                             measurement.get("ci_high"))
+        text = (f"The {label} (the share of each wave's variance not due to measurement "
+                f"error) was {value}")
         text += (f", which the screen rates as {measurement['verdict']}."
                  if measurement.get("verdict") else ".")
         if measurement.get("advice"):
@@ -475,15 +481,15 @@ def _bic_and_power(report: dict, families: list) -> list[str]:
             "random curvature or free loadings for growth), fitted by full-information "
             "maximum likelihood under missing at random and chosen within the family by "
             "the Bayesian information criterion (BIC). Across families the BIC was lowest "
-            f"for {str(best['family']).replace('_', ' ')} ({best['specification']}), with "
+            f"for {family_name(best['family'])} ({best['specification']}), with "
             f"BIC weight {dec(best.get('bic_weight'))}; a family was rated supported only "
             "when the part that defines it was evidenced by a likelihood-ratio test and no "
             "family it does not nest was clearly ahead by BIC.")
     weak = [r for r in report.get("power") or [] if isinstance(r, dict)
             and not r.get("evidenced") and ok(r.get("power")) and r["power"] < 0.8]
     if weak:
-        parts = [f"{str(r['simpler']).replace('_', ' ')} from "
-                 f"{str(r['richer']).replace('_', ' ')} (power {dec(r['power'])}"
+        parts = [f"{family_name(r['simpler'])} from {family_name(r['richer'])} (power "
+                 f"{dec(r['power'])}"
                  + (f"; about {count(r['units_for_power_90'])} units for power "
                     f"{dec(r.get('target_power'))})" if r.get("units_for_power_90")
                     else ")") for r in weak]
@@ -533,15 +539,19 @@ def group_summary(label: str, section: dict, cite: Citations) -> list[str]:
         value = next((v for v in comp["by_group"] if v["group"] == label), None)
         if not value or not ok(value.get("estimate")):
             continue
-        fmt = pct if comp["figure"] == "retention" else dec
-        ci = (f" ({fmt(value['ci_low'])} to {fmt(value['ci_high'])})"
-              if ok(value.get("ci_low"), value.get("ci_high")) else "")
-        parts.append(f"{GROUP_FIGURE_WORDS.get(comp['figure'], comp['label'])} "
-                     f"{fmt(value['estimate'])}{ci}")
+        if comp["figure"] == "retention":
+            ci = (f" ({pct(value['ci_low'])} to {pct(value['ci_high'])})"
+                  if ok(value.get("ci_low"), value.get("ci_high")) else "")
+            shown = f"{pct(value['estimate'])}{ci}"
+        else:   # the other figures are shares or correlations: flagged at their bounds
+            low = -1.0 if comp["figure"] == "lag1_correlation" else 0.0
+            shown = bounds.prose(value["estimate"], value.get("ci_low"), value.get("ci_high"),
+                                 low=low)
+        parts.append(f"{GROUP_FIGURE_WORDS.get(comp['figure'], comp['label'])} {shown}")
     text = f"The group {label} has {count(report['n_units'])} units"
     text += ("; " + "; ".join(parts) + "." if parts else ".")
     fams = [f for f in report.get("families") or [] if isinstance(f, dict)]
-    good = [str(f["family"]).replace("_", " ") for f in fams
+    good = [family_name(f["family"]) for f in fams
             if f.get("verdict") in ("supported", "plausible")]
     if good:
         text += f" Families the screen supports or finds plausible here: {_join(good)}."

@@ -9,6 +9,7 @@ from paneldiag.disclosure import count_shown, share_shown
 from paneldiag.render.text import heading, number, share, table
 from paneldiag.render.text_attrition import attrition_block, missingness_block
 from paneldiag.render.text_dependence import dependence_block
+from paneldiag.render.text_distribution import distribution_block
 from paneldiag.render.text_reliability import render_growth, render_reliability
 from paneldiag.render.text_verdicts import verdicts_block
 
@@ -53,6 +54,7 @@ SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
     ("families", verdicts_block),
     ("ledger", _intake),
     ("wave_profile", _wave_profile),
+    ("distribution", distribution_block),
     ("attrition", attrition_block),
     ("missingness", missingness_block),
     ("correlation", dependence_block),

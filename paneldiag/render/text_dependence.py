@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from paneldiag.render.intake import time_unit
+from paneldiag.render import bounds
 from paneldiag.render.text import heading, number
 
 SHAPES = {"flat": "flat (no decay with distance: carry-over not identified)",
@@ -11,11 +12,11 @@ SHAPES = {"flat": "flat (no decay with distance: carry-over not identified)",
           "not_fitted": "not fitted"}
 
 
-def _interval(est: dict | None, digits: int = 2) -> str:
+def _bounded(est: dict | None) -> str:
+    """A parameter of the lag-profile fit (each lies in 0-1), flagged at a bound."""
     if not est:
         return "–"
-    return (f"{number(est['estimate'], digits)} "
-            f"[{number(est['ci_low'], digits)}, {number(est['ci_high'], digits)}]")
+    return bounds.text(est["estimate"], est.get("ci_low"), est.get("ci_high")) or "–"
 
 
 def _p(value) -> str:
@@ -51,15 +52,16 @@ def dependence_block(report: dict, color: bool) -> list[str]:
                      f"{_distance(last)}: [{number(last['ci_low'], 2)}, {number(last['ci_high'], 2)}]")
     fit = report.get("decay_fit")
     if fit:
-        lines.append(f"  decay fit r(d) = a + b·rho^d over {fit['points']} distances: "
+        lines.append(f"  lag-profile fit r(d) = a + b·rho^d over {fit['points']} distances: "
                      f"{SHAPES.get(fit['shape'], fit['shape'])}")
         if fit["shape"] == "flat":
-            lines.append(f"    level {_interval(fit['a'])}")
+            lines.append(f"    lag-profile level {_bounded(fit['a'])}")
         elif fit["shape"] != "not_fitted":
-            lines.append(f"    floor a {_interval(fit['a'])}; carry-over rho {_interval(fit['rho'])}"
-                         f" per {time_unit(report) if fit['distance'] == 'time' else 'wave'}; "
-                         f"lag-0 a+b {_interval(fit['intercept'])}; "
-                         f"stable share {_interval(fit['stable_share'])}")
+            per = time_unit(report) if fit["distance"] == "time" else "wave"
+            lines.append(f"    lag-profile floor a {_bounded(fit['a'])}; lag-profile carry-over "
+                         f"rho per {per} {_bounded(fit['rho'])}; lag-profile lag-0 a+b "
+                         f"{_bounded(fit['intercept'])}; lag-profile stable share "
+                         f"{_bounded(fit['stable_share'])}")
         if fit.get("flat_vs_full"):
             lines.append(f"    against flat p {_p(fit['flat_vs_full']['p_value'])}; "
                          f"against pure decay p {_p(fit['pure_decay_vs_full']['p_value'])}")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 from paneldiag.render.intake import time_unit
+from paneldiag.render import bounds
 from paneldiag.render.text import heading, number, share, table
 
 
@@ -24,14 +25,15 @@ def render_reliability(report: dict, color: bool) -> list[str]:
     rel = report["reliability"]
     summary = rel["summary"]
     lines = [heading("Reliability (quasi-simplex)", color)]
-    lines.append(f"  Heise reliability, median of {summary['n_triplets']} wave triplet(s): "
-                 f"{number(summary['estimate'])}"
-                 f"{_interval(summary['ci_low'], summary['ci_high'])}"
-                 f" · basis {rel['basis'].replace('_', ' ')}")
+    value = bounds.text(summary["estimate"], summary["ci_low"], summary["ci_high"], "heise",
+                        digits=3) or "–"
+    lines.append(f"  Heise test-retest reliability (median of {summary['n_triplets']} wave "
+                 f"triplets) {value} · basis {rel['basis'].replace('_', ' ')}")
     other = rel.get("alternative_summary")
     if other:
-        lines.append(f"  on {rel['alternative_basis'].replace('_', ' ')} moments: "
-                     f"{number(other['estimate'])}{_interval(other['ci_low'], other['ci_high'])}")
+        lines.append(f"  Heise test-retest reliability on {rel['alternative_basis'].replace('_', ' ')} "
+                     "moments " + (bounds.text(other["estimate"], other["ci_low"],
+                                               other["ci_high"], "heise", digits=3) or "–"))
     if summary["n_impossible"]:
         lines.append(f"  {summary['n_impossible']} triplet(s) give impossible values "
                      "(kept as computed; reasons in the JSON report)")
@@ -63,10 +65,10 @@ def render_growth(report: dict, color: bool) -> list[str]:
                  f"{number(fits['mean_slope'])} per {time_unit(report)}"
                  f"{_interval(fits['mean_slope_ci_low'], fits['mean_slope_ci_high'])}, "
                  f"sd {number(fits['sd_slope'])}")
-    flag = " (impossible: negative slope variance)" if rel["impossible"] else \
-        (" (not estimable: no unit has three waves)" if rel["estimate"] is None else "")
-    lines.append(f"  slope reliability {number(rel['estimate'])}"
-                 f"{_interval(rel['ci_low'], rel['ci_high'])}{flag}; slope variance test "
+    value = ("not estimable (no unit has three waves)" if rel["estimate"] is None else
+             bounds.text(rel["estimate"], rel["ci_low"], rel["ci_high"], "slope_reliability",
+                         digits=3))
+    lines.append(f"  slope reliability of per-unit lines {value}; slope variance test "
                  f"chi2 {number(rel['chi_square'], 1)} on {rel['df']:,} df, {_p(rel['pvalue'])}")
     parts = [f"{c['component']} {share(c['share_of_change'])} ({_p(c['pvalue'])})"
              for c in g["mean_shape"]["components"]]
@@ -82,7 +84,7 @@ def render_growth(report: dict, color: bool) -> list[str]:
         lines.append(f"  variance changes ×{factor:.3f} per {time_unit(report)} "
                      f"(last/first {number(trend['ratio_last_first'])}, {_p(trend['pvalue'])})")
     icc = g["icc"]
-    lines.append(f"  share of variance between units, ICC(1) {number(icc['estimate'])}"
-                 f"{_interval(icc['ci_low'], icc['ci_high'])}"
-                 + (" (impossible: negative)" if icc["impossible"] else ""))
+    lines.append("  share of variance between units, ICC(1) from one-way ANOVA "
+                 + (bounds.text(icc["estimate"], icc["ci_low"], icc["ci_high"], "icc",
+                                digits=3) or "–"))
     return lines

@@ -4,9 +4,12 @@ and is shown with --details."""
 
 from __future__ import annotations
 
+from paneldiag.render import bounds
 from paneldiag.render.figures import lag_rows, time_unit
 from paneldiag.render.intake import distance, wave_span
 from paneldiag.render.text_attrition import entry_line
+from paneldiag.render.text_dependence import SHAPES
+from paneldiag.render.text_distribution import distribution_lines
 
 
 def _ok(*values) -> bool:
@@ -55,21 +58,14 @@ def key_figures(report: dict, heading) -> list[str]:
     parts = []
     rows = lag_rows(report)
     if rows:
-        node = {"estimate": rows[0]["mean_r"], "ci_low": rows[0].get("ci_low"),
-                "ci_high": rows[0].get("ci_high")}
         d = rows[0]["time_distance"]
-        parts.append(f"r at distance {distance(d, report.get('panel'))}: {_est(node)}")
+        r = bounds.text(rows[0]["mean_r"], rows[0].get("ci_low"), rows[0].get("ci_high"),
+                        "correlation", -1.0, 1.0)
+        parts.append(f"lag-profile mean r at distance {distance(d, report.get('panel'))}: {r}")
     fit = report.get("decay_fit") or {}
-    if fit.get("identified"):
-        # named after the lag-profile fit, apart from the verdicts' structure estimates
-        for key, label in (("stable_share", "lag-profile stable share"),
-                           ("rho", "lag-profile carry-over per " + (
-                               "wave interval" if fit.get("distance") == "lag"
-                               else time_unit(report)))):
-            if _est(fit.get(key)):
-                parts.append(f"{label} {_est(fit.get(key))}")
-    elif fit.get("shape"):
-        parts.append(f"decay shape: {str(fit['shape']).replace('_', ' ')}")
+    if fit.get("shape"):
+        # the shape only: the verdict table gives the structure fit's shares
+        parts.append(f"lag profile {SHAPES.get(fit['shape'], fit['shape'])}")
     if parts:
         lines.append(" · ".join(parts))
     parts = []
@@ -81,13 +77,16 @@ def key_figures(report: dict, heading) -> list[str]:
     if _ok(traj.get("mean_slope")):
         node = {"estimate": traj["mean_slope"], "ci_low": traj.get("mean_slope_ci_low"),
                 "ci_high": traj.get("mean_slope_ci_high")}
-        parts.append(f"mean slope {_est(node, 3)} per {time_unit(report)}")
-    if _est(growth.get("slope_reliability")):
-        parts.append(f"slope reliability {_est(growth['slope_reliability'])}")
-    if _est(growth.get("icc")):
-        parts.append(f"ICC {_est(growth['icc'])}")
+        parts.append(f"mean slope of per-unit lines {_est(node, 3)} per {time_unit(report)}")
+    for key, label, kind in (("slope_reliability", "slope reliability of per-unit lines",
+                              "slope_reliability"), ("icc", "ICC(1) from one-way ANOVA", "icc")):
+        node = growth.get(key) or {}
+        text = bounds.text(node.get("estimate"), node.get("ci_low"), node.get("ci_high"), kind)
+        if text:
+            parts.append(f"{label} {text}")
     if parts:
         lines.append(" · ".join(parts))
+    lines += distribution_lines(report)
     if not lines:
         return []
     return [heading(f"Key figures · {report.get('measure')}")] + ["  " + line for line in lines]
@@ -109,7 +108,7 @@ def groups_block(report: dict, heading) -> list[str]:
         low = min(v["estimate"] for v in values) * scale
         high = max(v["estimate"] for v in values) * scale
         digits = 1 if unit else 2
-        text = f"  {comp['label']}: {low:.{digits}f}{unit} to {high:.{digits}f}{unit}"
+        text = f"  {comp['label']} by group: {low:.{digits}f}{unit} to {high:.{digits}f}{unit}"
         if _ok(test.get("statistic"), test.get("pvalue")):
             text += (f"; equal across groups: {test['method']} {test['statistic']:.2f} on "
                      f"{test['df']} df, {_p(test['pvalue'])}")
@@ -138,13 +137,26 @@ GROWTH_FAMILIES = ("linear_growth", "quadratic_growth", "free_shape_growth",
                    "growth_autoregressive")
 
 
-def heise_figure(report: dict, rel: dict) -> str:
-    """The Heise median under its own name, or why it is not read as a reliability:
-    Heise's formula assumes a lag-1 simplex, which growth and impossible triplets break."""
+def heise_unreadable(report: dict, rel: dict) -> str | None:
+    """Why the Heise median is not read as a reliability (its formula assumes a lag-1
+    simplex, which growth and impossible triplets break), or None."""
     leading = next((f["family"] for f in report.get("families") or []
                     if f.get("verdict") in ("supported", "plausible")), None)
     if leading in GROWTH_FAMILIES:
-        return "Heise test-retest figure not interpretable (a growth family leads)"
+        return "a growth family leads"
     if rel.get("n_triplets") and 2 * (rel.get("n_impossible") or 0) > rel["n_triplets"]:
-        return "Heise test-retest figure not interpretable (most triplets impossible)"
-    return f"Heise test-retest reliability (median of triplets) {_est(rel)}"
+        return "most triplets impossible"
+    return None
+
+
+def heise_figure(report: dict, rel: dict) -> str:
+    """The Heise median under its own name, flagged when it is impossible, or why it is
+    not read as a reliability."""
+    if bounds.status(rel["estimate"], None, None) == "impossible":
+        return ("Heise test-retest reliability (median of triplets) "
+                + bounds.text(rel["estimate"], kind="heise"))
+    why = heise_unreadable(report, rel)
+    if why:
+        return f"Heise test-retest figure not interpretable ({why})"
+    return ("Heise test-retest reliability (median of triplets) "
+            + bounds.text(rel["estimate"], rel.get("ci_low"), rel.get("ci_high"), "heise"))

@@ -5,43 +5,48 @@ from __future__ import annotations
 
 from tabulate import tabulate
 
+from paneldiag.labels import FAMILY_NAMES as DISPLAY, STATISTIC_LABELS
+from paneldiag.render import bounds
 from paneldiag.render.text import heading
 
-# the statistics that sum up each family's case, by key of verdict_basis.statistics
+# the statistics that sum up each family's case (keys of verdict_basis.statistics),
+# with the range each lies in (None: unbounded)
+SHARE, CORRELATION = (0.0, 1.0, "share"), (-1.0, 1.0, "correlation")
 KEY_STATS = {
-    "occasion_noise": [("adjacent r", "adjacent_correlation")],
-    "stable_trait": [("trait share", "trait_share"), ("stable share", "stable_share"),
-                     ("decline", "profile_decline")],
-    "autoregressive": [("rho", "carry_rho"), ("stable share", "stable_share")],
-    "trait_autoregressive": [("stable share", "stable_share"), ("rho", "carry_rho")],
-    "linear_growth": [("slope share", "slope_share"), ("mean change", "mean_change_sd")],
-    "quadratic_growth": [("slope share", "slope_share"), ("bend", "mean_bend_sd")],
-    "free_shape_growth": [("slope share", "slope_share"),
-                          ("remainder", "mean_remainder_sd")],
-    "growth_autoregressive": [("slope share", "slope_share"),
-                              ("carried share", "growth_carry_share")],
+    "occasion_noise": [("adjacent_correlation", CORRELATION)],
+    "stable_trait": [("trait_share", SHARE), ("stable_share", SHARE),
+                     ("profile_decline", None)],
+    "autoregressive": [("carry_rho", CORRELATION), ("stable_share", SHARE)],
+    "trait_autoregressive": [("stable_share", SHARE), ("carry_rho", CORRELATION)],
+    "linear_growth": [("slope_share", SHARE), ("mean_change_sd", None)],
+    "quadratic_growth": [("slope_share", SHARE), ("mean_bend_sd", None)],
+    "free_shape_growth": [("slope_share", SHARE), ("mean_remainder_sd", None)],
+    "growth_autoregressive": [("slope_share", SHARE), ("growth_carry_share", SHARE)],
 }
 
 
-def _stat(value) -> str | None:
+def _stat(value, bound) -> str | None:
     if isinstance(value, dict):
-        est = value.get("estimate")
-        if est is None:
-            return None
-        lo, hi = value.get("ci_low"), value.get("ci_high")
-        return f"{est:.2f}" + (f" [{lo:.2f}, {hi:.2f}]" if lo is not None and hi is not None
-                               else "")
-    if isinstance(value, (int, float)):
-        return f"{value:.2f}"
-    return None
+        est, lo, hi = value.get("estimate"), value.get("ci_low"), value.get("ci_high")
+    elif isinstance(value, (int, float)) and not isinstance(value, bool):
+        est, lo, hi = value, None, None
+    else:
+        return None
+    if est is None:
+        return None
+    if bound is not None:
+        low, high, kind = bound
+        return bounds.text(est, lo, hi, kind, low, high)
+    return f"{est:.2f}" + (f" [{lo:.2f}, {hi:.2f}]" if lo is not None and hi is not None
+                           else "")
 
 
-def _key(family: str, stats: dict) -> str:
+def _key(family: str, stats: dict, labels: dict) -> str:
     parts = []
-    for label, key in KEY_STATS.get(family, []):
-        text = _stat(stats.get(key))
+    for key, bound in KEY_STATS.get(family, []):
+        text = _stat(stats.get(key), bound)
         if text is not None:
-            parts.append(f"{label} {text}")
+            parts.append(f"{labels.get(key, STATISTIC_LABELS.get(key, key))} {text}")
         if len(parts) == 2:
             break
     return "; ".join(parts) or "–"
@@ -54,10 +59,10 @@ def _bic(f: dict) -> tuple[str, str]:
 
 
 def verdicts_block(report: dict, color: bool) -> list[str]:
-    from paneldiag.rules.verdicts import DISPLAY   # here: the rules load the model fitting
-    stats = report.get("verdict_basis", {}).get("statistics", {})
+    basis = report.get("verdict_basis", {})
+    stats, labels = basis.get("statistics", {}), basis.get("labels", {})
     rows = [[DISPLAY.get(f["family"], f["family"]), f["verdict"], *_bic(f),
-             _key(f["family"], stats)] for f in report["families"]]
+             _key(f["family"], stats, labels)] for f in report["families"]]
     body = tabulate(rows, headers=["family", "verdict", "BIC vs best", "BIC weight",
                                    "key evidence"],
                     tablefmt="plain", disable_numparse=True, stralign="left")
@@ -71,13 +76,13 @@ def verdicts_block(report: dict, color: bool) -> list[str]:
     m = report.get("measurement")
     if m:
         if m.get("reliability") is not None:
-            ci = (f" [{m['ci_low']:.2f}, {m['ci_high']:.2f}]"
-                  if m.get("ci_low") is not None and m.get("ci_high") is not None else "")
-            label = "reliability, lower bound" if m.get("lower_bound") else "reliability"
+            label = m.get("label") or ("reliability, lower bound" if m.get("lower_bound")
+                                       else "reliability")
+            value = bounds.text(m["reliability"], m.get("ci_low"), m.get("ci_high"))
             error = f"{m['verdict']} measurement error" if m.get("verdict") else \
                 "measurement error not separable"
-            lines.append(f"  measurement ({m.get('basis')}): {label} {m['reliability']:.2f}"
-                         f"{ci}, {error}. {m['advice']}")
+            what = "" if m.get("lower_bound") else f" ({m.get('basis')})"
+            lines.append(f"  measurement: {label} {value}, {error}{what}. {m['advice']}")
         else:
             lines.append(f"  measurement: {m['advice']}")
     lines += power_lines(report.get("power") or [], DISPLAY)

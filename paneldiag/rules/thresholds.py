@@ -42,6 +42,9 @@ RANGES = {
     "min_categories": (2, 1000, True),
     "max_spacing_ratio": (1.0, 100.0, False),
     "max_flat_decline": (0.0, 1.0, False),
+    "max_abs_skew": (0.0, 100.0, False),
+    "max_excess_kurtosis": (0.0, 1000.0, False),
+    "outlier_alpha": (1e-12, 0.5, False),
 }
 
 

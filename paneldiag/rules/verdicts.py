@@ -48,6 +48,7 @@ import numpy as np
 from scipy import special
 
 from paneldiag import distributions as dist
+from paneldiag.labels import FAMILY_NAMES, STATISTIC_LABELS, measurement_label
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
 from paneldiag.rules.parts import Carry, Error, Growth, QuasiSimplex, Trait
@@ -57,12 +58,7 @@ from paneldiag.rules.thresholds import Thresholds, default_thresholds
 FAMILY_IDS = ("occasion_noise", "stable_trait", "autoregressive", "trait_autoregressive",
               "linear_growth", "quadratic_growth", "free_shape_growth",
               "growth_autoregressive")
-DISPLAY = {
-    "occasion_noise": "occasion noise", "stable_trait": "stable trait",
-    "autoregressive": "carry-over", "trait_autoregressive": "trait + carry-over",
-    "linear_growth": "linear growth", "quadratic_growth": "quadratic growth",
-    "free_shape_growth": "free-shape growth", "growth_autoregressive": "growth + carry-over",
-}
+DISPLAY = FAMILY_NAMES   # one table of display names for every output
 MODELS = {
     "occasion_noise": "independence model with free wave means (a baseline for comparison)",
     "stable_trait": "random-intercept model (compound symmetry)",
@@ -120,6 +116,7 @@ class Measurement(Result):
     basis: str
     method: str | None = None
     lower_bound: bool = False
+    label: str | None = None      # the figure's name in every output
 
 
 @dataclass(frozen=True)
@@ -183,6 +180,11 @@ class Citations:
                             "ci_high": _r(hi, digits)}
         if not (np.isfinite(lo) and np.isfinite(hi)):
             return f"{_f(est, digits)} (no interval available)"
+        low, high = _r(lo, digits), _r(hi, digits)
+        if low == high:   # every replicate on a bound: no uncertainty could be measured
+            return f"{_f(est, digits)}, at the boundary (an interval of zero width)"
+        if low == 0 and high == 1:   # a share whose interval was clipped at both ends
+            return f"{_f(est, digits)}, not estimable here (95% CI spans 0 to 1)"
         return f"{_f(est, digits)} [95% CI {_f(lo, digits)}, {_f(hi, digits)}]"
 
     def test(self, name, stat, df, p) -> str:
@@ -1388,8 +1390,9 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
     fit = ev.chosen(fam) if fam is not None else None
     if fam is None or fit is None:
         return Measurement(None, None, None, None,
-                           "No family leads, so reliability is not estimated; judge "
-                           "measurement error after the candidate models are fitted.", "none")
+                           "No family leads, so no reliability is estimated from a structure "
+                           "fit; judge measurement error after the candidate models are "
+                           "fitted.", "none")
     if fam == "occasion_noise":
         return Measurement(None, None, None, None,
                            "With no dependence between waves, measurement error cannot be "
@@ -1408,7 +1411,8 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                            f"variance are not separable: {_f(est)} is a lower bound on the "
                            "reliability. Fit the measure as latent with error only if a "
                            "second indicator or a known error variance is available.",
-                           f"lower bound from the {DISPLAY[fam]} structure", method, True)
+                           f"lower bound from the {DISPLAY[fam]} structure", method, True,
+                           measurement_label(fam, True))
     led.estimate("reliability", est, lo, hi)
     if est >= th["reliability_negligible"]:
         v, advice = "negligible", "Measurement error is small; observed scores can be used."
@@ -1421,7 +1425,7 @@ def _measurement(inp, th, led, verdict, ev: Evidence | None) -> Measurement:
                                     "models will understate stability and carry-over.")
     return Measurement(_r(est), _r(lo), _r(hi), v, advice,
                        f"share of each wave's variance not due to error, averaged over waves, "
-                       f"under {DISPLAY[fam]}", method, False)
+                       f"under {DISPLAY[fam]}", method, False, measurement_label(fam, False))
 
 
 def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=(),
@@ -1451,7 +1455,12 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=
     families.sort(key=lambda fv: (VERDICT_ORDER[fv.verdict], -fv.score))
     measurement = _measurement(inp, th, led, verdict, ev)
     next_models = _next_models(families)
-    basis = {"statistics": led.stats, "parts": flags,
+    labels = {k: STATISTIC_LABELS[k] for k in led.stats if k in STATISTIC_LABELS}
+    for key in ("reliability", "reliability_lower_bound"):
+        if key in led.stats and measurement.label:
+            labels[key] = measurement.label
+    basis = {"statistics": led.stats, "labels": labels, "names": dict(FAMILY_NAMES),
+             "parts": flags,
              "specifications": _spec_table(ev, inp) if ev is not None else {},
              "thresholds": th.values(), "thresholds_origin": th.origin}
     return Judgement(tuple(families), measurement, tuple(next_models), basis, tuple(power))
