@@ -180,7 +180,7 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
         input_info["options"]["audit_only"] = True
     # the diagnostics are imported only once there is data to screen, so a bad input is
     # reported without paying for their (heavy) imports
-    from paneldiag.screen import ScreenOptions, screen
+    from paneldiag.pipeline import ScreenOptions, screen
     options = ScreenOptions(min_cell=request.min_cell, scale=request.scale,
                             group_column=request.group, rules=thresholds,
                             audit_only=request.audit_only,

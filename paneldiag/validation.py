@@ -80,10 +80,10 @@ def panel_of(values: np.ndarray):
 
 def verdicts_for_panel(panel, measure: str = "score", options=None) -> list[dict]:
     """The families section of a screen of ``panel``: the rule sections run on a
-    measure context exactly as ``paneldiag.screen`` runs them."""
+    measure context exactly as ``paneldiag.pipeline`` runs them."""
     from paneldiag.io.ledger import Ledger
     from paneldiag.rules import RULE_SECTIONS
-    from paneldiag.screen import MeasureContext, ScreenOptions, run_sections
+    from paneldiag.pipeline import MeasureContext, ScreenOptions, run_sections
 
     ctx = MeasureContext(panel=panel, measure=measure, options=options or ScreenOptions(),
                          ledger=Ledger(rows_read=0, rows_used=0))
@@ -94,7 +94,7 @@ def _one(task) -> tuple[Condition, str | None]:
     condition, seed, rules_path = task
     rng = np.random.default_rng(seed)
     from paneldiag.rules import load_thresholds
-    from paneldiag.screen import ScreenOptions
+    from paneldiag.pipeline import ScreenOptions
     from paneldiag.simulate import family_values
     values = family_values(condition.family, condition.n_units, condition.n_waves,
                            condition.reliability, condition.dropout, rng, condition.departure)

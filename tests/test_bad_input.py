@@ -57,7 +57,7 @@ def run_forked(args: list[str], cwd) -> Outcome:
     import pyarrow.csv, pyarrow.parquet, pyreadstat  # noqa: F401  (imported once, here)
 
     import paneldiag.cli.demo, paneldiag.cli.screen  # noqa: F401
-    import paneldiag.render.json, paneldiag.render.terminal, paneldiag.screen  # noqa: F401
+    import paneldiag.render.json, paneldiag.render.terminal, paneldiag.pipeline  # noqa: F401
     from paneldiag.cli import main
 
     with tempfile.TemporaryFile() as out, tempfile.TemporaryFile() as err:

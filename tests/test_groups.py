@@ -24,7 +24,7 @@ from paneldiag.diagnostics.groups import (fisher_z_equality, homogeneity_test,
                                           proportions_equality, wilson_interval)
 from paneldiag.io.readers import read_table
 from paneldiag.io.validate import LayoutSpec, build_panel
-from paneldiag.screen import ScreenOptions, screen
+from paneldiag.pipeline import ScreenOptions, screen
 from paneldiag.simulate import carry_over
 
 YEARS = (2001, 2002, 2003, 2005, 2006)

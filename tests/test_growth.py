@@ -402,7 +402,7 @@ def test_mean_shape_on_em_means_under_dropout():
     # under MAR (EM, with a jackknife covariance) show no linear change.
     from paneldiag.diagnostics.growth import growth_section
     from paneldiag.panel import Panel
-    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.pipeline import MeasureContext, ScreenOptions
     from paneldiag.simulate import dropout_after
     rng = np.random.default_rng(21)
     times = np.arange(6, dtype=float)

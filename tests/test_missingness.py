@@ -489,7 +489,7 @@ def test_beyond_the_cost_limit_the_moments_are_pairwise(monkeypatch):
     verdicts are fitted to the pairwise-complete moments in two stages and say so."""
     import paneldiag.summaries.patterns as patterns_module
     from paneldiag.diagnostics.missingness import PAIRWISE_FALLBACK
-    from paneldiag.screen import ScreenOptions, screen_measure
+    from paneldiag.pipeline import ScreenOptions, screen_measure
     from paneldiag.io.ledger import Ledger
     from paneldiag.validation import panel_of
     rng = np.random.default_rng(5)

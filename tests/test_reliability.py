@@ -280,7 +280,7 @@ def test_cli_items_refused_for_wide_data(tmp_path):
 
 def _context(x, times):
     from paneldiag.panel import Panel
-    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.pipeline import MeasureContext, ScreenOptions
     panel = Panel(unit_ids=np.arange(len(x)), wave_labels=tuple(str(t) for t in range(len(times))),
                   wave_times=np.asarray(times, float), values={"y": x})
     return MeasureContext(panel=panel, measure="y", options=ScreenOptions(), ledger=None)
@@ -351,7 +351,7 @@ def test_two_waves_with_items_keep_internal_consistency():
     import pingouin as pg
     from paneldiag.diagnostics.reliability import reliability_section
     from paneldiag.panel import Panel
-    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.pipeline import MeasureContext, ScreenOptions
     rng = np.random.default_rng(5)
     f = rng.normal(size=(300, 2, 1))
     items = f * np.array([1.0, 0.7, 0.9]) + rng.normal(size=(300, 2, 3))

@@ -34,7 +34,7 @@ def _report(values, times=None, rules=None):
     from paneldiag.panel import Panel
     from paneldiag.results import plain
     from paneldiag.rules import RULE_SECTIONS
-    from paneldiag.screen import MeasureContext, ScreenOptions
+    from paneldiag.pipeline import MeasureContext, ScreenOptions
 
     panel = panel_of(values)
     if times is not None:

@@ -138,6 +138,6 @@ def command(data, json_path, triplet_path, report_dir, details, quiet, **options
 def triplet_csv(report: dict) -> str:
     import pandas as pd
 
-    from paneldiag.screen import take_triplet_tables
+    from paneldiag.pipeline import take_triplet_tables
     tables = [pd.DataFrame(t) for t in take_triplet_tables(report)]
     return (pd.concat(tables) if tables else pd.DataFrame()).to_csv(index=False)

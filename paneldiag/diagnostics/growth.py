@@ -594,7 +594,7 @@ def _bounded_ci(point, reps, level) -> tuple[float, float, str]:
 
 
 def growth_section(ctx) -> GrowthScreen:
-    """The screen's ``growth`` section for one measure (see paneldiag.screen).
+    """The screen's ``growth`` section for one measure (see paneldiag.pipeline).
 
     With missing cells and converging EM fits, the mean shape and the variance trend
     use the ML moments under missing at random (as the reliability section does); the

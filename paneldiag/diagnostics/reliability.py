@@ -545,7 +545,7 @@ def _em_basis(replicates, full) -> EMBasis | None:
 
 
 def reliability_section(ctx) -> ReliabilityScreen | None:
-    """The screen's ``reliability`` section for one measure (see paneldiag.screen).
+    """The screen's ``reliability`` section for one measure (see paneldiag.pipeline).
 
     With missing cells and converging EM fits, the basis is the ML covariance under
     missing at random (EM), and the pairwise-complete summary is given beside it;
