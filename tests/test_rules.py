@@ -373,3 +373,24 @@ def test_units_seen_once_leave_every_family_undetermined():
     families = verdicts_for_panel(panel_of(values))
     assert {f["verdict"] for f in families} == {"undetermined"}
     assert all("observed at both" in " ".join(f["evidence"]) for f in families)
+
+
+def test_units_seen_once_are_reported_as_repeated_cross_sections(tmp_path):
+    """Simulation with known truth (every unit observed at one wave only): the command
+    says once why no family can be judged, names the design and recommends no model."""
+    import pandas as pd
+    rng = np.random.default_rng(8)
+    frame = pd.DataFrame({"household": [f"H{i:03d}" for i in range(60)],
+                          "year": 2019 + np.arange(60) % 5, "trust": rng.normal(5, 1, 60)})
+    frame.to_csv(tmp_path / "once.csv", index=False)
+    done = run_cli("screen", tmp_path / "once.csv", "--id", "household", "--wave", "year",
+                   "--value", "trust", "--json", tmp_path / "r.json", "--report",
+                   tmp_path / "rep")
+    assert done.returncode == 0, done.stderr.decode()
+    out = done.stdout.decode()
+    assert out.count("no family can be judged: no pair of waves has 3") == 1
+    assert "next models" not in out
+    report = json.loads((tmp_path / "r.json").read_text())
+    assert report["next_models"] == []
+    assert report["attrition"]["entry"]["design"] == "one_wave_each"
+    assert "No family could be judged" in (tmp_path / "rep" / "appendix.md").read_text()

@@ -202,6 +202,8 @@ ENTRY_DESIGNS = {
                          "many waves",
     "mixed_entry": "mixed entry: units start at several waves, in none of the patterns "
                    "of a single cohort, refreshment samples or cohort-sequential entry",
+    "one_wave_each": "no unit observed at more than one wave: repeated cross-sections, "
+                     "not a panel",
 }
 
 
@@ -343,7 +345,8 @@ def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> En
     entering = entry_counts(obs, n)
     total = entering.sum()
     show = entry_shown(entering, n.sum(), min_cell)
-    design = classify_entry(entering)
+    seen_twice = (obs.sum(axis=1) > 1) & (n > 0)
+    design = classify_entry(entering) if seen_twice.any() or total == 0 else "one_wave_each"
     base, still = retention_to_end(obs, n)
     share = entering / total if total > 0 else np.zeros_like(entering)
     rows = tuple(WaveCount(str(label), _count(entering[i], show[i]),

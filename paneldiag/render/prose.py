@@ -210,6 +210,7 @@ ENTRY_WORDS = {
     "refreshment": "a main sample at the first wave with refreshment samples joining later",
     "cohort_sequential": "cohort-sequential: units entered spread over many waves",
     "mixed_entry": "mixed: units entered at several waves, in no regular pattern",
+    "one_wave_each": "repeated cross-sections: no unit was observed at more than one wave",
 }
 
 
@@ -430,6 +431,7 @@ def unit_of_time(report: dict) -> str:
 
 
 def verdicts(report: dict, cite: Citations) -> list[str]:
+    from paneldiag.render.text_verdicts import common_undetermined_reason
     families = report.get("families")
     out = []
     if isinstance(families, list) and families:
@@ -443,6 +445,9 @@ def verdicts(report: dict, cite: Citations) -> list[str]:
                      for verdict, names in grouped.items()]
             text = ("On the screening evidence, the process families read as follows: "
                     + "; ".join(parts) + ".")
+            reason = common_undetermined_reason(families)
+            if reason:
+                text += f" No family could be judged: {reason[0].lower()}{reason[1:]}"
             nxt = report.get("next_models")
             if isinstance(nxt, list) and nxt:
                 names = [str(m.get("model") or m.get("family") or "") if isinstance(m, dict)

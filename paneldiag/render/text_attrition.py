@@ -32,7 +32,8 @@ def _pct(value) -> str:
 
 
 DESIGN_NAMES = {"single_cohort": "single cohort", "refreshment": "refreshment samples",
-                "cohort_sequential": "cohort-sequential entry", "mixed_entry": "mixed entry"}
+                "cohort_sequential": "cohort-sequential entry", "mixed_entry": "mixed entry",
+                "one_wave_each": "no unit observed twice"}
 
 
 def entry_line(entry: dict, short: bool = False) -> str:

@@ -85,6 +85,9 @@ def verdicts_block(report: dict, color: bool) -> list[str]:
             lines.append(f"  measurement: {label} {value}, {error}{what}. {m['advice']}")
         else:
             lines.append(f"  measurement: {m['advice']}")
+    reason = common_undetermined_reason(report["families"])
+    if reason:   # the table shows no figures then
+        lines.append(f"  no family can be judged: {reason[0].lower()}{reason[1:]}")
     lines += power_lines(report.get("power") or [], DISPLAY)
     caveats = []
     for f in report["families"]:
@@ -97,6 +100,16 @@ def verdicts_block(report: dict, color: bool) -> list[str]:
         lines.append("  next models to fit and compare:")
         lines += [f"    {m['rank']}. {m['model']}" for m in nxt]
     return lines
+
+
+def common_undetermined_reason(families: list) -> str | None:
+    """The one reason no family could be judged (too few units or waves, no pair of
+    waves observed together), or None when some family was judged."""
+    reasons = {f["evidence"][0] if f.get("evidence") else None for f in families}
+    if families and all(f.get("verdict") == "undetermined" for f in families) \
+            and len(reasons) == 1 and None not in reasons:
+        return reasons.pop()
+    return None
 
 
 def power_lines(rows: list, display: dict) -> list[str]:

@@ -1454,7 +1454,8 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=
                                       evidence, tuple(caveats)))
     families.sort(key=lambda fv: (VERDICT_ORDER[fv.verdict], -fv.score))
     measurement = _measurement(inp, th, led, verdict, ev)
-    next_models = _next_models(families)
+    # nothing was fitted (no usable covariance): no model can be recommended from it
+    next_models = _next_models(families) if ev is not None else []
     labels = {k: STATISTIC_LABELS[k] for k in led.stats if k in STATISTIC_LABELS}
     for key in ("reliability", "reliability_lower_bound"):
         if key in led.stats and measurement.label:
