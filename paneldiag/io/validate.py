@@ -17,7 +17,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.ledger import Ledger
 from paneldiag.io.readers import RawTable, column_not_found
 from paneldiag.io.waves import (MAX_WAVES, WaveGrouping, WaveReading, check_shared_waves,
-                                number_text, read_waves)
+                                number_text, read_waves, too_many_waves)
 from paneldiag.panel import Panel
 
 DUPLICATE_POLICIES = ("error", "first", "last", "mean")
@@ -410,6 +410,14 @@ def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
     def problem(what: str, index: int | None = None) -> InputProblem:
         row = None if index is None else raw.row_number(rows[np.flatnonzero(codes == index)[0]])
         return InputProblem(what, file=raw.source, row=row, column=spec.wave)
+
+    if len(uniques) > spec.max_waves and not spec.wave_grouping.active:
+        # before the labels are read one by one (dates, natural order) and before any
+        # matrix of units by waves is made: a column of continuous time stops here
+        numbers = np.sort(np.asarray(uniques, dtype=float)) if dense is not None else None
+        raise problem(too_many_waves(f"the wave column '{spec.wave}'", len(uniques),
+                                     spec.max_waves, numbers,
+                                     "text" if numbers is None else "numbers"))
 
     reading = read_waves(uniques, f"the wave column '{spec.wave}'", problem, spec.date_format,
                          spec.wave_order, spec.wave_grouping)
