@@ -774,6 +774,10 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     if len(widths) != 1:
         raise InputProblem("every --wide measure must list the same number of wave columns")
     n_waves = widths.pop()
+    if n_waves > spec.max_waves:
+        raise InputProblem(f"--wide names {n_waves:,} wave columns a measure, more than the "
+                           f"{spec.max_waves} waves a panel screen takes (raise the limit "
+                           "with --max-waves)")
     all_rows = np.arange(n_rows)
     if spec.id_columns:
         id_missing = _ids_missing(frame, spec)
