@@ -72,7 +72,9 @@ def test_weak_identification_reaches_the_json_and_the_terminal(tmp_path):
     report, text = _screen(tmp_path, _scores(0.3, 4, 300, seed=0), "weak")
     rows = report["verdict_basis"]["specifications"]["growth_autoregressive"]["specifications"]
     chosen = next(r for r in rows if r.get("chosen"))
-    assert "flat along the carry-over" in chosen["weak_identification"]
+    flat = chosen["weak_identification"]
+    assert "flat along the carry-over" in flat["note"]
+    assert abs(flat["rho"][1] - flat["rho"][0]) > 0.1 and 0 <= flat["deviance_gap"] <= 1.0
     family = next(f for f in report["families"] if f["family"] == "growth_autoregressive")
     assert any(c.startswith("Weakly identified") for c in family["caveats"])
     assert "Weakly identified (random intercept and slope + stationary carry-over" in text

@@ -293,9 +293,8 @@ class Fit:
     theta_cov: np.ndarray | None
     sigma: np.ndarray
     n_params: int = 0
-    # why the fit is weakly identified (starts that reach nearly the same likelihood at
-    # materially different carry-over coefficients), or None
-    weak_identification: str | None = None
+    # where the fit is weakly identified (``flat_likelihood``), or None
+    weak_identification: dict | None = None
 
     def derived(self, fn) -> tuple[float, float, float]:
         """(estimate, ci_low, ci_high) of fn(params) by the delta method."""
@@ -547,9 +546,10 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
                n_params=q, weak_identification=flat_likelihood(structure, first, m))
 
 
-def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> str | None:
-    """Why the likelihood of a growth + carry-over fit is flat along the carry-over, or
-    None. Candidates are the ends of the fit's starts and the profile of rho: the fit
+def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict | None:
+    """Where the likelihood of a growth + carry-over fit is flat along the carry-over
+    (``{"rho": [low, high], "deviance_gap": g}``: two values of rho whose fits differ by
+    g in scaled deviance), or None. Candidates are the ends of the fit's starts and the profile of rho: the fit
     with rho held at each of ``PROFILE_RHO`` (those more than ``m.flat_coefficient``
     from the estimate). When one reaches a scaled -2 log-likelihood (N F / scaling)
     within ``m.flat_loglik`` of the best at a rho more than ``m.flat_coefficient``
@@ -586,9 +586,7 @@ def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> str | 
         if gap <= m.flat_loglik and apart > m.flat_coefficient and (carries(x) or
                                                                      carries(best)):
             low, high = sorted((float(best[rho_at]), float(x[rho_at])))
-            return (f"rho {low:.2f} and rho {high:.2f} reach likelihoods within "
-                    f"{max(gap, 0.0):.2g} (-2 log L) of each other: the likelihood is flat "
-                    "along the carry-over")
+            return {"rho": [low, high], "deviance_gap": max(float(gap), 0.0)}
     return None
 
 

@@ -1451,8 +1451,8 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=
         chosen = ev.chosen(fam) if ev is not None else None
         if chosen is not None and chosen.weak_identification:
             caveats.append(f"Weakly identified ({chosen.structure.label}): "
-                           f"{chosen.weak_identification}, so its parameters are not pinned "
-                           "down by these data; more waves would separate them.")
+                           f"{_weak_identification(chosen)['note']}, so its parameters are "
+                           "not pinned down by these data; more waves would separate them.")
         diff = ev.difference.get(fam) if ev is not None else None
         weight = ev.weight.get(fam) if ev is not None else None
         families.append(FamilyVerdict(fam, v, score,
@@ -1493,12 +1493,21 @@ def _spec_table(ev: Evidence, inp: Inputs) -> dict:
                 "bic_vs_chosen": _r(_criterion(fit, m) - _criterion(ff.chosen, m), 2),
                 "rmsea": _r(fit.rmsea), "rmsea_ci": [_r(v) for v in fit.rmsea_ci],
                 "srmr": _r(fit.srmr), "cfi": _r(comparative_fit(fit, baseline, m.n_units, t)),
-                **({"weak_identification": fit.weak_identification}
+                **({"weak_identification": _weak_identification(fit)}
                    if fit.weak_identification else {})})
         out[fam] = {"mean_shape": ff.mean_shape,
                     "bic_difference": _r(ev.difference.get(fam), 2),
                     "bic_weight": _r(ev.weight.get(fam), 4), "specifications": rows}
     return out
+
+
+def _weak_identification(fit: st.Fit) -> dict:
+    flat = fit.weak_identification
+    low, high = (_r(v, 4) for v in flat["rho"])
+    gap = _r(flat["deviance_gap"], 4)
+    return {"rho": [low, high], "deviance_gap": gap,
+            "note": f"the likelihood is flat along the carry-over: rho {low:.2f} and "
+                    f"{high:.2f} fit within {gap:.2f} in deviance"}
 
 
 def _next_models(families) -> list[NextModel]:
