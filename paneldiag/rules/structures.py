@@ -549,9 +549,9 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
 def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict | None:
     """Where the likelihood of a growth + carry-over fit is flat along the carry-over
     (``{"rho": [low, high], "deviance_gap": g}``: two values of rho whose fits differ by
-    g in scaled deviance), or None. Candidates are the ends of the fit's starts and the profile of rho: the fit
-    with rho held at each of ``PROFILE_RHO`` (those more than ``m.flat_coefficient``
-    from the estimate). When one reaches a scaled -2 log-likelihood (N F / scaling)
+    g in scaled deviance), or None. Candidates are the ends of the fit's starts and the
+    profile of rho: the fit with rho held at each of ``PROFILE_RHO`` (those more than
+    ``m.flat_coefficient`` from the estimate). When one reaches a scaled -2 log-likelihood (N F / scaling)
     within ``m.flat_loglik`` of the best at a rho more than ``m.flat_coefficient``
     away, the data cannot tell the carry-over from the growth and error parts (with
     few waves they trade off: Bollen and Curran 2004, Sociological Methods & Research
