@@ -23,16 +23,17 @@ DEGENERATE = FIXTURES / "degenerate"
 LONG = ["--id", "household", "--wave", "year", "--value", "satisfaction"]
 REASON = re.compile(r"reason|note|problem|skipped|caveat|scale_basis", re.I)
 
-# file -> the kinds of finding its degenerate section must hold
+# (file, extra options) -> the kinds of finding its degenerate section must hold
 CASES = {
-    "constant_wave.csv": {"constant_wave"},
-    "identical_waves.csv": {"perfect_correlation"},
-    "one_respondent_wave.csv": {"too_few_respondents"},
-    "two_units.csv": {"fewer_units_than_waves", "below_min_cell"},
-    "two_waves.csv": {"two_waves"},
-    "fewer_units_than_waves.csv": {"fewer_units_than_waves"},
-    "one_category.csv": {"one_value"},
-    "observed_once.csv": {"seen_once"},
+    ("constant_wave.csv", ()): {"constant_wave"},
+    ("identical_waves.csv", ()): {"perfect_correlation"},
+    ("one_respondent_wave.csv", ()): {"too_few_respondents"},
+    ("two_units.csv", ()): {"fewer_units_than_waves", "below_min_cell"},
+    ("two_waves.csv", ()): {"two_waves"},
+    ("fewer_units_than_waves.csv", ()): {"fewer_units_than_waves"},
+    ("one_category.csv", ()): {"one_value"},
+    ("one_category.csv", ("--ordinal",)): {"one_value"},
+    ("observed_once.csv", ()): {"seen_once"},
 }
 
 
@@ -70,14 +71,15 @@ def healthy_nulls(tmp_path_factory):
     return _bare_nulls(report)
 
 
-@pytest.mark.parametrize("name", sorted(CASES))
-def test_degenerate_panel_states_its_reasons(tmp_path, healthy_nulls, name):
-    done, out = _screen(tmp_path, name)
+@pytest.mark.parametrize("name,extra", sorted(CASES), ids=[" ".join([n, *e]) for n, e in
+                                                             sorted(CASES)])
+def test_degenerate_panel_states_its_reasons(tmp_path, healthy_nulls, name, extra):
+    done, out = _screen(tmp_path, name, *extra)
     assert done.returncode == 0, done.stderr.decode()
     text = done.stdout.decode()
     report = json.loads(out.read_text())
     findings = report.get("degenerate", [])
-    assert CASES[name] <= {f["kind"] for f in findings}
+    assert CASES[name, extra] <= {f["kind"] for f in findings}
     affected = {area for f in findings for area in f["affects"]}
     unexplained = sorted(path for path in _bare_nulls(report) - healthy_nulls
                          if path.split("/")[0] not in affected)
