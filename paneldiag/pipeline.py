@@ -14,6 +14,7 @@ from typing import Callable
 from paneldiag import SCHEMA_VERSION, __version__
 from paneldiag.diagnostics.attrition import attrition_section
 from paneldiag.diagnostics.crosslag import cross_lag_screen
+from paneldiag.diagnostics.degenerate import degenerate_section
 from paneldiag.diagnostics.groups import group_screen
 from paneldiag.diagnostics.missingness import missingness_section
 from paneldiag.diagnostics.profile import wave_profile
@@ -84,6 +85,7 @@ Section = tuple[str, Callable[[MeasureContext], object]]
 # only these summaries.
 AUDIT_SECTIONS: list[Section] = [
     ("panel", _panel_section),
+    ("degenerate", degenerate_section),
     ("wave_profile", lambda ctx: wave_profile(ctx.summary(WaveMoments), ctx.panel.wave_labels)),
     ("attrition", attrition_section),
     ("missingness", missingness_section),

@@ -11,7 +11,7 @@ from dataclasses import dataclass, fields
 from typing import Callable
 
 from paneldiag.errors import InputProblem
-from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel, parse_size
 from paneldiag.io.waves import MAX_WAVES, WaveGrouping
 
 
@@ -32,6 +32,7 @@ class ScreenRequest:
     wave_bins: str | None = None
     wave_round: str | None = None
     max_waves: int = MAX_WAVES
+    memory_limit: str | int | None = None  # e.g. '8G'; None: 3/4 of the machine's memory
     weight: str | None = None
     group: str | None = None
     covariate: tuple[str, ...] = ()
@@ -66,7 +67,8 @@ class ScreenRequest:
             wave_times=list_option(self.wave_times, "--wave-times", numeric=True),
             wave_order=self.wave_order, date_format=self.date_format,
             wave_grouping=WaveGrouping.parse(self.wave_bins, self.wave_round),
-            max_waves=self.max_waves, weight=self.weight, group=self.group,
+            max_waves=self.max_waves, memory_limit=parse_size(self.memory_limit),
+            weight=self.weight, group=self.group,
             covariates=tuple(self.covariate),
             missing_codes=MissingCodes.parse(self.missing_codes), duplicates=self.duplicates,
             bad_values="drop" if self.drop_bad_rows else "error")

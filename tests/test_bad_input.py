@@ -43,6 +43,19 @@ def load_cases() -> list[tuple[str, list[str], str, str]]:
 CASES = load_cases()
 
 
+def load_limit_cases() -> list[tuple[str, list[str], str, str]]:
+    """The resource-limit cases of fixtures/bad/expected-limits.txt (same format)."""
+    cases = []
+    for line in (BAD / "expected-limits.txt").read_text(encoding="utf-8").splitlines():
+        if line.strip() and not line.startswith("#"):
+            name, options, fragment, location = (part.strip() for part in line.split(" | "))
+            cases.append((name, shlex.split(options), fragment, location))
+    return cases
+
+
+LIMIT_CASES = load_limit_cases()
+
+
 def digest(path) -> str:
     return hashlib.sha256(path.read_bytes()).hexdigest()
 
@@ -117,8 +130,8 @@ def test_entry_point_agrees(outcomes, tmp_path, name):
 
 
 def test_corpus_is_complete():
-    listed = {case[0] for case in CASES}
-    present = {p.name for p in BAD.iterdir() if p.name != "expected.txt"}
+    listed = {case[0] for case in CASES + LIMIT_CASES}
+    present = {p.name for p in BAD.iterdir() if not p.name.startswith("expected")}
     assert listed == present
     assert len(listed) >= 15
 
@@ -193,3 +206,63 @@ def test_empty_standard_input(tmp_path):
                      stdin=b"")
     assert result.returncode == 2
     assert result.stderr.decode() == "paneldiag: error: file is empty (-)\n"
+
+
+# ------------------------------------------------------------------- resource limits
+# Inputs beyond a limit (waves, memory) or a measure that is text stop with one line
+# naming the limit and how to raise it, before the units x waves matrices are made.
+
+@pytest.mark.parametrize("name,options,fragment,location", LIMIT_CASES,
+                         ids=[f"{c[0]}:{c[1][-2]}" for c in LIMIT_CASES])
+def test_resource_limit(tmp_path, name, options, fragment, location):
+    source = BAD / name
+    before = digest(source)
+    result = run_forked(["screen", source, *options, "--json", tmp_path / "report.json"],
+                        tmp_path)
+    lines = result.stderr.decode("utf-8").splitlines()
+    assert result.returncode == 2 and len(lines) == 1, lines
+    assert lines[0].startswith("paneldiag: error: ") and fragment in lines[0]
+    assert "limit" in lines[0] or "text, not numbers" in lines[0]
+    if location == "none":
+        assert str(source) not in lines[0]
+    else:
+        suffix = "" if location == "-" else f":{location}"
+        assert lines[0].endswith(f"({source}{suffix})")
+    assert result.stdout == b"" and list(tmp_path.iterdir()) == []
+    assert digest(source) == before
+
+
+def test_memory_limit_raised_as_the_message_says(tmp_path):
+    # the remedy the message offers (--memory-limit 188KiB) lets the same screen run
+    result = run_forked(["screen", BAD / "limits_memory.csv", "--id", "household", "--wave",
+                         "year", "--value", "trust", "--memory-limit", "188KiB", "--audit-only",
+                         "--json", tmp_path / "report.json"], tmp_path)
+    assert result.returncode == 0, result.stderr.decode()
+    assert (tmp_path / "report.json").exists()
+
+
+def test_memory_limit_must_be_a_size(tmp_path):
+    result = run_forked(["screen", BAD / "limits_memory.csv", "--id", "household", "--wave",
+                         "year", "--value", "trust", "--memory-limit", "lots"], tmp_path)
+    lines = result.stderr.decode().splitlines()
+    assert result.returncode == 2 and len(lines) == 1
+    assert "--memory-limit must be a size such as 512M, 8G or 1.5T, got 'lots'" in lines[0]
+
+
+def test_millions_of_wave_labels_stop_before_the_labels_are_read(tmp_path):
+    # a million distinct visit labels: the count is checked on the factorised column,
+    # before the labels are parsed one by one and before any matrix is made; the child's
+    # peak memory stays near that of reading the file (checked loosely: within 1 GiB)
+    import resource
+    rows = 1_000_000
+    data = tmp_path / "visits.csv"
+    with open(data, "w") as f:
+        f.write("household,visit,energy_use\n")
+        f.writelines(f"H{i // 2},v{i},1.5\n" for i in range(rows))
+    result = run_forked(["screen", data, "--id", "household", "--wave", "visit", "--value",
+                         "energy_use"], tmp_path)
+    lines = result.stderr.decode().splitlines()
+    assert result.returncode == 2 and len(lines) == 1
+    assert "has 1,000,000 distinct values, more than the 500 waves" in lines[0]
+    peak_kib = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+    assert peak_kib < 1024 * 1024, peak_kib

@@ -136,19 +136,20 @@ def test_leave_one_out_equals_the_other_groups_units():
     rng = np.random.default_rng(15)
     x, groups = _panel_values(rng, n=2500)
     k = 5
-    groups[groups == 2] = 1   # group 2 has no units: leaving it out leaves everything
+    groups[groups == 2] = 1   # group 2 has no units: it gets no copy (tests/test_jackknife.py)
     reps = ReplicatePatternMoments.from_chunk(_chunk(x, groups, k))
     left = list(reps.leave_one_out())
-    assert len(left) == k
-    for g in range(k):
+    occupied = [0, 1, 3, 4]
+    assert len(left) == len(occupied)
+    for i, g in enumerate(occupied):
         keep = groups != g
         other = PatternMoments.from_chunk(_chunk(x[keep], groups[keep], k))
-        np.testing.assert_array_equal(left[g].observed, other.observed)
-        np.testing.assert_array_equal(left[g].n, other.n)
-        np.testing.assert_array_equal(left[g].replicate_n, other.replicate_n)
-        np.testing.assert_allclose(left[g].mean, other.mean, rtol=1e-13, atol=1e-13)
-        np.testing.assert_allclose(left[g].m2, other.m2, rtol=1e-11, atol=1e-9)
-        assert np.all(left[g].replicate_n[:, g] == 0)
+        np.testing.assert_array_equal(left[i].observed, other.observed)
+        np.testing.assert_array_equal(left[i].n, other.n)
+        np.testing.assert_array_equal(left[i].replicate_n, other.replicate_n)
+        np.testing.assert_allclose(left[i].mean, other.mean, rtol=1e-13, atol=1e-13)
+        np.testing.assert_allclose(left[i].m2, other.m2, rtol=1e-11, atol=1e-9)
+        assert np.all(left[i].replicate_n[:, g] == 0)
 
 
 def test_many_waves_cells_use_byte_keys():

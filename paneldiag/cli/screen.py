@@ -59,6 +59,10 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
 @click.option("--max-waves", type=click.IntRange(2), default=D("max_waves"), show_default=True,
               help="Most distinct wave values a screen takes (above 40, only when most units "
                    "answer a quarter of them or more; else they look like continuous time).")
+@click.option("--memory-limit", metavar="SIZE",
+              help="Most memory the screen may need (e.g. 8G, 512M); a panel whose units x "
+                   "waves matrices would need more stops before they are made. Default: "
+                   "three quarters of the machine's memory.")
 @click.option("--weight", metavar="COL", help="Longitudinal weight, one per unit.")
 @click.option("--group", metavar="COL", help="A grouping column, constant within unit.")
 @click.option("--covariate", "covariate", metavar="COL", multiple=True,

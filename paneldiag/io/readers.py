@@ -272,7 +272,28 @@ def _record_lines(path, raw, sep) -> np.ndarray:
 def _to_frame(table) -> pd.DataFrame:
     """An Arrow table as a DataFrame, one block per column (no consolidating copy),
     freeing each Arrow column once converted, so the table is not held twice."""
+    table = _exact_large_integers(table)
     return table.to_pandas(types_mapper=_arrow_types, split_blocks=True, self_destruct=True)
+
+
+EXACT_INTEGER = 2 ** 53   # integers beyond it do not all survive a double
+
+
+def _exact_large_integers(table):
+    """An integer column with empty cells becomes doubles in pandas, where ids such as
+    9007199254740993 and 9007199254740992 would fall together: such a column whose
+    values go beyond 2^53 is kept as their decimal text instead (exact and distinct)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    for i, field in enumerate(table.schema):
+        column = table.column(i)
+        if not pa.types.is_integer(field.type) or column.null_count == 0:
+            continue
+        extent = pc.min_max(column)
+        low, high = extent["min"].as_py(), extent["max"].as_py()
+        if low is not None and max(abs(low), abs(high)) > EXACT_INTEGER:
+            table = table.set_column(i, field.name, column.cast(pa.string()))
+    return table
 
 
 def _arrow_types(arrow_type):

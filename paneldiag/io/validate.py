@@ -7,6 +7,7 @@ values scattered into the units x waves matrix by integer indexing.
 
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass, field
 
@@ -17,7 +18,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.ledger import Ledger
 from paneldiag.io.readers import RawTable, column_not_found
 from paneldiag.io.waves import (MAX_WAVES, WaveGrouping, WaveReading, check_shared_waves,
-                                number_text, read_waves)
+                                number_text, read_waves, too_many_waves)
 from paneldiag.panel import Panel
 
 DUPLICATE_POLICIES = ("error", "first", "last", "mean")
@@ -82,6 +83,7 @@ class LayoutSpec:
     date_format: str | None = None     # day-first, month-first or a strftime pattern
     wave_grouping: WaveGrouping = field(default_factory=WaveGrouping)
     max_waves: int = MAX_WAVES
+    memory_limit: int | None = None    # bytes; None: MEMORY_SHARE of the machine's memory
 
     @property
     def layout(self) -> str:
@@ -195,6 +197,7 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     labels, times = reading.labels, _override_times(spec, reading.times, len(reading.labels))
     n_units, n_waves = len(unit_ids), len(labels)
     _check_extent(raw, n_units, n_waves)
+    check_memory(spec, n_units, n_waves, raw.source)
     check_shared_waves(wave_index, reading.times, f"the wave column '{spec.wave}'",
                        lambda what: InputProblem(what, file=raw.source, column=spec.wave),
                        spec.wave_grouping, spec.max_waves, reading.kind, n_units)
@@ -398,6 +401,68 @@ def _check_extent(raw: RawTable, n_units: int, n_waves: int) -> None:
                            file=raw.source)
 
 
+# The screen works on a units x waves matrix of doubles per measure (and per item of a
+# scale) and on copies of it: summaries by chunk, ranks, trajectories. Its peak memory was
+# 12 times one matrix on the benchmark panel of 1,000,000 x 20, reading included
+# (docs/performance.md: 1.96 GB); without the reading, about 8.
+WORKING_COPIES = 8
+MEMORY_SHARE = 0.75   # the default limit: this share of the machine's physical memory
+
+
+def machine_memory() -> int | None:
+    try:
+        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (ValueError, OSError, AttributeError):   # not known on this system
+        return None
+
+
+def check_memory(spec: LayoutSpec, n_units: int, n_waves: int, source: str) -> None:
+    """Stop before the units x waves matrices are made when the screen would need more
+    memory than the limit (``--memory-limit``; by default three quarters of the
+    machine's memory), with the figures and what to do."""
+    limit = spec.memory_limit
+    if limit is None:
+        total = machine_memory()
+        if total is None:
+            return
+        limit, whose = int(MEMORY_SHARE * total), "three quarters of this machine's memory"
+    else:
+        whose = "--memory-limit"
+    matrices = len(spec.measure_names()) + sum(len(cols) for _, cols in spec.items)
+    matrix = 8 * n_units * n_waves
+    needed = WORKING_COPIES * matrix * matrices
+    if needed > limit:
+        raise InputProblem(
+            f"{n_units:,} units x {n_waves:,} waves x {matrices} measure(s) make matrices of "
+            f"{size_text(matrix * matrices)} and the screen needs about {WORKING_COPIES} times "
+            f"that, {size_text(needed)}, more than the limit of {size_text(limit)} ({whose}): "
+            "screen a sample of the units, fewer waves or one measure at a time, or raise the "
+            f"limit with --memory-limit SIZE (e.g. --memory-limit "
+            f"{size_text(needed * 1.25).replace(' ', '')})", file=source)
+
+
+def size_text(n_bytes: float) -> str:
+    """A size in bytes written with its binary unit: 1.5 GiB, 320 MiB."""
+    for unit, power in (("TiB", 40), ("GiB", 30), ("MiB", 20), ("KiB", 10)):
+        if n_bytes >= 2 ** power:
+            value = n_bytes / 2 ** power
+            return f"{value:.3g} {unit}" if value < 100 else f"{value:.0f} {unit}"
+    return f"{int(n_bytes)} B"
+
+
+def parse_size(text) -> int | None:
+    """Bytes of a size written as a number with an optional unit (K, M, G, T, with or
+    without 'B' or 'iB'; binary multiples): '512M', '8G', '1.5 GiB', 2000000000."""
+    if text is None:
+        return None
+    match = re.fullmatch(r"\s*(\d+(?:\.\d+)?)\s*([KMGT]?)(?:i?B)?\s*", str(text), re.I)
+    if not match or float(match.group(1)) <= 0:
+        raise InputProblem(f"--memory-limit must be a size such as 512M, 8G or 1.5T, got "
+                           f"'{text}'")
+    power = " KMGT".index(match.group(2).upper() or " ")
+    return int(float(match.group(1)) * 1024 ** power)
+
+
 def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
     """Wave index per row (-1 outside the --wave-bins), the reading of the waves, and the
     index of each row's distinct label (for the grouping record)."""
@@ -410,6 +475,14 @@ def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
     def problem(what: str, index: int | None = None) -> InputProblem:
         row = None if index is None else raw.row_number(rows[np.flatnonzero(codes == index)[0]])
         return InputProblem(what, file=raw.source, row=row, column=spec.wave)
+
+    if len(uniques) > spec.max_waves and not spec.wave_grouping.active:
+        # before the labels are read one by one (dates, natural order) and before any
+        # matrix of units by waves is made: a column of continuous time stops here
+        numbers = np.sort(np.asarray(uniques, dtype=float)) if dense is not None else None
+        raise problem(too_many_waves(f"the wave column '{spec.wave}'", len(uniques),
+                                     spec.max_waves, numbers,
+                                     "text" if numbers is None else "numbers"))
 
     reading = read_waves(uniques, f"the wave column '{spec.wave}'", problem, spec.date_format,
                          spec.wave_order, spec.wave_grouping)
@@ -550,6 +623,15 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
         if column in raw.tagged_missing:
             text_bad &= pd.isna(raw.tagged_missing[column][rows])
         outcome[text_bad] = NON_NUMERIC
+        if text_bad.any() and not np.isfinite(numbers).any():
+            i = int(np.flatnonzero(text_bad)[0])
+            example = _shown_value(series.iloc[i])
+            raise InputProblem(
+                f"the column '{column}' holds text, not numbers: none of its "
+                f"{int(text_bad.sum()):,} filled cells is a number (e.g.{example} here); a "
+                "measure must be numeric: recode its categories as numbers "
+                "(1, 2, 3, ...) or name a numeric column",
+                file=raw.source, row=raw.row_number(rows[i]), column=column)
         _refuse(raw, spec, column, rows, text_bad, "non-numeric value",
                 lambda i: _shown_value(series.iloc[i]))
     infinite = np.isinf(numbers)
@@ -692,6 +774,10 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     if len(widths) != 1:
         raise InputProblem("every --wide measure must list the same number of wave columns")
     n_waves = widths.pop()
+    if n_waves > spec.max_waves:
+        raise InputProblem(f"--wide names {n_waves:,} wave columns a measure, more than the "
+                           f"{spec.max_waves} waves a panel screen takes (raise the limit "
+                           "with --max-waves)")
     all_rows = np.arange(n_rows)
     if spec.id_columns:
         id_missing = _ids_missing(frame, spec)
@@ -707,6 +793,7 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         unit_ids = np.arange(1, n_rows + 1)
     labels, times, basis = _wide_waves(spec, spec.wide[0][1])
     _check_extent(raw, len(unit_ids), n_waves)
+    check_memory(spec, len(unit_ids), n_waves, raw.source)
     kept, n_duplicate = _resolve_duplicates(raw, spec, unit_index, rows, unit_ids, ("",), 1)
     if spec.duplicates == "mean" and n_duplicate:
         raise InputProblem("--duplicates mean is for long data; choose first or last for "

@@ -587,18 +587,10 @@ def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, pr
     sparsely, or most rows alone at their time."""
     n_waves = len(times)
     coverage = len(wave_index) / max(n_units * n_waves, 1)
-    step = _round_step((times[-1] - times[0]) / 8)
-    edges = np.arange(np.floor(times[0] / step), np.ceil(times[-1] / step) + 1) * step
-    remedy = (f"group them with --wave-bins EDGES (e.g. {','.join(map(number_text, edges))}) "
-              "or --wave-bins N (N equal-width bins), or round them with --wave-round STEP")
-    if kind == "dates":
-        remedy = f"group them with --wave-round {'|'.join(PERIODS)}"
+    remedy = _grouping_remedy(times, kind)
     after = " after grouping" if grouping.active else ""
     if n_waves > max_waves:
-        looks = "" if kind == "text" else ": if it is continuous time, " + remedy
-        raise problem(
-            f"{where} has {n_waves:,} distinct values{after}, more than the {max_waves} waves "
-            f"a panel screen takes{looks} (or raise the limit with --max-waves)")
+        raise problem(too_many_waves(where + after, n_waves, max_waves, times, kind))
     if n_waves > SPARSE_ABOVE_WAVES and kind != "text" and coverage < MIN_OCCASION_COVERAGE:
         raise problem(
             f"{where} has {n_waves:,} distinct values{after} and the units answer "
@@ -611,6 +603,25 @@ def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, pr
         raise problem(
             f"{where}: {alone:,} of {len(wave_index):,} rows are the only row at their "
             f"time, so the units have their own times, not shared waves; {remedy}")
+
+
+def too_many_waves(where: str, n_waves: int, max_waves: int, times=None,
+                   kind: str = "text") -> str:
+    """The message for a wave column of more distinct values than ``max_waves``: the
+    limit, how to group continuous time (numbers or dates), and how to raise it."""
+    looks = "" if kind == "text" else ": if it is continuous time, " + \
+        _grouping_remedy(times, kind)
+    return (f"{where} has {n_waves:,} distinct values, more than the {max_waves} waves a "
+            f"panel screen takes{looks} (or raise the limit with --max-waves)")
+
+
+def _grouping_remedy(times, kind: str) -> str:
+    if kind == "dates":
+        return f"group them with --wave-round {'|'.join(PERIODS)}"
+    step = _round_step((times[-1] - times[0]) / 8)
+    edges = np.arange(np.floor(times[0] / step), np.ceil(times[-1] / step) + 1) * step
+    return (f"group them with --wave-bins EDGES (e.g. {','.join(map(number_text, edges))}) "
+            "or --wave-bins N (N equal-width bins), or round them with --wave-round STEP")
 
 
 def _round_step(width: float) -> float:

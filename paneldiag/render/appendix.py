@@ -425,8 +425,12 @@ def _min_cell(report: dict) -> int:
 
 
 def cautions_note(report: dict) -> Note:
-    first = next(iter(measure_reports(report).values()))
+    measures = measure_reports(report)
+    first = next(iter(measures.values()))
     items = list(first.get("cautions") or [])
+    for name, one in measures.items():   # what the data leave undefined, and why
+        items += [f"Not defined for {name}: {finding['note']}."
+                  for finding in one.get("degenerate") or []]
     items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
                  "and shares that would reveal them, appear as '<' the threshold, and "
                  "counts or shares that would give one by subtraction as '–' (each table's "

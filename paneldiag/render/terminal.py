@@ -50,7 +50,17 @@ def _wave_profile(report: dict, color: bool) -> list[str]:
     return [heading("Wave profile", color)] + ["  " + line for line in body.splitlines()]
 
 
+def degenerate_block(report: dict, color: bool = False) -> list[str]:
+    """What the data leave undefined, and why: shown whenever there is any."""
+    findings = report.get("degenerate") or []
+    if not findings:
+        return []
+    return [heading("Not defined for these data", color)] + \
+        [f"  · {finding['note'][0].upper()}{finding['note'][1:]}." for finding in findings]
+
+
 SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
+    ("degenerate", degenerate_block),
     ("families", verdicts_block),
     ("ledger", _intake),
     ("wave_profile", _wave_profile),
@@ -63,7 +73,7 @@ SECTION_RENDERERS: list[tuple[str, Callable[[dict, bool], list[str]]]] = [
 ]
 
 
-SUMMARY_KEYS = ("families",)  # blocks of SECTION_RENDERERS shown without --details
+SUMMARY_KEYS = ("degenerate", "families")  # blocks of SECTION_RENDERERS shown without --details
 
 
 def render_measure(report: dict, color: bool = False, details: bool = False) -> str:

@@ -53,7 +53,7 @@ import numpy as np
 from scipy import optimize, special
 
 from paneldiag import distributions as dist
-from paneldiag.rules.parts import Error, Part, Scale
+from paneldiag.rules.parts import Carry, Error, Part, Scale
 
 Z95 = float(dist.norm_ppf(0.975))
 # Relative difference of two discrepancies below which they count as equal: the fits
@@ -63,6 +63,8 @@ TIE = 1e-10
 # smallest singular value of the structure's Jacobian, relative to its largest, at a
 # generic point: below it the structure is not (locally) identified at these waves
 IDENTIFIED = 1e-7
+# carry-over coefficients at which a growth + carry-over fit is profiled for flatness
+PROFILE_RHO = (0.05, 0.25, 0.45, 0.65, 0.85)
 
 
 _SIZES: dict = {}   # parameters per part, by (structure, number of waves)
@@ -291,6 +293,8 @@ class Fit:
     theta_cov: np.ndarray | None
     sigma: np.ndarray
     n_params: int = 0
+    # where the fit is weakly identified (``flat_likelihood``), or None
+    weak_identification: dict | None = None
 
     def derived(self, fn) -> tuple[float, float, float]:
         """(estimate, ci_low, ci_high) of fn(params) by the delta method."""
@@ -357,6 +361,10 @@ class Moments:
     copies: np.ndarray | None = None
     # above this many waves, specifications with a parameter per wave are not fitted
     max_waves_per_wave: int | None = None
+    # a flat likelihood: starts within this scaled -2 log-likelihood of the best whose
+    # carry-over coefficients differ by more than ``flat_coefficient`` (None: not checked)
+    flat_loglik: float | None = None
+    flat_coefficient: float | None = None
 
     def __post_init__(self):
         self.scale = Scale.of(self.sigma)
@@ -459,6 +467,7 @@ def _scoring(fn, structure: Structure, times, start, lower, upper, tol: float,
 class _Result:
     x: np.ndarray
     fun: float
+    ends: list = field(default_factory=list)   # (x, fun) reached from every start
 
 
 def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float):
@@ -471,7 +480,7 @@ def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float)
         value, grad = fn(z * typical)
         return value, grad * typical
 
-    best = None
+    best, ends = None, []
     for start in starts:
         theta, value, converged = _scoring(fn, structure, times, start, lower, upper, tol)
         if not converged:
@@ -480,8 +489,10 @@ def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float)
                                     options={"maxiter": 500, "ftol": 1e-13, "gtol": 1e-9})
             if res.fun <= value:
                 theta, value = res.x * typical, float(res.fun)
+        ends.append((theta, value))
         if best is None or value < best.fun:
             best = _Result(theta, value)
+    best.ends = ends
     return best
 
 
@@ -532,7 +543,51 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
     stats = fit_statistics(value, m, df, sigma)
     return Fit(structure, dict(zip(structure.names(t), map(float, theta))), theta, value,
                *stats, theta_cov=_information_cov(sigma, grads, m.n_eff), sigma=sigma,
-               n_params=q)
+               n_params=q, weak_identification=flat_likelihood(structure, first, m))
+
+
+def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict | None:
+    """Where the likelihood of a growth + carry-over fit is flat along the carry-over
+    (``{"rho": [low, high], "deviance_gap": g}``: two values of rho whose fits differ by
+    g in scaled deviance), or None. Candidates are the ends of the fit's starts and the
+    profile of rho: the fit with rho held at each of ``PROFILE_RHO`` (those more than
+    ``m.flat_coefficient`` from the estimate). When one reaches a scaled -2 log-likelihood (N F / scaling)
+    within ``m.flat_loglik`` of the best at a rho more than ``m.flat_coefficient``
+    away, the data cannot tell the carry-over from the growth and error parts (with
+    few waves they trade off: Bollen and Curran 2004, Sociological Methods & Research
+    32(3), 336-383, from memory) and the best point is one of many nearly equal ones.
+    A carry-over of no variance makes rho meaningless: such ends are not compared."""
+    if m.flat_loglik is None or m.flat_coefficient is None or \
+            not isinstance(structure.part("carry"), Carry) or structure.part("growth") is None:
+        return None
+    names = structure.names(m.n_waves)
+    b_at, rho_at = names.index("carry_var"), names.index("rho")
+    best = np.asarray(result.x, dtype=float)
+
+    def carries(x) -> bool:
+        return x[b_at] * x[rho_at] > 0.01 * m.scale.mean_var
+
+    candidates = list(result.ends)
+    lower, upper = structure.limits(m.scale)
+    fn = _objective(m.first_stage, structure, m.times)
+    for rho in PROFILE_RHO:
+        if abs(rho - best[rho_at]) <= m.flat_coefficient:
+            continue
+        start = best.copy()
+        start[rho_at] = rho
+        held_low, held_high = lower.copy(), upper.copy()
+        held_low[rho_at] = held_high[rho_at] = rho
+        theta, value, _ = _scoring(fn, structure, m.times, start, held_low, held_high,
+                                   1e-7 / m.n_units)
+        candidates.append((theta, value))
+    for x, value in candidates:
+        gap = m.n_units * (value - result.fun) / m.lr_scaling
+        apart = abs(float(x[rho_at]) - float(best[rho_at]))
+        if gap <= m.flat_loglik and apart > m.flat_coefficient and (carries(x) or
+                                                                     carries(best)):
+            low, high = sorted((float(best[rho_at]), float(x[rho_at])))
+            return {"rho": [low, high], "deviance_gap": max(float(gap), 0.0)}
+    return None
 
 
 def _information_cov(sigma, grads, n_eff) -> np.ndarray | None:

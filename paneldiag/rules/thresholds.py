@@ -34,6 +34,8 @@ RANGES = {
     "min_power": (0.0, 1.0, False),
     "reliability_negligible": (0.0, 1.0, False),
     "reliability_substantial": (0.0, 1.0, False),
+    "flat_loglik": (0.0, 1000.0, False),
+    "flat_coefficient": (0.0, 10.0, False),
     "min_waves_separate": (3, 100, True),
     "max_waves_per_wave": (3, 100000, True),
     "min_units": (2, 10 ** 9, True),

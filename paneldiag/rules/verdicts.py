@@ -340,7 +340,8 @@ def _restricts(part, rich_part) -> bool:
     return type(part) is type(rich_part)
 
 
-def moments_of(inp: Inputs, max_waves_per_wave: int | None = None) -> st.Moments:
+def moments_of(inp: Inputs, max_waves_per_wave: int | None = None,
+               flat: tuple[float, float] | None = None) -> st.Moments:
     t = len(inp.times)
     iu = np.triu_indices(t, 1)
     n_eff = float(np.mean(inp.pair_n[iu])) if t > 1 else float(inp.n_units)
@@ -348,6 +349,7 @@ def moments_of(inp: Inputs, max_waves_per_wave: int | None = None) -> st.Moments
     m = st.Moments(inp.mu, inp.sigma, inp.times, likelihood, float(inp.n_units), n_eff)
     m.copies = inp.copies
     m.max_waves_per_wave = max_waves_per_wave
+    m.flat_loglik, m.flat_coefficient = flat if flat is not None else (None, None)
     m.lr_scaling = (st.copy_inflation(inp.sigma, inp.copies, float(inp.n_units))
                     if inp.copies is not None else max(float(inp.kurtosis), 1.0))
     return m
@@ -359,11 +361,12 @@ def _criterion(fit: st.Fit, m: st.Moments) -> float:
     return m.n_units * fit.discrepancy / m.lr_scaling + fit.n_params * np.log(m.n_units)
 
 
-def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None) -> Evidence:
+def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None,
+             flat: tuple[float, float] | None = None) -> Evidence:
     """Every family's specifications fitted, the choice within and across families by
     BIC, and the part tests."""
     t = len(inp.times)
-    m = moments_of(inp, max_waves_per_wave)
+    m = moments_of(inp, max_waves_per_wave, flat)
     ev = Evidence(m)
     if t >= 3:
         ev.shape = st.mean_shape(inp.mu, inp.sigma, inp.pair_n, inp.times)
@@ -635,7 +638,8 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         return _finish(inp, th, led, verdict, strength, ev_text, general, None, None)
 
     with _one_thread():
-        ev = _fit_all(inp, alpha, int(th["max_waves_per_wave"]))
+        ev = _fit_all(inp, alpha, int(th["max_waves_per_wave"]),
+                      (float(th["flat_loglik"]), float(th["flat_coefficient"])))
     tests, shape, times = ev.tests, ev.shape, inp.times
     led.value("n_effective", float(ev.moments.n_eff), 1)
     if inp.moments_kind == "pairwise-complete":
@@ -1445,6 +1449,10 @@ def _finish(inp, th, led, verdict, strength, ev_text, general, ev, flags, power=
                            "per-unit slopes differ.")
         evidence = tuple(dict.fromkeys(e for e in ev_text[fam] if e))
         chosen = ev.chosen(fam) if ev is not None else None
+        if chosen is not None and chosen.weak_identification:
+            caveats.append(f"Weakly identified ({chosen.structure.label}): "
+                           f"{_weak_identification(chosen)['note']}, so its parameters are "
+                           "not pinned down by these data; more waves would separate them.")
         diff = ev.difference.get(fam) if ev is not None else None
         weight = ev.weight.get(fam) if ev is not None else None
         families.append(FamilyVerdict(fam, v, score,
@@ -1485,11 +1493,22 @@ def _spec_table(ev: Evidence, inp: Inputs) -> dict:
                 "bic": _r(fit.bic, 2),
                 "bic_vs_chosen": _r(_criterion(fit, m) - _criterion(ff.chosen, m), 2),
                 "rmsea": _r(fit.rmsea), "rmsea_ci": [_r(v) for v in fit.rmsea_ci],
-                "srmr": _r(fit.srmr), "cfi": _r(comparative_fit(fit, baseline, m.n_units, t))})
+                "srmr": _r(fit.srmr), "cfi": _r(comparative_fit(fit, baseline, m.n_units, t)),
+                **({"weak_identification": _weak_identification(fit)}
+                   if fit.weak_identification else {})})
         out[fam] = {"mean_shape": ff.mean_shape,
                     "bic_difference": _r(ev.difference.get(fam), 2),
                     "bic_weight": _r(ev.weight.get(fam), 4), "specifications": rows}
     return out
+
+
+def _weak_identification(fit: st.Fit) -> dict:
+    flat = fit.weak_identification
+    low, high = (_r(v, 4) for v in flat["rho"])
+    gap = _r(flat["deviance_gap"], 4)
+    return {"rho": [low, high], "deviance_gap": gap,
+            "note": f"the likelihood is flat along the carry-over: rho {low:.2f} and "
+                    f"{high:.2f} fit within {gap:.2f} in deviance"}
 
 
 def _next_models(families) -> list[NextModel]:

@@ -14,6 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from paneldiag.summaries.jackknife import occupied_groups
+
 MAX_LEVELS = 15   # widest integer range tabulated (a 0-10 rating scale fits)
 
 
@@ -89,8 +91,9 @@ class PairwiseTables:
         return self.counts.sum(axis=0)
 
     def leave_one_out(self) -> np.ndarray:
-        """Tables with each replicate group left out in turn, (K, T, T, L, L)."""
-        return self.counts.sum(axis=0, keepdims=True) - self.counts
+        """Tables with each occupied replicate group left out in turn, (G, T, T, L, L)."""
+        kept = occupied_groups(np.einsum("kttii->k", self.counts))
+        return self.counts.sum(axis=0, keepdims=True) - self.counts[kept]
 
     def categories(self) -> np.ndarray:
         """The category values seen at any wave (empty categories in the range dropped)."""

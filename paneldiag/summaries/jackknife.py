@@ -7,6 +7,16 @@ import numpy as np
 from paneldiag import distributions as dist
 
 
+def occupied_groups(units_per_group) -> np.ndarray:
+    """The replicate groups that hold at least one unit with an observed value.
+
+    With few units some of the K hashed groups are empty; leaving an empty group out
+    changes nothing, so its copy would only shrink the jackknife variance. The
+    delete-a-group jackknife runs over the G occupied groups with the factor (G - 1) / G
+    (Efron and Tibshirani 1993, An Introduction to the Bootstrap, ch. 11: the
+    delete-one jackknife when every group holds one unit)."""
+    return np.flatnonzero(np.asarray(units_per_group) > 0)
+
 
 def jackknife_se(full, replicates) -> np.ndarray:
     """Standard error from K leave-one-group-out estimates (Quenouille 1956;

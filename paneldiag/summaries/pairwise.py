@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from paneldiag.summaries.jackknife import occupied_groups
+
 
 @dataclass(frozen=True)
 class PairwiseMoments:
@@ -104,6 +106,6 @@ class PairwiseMoments:
         return self.n.sum(axis=0)
 
     def leave_one_out(self):
-        """Yield the pooled summary with each replicate group left out in turn."""
-        for g in range(self.n.shape[0]):
+        """Yield the pooled summary with each occupied replicate group left out in turn."""
+        for g in occupied_groups(np.einsum("ktt->k", self.n)):
             yield self.pooled(drop_group=g)

@@ -14,6 +14,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import cached_property
 
+import numpy as np
+
+from paneldiag.summaries.jackknife import occupied_groups
 from paneldiag.summaries.patterns import PatternCells, PatternMoments, shared_pattern_cells
 
 
@@ -49,6 +52,9 @@ class ReplicatePatternMoments:
 
     def leave_one_out(self):
         """The pooled moments with each group left out in turn, each pooling the
-        other groups' cells."""
-        for g in range(self.n_replicates):  # a loop over replicate groups
+        other groups' cells; groups without an observed value are skipped."""
+        cells = self.cells
+        seen = np.bincount(cells.group, weights=cells.n * cells.observed.any(axis=1),
+                           minlength=self.n_replicates)
+        for g in occupied_groups(seen):  # a loop over replicate groups
             yield self.cells.patterns(drop_group=g)

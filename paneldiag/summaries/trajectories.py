@@ -19,6 +19,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from paneldiag.summaries.jackknife import occupied_groups
+
 LINEAR_MIN_WAVES = 2      # a line needs two observed waves
 QUADRATIC_MIN_WAVES = 4   # a curvature is fitted with at least four
 _MOMENT_PAIRS = (("lin_mean", "lin_m2"), ("quad_mean", "quad_m2"), ("unit_mean", "unit_mean_m2"))
@@ -138,9 +140,9 @@ class TrajectorySummary:
         return self._pool(keep)[0]
 
     def leave_one_out(self):
-        """Yield the pooled summary with each replicate group left out in turn."""
+        """Yield the pooled summary with each occupied replicate group left out in turn."""
         k = self.n.shape[0]
-        yield from self._pool(1.0 - np.eye(k))
+        yield from self._pool((1.0 - np.eye(k))[occupied_groups(self.n.sum(axis=1))])
 
     def _pool(self, keep: np.ndarray) -> list["TrajectorySummary"]:
         """Pooled summaries, one per row of the 0/1 matrix ``keep`` (rows x K groups).
