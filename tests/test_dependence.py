@@ -219,9 +219,22 @@ def test_lawley_on_textbook_mice_matrix():
                   [.7501, 1.0, .6925, .7386],
                   [.6329, .6925, 1.0, .6625],
                   [.6363, .7386, .6625, 1.0]])
-    res = dep.lawley_equal_correlations(r, 150)
+    n = 150
+    res = dep.lawley_equal_correlations(r, n)
     assert res.df == 5
-    assert res.statistic == pytest.approx(11.4, abs=0.15)
+    # Lawley's statistic written out, with its factor n - 1 (as the book applies it);
+    # the factors n or n - 2 differ from it by 0.7%, far beyond the rounding error of a
+    # double (tolerance 1e-12).
+    p, iu = 4, np.triu_indices(4, 1)
+    rbar = r[iu].mean()
+    rbar_k = (r.sum(axis=0) - 1) / (p - 1)
+    gamma = (p - 1) ** 2 * (1 - (1 - rbar) ** 2) / (p - (p - 2) * (1 - rbar) ** 2)
+    spread, between = ((r[iu] - rbar) ** 2).sum(), ((rbar_k - rbar) ** 2).sum()
+    hand = (n - 1) / (1 - rbar) ** 2 * (spread - gamma * between)
+    assert res.statistic == pytest.approx(hand, rel=1e-12)
+    # the published 11.4 (from memory), to its one decimal (rounding: +-0.05; this
+    # alone would also admit the factor n)
+    assert abs(res.statistic - 11.4) <= 0.05
 
 
 def test_lawley_size_under_compound_symmetry():
