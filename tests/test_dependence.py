@@ -350,20 +350,38 @@ def test_markov_partials_vanish_for_pure_carry_over():
 
 # ------------------------------------------------------------- stationarity tests
 
-def test_band_and_variance_tests_under_known_truth():
-    # simulation with known truth: a stationary trait + carry-over panel (equal bands,
-    # equal variances) versus one whose carry-over weakens over the waves and whose
-    # variance grows (both hypotheses false)
+def _stationary_rejections(reps: int, seed: int) -> tuple[int, int]:
+    """Rejections at 5% of equal lag bands and of equal variances in ``reps`` panels
+    of a stationary trait + carry-over process (both hypotheses true), N = 400."""
     times = np.arange(5.0)
-    rng = np.random.default_rng(16)
-    size_band = size_var = 0
-    for _ in range(40):
+    rng = np.random.default_rng(seed)
+    bands = variances = 0
+    for _ in range(reps):  # a loop over panels
         y = simulate(Process(trait_var=1.0, ar_var=1.0, rho=0.5), 400, times, rng)
         corr, pairwise = _correlations(y)
         res = dep.stationarity_tests(corr, pairwise, times)
-        size_band += res.lag_bands.p_value < 0.05
-        size_var += res.equal_variances.p_value < 0.05
-    assert size_band <= 7 and size_var <= 7     # about 2 of 40 expected at 5%
+        bands += res.lag_bands.p_value < 0.05
+        variances += res.equal_variances.p_value < 0.05
+    return bands, variances
+
+
+def _size_bound(reps: int) -> int:
+    # the count of rejections that a test of size 5% exceeds with probability at most
+    # 0.001 (binomial upper tail, scipy.stats.binom.isf)
+    return int(stats.binom.isf(0.001, reps, 0.05))
+
+
+def test_band_and_variance_tests_under_known_truth():
+    # simulation with known truth: a stationary trait + carry-over panel (equal bands,
+    # equal variances) versus one whose carry-over weakens over the waves and whose
+    # variance grows (both hypotheses false). Size: 300 panels, at most 28 rejections
+    # (9.3%; binomial tail bound, _size_bound); the full grid tightens this.
+    reps = 300
+    size_band, size_var = _stationary_rejections(reps, 16)
+    assert size_band <= _size_bound(reps) and size_var <= _size_bound(reps), \
+        (size_band, size_var, _size_bound(reps))
+    times = np.arange(5.0)
+    rng = np.random.default_rng(17)
     y = simulate(Process(trait_var=1.0), 2000, times, rng)
     keep = np.array([0.9, 0.8, 0.5, 0.2])
     a = rng.normal(size=2000)
@@ -377,6 +395,61 @@ def test_band_and_variance_tests_under_known_truth():
     assert res.lag_bands.p_value < 0.001
     assert res.equal_variances.p_value < 0.001
     assert res.equal_correlations.p_value < 0.001
+
+
+@pytest.mark.slow
+def test_band_and_variance_tests_size_full_grid():
+    # as above with 1,500 panels: at most 102 rejections (6.8%; binomial tail bound)
+    reps = 1500
+    size_band, size_var = _stationary_rejections(reps, 18)
+    assert size_band <= _size_bound(reps) and size_var <= _size_bound(reps), \
+        (size_band, size_var, _size_bound(reps))
+
+
+def test_stationarity_wald_statistics_by_hand():
+    # reference computation written out here: on a small complete panel (60 units, 4
+    # waves, 8 replicate groups), the Fisher z of the Pearson correlations and the log
+    # variances of the waves, with every group left out in turn (numpy.corrcoef,
+    # numpy.var); the jackknife covariance of the contrasts (K - 1) / K sum (c_g - c.)
+    # (c_g - c.)'; W = c' V^-1 c; F = (d - q + 1) / (d q) W on (q, d - q + 1) df, d = K - 1
+    # (Korn and Graubard 1990, The American Statistician 44, 270-276), p from
+    # scipy.stats.f.sf. Tolerance 1e-9: the same sums in another order.
+    k, n = 8, 60
+    times = np.arange(4.0)
+    x = _panel(Process(trait_var=1.0, ar_var=1.0, rho=0.5), n, times, 19)
+    group = np.arange(n) % k
+    chunk = _chunk(x, group, k)
+    pairwise = PairwiseMoments.from_chunk(chunk)
+    corr = dep.wave_correlations(pairwise, None, PairwiseTables.from_chunk(chunk),
+                                 ("1", "2", "3", "4"))
+    res = dep.stationarity_tests(corr, pairwise, times)
+
+    def z_contrasts(rows):
+        z = np.arctanh(np.corrcoef(rows.T) - np.eye(4))   # off the diagonal only
+        # lag 1: (1,2) - (0,1), (2,3) - (0,1); lag 2: (1,3) - (0,2)
+        return np.array([z[1, 2] - z[0, 1], z[2, 3] - z[0, 1], z[1, 3] - z[0, 2]])
+
+    def log_var_contrasts(rows):
+        v = np.log(rows.var(axis=0, ddof=1))
+        return v[1:] - v[0]
+
+    def wald_f(contrasts):
+        c = contrasts(x)
+        reps = np.array([contrasts(x[group != g]) for g in range(k)])
+        centred = reps - reps.mean(axis=0)
+        v = (k - 1) / k * centred.T @ centred
+        w = c @ np.linalg.solve(v, c)
+        q, d = len(c), k - 1
+        f = (d - q + 1) / (d * q) * w
+        return f, stats.f.sf(f, q, d - q + 1)
+
+    f_bands, p_bands = wald_f(z_contrasts)
+    assert res.lag_bands.statistic == pytest.approx(f_bands, rel=1e-9)
+    assert res.lag_bands.df == (3, 5)
+    assert res.lag_bands.p_value == pytest.approx(p_bands, rel=1e-9)
+    f_var, p_var = wald_f(log_var_contrasts)
+    assert res.equal_variances.statistic == pytest.approx(f_var, rel=1e-9)
+    assert res.equal_variances.p_value == pytest.approx(p_var, rel=1e-9)
 
 
 # ---------------------------------------------------------------------- decay fit
