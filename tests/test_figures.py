@@ -285,6 +285,7 @@ def test_correlation_figure_draws_the_primary_matrix(demo_report):
     corr = rep["correlation"]
     matrix = np.array(corr["methods"][corr["primary"]]["matrix"], dtype=float)
     ax = F.correlation_figure(rep).axes[0]
+    # source: the report's JSON matrix; the image holds it unchanged
     np.testing.assert_allclose(ax.images[0].get_array(), matrix, rtol=1e-12)
     assert [t.get_text() for t in ax.texts] == [f"{v:.2f}" for v in matrix.ravel()]
     assert [t.get_text() for t in ax.get_yticklabels()] == corr["waves"]
@@ -359,6 +360,7 @@ def test_group_figure_draws_each_group_estimate(demo_report):
         lines = ax.get_lines()
         points = [ln for ln in lines if ln.get_linestyle() == "None"]
         whiskers = [ln for ln in lines if ln.get_linestyle() != "None"]
+        # source: the JSON comparison rows, drawn unchanged (dots and 95% whiskers)
         np.testing.assert_allclose([p.get_xdata()[0] for p in points],
                                    [v["estimate"] for v in shown], rtol=1e-12)
         np.testing.assert_allclose([w.get_xdata() for w in whiskers],
@@ -375,6 +377,7 @@ def test_cross_lag_figure_draws_both_directions(demo_report):
     for container, key, offset in zip(ax.containers, ("x_leads", "y_leads"), (-0.06, 0.06)):
         rows = [r for r in pair["lags"] if r[key]["r"] is not None]
         x, y, low, high = _error_bars(container)
+        # source: the JSON cross-lag rows; the two directions sit 0.06 either side
         np.testing.assert_allclose(x, [r["lag"] + offset for r in rows])
         np.testing.assert_allclose(y, [r[key]["r"] for r in rows], rtol=1e-12)
         np.testing.assert_allclose(low, [_nan(r[key]["ci_low"]) for r in rows], rtol=1e-9)
