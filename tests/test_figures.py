@@ -1,7 +1,9 @@
 """Figures of the appendix (paneldiag.render.figures), drawn from report dictionaries.
 
-Sources of the checks: the 95% t interval of a wave mean against
-scipy.stats.t.interval (reference library); the Okabe-Ito palette values as published
+Sources of the checks: the report's JSON section each figure draws (a screen of the
+demo panel: the drawn artists, read back, carry its numbers); the 95% t interval of a
+wave mean against scipy.stats.t.interval and the normal curves against
+scipy.stats.norm.pdf (reference library); the Okabe-Ito palette values as published
 by Okabe and Ito (2008, "Color Universal Design"; from memory); everything else is a
 property of the drawing itself (absent data give no figure, series differ by marker or
 line style, output bytes repeat).
