@@ -99,7 +99,7 @@ def test_cautions_are_visible(runs):
     for text in (md, html):
         assert "not proof of a model" in text
         assert "candidate models must still be fitted and compared" in text
-        assert "suppressed" in text
+        assert "suppressed" in text   # small cells withheld (common practice)
     assert '<div class="caution"' in html
 
 

@@ -86,7 +86,7 @@ def test_btheb_unit_types_and_disclosure(btheb, btheb_report):
     assert types["monotone_dropout"]["n"] == int((k < 5).sum()) == 48
     assert types["complete"]["share"] == pytest.approx(0.52)
     for name in ("late_entry", "late_entry_then_dropout", "intermittent", "never_observed"):
-        assert types[name]["n"] is None  # zero counts are below min cell too
+        assert types[name]["n"] is None  # zero counts are below min cell too (common practice)
     # dropout by wave of last observation: pandas counts 3 (pre), 24, 15, 6. The 3 is
     # below 5; the 24 is withheld too, since baseline respondents not seen at 4 months
     # (100 - 73 = 27, from the coverage table) less 24 would give the 3; and the 6,
@@ -215,6 +215,8 @@ def test_secondary_suppression_protects_a_lone_small_cell():
 
 
 def test_retention_suppresses_small_waves():
+    # disclosure rule (common practice: minimum cell size): a wave seen by 3 units
+    # shows neither its count nor its shares
     x = np.full((40, 3), 1.0)
     x[3:, 2] = np.nan            # only 3 units at the last wave
     rows = retention(_summary(x), ["1", "2", "3"], min_cell=5).rows

@@ -80,6 +80,8 @@ def test_no_terminal_figure_reveals_fewer_than_min_cell_units(min_cell, details)
                    *(["--details"] if details else []))
     assert done.returncode == 0, done.stderr.decode()
     text = done.stdout.decode()
+    # disclosure control (common practice): no count or share of 1 to min-cell - 1
+    # units, nor one recoverable by subtraction from a shown total
     assert _leaks(text, n_units, wave_n, min_cell) == []
     # groups of 4 and 1 household are never named, nor is the next smallest when needed
     assert "Saltmarsh" not in text and "Fenby" not in text
@@ -97,7 +99,8 @@ def test_the_scan_finds_what_the_old_terminal_showed():
 
 
 def test_one_rule_decides_counts_and_shares():
-    # source: the disclosure rules of docs/design.md, by hand
+    # source: the disclosure rules of docs/design.md, by hand (minimum cell size with
+    # secondary suppression: common practice in statistical disclosure control)
     assert not count_shown(4, 5) and count_shown(5, 5)
     assert not count_shown(544, 5, total=546) and count_shown(541, 5, total=546)
     assert count_shown(546, 5, total=546)                 # a remainder of 0 identifies no one

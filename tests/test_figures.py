@@ -1,7 +1,9 @@
 """Figures of the appendix (paneldiag.render.figures), drawn from report dictionaries.
 
-Sources of the checks: the 95% t interval of a wave mean against
-scipy.stats.t.interval (reference library); the Okabe-Ito palette values as published
+Sources of the checks: the report's JSON section each figure draws (a screen of the
+demo panel: the drawn artists, read back, carry its numbers); the 95% t interval of a
+wave mean against scipy.stats.t.interval and the normal curves against
+scipy.stats.norm.pdf (reference library); the Okabe-Ito palette values as published
 by Okabe and Ito (2008, "Color Universal Design"; from memory); everything else is a
 property of the drawing itself (absent data give no figure, series differ by marker or
 line style, output bytes repeat).
@@ -174,3 +176,211 @@ def test_lag_rows_for_equal_and_unequal_spacing():
     unequal = {"lag_profile": equal["lag_profile"] + [
         {"basis": "time", "lag": None, "time_distance": 3.0, "mean_r": 0.45}]}
     assert [r["time_distance"] for r in F.lag_rows(unequal)] == [3.0]
+
+
+# ------------------------------------------------------- figures against a real report
+# Each figure drawn from a screen of the demo panel is read back (line data, image
+# array, text labels, error-bar ends) and compared with the numbers of the JSON section
+# it draws: the figure shows what the report says. Tolerance 1e-9: the figures compute
+# in doubles from the same JSON numbers (a share as a percentage, a curve on a grid).
+
+@pytest.fixture(scope="module")
+def demo_report(tmp_path_factory):
+    import json
+
+    from conftest import run_cli
+    folder = tmp_path_factory.mktemp("figures")
+    assert run_cli("demo", folder / "t.csv").returncode == 0
+    done = run_cli("screen", folder / "t.csv", "--id", "household", "--wave", "year",
+                   "--value", "trust", "--value", "energy_use", "--group", "district",
+                   "--missing-codes", "-9,-8", "--details", "--json", folder / "t.json", "-q")
+    assert done.returncode == 0, done.stderr.decode()
+    return json.loads((folder / "t.json").read_text())
+
+
+def _nan(value):
+    return np.nan if value is None else value
+
+
+def _error_bars(container):
+    """(x, y, lower ends, upper ends) of a matplotlib ErrorbarContainer."""
+    x, y = container.lines[0].get_data()
+    segments = container.lines[2][0].get_segments()
+    return (np.asarray(x, float), np.asarray(y, float), np.array([s[0][1] for s in segments]),
+            np.array([s[1][1] for s in segments]))
+
+
+def test_retention_figure_draws_the_retention_table(demo_report):
+    rep = demo_report["measures"]["trust"]
+    rows = rep["attrition"]["retention"]
+    ax = F.retention_figure(rep).axes[0]
+    retained, responding = ax.get_lines()
+    times = [rep["panel"]["times"][rep["panel"]["waves"].index(r["wave"])] for r in rows]
+    for line, key in ((retained, "retained_share"), (responding, "response_share")):
+        np.testing.assert_allclose(line.get_xdata(), times)
+        np.testing.assert_allclose(line.get_ydata(), [100 * _nan(r[key]) for r in rows],
+                                   rtol=1e-9)
+    assert [t.get_text() for t in ax.get_xticklabels()] == [r["wave"] for r in rows]
+
+
+def test_response_pattern_lanes_follow_the_pattern_shares(demo_report):
+    """The lanes against the JSON pattern table: lane i is the i-th reported pattern;
+    its segments run over the pattern's runs of answered waves at the waves' times, its
+    dots sit on the answered waves, its width is lane_width of its share (so the lanes'
+    order of thickness is the order of the shares), its label is the share in percent;
+    the grey dashed lane is the remainder of small patterns."""
+    rep = demo_report["measures"]["trust"]
+    table = rep["missingness"]["patterns"]
+    rows = [r for r in table["rows"] if r["share"] is not None][:12]
+    times = np.array(rep["panel"]["times"])
+    ax = F.response_pattern_figure(rep).axes[0]
+    lines = ax.get_lines()
+    lanes = [ln for ln in lines if ln.get_linestyle() == "-"]
+    dots = [ln for ln in lines if ln.get_marker() == "o"]
+    stub = 0.15 * np.min(np.diff(times))
+    expected = []
+    for i, row in enumerate(rows):
+        answered = np.array([c == "o" for c in row["pattern"]])
+        edges = np.flatnonzero(np.diff(np.concatenate([[0], answered.astype(int), [0]])))
+        for first, stop in zip(edges[::2], edges[1::2]):
+            span = times[first:stop] if stop - first > 1 else \
+                [times[first] - stub, times[first] + stub]
+            expected.append((i, tuple(np.round(span, 6)), row["share"]))
+        assert dots[i].get_ydata().tolist() == [i] * answered.sum()
+        np.testing.assert_allclose(dots[i].get_xdata(), times[answered])
+    drawn = [(int(ln.get_ydata()[0]), tuple(np.round(ln.get_xdata(), 6)), ln.get_linewidth())
+             for ln in lanes]
+    assert [(i, span) for i, span, _ in drawn] == [(i, span) for i, span, _ in expected]
+    for (_, _, width), (_, _, share) in zip(drawn, expected):
+        assert ((width - 1.5) / 10) ** 2 == pytest.approx(share, rel=1e-9)
+    shares = [r["share"] for r in rows]
+    widths = [next(w for i, _, w in drawn if i == k) for k in range(len(rows))]
+    assert np.argsort(widths, kind="stable").tolist() == \
+        np.argsort(shares, kind="stable").tolist()
+    rest = table["remainder"]
+    grey = [ln for ln in lines if ln.get_color() == "#bbbbbb"]
+    assert len(grey) == 1 and ((grey[0].get_linewidth() - 1.5) / 10) ** 2 == \
+        pytest.approx(rest["share"], rel=1e-9)
+    assert [t.get_text() for t in ax.texts] == \
+        [f"{100 * s:.1f}%" for s in shares + [rest["share"]]]
+    assert [t.get_text() for t in ax.get_yticklabels()][-1] == f"{rest['n_patterns']} others"
+
+
+def test_wave_means_figure_draws_the_wave_profile(demo_report):
+    rep = demo_report["measures"]["trust"]
+    rows = rep["wave_profile"]
+    ax = F.wave_means_figure(rep).axes[0]
+    x, y, low, high = _error_bars(ax.containers[0])
+    np.testing.assert_allclose(x, rep["panel"]["times"])
+    np.testing.assert_allclose(y, [r["mean"] for r in rows], rtol=1e-9)
+    for row, lo, hi in zip(rows, low, high):
+        ref = stats.t.interval(0.95, row["n"] - 1, loc=row["mean"],
+                               scale=row["sd"] / np.sqrt(row["n"]))  # scipy reference
+        assert (lo, hi) == pytest.approx(ref, rel=1e-9)
+    band = [ln for ln in ax.get_lines() if ln.get_linestyle() == ":"]
+    np.testing.assert_allclose(band[0].get_ydata(), [r["mean"] - r["sd"] for r in rows])
+    np.testing.assert_allclose(band[1].get_ydata(), [r["mean"] + r["sd"] for r in rows])
+
+
+def test_correlation_figure_draws_the_primary_matrix(demo_report):
+    rep = demo_report["measures"]["trust"]
+    corr = rep["correlation"]
+    matrix = np.array(corr["methods"][corr["primary"]]["matrix"], dtype=float)
+    ax = F.correlation_figure(rep).axes[0]
+    # source: the report's JSON matrix; the image holds it unchanged
+    np.testing.assert_allclose(ax.images[0].get_array(), matrix, rtol=1e-12)
+    assert [t.get_text() for t in ax.texts] == [f"{v:.2f}" for v in matrix.ravel()]
+    assert [t.get_text() for t in ax.get_yticklabels()] == corr["waves"]
+
+
+def test_lag_decay_figure_draws_the_lag_profile_and_the_fits(demo_report):
+    rep = demo_report["measures"]["trust"]
+    fit = rep["decay_fit"]
+    assert fit["distance"] == "time"   # the demo skips 2020: rows by time distance
+    rows = [r for r in rep["lag_profile"] if r["basis"] == "time"]
+    ax = F.lag_decay_figure(rep).axes[0]
+    x, y, low, high = _error_bars(ax.containers[0])
+    np.testing.assert_allclose(x, [r["time_distance"] for r in rows])
+    np.testing.assert_allclose(y, [r["mean_r"] for r in rows], rtol=1e-12)
+    np.testing.assert_allclose(low, [r["ci_low"] for r in rows], rtol=1e-9)
+    np.testing.assert_allclose(high, [r["ci_high"] for r in rows], rtol=1e-9)
+    curves = [ln for ln in ax.get_lines() if not ln.get_label().startswith("_")]
+    assert len(curves) == 3
+    for line, name in zip(curves, ("full", "flat", "pure_decay")):
+        model = fit["models"][name]
+        d = line.get_xdata()
+        rho = model["rho"] if model["rho"] is not None else 0.0
+        np.testing.assert_allclose(line.get_ydata(), model["a"] + model["b"] * rho ** d,
+                                   rtol=1e-9)
+
+
+def test_reliability_figure_draws_the_adjacent_triplets(demo_report):
+    rep = demo_report["measures"]["trust"]
+    waves, times = rep["panel"]["waves"], rep["panel"]["times"]
+    heise = [r for r in rep["reliability"]["heise"]
+             if [waves.index(w) for w in r["waves"]] == list(range(
+                 waves.index(r["waves"][0]), waves.index(r["waves"][0]) + 3))]
+    ax = F.reliability_figure(rep).axes[0]
+    x, y, low, high = _error_bars(ax.containers[0])
+    assert len(x) == len(heise) > 0
+    spacing = np.min(np.diff(times))
+    np.testing.assert_allclose(x, [times[waves.index(r["waves"][1])] - 0.06 * spacing
+                                   for r in heise])
+    np.testing.assert_allclose(y, [r["reliability"] for r in heise], rtol=1e-12)
+    # 95% interval: 1.96 SE, the normal quantile from scipy.stats.norm.ppf
+    half = stats.norm.ppf(0.975) * np.array([r["reliability_se"] for r in heise])
+    np.testing.assert_allclose(high - y, half, rtol=1e-9)
+    np.testing.assert_allclose(y - low, half, rtol=1e-9)
+
+
+def test_slope_figure_draws_the_slope_spread(demo_report):
+    rep = demo_report["measures"]["trust"]
+    traj, rel = rep["growth"]["trajectories"], rep["growth"]["slope_reliability"]
+    ax = F.slope_figure(rep).axes[0]
+    estimated, true = [ln for ln in ax.get_lines() if not ln.get_label().startswith("_")]
+    grid = estimated.get_xdata()
+    # normal curves of the reported moments (scipy.stats.norm.pdf reference)
+    np.testing.assert_allclose(estimated.get_ydata(),
+                               stats.norm.pdf(grid, traj["mean_slope"], traj["sd_slope"]),
+                               rtol=1e-9)
+    np.testing.assert_allclose(true.get_ydata(),
+                               stats.norm.pdf(grid, rel["pooled_slope"],
+                                              np.sqrt(rel["slope_variance"])), rtol=1e-9)
+    span = ax.patches[0]   # the mean slope's interval, an axvspan rectangle
+    assert (span.get_x(), span.get_x() + span.get_width()) == pytest.approx(
+        (traj["mean_slope_ci_low"], traj["mean_slope_ci_high"]), rel=1e-9)
+
+
+def test_group_figure_draws_each_group_estimate(demo_report):
+    rep = demo_report["measures"]["trust"]
+    comparison = [c for c in rep["groups"]["comparison"]
+                  if any(v["estimate"] is not None for v in c["by_group"])]
+    fig = F.group_figure(rep)
+    assert len(fig.axes) == len(comparison)
+    for ax, comp in zip(fig.axes, comparison):
+        shown = [v for v in comp["by_group"] if v["estimate"] is not None]
+        lines = ax.get_lines()
+        points = [ln for ln in lines if ln.get_linestyle() == "None"]
+        whiskers = [ln for ln in lines if ln.get_linestyle() != "None"]
+        # source: the JSON comparison rows, drawn unchanged (dots and 95% whiskers)
+        np.testing.assert_allclose([p.get_xdata()[0] for p in points],
+                                   [v["estimate"] for v in shown], rtol=1e-12)
+        np.testing.assert_allclose([w.get_xdata() for w in whiskers],
+                                   [[v["ci_low"], v["ci_high"]] for v in shown
+                                    if v["ci_low"] is not None], rtol=1e-12)
+        assert [t.get_text() for t in ax.get_yticklabels()] == \
+            [v["group"] for v in comp["by_group"]]
+        assert ax.get_xlabel() == comp["label"]
+
+
+def test_cross_lag_figure_draws_both_directions(demo_report):
+    pair = demo_report["cross_lag"][0]
+    ax = F.cross_lag_figure(pair).axes[0]
+    for container, key, offset in zip(ax.containers, ("x_leads", "y_leads"), (-0.06, 0.06)):
+        rows = [r for r in pair["lags"] if r[key]["r"] is not None]
+        x, y, low, high = _error_bars(container)
+        # source: the JSON cross-lag rows; the two directions sit 0.06 either side
+        np.testing.assert_allclose(x, [r["lag"] + offset for r in rows])
+        np.testing.assert_allclose(y, [r[key]["r"] for r in rows], rtol=1e-12)
+        np.testing.assert_allclose(low, [_nan(r[key]["ci_low"]) for r in rows], rtol=1e-9)
+        np.testing.assert_allclose(high, [_nan(r[key]["ci_high"]) for r in rows], rtol=1e-9)

@@ -111,8 +111,9 @@ def differing(tmp_path_factory):
 def test_small_groups_are_not_reported(differing):
     _, report = differing
     groups = report["groups"]
-    # Tiny (3 units) is below the cell size; Mid (30) goes too, or Tiny's count would
-    # follow from the panel's total minus the shown groups'
+    # disclosure control (common practice): Tiny (3 units) is below the cell size; Mid
+    # (30) goes too, or Tiny's count would follow from the panel's total minus the
+    # shown groups'
     assert groups["n_groups"] == 4 and groups["n_suppressed"] == 2
     assert sorted(groups["reports"]) == ["North", "South"]
     assert "Tiny" not in json.dumps(groups) and "Mid" not in json.dumps(groups)

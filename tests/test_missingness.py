@@ -247,7 +247,7 @@ def test_little_detects_dropout_full_grid():
 def _no_small_count_by_subtraction(att, mis, waves, min_cell):
     """Disclosure audit on the JSON alone: for every total the report shows, the
     units of that total not accounted for by listed patterns (or shown dropout
-    waves) are none or at least ``min_cell``."""
+    waves) are none or at least ``min_cell`` (common practice: secondary suppression)."""
     t = len(waves)
     known = {r["pattern"]: r["n"] for r in mis["patterns"]["rows"]}
     for i, r in enumerate(next(u for u in att["unit_types"]
@@ -308,7 +308,7 @@ def test_response_patterns_never_reveal_a_small_count(counts):
 
 
 def test_small_pattern_pulls_in_the_patterns_that_would_reveal_it():
-    # "o.o" (3 units): wave 3 has 43 respondents, so listing "ooo" (40) would reveal
+    # disclosure control by secondary suppression (common practice). "o.o" (3 units): wave 3 has 43 respondents, so listing "ooo" (40) would reveal
     # it; the 3 + 6 units seen at wave 1 but not 2 make "o.." follow
     from paneldiag.diagnostics.missingness import response_patterns
     table = response_patterns(_hand_made({"ooo": 40, "oo.": 12, "o..": 6, "o.o": 3}),
@@ -321,12 +321,14 @@ def test_declared_codes_suppress_small_cells_and_keep_labels():
     from paneldiag.diagnostics.missingness import declared_codes
     codes = {"-9": np.array([12, 3, 0]), "-8": np.array([5, 7, 4])}
     result = declared_codes(codes, {"-9": "refused"}, ["a", "b", "c"], min_cell=5).to_dict()
+    # cells under 5 withheld (common practice: minimum cell size), labels kept
     assert result["rows"] == [{"code": "-9", "label": "refused", "counts": [12, None, None]},
                               {"code": "-8", "label": None, "counts": [5, 7, None]}]
 
 
 def test_demo_report_shows_no_count_below_min_cell(tmp_path):
-    # disclosure: every count in the attrition and missingness blocks, JSON and terminal
+    # disclosure (common practice: minimum cell size 12 here): every count in the
+    # attrition and missingness blocks, JSON and terminal
     from conftest import run_cli
     data = tmp_path / "t.csv"
     assert run_cli("demo", data).returncode == 0

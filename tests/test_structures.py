@@ -155,6 +155,7 @@ def test_part_gradients_agree_with_central_differences():
             _, grad = fn(theta)
             numeric = [(fn(theta + h)[0] - fn(theta - h)[0]) / 2e-6
                        for h in np.eye(len(theta)) * 1e-6]
+            # tolerance: a central difference with step 1e-6 is good to about 1e-6
             np.testing.assert_allclose(grad, numeric, rtol=1e-4, atol=1e-6,
                                        err_msg=spec.label)
 
