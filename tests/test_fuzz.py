@@ -19,7 +19,7 @@ import string
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, example, given, settings
+from hypothesis import HealthCheck, Phase, example, given, settings
 from hypothesis import strategies as st
 
 from conftest import run_cli
@@ -33,10 +33,13 @@ from paneldiag.request import ScreenRequest, run_screen
 SCALE = float(os.environ.get("PANELDIAG_FUZZ_SCALE", "1"))
 
 
-def fuzz_settings(examples: int):
+def fuzz_settings(examples: int, shrink: bool = True):
+    """``shrink=False`` for cases that each run a whole screen: a failure is reported as
+    found, since shrinking it would take many minutes."""
+    phases = list(Phase) if shrink else [Phase.explicit, Phase.reuse, Phase.generate]
     return settings(max_examples=max(1, int(examples * SCALE)), deadline=None,
                     derandomize=True, database=None, print_blob=True,
-                    suppress_health_check=list(HealthCheck))
+                    suppress_health_check=list(HealthCheck), phases=phases)
 
 
 def check_problem(problem: InputProblem) -> None:
@@ -281,7 +284,7 @@ def test_panels_validate_cleanly(frame, layout):
     assert panel.values["y"].shape == (panel.n_units, panel.n_waves)
 
 
-@fuzz_settings(40)
+@fuzz_settings(40, shrink=False)
 @given(frame=panels(max_units=40, max_waves=8), layout=st.sampled_from(["long", "wide"]))
 def test_audits_of_generated_panels(frame, layout):
     done = screen_frame(frame, layout, audit_only=True)
@@ -289,7 +292,7 @@ def test_audits_of_generated_panels(frame, layout):
         render_everything(*done)
 
 
-@fuzz_settings(30)
+@fuzz_settings(30, shrink=False)
 @given(frame=panels(), layout=st.sampled_from(["long", "wide"]))
 def test_full_screens_of_generated_panels(frame, layout):
     done = screen_frame(frame, layout)
@@ -297,7 +300,7 @@ def test_full_screens_of_generated_panels(frame, layout):
         render_everything(*done)
 
 
-@fuzz_settings(4)
+@fuzz_settings(4, shrink=False)
 @given(frame=panels(max_units=80, max_waves=6))
 # found: one unit observed, so no wave has a standard deviation for the appendix's prose
 @example(frame=pd.DataFrame({"id": range(10), "w1": [np.nan] * 3 + [1.304] + [np.nan] * 6,
@@ -324,7 +327,7 @@ def _check_command(outcome, written: list[str]) -> None:
         assert written == ["report.json"]
 
 
-@fuzz_settings(12)
+@fuzz_settings(12, shrink=False)
 @given(frame=panels(max_units=50, max_waves=6), table=text_tables(),
        which=st.sampled_from(["panel", "panel", "text"]))
 def test_command_line_forked(tmp_path_factory, frame, table, which):
@@ -342,7 +345,7 @@ def test_command_line_forked(tmp_path_factory, frame, table, which):
     _check_command(outcome, sorted(p.name for p in out.iterdir() if p != source))
 
 
-@fuzz_settings(3)
+@fuzz_settings(3, shrink=False)
 @given(frame=panels(max_units=30, max_waves=5), junk=st.binary(max_size=200))
 def test_command_line_subprocess(tmp_path_factory, frame, junk):
     """The full ``python -m paneldiag`` start, on a panel read from standard input and on
