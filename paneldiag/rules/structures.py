@@ -299,9 +299,11 @@ class Fit:
             return est, np.nan, np.nan
         keys = list(self.params)
         grad = np.zeros(len(keys))
+        # steps relative to each parameter, or to its typical size when it is 0 (on a
+        # bound): its unit is the measure's, or none
+        typical = _typical(self.structure, Scale.of(self.sigma))
         for i, key in enumerate(keys):
-            # a step relative to the parameter (its unit is the measure's, or none)
-            h = 1e-6 * (abs(self.params[key]) or 1.0)
+            h = 1e-6 * (abs(self.params[key]) or typical[i])
             up, down = dict(self.params), dict(self.params)
             up[key] += h
             down[key] -= h
