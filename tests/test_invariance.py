@@ -22,7 +22,9 @@ at a relative change of 1e-13); 1e-10 leaves room for that and nothing more. Fig
 are zero in exact arithmetic (a difference of equal correlations, a skewness of symmetric
 data) come out as rounding noise of either sign, so a figure is also accepted within
 1e-10 of the largest magnitude of its own kind in the report, or of 1; and a p-value
-above 0.999 within 1e-6, as its statistic is near 0 where rounding moves p the most
+above 0.999 within 1e-6, as its statistic is near 0 where rounding moves p the most;
+and the correlation-decay fit's figures within 1e-6, as the minimum over rho it finds is
+located only to about the square root of the rounding in its sums of squares, 1e-8
 (``_within``).
 """
 
@@ -42,6 +44,7 @@ from paneldiag.simulate import family_values
 
 SCALE = float(os.environ.get("PANELDIAG_FUZZ_SCALE", "1"))
 RELATIVE = 1e-10     # see the module docstring
+DECAY_FIT = 1e-6     # the correlation-decay fit's figures (``_within``)
 
 # figures that come from the replicate groups (delete-a-group jackknife)
 REPLICATE_FIGURES = re.compile(
@@ -96,9 +99,12 @@ def _within(x, y, scale: float, path: str = "") -> bool:
     # noise of 1e-16 in the statistic moves p by up to 1e-8
     if re.search(r"p_?value$", path) and min(x, y) > P_NEAR_ONE:
         return abs(x - y) <= P_NEAR_ONE_TOLERANCE
+    # the correlation-decay fit minimises its sum of squares over rho: a minimum is
+    # located only to about the square root of the rounding in the values (1e-8)
+    tolerance = DECAY_FIT if path.startswith(".decay_fit.") else RELATIVE
     # relative, and absolute below 1: a figure that is a difference of O(1) figures
     # (the simulated measures are O(1)) carries their absolute rounding, 1e-16
-    return abs(x - y) <= RELATIVE * max(abs(x), abs(y), scale, 1.0)
+    return abs(x - y) <= tolerance * max(abs(x), abs(y), scale, 1.0)
 
 
 def assert_same(a: dict, b: dict, skip=None, expected=None) -> int:
