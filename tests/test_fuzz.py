@@ -129,7 +129,7 @@ LONG_LENIENT = LayoutSpec(id="id", wave="wave", values=("y",), bad_values="drop"
 WIDE = LayoutSpec(id="id", wide=(("y", ("w1", "w2", "w3")),))
 
 
-@fuzz_settings(900)
+@fuzz_settings(1100)
 @given(table=text_tables(), gz=st.integers(0, 7), tell=st.booleans(),
        spec=st.sampled_from([LONG, LONG_LENIENT, WIDE]))
 @example(table=(b"id,wave,y\n1,1,1e400\n1,2,2\n2,1,3\n2,2,4\n", ","), gz=1, tell=True,
@@ -142,13 +142,14 @@ def test_text_files_read_or_refuse_cleanly(folder, table, gz, tell, spec):
     _read_and_build(path, spec, delimiter=sep if tell else None)
 
 
-@fuzz_settings(300)
+@fuzz_settings(400)
 @given(data=st.binary(max_size=3000),
        suffix=st.sampled_from([".csv", ".tsv", ".csv.gz", ".parquet", ".dta", ".sav",
                                ".sas7bdat", ".xpt"]),
        prefix=st.sampled_from([b"", b"\x1f\x8b", b"PAR1", b"\xef\xbb\xbfid,wave,y\n",
                                b"\xff\xfe", b"$FL2", b"HEADER RECORD*******LIBRARY"]))
 @example(data=b"", suffix=".csv.gz", prefix=b"\xef\xbb\xbfid,wave,y\n")  # found: plain .gz
+@example(data=b"\x80", suffix=".csv", prefix=b"\xef\xbb\xbfid,wave,y\n")  # found: bad last byte
 def test_binary_junk_is_refused_cleanly(folder, data, suffix, prefix):
     path = folder / f"junk{suffix}"
     path.write_bytes(prefix + data)
@@ -265,7 +266,7 @@ def render_everything(report: dict, panel, folder=None) -> None:
         write_report(report, str(folder), [], panel, 0, 1)
 
 
-@fuzz_settings(400)
+@fuzz_settings(450)
 @given(frame=panels(max_units=60, max_waves=15), layout=st.sampled_from(["long", "wide"]))
 def test_panels_validate_cleanly(frame, layout):
     """Every generated panel is either accepted with a balanced ledger or refused."""

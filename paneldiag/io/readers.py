@@ -143,7 +143,10 @@ def _sha256_file(path: str) -> str:
     return digest.hexdigest()
 
 
-def _text_head(path: str, raw: bytes | None, size: int = 1 << 16) -> bytes:
+HEAD_BYTES = 1 << 16
+
+
+def _text_head(path: str, raw: bytes | None, size: int = HEAD_BYTES) -> bytes:
     if raw is None:
         with open(path, "rb") as handle:
             raw_head = handle.read(size)
@@ -177,7 +180,8 @@ def _check_text(path: str, head: bytes) -> None:
     try:
         head.decode("utf-8")
     except UnicodeDecodeError as exc:
-        if exc.start < len(head) - 4:  # a cut multi-byte character at the end is fine
+        # a multi-byte character cut at the end of a head shorter than the file is fine
+        if exc.start < len(head) - 4 or len(head) < HEAD_BYTES:
             line = head[:exc.start].count(b"\n") + 1
             raise InputProblem(f"not UTF-8 text: undecodable byte at offset {exc.start}; "
                                "save the file as UTF-8", file=path, row=line) from None
@@ -352,9 +356,11 @@ def _text_parse_problem(path, raw, sep, message) -> InputProblem:
 def _first_ragged_line(path, raw, sep) -> int | None:
     if raw is not None and raw[:2] == b"\x1f\x8b":
         raw = gzip.decompress(raw)
-    handle = io.TextIOWrapper(io.BytesIO(raw), "utf-8-sig", newline="") if raw is not None \
-        else (gzip.open(path, "rt", encoding="utf-8-sig", newline="") if _is_gzip(path, raw)
-              else open(path, encoding="utf-8-sig", newline=""))
+    # only to find a line number: bytes that are not UTF-8 past the checked head count
+    # as characters all the same
+    text = {"encoding": "utf-8-sig", "errors": "replace", "newline": ""}
+    handle = io.TextIOWrapper(io.BytesIO(raw), **text) if raw is not None \
+        else (gzip.open(path, "rt", **text) if _is_gzip(path, raw) else open(path, **text))
     with handle:
         reader = csv.reader(handle, delimiter=sep)
         width = None
