@@ -9,7 +9,9 @@ Which figures are invariant to what:
 - relabelling units, and the number of replicate groups: point estimates, tests that
   do not use the replicate groups, and verdicts. A unit's replicate group comes from a
   hash of its id, so the delete-a-group jackknife figures (standard errors, interval
-  ends, and the Wald tests built on jackknife covariances) change with the labels;
+  ends, and the Wald tests built on jackknife covariances) change with the labels. The
+  panels here are continuous: an ordinal measure's part tests are scaled by the
+  replicate groups, so its verdicts may move with the labels too;
 - a positive affine change of the measure (a * y + b): every figure without a unit
   (correlations, reliabilities, tests, BIC differences, verdicts); means move to
   a * mean + b and SDs to a * SD;
