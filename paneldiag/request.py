@@ -13,6 +13,7 @@ from typing import Callable
 from paneldiag.errors import InputProblem
 from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel, parse_size
 from paneldiag.io.waves import MAX_WAVES, WaveGrouping
+from paneldiag.summaries import CHUNK_UNITS
 
 
 @dataclass(frozen=True)
@@ -48,6 +49,9 @@ class ScreenRequest:
     trajectory_sample: int = 0
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
+    # units summarised at a time (memory, not results: the figures agree across chunk
+    # sizes to rounding; an advanced option, hidden from the command's help)
+    chunk_units: int = CHUNK_UNITS
 
     @classmethod
     def option_names(cls) -> tuple[str, ...]:
@@ -156,6 +160,9 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     """The report (JSON-ready dict) and the Panel of a screen of ``data`` (a path, '-'
     for standard input, or a pandas DataFrame). Raises InputProblem for bad input."""
     spec = request.layout()
+    if not (isinstance(request.chunk_units, int) and request.chunk_units >= 1):
+        raise InputProblem(f"chunk_units must be a whole number of at least 1, got "
+                           f"{request.chunk_units!r}")
     if not spec.measure_names():
         raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
     thresholds = None
@@ -186,5 +193,6 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     options = ScreenOptions(min_cell=request.min_cell, scale=request.scale,
                             group_column=request.group, rules=thresholds,
                             audit_only=request.audit_only,
-                            triplet_table=request.triplet_table)
+                            triplet_table=request.triplet_table,
+                            chunk_units=request.chunk_units)
     return screen(panel, ledgers, input_info, options), panel

@@ -105,6 +105,8 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
               help="Only the audit of who is observed when (wave profile, attrition, "
                    "response patterns, EM moments, Little's test): no dependence, "
                    "reliability, growth or verdicts. Quicker.")
+@click.option("--chunk-units", type=click.IntRange(1), default=D("chunk_units"), hidden=True,
+              help="Units summarised at a time (memory only; see DEVELOPERS.md).")
 @click.option("--details", is_flag=True,
               help="Show every area in full in the terminal summary, not just key figures.")
 @click.option("--quiet", "-q", is_flag=True, help="No terminal summary and no progress.")

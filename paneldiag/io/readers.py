@@ -13,6 +13,7 @@ import gzip
 import hashlib
 import io
 import os
+import re
 import sys
 import threading
 from dataclasses import dataclass, field
@@ -142,7 +143,10 @@ def _sha256_file(path: str) -> str:
     return digest.hexdigest()
 
 
-def _text_head(path: str, raw: bytes | None, size: int = 1 << 16) -> bytes:
+HEAD_BYTES = 1 << 16
+
+
+def _text_head(path: str, raw: bytes | None, size: int = HEAD_BYTES) -> bytes:
     if raw is None:
         with open(path, "rb") as handle:
             raw_head = handle.read(size)
@@ -157,6 +161,13 @@ def _text_head(path: str, raw: bytes | None, size: int = 1 << 16) -> bytes:
     return raw_head
 
 
+def _is_gzip(path: str, raw: bytes | None) -> bool:
+    if raw is not None:
+        return raw[:2] == b"\x1f\x8b"
+    with open(path, "rb") as handle:
+        return handle.read(2) == b"\x1f\x8b"
+
+
 def _check_text(path: str, head: bytes) -> None:
     if not head.strip():
         raise InputProblem("file is empty", file=path)
@@ -169,7 +180,8 @@ def _check_text(path: str, head: bytes) -> None:
     try:
         head.decode("utf-8")
     except UnicodeDecodeError as exc:
-        if exc.start < len(head) - 4:  # a cut multi-byte character at the end is fine
+        # a multi-byte character cut at the end of a head shorter than the file is fine
+        if exc.start < len(head) - 4 or len(head) < HEAD_BYTES:
             line = head[:exc.start].count(b"\n") + 1
             raise InputProblem(f"not UTF-8 text: undecodable byte at offset {exc.start}; "
                                "save the file as UTF-8", file=path, row=line) from None
@@ -185,13 +197,19 @@ def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
     sep = {"\\t": "\t", "tab": "\t"}.get(sep, sep)  # as the shell passes a typed \t
     if len(sep) != 1:
         raise InputProblem(f"the delimiter must be one character, got {sep!r}")
-    header_line = head.lstrip(b"\xef\xbb\xbf").split(b"\n", 1)[0].decode("utf-8", "replace")
-    header = next(csv.reader([header_line.rstrip("\r")], delimiter=sep))
+    # the first line ends at \n, \r\n or a lone \r (as the parser's lines do)
+    header_line = re.split(rb"\r\n?|\n", head.lstrip(b"\xef\xbb\xbf"), maxsplit=1)[0]
+    header_line = header_line.decode("utf-8", "replace")
+    header = next(csv.reader([header_line], delimiter=sep))
     if columns:
         _require_columns(path, header, columns, sep, header_line)
-    source = pa.BufferReader(raw) if raw is not None else path
-    if raw is not None and raw[:2] == b"\x1f\x8b":
-        source = pa.CompressedInputStream(pa.BufferReader(raw), "gzip")
+    # compressed or not by the content, never by the name: a '.gz' name on plain text
+    # (or gzip under a '.csv' name) is read as what it is
+    gzipped = _is_gzip(path, raw)
+    source = (pa.BufferReader(raw) if raw is not None
+              else pa.input_stream(path, compression=None))
+    if gzipped:
+        source = pa.CompressedInputStream(source, "gzip")
     try:
         table = pacsv.read_csv(
             source,
@@ -202,6 +220,11 @@ def _read_text(path, raw, fmt, columns, delimiter, digest) -> RawTable:
         )
     except pa.ArrowInvalid as exc:
         raise _text_parse_problem(path, raw, sep, str(exc)) from None
+    except OSError as exc:   # a gzip stream damaged past the part already checked
+        if not gzipped:
+            raise
+        raise InputProblem(f"damaged gzip file ({str(exc).splitlines()[0]})",
+                           file=path) from None
     if table.num_rows == 0:
         raise InputProblem("no data rows: the file has a header only", file=path)
     locate = _line_locator(path, raw, sep)
@@ -354,9 +377,11 @@ def _text_parse_problem(path, raw, sep, message) -> InputProblem:
 def _first_ragged_line(path, raw, sep) -> int | None:
     if raw is not None and raw[:2] == b"\x1f\x8b":
         raw = gzip.decompress(raw)
-    handle = io.TextIOWrapper(io.BytesIO(raw), "utf-8-sig", newline="") if raw is not None \
-        else (gzip.open(path, "rt", encoding="utf-8-sig", newline="") if path.endswith(".gz")
-              else open(path, encoding="utf-8-sig", newline=""))
+    # only to find a line number: bytes that are not UTF-8 past the checked head count
+    # as characters all the same
+    text = {"encoding": "utf-8-sig", "errors": "replace", "newline": ""}
+    handle = io.TextIOWrapper(io.BytesIO(raw), **text) if raw is not None \
+        else (gzip.open(path, "rt", **text) if _is_gzip(path, raw) else open(path, **text))
     with handle:
         reader = csv.reader(handle, delimiter=sep)
         width = None

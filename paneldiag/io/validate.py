@@ -791,7 +791,7 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         id_missing = np.zeros(n_rows, dtype=bool)
         rows, unit_index = all_rows, all_rows.copy()
         unit_ids = np.arange(1, n_rows + 1)
-    labels, times, basis = _wide_waves(spec, spec.wide[0][1])
+    labels, times, basis, order = _wide_waves(spec, spec.wide[0][1])
     _check_extent(raw, len(unit_ids), n_waves)
     check_memory(spec, len(unit_ids), n_waves, raw.source)
     kept, n_duplicate = _resolve_duplicates(raw, spec, unit_index, rows, unit_ids, ("",), 1)
@@ -809,7 +809,7 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
         cells["observed"] = 0
         code_counts: dict[str, np.ndarray] = {}
         any_observed = np.zeros(len(rows), dtype=bool)
-        for t, column in enumerate(columns):
+        for t, column in enumerate(columns[i] for i in order):
             outcome, numbers, code_text = _classify(raw, spec, column, rows)
             seen = outcome == OBSERVED
             matrix[unit_rows[seen], t] = numbers[seen]
@@ -843,8 +843,12 @@ def _build_wide(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
 
 def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
     """Labels from --wave-labels, else trailing numbers of the column names, else 1..T;
-    times from labels that are numbers or dates in increasing order, else 1..T."""
+    times from labels that are numbers or dates, else 1..T; and the order in which the
+    columns are the waves: the labels' time order (numbers or dates given out of order
+    are put in order, as the waves of long data are, unless --wave-order given), else
+    the columns' own order."""
     n_waves = len(columns)
+    as_given = np.arange(n_waves)
     if spec.wave_labels:
         if len(spec.wave_labels) != n_waves:
             raise InputProblem(f"--wave-labels gives {len(spec.wave_labels)} labels for "
@@ -859,15 +863,20 @@ def _wide_waves(spec: LayoutSpec, columns: tuple[str, ...]):
             labels = tuple(str(t) for t in range(1, n_waves + 1))
             order = WaveReading(np.arange(n_waves), labels, np.arange(1, n_waves + 1.0), None,
                                 "columns")
-            return labels, _override_times(spec, order.times, n_waves), _time_basis(spec, order)
+            return (labels, _override_times(spec, order.times, n_waves),
+                    _time_basis(spec, order), as_given)
     reading = read_waves(labels, "--wave-labels", lambda what, index=None: InputProblem(what),
                          spec.date_format, "given")
+    in_order = np.array_equal(reading.position, as_given)
     if reading.kind == "text" or len(reading.labels) != n_waves or \
-            not np.array_equal(reading.position, np.arange(n_waves)):
-        # text, or labels out of time order: the columns' order with times 1..T
-        reading = WaveReading(np.arange(n_waves), labels, np.arange(1, n_waves + 1.0), None,
-                              "text")
-    return labels, _override_times(spec, reading.times, n_waves), _time_basis(spec, reading)
+            not (in_order or spec.wave_order == "natural"):
+        # text, or labels out of time order kept as given: the columns' order, times 1..T
+        reading = WaveReading(as_given, labels, np.arange(1, n_waves + 1.0), None, "text")
+        return (labels, _override_times(spec, reading.times, n_waves),
+                _time_basis(spec, reading), as_given)
+    order = np.argsort(reading.position)    # the column of each wave, in time order
+    return (reading.labels, _override_times(spec, reading.times, n_waves),
+            _time_basis(spec, reading), order)
 
 
 def _is_number(text: str) -> bool:

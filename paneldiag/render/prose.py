@@ -187,11 +187,12 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
     low = min(rows, key=lambda r: r["mean"])
     high = max(rows, key=lambda r: r["mean"])
     unit = unit_of_time(report)
+    sds = [r["sd"] for r in rows if ok(r.get("sd"))]   # none when each wave has one value
     text = (f"The wave means of {report.get('measure')} ranged from {dec(low['mean'])} "
             f"({wave_name(low['wave'], unit)}) to {dec(high['mean'])} "
-            f"({wave_name(high['wave'], unit)}), with standard "
-            f"deviations between {dec(min(r['sd'] for r in rows if ok(r['sd'])))} and "
-            f"{dec(max(r['sd'] for r in rows if ok(r['sd'])))}.")
+            f"({wave_name(high['wave'], unit)})"
+            + (f", with standard deviations between {dec(min(sds))} and {dec(max(sds))}."
+               if sds else "; no wave had two values for a standard deviation."))
     floor = max((r for r in rows if ok(r.get("floor_share"))), key=lambda r: r["floor_share"],
                 default=None)
     ceiling = max((r for r in rows if ok(r.get("ceiling_share"))),

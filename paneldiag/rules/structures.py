@@ -303,8 +303,11 @@ class Fit:
             return est, np.nan, np.nan
         keys = list(self.params)
         grad = np.zeros(len(keys))
+        # steps relative to each parameter, or to its typical size when it is 0 (on a
+        # bound): its unit is the measure's, or none
+        typical = _typical(self.structure, Scale.of(self.sigma))
         for i, key in enumerate(keys):
-            h = 1e-6 * max(1.0, abs(self.params[key]))
+            h = 1e-6 * (abs(self.params[key]) or typical[i])
             up, down = dict(self.params), dict(self.params)
             up[key] += h
             down[key] -= h
@@ -433,9 +436,13 @@ def _scoring(fn, structure: Structure, times, start, lower, upper, tol: float,
         if not free.any():
             break
         h = hess[np.ix_(free, free)]
-        ridge = 1e-10 * max(float(np.max(np.abs(np.diag(h)))), 1e-300)
+        # a ridge relative to each parameter's own curvature: the parameters' units differ
+        # (variances in the measure's unit squared, coefficients in none), so one ridge
+        # for all would swamp the variances of a measure in large units
+        d = np.abs(np.diag(h))
+        ridge = 1e-10 * np.where(d > 0, d, max(float(d.max()), 1e-300))
         try:
-            step_free = -np.linalg.solve(h + ridge * np.eye(len(h)), grad[free])
+            step_free = -np.linalg.solve(h + np.diag(ridge), grad[free])
         except np.linalg.LinAlgError:
             break
         step = np.zeros_like(theta)
@@ -497,9 +504,24 @@ def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float)
 
 
 def _typical(structure: Structure, scale: Scale) -> np.ndarray:
-    start = np.abs(structure.starts(scale)[0])
-    return np.where(start > 1e-3 * scale.mean_var, start,
-                    np.where(start > 1e-3, start, scale.mean_var))
+    """The typical size of each parameter: its start value. A parameter that starts at
+    zero (an off-diagonal entry of a growth part's Cholesky factor) takes the largest
+    start of the parameters of its own part that share its unit: those open above (in
+    the measure's unit) or those bounded on both sides (coefficients and loadings, in
+    none). A size taken from the variances would be the square of the right one, off
+    by the measure's unit squared."""
+    t = len(scale.var)
+    sizes = []
+    for part, start in zip(structure.parts, structure.split(structure.starts(scale)[0], t)):
+        start = np.abs(np.asarray(start, dtype=float))
+        open_above = np.array([hi is None for _, hi in part.bounds(scale)], dtype=bool)
+        size = start.copy()
+        for kind, fallback in ((open_above, np.sqrt(scale.mean_var)), (~open_above, 1.0)):
+            alike = start[kind]
+            fill = alike.max() if alike.size and alike.max() > 0 else fallback
+            size[kind & (start == 0)] = fill
+        sizes.append(size)
+    return np.concatenate(sizes)
 
 
 def _fit(structure: Structure, m: Moments) -> "Fit | Skipped":
@@ -595,8 +617,19 @@ def _information_cov(sigma, grads, n_eff) -> np.ndarray | None:
     info = _expected_hessian(sigma, grads)
     if info is None:
         return None
-    cov = np.linalg.pinv(0.5 * max(n_eff, 1.0) * info)
+    cov = _pinv_scaled(0.5 * max(n_eff, 1.0) * info)
     return cov if np.all(np.isfinite(cov)) else None
+
+
+def _pinv_scaled(a: np.ndarray) -> np.ndarray:
+    """The pseudo-inverse of a symmetric information matrix, taken on its unit-diagonal
+    form: its entries are in the units of the parameters (a variance's in the measure's
+    unit to the power -4, a coefficient's in none), and the pseudo-inverse's cut-off,
+    relative to the largest singular value, would otherwise drop every direction of the
+    parameters in the smaller units."""
+    d = np.sqrt(np.abs(np.diag(a)))
+    d = np.where(d > 0, d, 1.0)
+    return np.linalg.pinv(a / np.outer(d, d)) / np.outer(d, d)
 
 
 def swain_factor(n: float, p: int, df: int) -> float:
@@ -700,7 +733,7 @@ def scaling(simple: Fit, rich: Fit, m: Moments) -> float:
         _, grads = fit.structure.build(fit.theta, m.times)
         half = 0.5 * _expected_hessian(rich.sigma, grads)
         b = 0.5 * np.einsum("kij,gji->gk", inv @ grads, inv @ dev)   # S^-1 G_k, S^-1 d_g
-        total += sign * float(np.einsum("gk,kl,gl->", b, np.linalg.pinv(half), b))
+        total += sign * float(np.einsum("gk,kl,gl->", b, _pinv_scaled(half), b))
     df = max(rich.n_params - simple.n_params, 1)
     c = m.n_units * (k - 1) / k * total / df
     return float(max(c, 1.0)) if np.isfinite(c) else 1.0
