@@ -74,6 +74,11 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
 @click.option("--format", "format", type=click.Choice(FORMATS),
               help="File format (default: by extension).")
 @click.option("--delimiter", metavar="CHAR", help="Field delimiter of a text file.")
+@click.option("--sheet", metavar="NAME|N",
+              help="The sheet of a spreadsheet to read, by name or position from 1 "
+                   "(default: the first).")
+@click.option("--r-object", "r_object", metavar="NAME",
+              help="The data frame to read from an .RData file holding several.")
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--triplet-table", "triplet_path", metavar="PATH",
               help="Write every triplet of waves' reliability values to this CSV file "
