@@ -54,7 +54,8 @@ class Outcome:
 
 def run_forked(args: list[str], cwd) -> Outcome:
     """Run ``paneldiag.cli.main(args)`` in a forked child process, as the console would."""
-    import pyarrow.csv, pyarrow.parquet, pyreadstat  # noqa: F401  (imported once, here)
+    import pyarrow.csv, pyarrow.feather, pyarrow.parquet, pyreadr, pyreadstat  # noqa: F401
+    import python_calamine  # noqa: F401  (the readers, imported once, here)
 
     import paneldiag.cli.demo, paneldiag.cli.screen  # noqa: F401
     import paneldiag.render.json, paneldiag.render.terminal, paneldiag.pipeline  # noqa: F401
@@ -120,7 +121,7 @@ def test_corpus_is_complete():
     listed = {case[0] for case in CASES}
     present = {p.name for p in BAD.iterdir() if p.name != "expected.txt"}
     assert listed == present
-    assert len(listed) >= 15
+    assert len(listed) >= 60
 
 
 @pytest.mark.parametrize("name,options,fragment,location", CASES, ids=[c[0] for c in CASES])

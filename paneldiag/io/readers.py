@@ -456,8 +456,8 @@ def _unreadable(path: str, fmt: str, exc: BaseException) -> InputProblem:
 
 def _read_spreadsheet(path, raw, fmt, columns, sheet, digest) -> RawTable:
     """One sheet of a workbook (python-calamine, the engine pandas uses for these files).
-    The first non-blank row is the header; blank rows are skipped as a text file's blank
-    lines are, and each record keeps its sheet row number for messages."""
+    Rows above the header (a title, notes) are passed over; blank rows are skipped as a
+    text file's blank lines are, and each record keeps its sheet row number for messages."""
     import python_calamine
 
     try:
@@ -472,15 +472,19 @@ def _read_spreadsheet(path, raw, fmt, columns, sheet, digest) -> RawTable:
         raise _unreadable(path, fmt, exc) from None
     grid = np.array(cells, dtype=object)   # calamine gives the used range, rectangular
     if grid.ndim != 2:
-        grid = grid.reshape(len(cells), -1)
+        grid = grid.reshape(len(cells), -1) if grid.size else np.empty((0, 0), dtype=object)
     rows_with_data = np.flatnonzero((grid != "").any(axis=1))
     where = f"sheet '{name}'" + (f" of {len(names)}" if len(names) > 1 else "")
     if len(rows_with_data) == 0:
         raise InputProblem(f"{where} is empty" + _other_sheets(names, name), file=path)
-    header_at, records = rows_with_data[0], rows_with_data[1:]
+    header_at = _header_row(grid, rows_with_data, columns)
     header = [_header_text(v) for v in grid[header_at]]
     if columns:
-        _require_columns(path, header, columns, ",", "")
+        missing = [c for c in columns if c not in header]
+        if missing:
+            raise column_not_found(missing[0], [h for h in header if h], path,
+                                   row=int(header_at) + 1)
+    records = rows_with_data[rows_with_data > header_at]
     if len(records) == 0:
         raise InputProblem(f"no data rows: {where} has a header only", file=path)
     wanted = columns or [h for h in dict.fromkeys(header) if h]
@@ -489,6 +493,20 @@ def _read_spreadsheet(path, raw, fmt, columns, sheet, digest) -> RawTable:
     return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2,
                     locate=lambda index: int(lines[index]),
                     table_in_file={"sheet": name, "sheets": names})
+
+
+TITLE_ROWS = 20   # rows above the header a sheet may hold (a title, a note, blank rows)
+
+
+def _header_row(grid: np.ndarray, rows_with_data: np.ndarray, columns) -> int:
+    """The header: the first non-blank row holding every column asked for, among the
+    first rows of the sheet (a sheet often opens with a title); else the first non-blank
+    row, whose cells the column-not-found message then lists."""
+    if columns:
+        for row in rows_with_data[:TITLE_ROWS]:
+            if set(columns) <= {_header_text(v) for v in grid[row]}:
+                return int(row)
+    return int(rows_with_data[0])
 
 
 def _chosen_sheet(path: str, names: list[str], sheet) -> str:
@@ -592,9 +610,8 @@ def _read_r_file(path, raw, fmt, columns, r_object, digest) -> RawTable:
     finally:
         cleanup()
     if not found:
-        raise InputProblem("the file holds no data frame (pyreadr reads data frames only; "
-                           "save the panel with saveRDS() or save() as a data.frame)",
-                           file=path)
+        raise InputProblem("the file holds no data frame that can be read (lists and S4 "
+                           "objects are not); save the panel as a data.frame", file=path)
     frame = next(iter(found.values()))
     header = list(map(str, frame.columns))
     if columns:

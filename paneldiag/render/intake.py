@@ -85,15 +85,15 @@ def distance(value, panel: dict) -> str:
 
 
 def table_read(info: dict) -> str | None:
-    """Which table of a file holding several was read: "sheet 'panel' (first of 2)", or
+    """Which table of a file holding several was read: "sheet 'panel' of 2", or
     "data frame 'tenants'"; None for files that hold one table."""
     if info.get("sheet") is not None:
         sheets = info.get("sheets") or [info["sheet"]]
         if len(sheets) == 1:
             return f"sheet '{info['sheet']}'"
-        position = sheets.index(info["sheet"]) + 1 if info["sheet"] in sheets else None
-        place = "the first" if position == 1 else f"number {position}"
-        return f"sheet '{info['sheet']}' ({place} of {len(sheets)}; others with --sheet)"
+        if "sheet" in (info.get("options") or {}):
+            return f"sheet '{info['sheet']}' of {len(sheets)}"
+        return f"sheet '{info['sheet']}' (the first of {len(sheets)}; another with --sheet)"
     if info.get("r_object") is not None:
         return f"data frame '{info['r_object']}'"
     return None
