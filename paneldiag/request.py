@@ -11,7 +11,7 @@ from dataclasses import dataclass, fields
 from typing import Callable
 
 from paneldiag.errors import InputProblem
-from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel
+from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel, check_spec
 from paneldiag.io.waves import MAX_WAVES, WaveGrouping
 
 
@@ -159,6 +159,7 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     spec = request.layout()
     if not spec.measure_names():
         raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
+    check_spec(spec)   # a conflict of options is named before the file is read
     thresholds = None
     if request.rules:
         from paneldiag.rules.thresholds import load_thresholds
