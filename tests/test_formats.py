@@ -223,3 +223,24 @@ def test_api_takes_a_sheet_position_as_a_number(long_panel, references, tmp_path
                               sheet=2).to_dict()
     assert report["input"]["sheet"] == "panel"
     assert without_input(report) == without_input(references["long"])  # source: CSV run
+
+
+def test_a_message_that_reads_every_column_finds_the_header_below_a_title(tmp_path):
+    """Household numbers restarting in every district: the duplicates message looks at
+    the columns not asked for, read again from the sheet whose first row is a title."""
+    from openpyxl import Workbook
+
+    frame = pd.read_csv(FIXTURES / "bad" / "district_numbered.csv")
+    book = Workbook()
+    page = book.active
+    page.append(["Ostervale Tenant Panel"])
+    page.append(list(frame.columns))
+    for row in frame.itertuples(index=False):
+        page.append(list(row))
+    path = tmp_path / "districts.xlsx"
+    book.save(path)
+    done = run_cli("screen", path, "--id", "household", "--wave", "year", "--value", "trust")
+    message = done.stderr.decode()
+    assert done.returncode == 2 and len(message.splitlines()) == 1, message
+    assert "give both, --id district --id household" in message   # as for the CSV
+    assert message.rstrip().endswith(":3:household)")        # sheet row 3: below the title

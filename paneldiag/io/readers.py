@@ -117,6 +117,9 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
     if path != "-" and columns is not None:
         table.all_columns = lambda: read_table(path, fmt, None, delimiter, sheet,
                                                r_object).frame
+        if fmt in SPREADSHEETS:   # the header is found by the columns asked for
+            table.all_columns = lambda: _read_spreadsheet(path, None, fmt, columns, sheet, "",
+                                                          every_column=True).frame
     return table
 
 
@@ -454,7 +457,8 @@ def _unreadable(path: str, fmt: str, exc: BaseException) -> InputProblem:
                         file=path)
 
 
-def _read_spreadsheet(path, raw, fmt, columns, sheet, digest) -> RawTable:
+def _read_spreadsheet(path, raw, fmt, columns, sheet, digest,
+                      every_column: bool = False) -> RawTable:
     """One sheet of a workbook (python-calamine, the engine pandas uses for these files).
     Rows above the header (a title, notes) are passed over; blank rows are skipped as a
     text file's blank lines are, and each record keeps its sheet row number for messages."""
@@ -487,7 +491,8 @@ def _read_spreadsheet(path, raw, fmt, columns, sheet, digest) -> RawTable:
     records = rows_with_data[rows_with_data > header_at]
     if len(records) == 0:
         raise InputProblem(f"no data rows: {where} has a header only", file=path)
-    wanted = columns or [h for h in dict.fromkeys(header) if h]
+    wanted = [h for h in dict.fromkeys(header) if h] if every_column or not columns \
+        else columns
     frame = pd.DataFrame({c: _sheet_column(grid[records, header.index(c)]) for c in wanted})
     lines = records + 1   # sheet rows count from 1
     return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2,
