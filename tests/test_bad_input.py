@@ -104,7 +104,8 @@ def outcomes(tmp_path_factory):
     return results
 
 
-ENTRY_POINT_CASES = ["semicolons.csv", "duplicate_unit_wave.csv"]
+ENTRY_POINT_CASES = ["semicolons.csv", "duplicate_unit_wave.csv", "several_frames.RData",
+                     "title_row_text_cell.xlsx"]
 
 
 @pytest.mark.parametrize("name", ENTRY_POINT_CASES)
