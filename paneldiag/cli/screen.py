@@ -10,8 +10,10 @@ Wide data (a row per unit, a column per wave, columns in wave order):
 A scale measured by several items at each wave (long data only):
     paneldiag screen panel.csv --id person --wave year --items calm=c1,c2,c3,c4
     (the measure 'calm' is the mean of its items; internal consistency is reported per wave)
-DATA may be '-' for standard input. The terminal gets a summary; --json PATH gets the
-full report (see docs/json-report.md).
+DATA is a CSV/TSV, Parquet, Stata, SPSS, SAS, Excel, OpenDocument, R (.rds, .RData) or
+Arrow/Feather file, or '-' for standard input; --sheet picks a spreadsheet's sheet,
+--r-object the data frame of an .RData file holding several. The terminal gets a summary;
+--json PATH gets the full report (see docs/json-report.md).
 """
 
 from __future__ import annotations
