@@ -452,7 +452,8 @@ FORMAT_NAMES = {"xlsx": "Excel (.xlsx)", "xls": "Excel (.xls)", "ods": "OpenDocu
 
 
 def _unreadable(path: str, fmt: str, exc: BaseException) -> InputProblem:
-    detail = (str(exc).splitlines() or [type(exc).__name__])[0].strip() or type(exc).__name__
+    lines = str(exc).strip().splitlines()
+    detail = lines[0] if lines else type(exc).__name__
     return InputProblem(f"not a readable {FORMAT_NAMES.get(fmt, fmt)} file ({detail})",
                         file=path)
 
@@ -530,8 +531,9 @@ def _chosen_sheet(path: str, names: list[str], sheet) -> str:
         raise InputProblem(
             f"--sheet {position} is out of range: the workbook has {len(names)} sheet"
             f"{'s' if len(names) > 1 else ''} ({listed}), counted from 1", file=path)
-    near = difflib.get_close_matches(text.lower(), [n.lower() for n in names], 1, 0.6)
-    offer = next((f" (did you mean '{n}'?)" for n in names if near and n.lower() == near[0]), "")
+    lowered = {n.lower(): n for n in reversed(names)}
+    near = difflib.get_close_matches(text.lower(), list(lowered), 1, 0.6)
+    offer = f" (did you mean '{lowered[near[0]]}'?)" if near else ""
     raise InputProblem(f"no sheet named '{text}'{offer}; the workbook's sheets are {listed}",
                        file=path)
 
