@@ -59,6 +59,8 @@ def screen(data, *, id, wave=None, value=None, wide=None, **options) -> "Report"
     for name in ("wave_labels", "wave_times", "wave_bins", "wave_round", "missing_codes"):
         if name in given:
             given[name] = _as_text(given[name])
+    if isinstance(given.get("sheet"), int) and not isinstance(given["sheet"], bool):
+        given["sheet"] = str(given["sheet"])   # a position, counted from 1 as on the command
     if isinstance(data, os.PathLike):
         data = os.fspath(data)
     request = ScreenRequest(**{k: v for k, v in given.items() if v is not None})

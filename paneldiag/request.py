@@ -11,7 +11,7 @@ from dataclasses import dataclass, fields
 from typing import Callable
 
 from paneldiag.errors import InputProblem
-from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel, parse_size
+from paneldiag.io.validate import LayoutSpec, MissingCodes, build_panel, check_spec, parse_size
 from paneldiag.io.waves import MAX_WAVES, WaveGrouping
 from paneldiag.summaries import CHUNK_UNITS
 
@@ -42,6 +42,8 @@ class ScreenRequest:
     drop_bad_rows: bool = False
     format: str | None = None
     delimiter: str | None = None
+    sheet: str | None = None             # a spreadsheet's sheet: a name, or a position from 1
+    r_object: str | None = None          # the data frame of an .RData file holding several
     min_cell: int = 5
     ordinal: bool | None = None
     rules: str | None = None             # a TOML file of thresholds
@@ -134,6 +136,7 @@ def options_record(spec: LayoutSpec, request: ScreenRequest) -> dict:
         "covariates": list(spec.covariates), "missing_codes": spec.missing_codes.describe(),
         "duplicates": spec.duplicates, "drop_bad_rows": spec.bad_values == "drop",
         "format": request.format, "delimiter": request.delimiter,
+        "sheet": request.sheet, "r_object": request.r_object,
         "min_cell": request.min_cell,
     }
     return {k: v for k, v in record.items() if v not in (None, [], {}, "")}
@@ -165,22 +168,32 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
                            f"{request.chunk_units!r}")
     if not spec.measure_names():
         raise InputProblem("name at least one measure with --value (long) or --wide (wide)")
+    check_spec(spec)   # a conflict of options is named before the file is read
     thresholds = None
     if request.rules:
         from paneldiag.rules.thresholds import load_thresholds
         thresholds = load_thresholds(request.rules)
+    import pandas as pd
+    if not isinstance(data, (str, pd.DataFrame)):
+        raise InputProblem(f"data must be a path or a pandas DataFrame, not "
+                           f"{type(data).__name__}")
     if isinstance(data, str):
         from paneldiag.io.readers import read_table
         stage(f"reading {data}")
         raw = read_table(data, request.format, columns=spec.columns(),
-                         delimiter=request.delimiter)
+                         delimiter=request.delimiter, sheet=request.sheet,
+                         r_object=request.r_object)
     else:
+        for name in ("format", "delimiter", "sheet", "r_object"):
+            if getattr(request, name) is not None:
+                raise InputProblem(f"{name} is for reading a file; data given as a "
+                                   "DataFrame is already read")
         raw = frame_table(data, spec.columns())
     stage("building the panel")
     panel, ledgers = build_panel(raw, spec)
     stage("screening")
     input_info = {"path": data if isinstance(data, str) else "DataFrame",
-                  "sha256": raw.sha256, "format": raw.format,
+                  "sha256": raw.sha256, "format": raw.format, **raw.table_in_file,
                   "options": dict(options_record(spec, request), scale=request.scale)}
     del raw  # the parsed columns are in the panel now: free them before the screen
     if request.rules:

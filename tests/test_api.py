@@ -102,3 +102,73 @@ def test_write_report_writes_the_commands_appendix(panel_file, tmp_path):
     report.write_report(tmp_path / "api")
     for name in ("appendix.md", "tables.tex", "report.json"):
         assert (tmp_path / "api" / name).read_bytes() == (tmp_path / "cli" / name).read_bytes()
+
+
+def command_message(*args) -> str:
+    done = run_cli("screen", *args)
+    assert done.returncode == 2
+    lines = done.stderr.decode().splitlines()
+    assert len(lines) == 1 and "Traceback" not in done.stderr.decode()
+    return lines[0].removeprefix("paneldiag: error: ")
+
+
+def what(message: str) -> str:
+    """The message without its closing location (a file path, or 'DataFrame')."""
+    return message.rsplit(" (", 1)[0] if message.endswith(")") else message
+
+
+@pytest.fixture
+def tenants(panel_file):
+    return pd.read_csv(panel_file)
+
+
+def test_misuse_raises_the_commands_message_and_writes_nothing(panel_file, tenants,
+                                                                tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    # a column that is not there, in a DataFrame: the command's words for the file
+    printed = command_message(panel_file, "--id", "household", "--wave", "year",
+                              "--value", "trst")
+    with pytest.raises(paneldiag.InputProblem) as problem:
+        paneldiag.screen(tenants, id="household", wave="year", value="trst")
+    assert what(str(problem.value)) == what(printed)
+    assert problem.value.file == "DataFrame"
+    # a wave column given with wide columns
+    wide = tenants.pivot(index="household", columns="year", values="trust")
+    wide.columns = [f"trust{y}" for y in wide.columns]
+    wide = wide.reset_index()
+    wide_path = tmp_path / "wide.csv"
+    wide.to_csv(wide_path, index=False)
+    columns = ",".join(c for c in wide.columns if c != "household")
+    printed = command_message(wide_path, "--id", "household", "--wave", "year",
+                              "--wide", f"trust={columns}")
+    with pytest.raises(paneldiag.InputProblem) as problem:
+        paneldiag.screen(wide, id="household", wave="year", wide={"trust": columns.split(",")})
+    assert str(problem.value) == printed
+    assert "not both" in printed
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["wide.csv"]   # nothing written
+
+
+@pytest.mark.parametrize("data", [[("H001", 2019, 5.0)], {"household": ["H001"]}, 42, None,
+                                  np.zeros((3, 3))])
+def test_data_that_is_neither_a_path_nor_a_dataframe(data, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    with pytest.raises(paneldiag.InputProblem, match="data must be a path or a pandas "
+                                                     "DataFrame, not "):
+        paneldiag.screen(data, id="household", wave="year", value="trust")
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("option", [{"sheet": "panel"}, {"r_object": "tenants"},
+                                    {"format": "csv"}, {"delimiter": ";"}])
+def test_file_options_refused_for_a_dataframe(tenants, option):
+    with pytest.raises(paneldiag.InputProblem, match="already read"):
+        paneldiag.screen(tenants, id="household", wave="year", value="trust", **option)
+
+
+def test_file_options_refused_for_other_formats(panel_file):
+    printed = command_message(panel_file, "--id", "household", "--wave", "year", "--value",
+                              "trust", "--sheet", "2")
+    with pytest.raises(paneldiag.InputProblem) as problem:
+        paneldiag.screen(str(panel_file), id="household", wave="year", value="trust", sheet=2)
+    assert str(problem.value) == printed == \
+        "--sheet is for spreadsheet files (xlsx, xls, ods), not csv"

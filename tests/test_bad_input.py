@@ -67,7 +67,8 @@ class Outcome:
 
 def run_forked(args: list[str], cwd) -> Outcome:
     """Run ``paneldiag.cli.main(args)`` in a forked child process, as the console would."""
-    import pyarrow.csv, pyarrow.parquet, pyreadstat  # noqa: F401  (imported once, here)
+    import pyarrow.csv, pyarrow.feather, pyarrow.parquet, pyreadr, pyreadstat  # noqa: F401
+    import python_calamine  # noqa: F401  (the readers, imported once, here)
 
     import paneldiag.cli.demo, paneldiag.cli.screen  # noqa: F401
     import paneldiag.render.json, paneldiag.render.terminal, paneldiag.pipeline  # noqa: F401
@@ -116,7 +117,8 @@ def outcomes(tmp_path_factory):
     return results
 
 
-ENTRY_POINT_CASES = ["semicolons.csv", "duplicate_unit_wave.csv"]
+ENTRY_POINT_CASES = ["semicolons.csv", "duplicate_unit_wave.csv", "several_frames.RData",
+                     "title_row_text_cell.xlsx"]
 
 
 @pytest.mark.parametrize("name", ENTRY_POINT_CASES)
@@ -133,7 +135,7 @@ def test_corpus_is_complete():
     listed = {case[0] for case in CASES + LIMIT_CASES}
     present = {p.name for p in BAD.iterdir() if not p.name.startswith("expected")}
     assert listed == present
-    assert len(listed) >= 15
+    assert len(listed) >= 60
 
 
 @pytest.mark.parametrize("name,options,fragment,location", CASES, ids=[c[0] for c in CASES])

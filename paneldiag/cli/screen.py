@@ -10,8 +10,10 @@ Wide data (a row per unit, a column per wave, columns in wave order):
 A scale measured by several items at each wave (long data only):
     paneldiag screen panel.csv --id person --wave year --items calm=c1,c2,c3,c4
     (the measure 'calm' is the mean of its items; internal consistency is reported per wave)
-DATA may be '-' for standard input. The terminal gets a summary; --json PATH gets the
-full report (see docs/json-report.md).
+DATA is a CSV/TSV, Parquet, Stata, SPSS, SAS, Excel, OpenDocument, R (.rds, .RData) or
+Arrow/Feather file, or '-' for standard input; --sheet picks a spreadsheet's sheet,
+--r-object the data frame of an .RData file holding several. The terminal gets a summary;
+--json PATH gets the full report (see docs/json-report.md).
 """
 
 from __future__ import annotations
@@ -78,6 +80,11 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
 @click.option("--format", "format", type=click.Choice(FORMATS),
               help="File format (default: by extension).")
 @click.option("--delimiter", metavar="CHAR", help="Field delimiter of a text file.")
+@click.option("--sheet", metavar="NAME|N",
+              help="The sheet of a spreadsheet to read, by name or position from 1 "
+                   "(default: the first).")
+@click.option("--r-object", "r_object", metavar="NAME",
+              help="The data frame to read from an .RData file holding several.")
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--triplet-table", "triplet_path", metavar="PATH",
               help="Write every triplet of waves' reliability values to this CSV file "

@@ -24,13 +24,18 @@ import pandas as pd
 
 from paneldiag.errors import InputProblem
 
-FORMATS = ("csv", "tsv", "parquet", "dta", "sav", "sas7bdat", "xpt")
+FORMATS = ("csv", "tsv", "parquet", "dta", "sav", "sas7bdat", "xpt", "xlsx", "xls", "ods",
+           "rds", "rdata", "arrow")
 EXTENSIONS = {
     ".csv": "csv", ".txt": "csv", ".tsv": "tsv", ".tab": "tsv",
     ".parquet": "parquet", ".pq": "parquet",
     ".dta": "dta", ".sav": "sav", ".zsav": "sav",
     ".sas7bdat": "sas7bdat", ".xpt": "xpt",
+    ".xlsx": "xlsx", ".xlsm": "xlsx", ".xls": "xls", ".ods": "ods",
+    ".rds": "rds", ".rdata": "rdata", ".rda": "rdata",
+    ".arrow": "arrow", ".feather": "arrow", ".ipc": "arrow",
 }
+SPREADSHEETS = ("xlsx", "xls", "ods")
 # Cell texts that mean "no value" in exported panel files ('.' is a common
 # export of a system-missing value).
 NULL_TOKENS = ["", "NA", "N/A", "NaN", "nan", "NULL", "null", "."]
@@ -54,6 +59,9 @@ class RawTable:
     # every column of the file, read again only when a message needs them (None for
     # standard input, which cannot be read twice)
     all_columns: Callable[[], pd.DataFrame] | None = None
+    # which table of a file holding several was read, for the report's input section:
+    # {"sheet": name, "sheets": [names]} or {"r_object": name, "r_objects": [names]}
+    table_in_file: dict = field(default_factory=dict)
 
     def row_number(self, index: int) -> int:
         if self.locate is not None:
@@ -80,9 +88,13 @@ def detect_format(path: str, override: str | None) -> str:
 
 
 def read_table(path: str, fmt: str | None = None, columns: list[str] | None = None,
-               delimiter: str | None = None) -> RawTable:
-    """Read the named columns of a panel file; ``path='-'`` reads standard input."""
+               delimiter: str | None = None, sheet: str | None = None,
+               r_object: str | None = None) -> RawTable:
+    """Read the named columns of a panel file; ``path='-'`` reads standard input.
+    ``sheet`` picks a spreadsheet's sheet (a name, or a position counted from 1),
+    ``r_object`` the data frame of an .RData file holding several."""
     fmt = detect_format(path, fmt)
+    _check_table_choice(fmt, sheet, r_object)
     data = _load_bytes(path)
     if isinstance(data, bytes):
         hashing, digest = None, hashlib.sha256(data).hexdigest()
@@ -93,13 +105,30 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
         table = _read_text(path, raw, fmt, columns, delimiter, digest)
     elif fmt == "parquet":
         table = _read_parquet(path, data, columns, digest)
+    elif fmt in SPREADSHEETS:
+        table = _read_spreadsheet(path, data, fmt, columns, sheet, digest)
+    elif fmt in ("rds", "rdata"):
+        table = _read_r_file(path, data, fmt, columns, r_object, digest)
+    elif fmt == "arrow":
+        table = _read_arrow(path, data, columns, digest)
     else:
         table = _read_stat_file(path, data, fmt, columns, digest)
     if hashing is not None:
         table.sha256 = hashing.result()
     if path != "-" and columns is not None:
-        table.all_columns = lambda: read_table(path, fmt, None, delimiter).frame
+        table.all_columns = lambda: read_table(path, fmt, None, delimiter, sheet,
+                                               r_object).frame
+        if fmt in SPREADSHEETS:   # the header is found by the columns asked for
+            table.all_columns = lambda: _read_spreadsheet(path, None, fmt, columns, sheet, "",
+                                                          every_column=True).frame
     return table
+
+
+def _check_table_choice(fmt: str, sheet, r_object) -> None:
+    if sheet is not None and fmt not in SPREADSHEETS:
+        raise InputProblem(f"--sheet is for spreadsheet files (xlsx, xls, ods), not {fmt}")
+    if r_object is not None and fmt != "rdata":
+        raise InputProblem(f"--r-object is for .RData files, not {fmt}")
 
 
 class _Background:
@@ -462,3 +491,239 @@ def _read_stat_file(path, raw, fmt, columns, digest) -> RawTable:
               for name, mapping in (getattr(meta, "variable_value_labels", None) or {}).items()}
     return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=1,
                     declared_ranges=ranges, tagged_missing=tagged, value_labels=labels)
+
+
+FORMAT_NAMES = {"xlsx": "Excel (.xlsx)", "xls": "Excel (.xls)", "ods": "OpenDocument (.ods)",
+                "rds": "R .rds", "rdata": "R .RData", "arrow": "Arrow IPC / Feather"}
+
+
+def _unreadable(path: str, fmt: str, exc: BaseException) -> InputProblem:
+    lines = str(exc).strip().splitlines()
+    detail = lines[0] if lines else type(exc).__name__
+    return InputProblem(f"not a readable {FORMAT_NAMES.get(fmt, fmt)} file ({detail})",
+                        file=path)
+
+
+def _read_spreadsheet(path, raw, fmt, columns, sheet, digest,
+                      every_column: bool = False) -> RawTable:
+    """One sheet of a workbook (python-calamine, the engine pandas uses for these files).
+    Rows above the header (a title, notes) are passed over; blank rows are skipped as a
+    text file's blank lines are, and each record keeps its sheet row number for messages."""
+    import python_calamine
+
+    try:
+        book = (python_calamine.CalamineWorkbook.from_filelike(io.BytesIO(raw))
+                if raw is not None else python_calamine.CalamineWorkbook.from_path(path))
+        names = list(book.sheet_names)
+        name = _chosen_sheet(path, names, sheet)
+        cells = book.get_sheet_by_name(name).to_python(skip_empty_area=False)
+    except InputProblem:
+        raise
+    except Exception as exc:  # calamine raises its own types (zip, XML, password, ...)
+        raise _unreadable(path, fmt, exc) from None
+    grid = np.array(cells, dtype=object)   # calamine gives the used range, rectangular
+    if grid.ndim != 2:
+        grid = grid.reshape(len(cells), -1) if grid.size else np.empty((0, 0), dtype=object)
+    rows_with_data = np.flatnonzero((grid != "").any(axis=1))
+    where = f"sheet '{name}'" + (f" of {len(names)}" if len(names) > 1 else "")
+    if len(rows_with_data) == 0:
+        raise InputProblem(f"{where} is empty" + _other_sheets(names, name), file=path)
+    header_at = _header_row(grid, rows_with_data, columns)
+    header = [_header_text(v) for v in grid[header_at]]
+    if columns:
+        missing = [c for c in columns if c not in header]
+        if missing:
+            raise column_not_found(missing[0], [h for h in header if h], path,
+                                   row=int(header_at) + 1)
+    records = rows_with_data[rows_with_data > header_at]
+    if len(records) == 0:
+        raise InputProblem(f"no data rows: {where} has a header only", file=path)
+    wanted = [h for h in dict.fromkeys(header) if h] if every_column or not columns \
+        else columns
+    frame = pd.DataFrame({c: _sheet_column(grid[records, header.index(c)]) for c in wanted})
+    lines = records + 1   # sheet rows count from 1
+    return RawTable(frame=frame, source=path, format=fmt, sha256=digest, first_row_number=2,
+                    locate=lambda index: int(lines[index]),
+                    table_in_file={"sheet": name, "sheets": names})
+
+
+TITLE_ROWS = 20   # rows above the header a sheet may hold (a title, a note, blank rows)
+
+
+def _header_row(grid: np.ndarray, rows_with_data: np.ndarray, columns) -> int:
+    """The header: the first non-blank row holding every column asked for, among the
+    first rows of the sheet (a sheet often opens with a title); else the first non-blank
+    row, whose cells the column-not-found message then lists."""
+    if columns:
+        for row in rows_with_data[:TITLE_ROWS]:
+            if set(columns) <= {_header_text(v) for v in grid[row]}:
+                return int(row)
+    return int(rows_with_data[0])
+
+
+def _chosen_sheet(path: str, names: list[str], sheet) -> str:
+    if not names:
+        raise InputProblem("the workbook has no sheets", file=path)
+    if sheet is None:
+        return names[0]
+    text = str(sheet).strip()
+    if text in names:
+        return text
+    listed = ", ".join(f"'{n}'" for n in names)
+    if text.isdigit():
+        position = int(text)
+        if 1 <= position <= len(names):
+            return names[position - 1]
+        raise InputProblem(
+            f"--sheet {position} is out of range: the workbook has {len(names)} sheet"
+            f"{'s' if len(names) > 1 else ''} ({listed}), counted from 1", file=path)
+    lowered = {n.lower(): n for n in reversed(names)}
+    near = difflib.get_close_matches(text.lower(), list(lowered), 1, 0.6)
+    offer = f" (did you mean '{lowered[near[0]]}'?)" if near else ""
+    raise InputProblem(f"no sheet named '{text}'{offer}; the workbook's sheets are {listed}",
+                       file=path)
+
+
+def _other_sheets(names: list[str], name: str) -> str:
+    others = [n for n in names if n != name]
+    return (f"; choose another with --sheet ({', '.join(repr(n) for n in others)})"
+            if others else "")
+
+
+def _header_text(value) -> str:
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))     # a year typed as a number heads a wave column
+    return str(value).strip()
+
+
+def _sheet_column(values: np.ndarray) -> pd.Series:
+    """A column of cells typed as the text reader types it: empty cells and the null
+    words are missing; numbers (whole numbers as integers when none is missing), text,
+    dates; a mix stays as it is (text beside numbers is the validator's to name)."""
+    values = values.copy()
+    values[values == ""] = None
+    series = pd.Series(values, dtype=object)
+    series[series.isin(NULL_TOKENS)] = None
+    kind = pd.api.types.infer_dtype(series, skipna=True)
+    if kind in ("floating", "integer", "mixed-integer-float", "empty"):
+        numbers = series.astype(float)
+        whole = numbers.notna().all() and np.all(np.mod(numbers, 1) == 0) \
+            and np.all(np.abs(numbers) < 2 ** 53)
+        return numbers.astype(np.int64) if whole and kind != "empty" else numbers
+    if kind == "string":
+        import pyarrow as pa
+        return series.astype(pd.ArrowDtype(pa.string()))
+    if kind in ("datetime", "datetime64", "date"):
+        return pd.to_datetime(series)
+    return series
+
+
+def _plain_columns(frame: pd.DataFrame) -> pd.DataFrame:
+    """Categorical columns (R factors, Arrow dictionaries) as their labels: a factor's
+    codes mean nothing to the screen."""
+    for name in frame.columns:
+        column = frame[name]
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            frame[name] = column.astype(column.cat.categories.dtype)
+    return frame
+
+
+def _on_disk(path: str, raw: bytes | None, suffix: str):
+    """A path to the bytes for readers that take paths only: the file itself, or a
+    temporary copy of standard input (removed by the caller through the returned cleanup)."""
+    import tempfile
+
+    if raw is None:
+        return path, lambda: None
+    tmp = tempfile.NamedTemporaryFile(suffix=suffix, delete=False)
+    tmp.write(raw)
+    tmp.close()
+    return tmp.name, lambda: os.unlink(tmp.name)
+
+
+def _read_r_file(path, raw, fmt, columns, r_object, digest) -> RawTable:
+    """An R data frame (pyreadr): the one of an .rds file, or one of an .RData file,
+    named with ``r_object`` when the file holds several."""
+    import warnings
+
+    import pyreadr
+
+    target, cleanup = _on_disk(path, raw, ".rds" if fmt == "rds" else ".RData")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # pyreadr warns of skipped objects; we say it
+            try:
+                listed = [o["object_name"] for o in pyreadr.list_objects(target)]
+                name = _chosen_object(path, fmt, listed, r_object)
+                found = pyreadr.read_r(target, use_objects=None if name is None else [name])
+            except InputProblem:
+                raise
+            except Exception as exc:  # pyreadr raises its own types for damaged files
+                raise _unreadable(path, fmt, exc) from None
+    finally:
+        cleanup()
+    if not found:
+        raise InputProblem("the file holds no data frame that can be read (lists and S4 "
+                           "objects are not); save the panel as a data.frame", file=path)
+    frame = next(iter(found.values()))
+    header = list(map(str, frame.columns))
+    if columns:
+        _require_columns(path, header, columns, ",", "")
+        frame = frame.loc[:, columns]
+    if len(frame) == 0:
+        raise InputProblem("no data rows", file=path)
+    where = {"r_object": name, "r_objects": listed} if fmt == "rdata" else {}
+    return RawTable(frame=_plain_columns(frame.reset_index(drop=True)), source=path,
+                    format=fmt, sha256=digest, first_row_number=1, table_in_file=where)
+
+
+def _chosen_object(path: str, fmt: str, listed: list, r_object) -> str | None:
+    if fmt == "rds" or not listed:
+        return None
+    if r_object is None:
+        if len(listed) == 1:
+            return listed[0]
+        raise InputProblem(f"the file holds {len(listed)} data frames "
+                           f"({', '.join(map(str, listed))}); name one with --r-object",
+                           file=path)
+    if r_object not in listed:
+        raise InputProblem(f"no data frame named '{r_object}'; the file holds "
+                           f"{', '.join(map(str, listed))}", file=path)
+    return r_object
+
+
+def _read_arrow(path, raw, columns, digest) -> RawTable:
+    """An Arrow IPC file (Feather version 2), an Arrow IPC stream, or a Feather version 1
+    file (pyarrow)."""
+    import pyarrow as pa
+    import pyarrow.feather as feather
+
+    def source():
+        return pa.BufferReader(raw) if raw is not None else pa.memory_map(path)
+
+    table = None
+    try:
+        try:
+            reader = pa.ipc.open_file(source())
+            schema = reader.schema
+        except pa.ArrowInvalid:
+            try:
+                reader = pa.ipc.open_stream(source())
+                schema = reader.schema
+            except pa.ArrowInvalid:   # Feather version 1 has a layout of its own
+                table = feather.read_table(source())
+                schema = table.schema
+        if columns:
+            _require_columns(path, schema.names, columns, ",", "")
+        if table is None:
+            table = reader.read_all()
+        if columns:
+            table = table.select(columns)
+    except InputProblem:
+        raise
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise _unreadable(path, "arrow", exc) from None
+    if table.num_rows == 0:
+        raise InputProblem("no data rows", file=path)
+    return RawTable(frame=_plain_columns(_to_frame(table)), source=path, format="arrow",
+                    sha256=digest, first_row_number=1)

@@ -111,7 +111,7 @@ class LayoutSpec:
 
 def build_panel(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
     """Check the raw table against the layout and build the Panel and its ledgers."""
-    _check_spec(spec)
+    check_spec(spec)
     absent = [c for c in spec.columns() if c not in raw.frame.columns]
     if absent:  # the CLI's reader already checks; this guards direct library calls
         raise column_not_found(absent[0], list(map(str, raw.frame.columns)), raw.source,
@@ -145,7 +145,7 @@ def _check_magnitude(raw: RawTable, measure: str, values: np.ndarray) -> None:
                            file=raw.source, column=measure)
 
 
-def _check_spec(spec: LayoutSpec) -> None:
+def check_spec(spec: LayoutSpec) -> None:
     if spec.duplicates not in DUPLICATE_POLICIES:
         raise InputProblem(f"--duplicates must be one of {', '.join(DUPLICATE_POLICIES)}")
     if spec.layout == "long":

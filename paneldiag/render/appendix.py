@@ -402,7 +402,8 @@ def reproducibility(report: dict) -> list:
                  for key, value in options.items())
     facts = [f"paneldiag {report['tool']['version']} (JSON schema {report['schema_version']}); "
              + "; ".join(_versions()),
-             f"Input file: {_input_name(info)} (format {info.get('format', 'unknown')})",
+             f"Input file: {_input_name(info)} (format {info.get('format', 'unknown')}"
+             + (f", {intake.table_read(info)}" if intake.table_read(info) else "") + ")",
              f"SHA-256 of the input: {info.get('sha256', 'unknown')}"]
     first = next(iter(measure_reports(report).values()))
     if first.get("panel"):

@@ -82,3 +82,18 @@ def distance(value, panel: dict) -> str:
     unit = (panel or {}).get("time_unit")
     text = f"{value:g}"
     return f"{text} {unit}{'' if value == 1 else 's'}" if unit else text
+
+
+def table_read(info: dict) -> str | None:
+    """Which table of a file holding several was read: "sheet 'panel' of 2", or
+    "data frame 'tenants'"; None for files that hold one table."""
+    if info.get("sheet") is not None:
+        sheets = info.get("sheets") or [info["sheet"]]
+        if len(sheets) == 1:
+            return f"sheet '{info['sheet']}'"
+        if "sheet" in (info.get("options") or {}):
+            return f"sheet '{info['sheet']}' of {len(sheets)}"
+        return f"sheet '{info['sheet']}' (the first of {len(sheets)}; another with --sheet)"
+    if info.get("r_object") is not None:
+        return f"data frame '{info['r_object']}'"
+    return None

@@ -19,7 +19,9 @@ def _intake(report: dict, color: bool) -> list[str]:
     dropped = ", ".join(f"{reason.replace('_', ' ')} {count:,}"
                         for reason, count in ledger["dropped_by_reason"].items()) or "none"
     grouped = intake.grouping(ledger)
+    table = intake.table_read(report.get("input") or {})
     return [heading(f"Intake · {report['measure']}", color),
+            *([f"  read from {table}"] if table else []),
             f"  {panel['n_units']:,} units × {panel['n_waves']} waves; "
             f"{intake.time_basis(panel)}",
             f"  waves in order (time): {intake.wave_times(panel)}",
@@ -95,8 +97,10 @@ def render_terminal(report: dict, color: bool = False, details: bool = False) ->
     """The whole screen as text: one block per measure, the cross-lag screen, cautions."""
     from paneldiag.render.text_summary import cross_lag_block
     measures = report.get("measures", {report.get("measure"): report})
+    table = intake.table_read(report["input"])
     header = (f"paneldiag {report['tool']['version']} · {report['input']['path']}"
-              f" · sha256 {report['input']['sha256'][:12]}…")
+              + (f" · {table}" if table else "")
+              + f" · sha256 {report['input']['sha256'][:12]}…")
     several = len(measures) > 1
     parts = [header] + [(heading(f"═══ {name}", color) + "\n\n" if several else "")
                         + render_measure(r, color, details) for name, r in measures.items()]
