@@ -276,7 +276,7 @@ def _classify_measure(raw: RawTable, spec: LayoutSpec, measure: str, rows: np.nd
     """
     columns = dict(spec.items).get(measure)
     if columns is None:
-        return (*_classify(raw, spec, measure, rows), None)
+        return (*_classify(raw, spec, measure, rows, whole_measure=True), None)
     parts = [_classify(raw, spec, column, rows) for column in columns]
     outcomes = np.stack([p[0] for p in parts])
     numbers = np.stack([p[1] for p in parts])
@@ -609,8 +609,11 @@ def _outer_id_column(raw, spec, unit_index, wave_index, valid_rows, dup_position
     return min(found)[1] if found else None
 
 
-def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
-    """Outcome per row, the numeric value, and the declared code text (or None)."""
+def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray,
+              whole_measure: bool = False):
+    """Outcome per row, the numeric value, and the declared code text (or None). When
+    the column is a whole measure (long data), text in every filled cell stops the run
+    even with --drop-bad-rows: nothing would be left to screen."""
     series = raw.frame[column]
     series = series.iloc[rows] if len(rows) != len(series) else series
     n = len(series)
@@ -623,7 +626,7 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray):
         if column in raw.tagged_missing:
             text_bad &= pd.isna(raw.tagged_missing[column][rows])
         outcome[text_bad] = NON_NUMERIC
-        if text_bad.any() and not np.isfinite(numbers).any():
+        if whole_measure and text_bad.any() and not np.isfinite(numbers).any():
             i = int(np.flatnonzero(text_bad)[0])
             example = _shown_value(series.iloc[i])
             raise InputProblem(
