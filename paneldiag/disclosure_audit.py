@@ -37,10 +37,11 @@ from paneldiag.diagnostics.attrition import (UNIT_TYPES, end_of_follow_up, follo
                                              unit_type_codes, units_due)
 from paneldiag.disclosure import small
 
-ALL_PATTERNS_LIMIT = 4096  # cells: up to this many, every possible pattern of every group
-                           # is an unknown; beyond it only the patterns that occur (an
-                           # attacker told which patterns are empty: a stricter audit)
-CANDIDATES_TRIED = 12      # secondary suppression: smallest counts tried per finding
+ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
+                           # is an unknown; beyond it the patterns that occur in the panel
+                           # (in every group: as if an attacker knew which patterns never
+                           # occur, a stricter audit that keeps the programs small)
+CANDIDATES_TRIED = 3       # secondary suppression: smallest counts tried per finding
 MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
 
 
@@ -119,7 +120,8 @@ def build_cells(observed: np.ndarray, groups, codes: dict) -> Cells:
     if len(labels) << t <= ALL_PATTERNS_LIMIT:
         every = np.arange(len(labels) << t, dtype=np.int64)
     else:
-        every = np.unique(key)
+        seen = np.unique(bits)
+        every = (np.arange(len(labels), dtype=np.int64)[:, None] * (1 << t) + seen).ravel()
     counts = np.bincount(np.searchsorted(every, key), minlength=len(every))
     pattern_bits = every % (1 << t)
     cell_observed = ((pattern_bits[:, None] >> np.arange(t)) & 1).astype(bool)
@@ -354,27 +356,70 @@ def merge_same(counts: list[Count]) -> list[Count]:
 
 # ------------------------------------------------------------------------ the audit
 
+def _quiet(make):
+    """``make()`` with the process's standard output closed: HiGHS writes its banner
+    from C++ when a solver is made, and the library never prints."""
+    import os
+    import sys
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), 1)
+            return make()
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+
+
 class Bounds:
-    """Linear programming bounds on a count, given the released counts."""
+    """Linear programming bounds on a count, given the released counts: one HiGHS
+    model holds a row per count (an equality while the count is shown, free once it
+    is withheld) and each bound is a new objective solved from the last basis."""
 
     def __init__(self, counts: list[Count], cells: Cells):
-        shown = [c for c in counts if c.value is not None]
-        self.a_eq = np.array([c.coef for c in shown]) if shown else None
-        self.b_eq = np.array([c.value for c in shown], dtype=float) if shown else None
-        self.a_ub = np.array(cells.missing_limits) if cells.missing_limits else None
-        self.b_ub = np.zeros(len(cells.missing_limits)) if cells.missing_limits else None
+        import highspy
+        from scipy.sparse import csr_matrix
+        self.counts, self.inf = counts, highspy.kHighsInf
+        self.h = h = _quiet(highspy.Highs)
+        h.setOptionValue("output_flag", False)
+        n = len(cells.truth)
+        h.addVars(n, np.zeros(n), np.full(n, self.inf))
+        rows = [c.coef for c in counts] + list(cells.missing_limits)
+        lower = [self._row(c)[0] for c in counts] + [-self.inf] * len(cells.missing_limits)
+        upper = [self._row(c)[1] for c in counts] + [0.0] * len(cells.missing_limits)
+        if rows:
+            a = csr_matrix(np.array(rows))
+            h.addRows(len(rows), np.array(lower, float), np.array(upper, float), a.nnz,
+                      a.indptr.astype(np.int32), a.indices.astype(np.int32), a.data)
+        self.n, self.status = n, highspy.HighsModelStatus
+        self.used: set[int] = set()   # shown counts binding at the last solutions
+
+    def _row(self, count: Count) -> tuple[float, float]:
+        return (-self.inf, self.inf) if count.value is None else (count.value, count.value)
+
+    def refresh(self, count: Count):
+        """Take a count's new value (None: withheld) into the model."""
+        i = next(k for k, c in enumerate(self.counts) if c is count)
+        self.h.changeRowBounds(i, *self._row(count))
 
     def solve(self, objective: np.ndarray):
-        """The cells at the minimum of objective . x (None: unbounded below is
-        impossible here, x >= 0; an unbounded maximum comes back as None)."""
-        from scipy.optimize import linprog
-        res = linprog(objective, A_ub=self.a_ub, b_ub=self.b_ub, A_eq=self.a_eq,
-                      b_eq=self.b_eq, bounds=(0, None), method="highs")
-        if res.status == 3:
+        """The cells at the minimum of objective . x (None: unbounded, which only a
+        maximum can be). Notes the shown counts the minimum rests on (their duals)."""
+        self.h.changeColsCost(self.n, np.arange(self.n, dtype=np.int32),
+                              np.asarray(objective, float))
+        self.h.run()
+        status = self.h.getModelStatus()
+        if status in (self.status.kUnbounded, self.status.kUnboundedOrInfeasible):
             return None
-        if res.status != 0:
-            raise RuntimeError(f"disclosure audit: linear program failed ({res.message})")
-        return res.x
+        if status != self.status.kOptimal:
+            raise RuntimeError("disclosure audit: linear program failed "
+                               f"({self.h.modelStatusToString(status)})")
+        sol = self.h.getSolution()
+        duals = np.asarray(sol.row_dual)[:len(self.counts)]
+        self.used |= {i for i in np.flatnonzero(np.abs(duals) > 1e-9).tolist()
+                      if self.counts[i].value is not None}
+        return np.asarray(sol.col_value)
 
     def low(self, coef: np.ndarray) -> int:
         return int(np.ceil(coef @ self.solve(coef) - 1e-7))
@@ -405,12 +450,13 @@ def _support(coef: np.ndarray) -> np.ndarray:
     return coef != 0
 
 
-def audit(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> list[Finding]:
+def audit(counts: list[Count], cells: Cells, min_cell: int, wave_labels,
+          bounds: Bounds | None = None) -> list[Finding]:
     """The counts of 1 to min_cell - 1 units that are shown, or derivable from the shown
     counts within an interval narrower than ``min_cell``."""
     found = [Finding(c.label, c.value, c.value, c.value, c.coef) for c in counts
              if c.value is not None and small(c.value, min_cell)]
-    bounds = Bounds(counts, cells)
+    bounds = bounds or Bounds(counts, cells)
     n_cells = len(cells.truth)
     targets = [(cells.name(i, wave_labels), int(cells.truth[i]), np.eye(1, n_cells, i)[0])
                for i in np.flatnonzero(small(cells.truth, min_cell))]
@@ -452,42 +498,56 @@ class Protection:
                 "unresolved": self.unresolved, "not_modelled": self.unmodelled}
 
 
-def _resolves(counts, cells, finding: Finding, candidate: Count, min_cell: int) -> bool:
-    saved, candidate.value = candidate.value, None
-    bounds = Bounds(counts, cells)
-    ok = bounds.low(finding.coef) == 0 or \
-        bounds.high(finding.coef) - bounds.low(finding.coef) >= min_cell
-    candidate.value = saved
-    return ok
+def _interval(bounds: Bounds, coef) -> tuple[int, float]:
+    bounds.used = set()
+    low = bounds.low(coef)
+    return low, (bounds.high(coef) if low > 0 else np.inf)
+
+
+def _safe(low, high, min_cell: int) -> bool:
+    return low == 0 or high - low >= min_cell
 
 
 def protect(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> tuple[
         list[Count], list[Finding]]:
     """Secondary suppression: withhold shown counts until no small count is derivable.
-    For each finding, the smallest shown count touching it that alone breaks the
-    derivation is withheld (else the smallest touching it, and the audit repeats).
-    Returns the counts withheld and the findings left (none when it succeeds)."""
-    withheld = []
-    for _ in range(MAX_ROUNDS):
-        findings = audit(counts, cells, min_cell, wave_labels)
-        if not findings:
-            return withheld, []
-        finding = findings[0]
-        touching = sorted((c for c in counts if c.value is not None and c.nullable and
-                           (_support(c.coef) & _support(finding.coef)).any()),
+
+    Withholding a count only widens every interval, so the audit runs once and each
+    finding is mended on its own: among the shown counts its bounds rest on (the
+    nonzero duals of its two linear programs), the smallest that alone breaks the
+    derivation is withheld, else the smallest of them, until it is safe. A shown small
+    count is withheld itself. Returns the counts withheld and the findings left."""
+    bounds = Bounds(counts, cells)
+    withheld, left = [], []
+    for finding in audit(counts, cells, min_cell, wave_labels, bounds):  # over findings
+        for _ in range(MAX_ROUNDS):
+            if _safe(*_interval(bounds, finding.coef), min_cell):
+                break
+            rest = [counts[i] for i in sorted(bounds.used)]
+            same = [c for c in rest if np.array_equal(c.coef, finding.coef)]
+            pool = sorted((c for c in (same or rest) if c.nullable),
                           key=lambda c: (c.value, c.label))
-        if finding.low == finding.high == finding.true and touching and \
-                any(np.array_equal(c.coef, finding.coef) for c in touching):
-            pick = next(c for c in touching if np.array_equal(c.coef, finding.coef))
+            pick = next((c for c in pool[:CANDIDATES_TRIED]
+                         if _safe(*_interval_without(bounds, finding.coef, c), min_cell)),
+                        pool[0] if pool else None)
+            if pick is None:
+                left.append(finding)
+                break
+            pick.value = None
+            bounds.refresh(pick)
+            withheld.append(pick)
         else:
-            pick = next((c for c in touching[:CANDIDATES_TRIED]
-                         if _resolves(counts, cells, finding, c, min_cell)),
-                        touching[0] if touching else None)
-        if pick is None:
-            return withheld, findings
-        pick.value = None
-        withheld.append(pick)
-    return withheld, audit(counts, cells, min_cell, wave_labels)
+            left.append(finding)
+    return withheld, left
+
+
+def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, float]:
+    saved, candidate.value = candidate.value, None
+    bounds.refresh(candidate)
+    low, high = _interval(bounds, coef)
+    candidate.value = saved
+    bounds.refresh(candidate)
+    return low, high
 
 
 # --------------------------------------------------------------- the report, mended
