@@ -41,6 +41,9 @@ ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of e
                            # is an unknown; beyond it the patterns that occur in the panel
                            # (in every group: as if an attacker knew which patterns never
                            # occur, a stricter audit that keeps the programs small)
+# Counts the renderers always show (a wave's respondents beside its mean and spread):
+# the audit withholds others instead.
+FIXED = frozenset({"wave_profile", "distribution", "panel", "ledger"})
 CANDIDATES_TRIED = 3       # secondary suppression: smallest counts tried per finding
 MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
 
@@ -184,6 +187,7 @@ class _Collector:
             if raw is not None and _count_value(raw) is None:
                 return
             value = None if raw is None else _count_value(raw) + offset
+        nullable = nullable and not FIXED.intersection(str(p) for p in path)
         true = int(round(float(coef @ self.cells.truth)))
         if value is not None and value != true:
             self.unmodelled.append(path_text(path))  # our relation is not the report's
@@ -246,14 +250,11 @@ class _Collector:
         g = p + ("growth",)
         self.add(g + ("trajectories", "n_units"), f(k >= 2))
         self.add(g + ("trajectories", "n_units_curvature"), f(k >= 4))
-        self.add(g + ("slope_reliability", "n_units"), f(k >= 3))
-        icc = _get(rep, ("growth", "icc"))
-        if isinstance(icc, dict) and icc.get("df_between") is not None:
-            # (J - 1, N - J) degrees of freedom: J units seen at least once, N observations
-            self.add(g + ("icc", "df_between"), f(k >= 1), offset=1, nullable=False)
-            if icc.get("df_within") is not None:
-                self.add(g + ("icc", "df_within"), f(k >= 1, k), nullable=False,
-                         value=icc["df_within"] + icc["df_between"] + 1)
+        self.add(g + ("slope_reliability", "n_units"), f(k >= 2))
+        self.add(g + ("slope_reliability", "df"), f(k >= 2), offset=1)  # J - 1
+        # the ICC's F test on (J - 1, N - J) df: J units seen at least once, N observations
+        self.add(g + ("icc", "df_between"), f(k >= 1), offset=1)
+        self.add(g + ("icc", "df_within"), f(k >= 1, k - 1.0))
         if whole:
             for r, row in enumerate(_get(rep, ("missingness", "codes", "rows")) or []):
                 for w, _ in enumerate(row.get("counts") or []):
@@ -491,10 +492,11 @@ class Protection:
     withheld: list = field(default_factory=list)     # report paths withheld by the audit
     unresolved: list = field(default_factory=list)   # findings it could not mend
     unmodelled: list = field(default_factory=list)   # counts outside the relations
+    coarsened: list = field(default_factory=list)    # parts removed whole
 
     def to_dict(self, min_cell: int) -> dict:
         return {"audited": True, "min_cell": min_cell, "counts_audited": self.checked,
-                "secondary_suppressions": self.withheld,
+                "secondary_suppressions": self.withheld, "removed": self.coarsened,
                 "unresolved": self.unresolved, "not_modelled": self.unmodelled}
 
 
@@ -556,7 +558,9 @@ def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, floa
 # gives the count back).
 SIBLINGS = {"n": ("share",), "n_observed": ("response_share", "retained_share"),
             "n_continuing": ("mean_continuing", "smd", "ci_low", "ci_high"),
-            "n_dropping": ("mean_dropping", "smd", "ci_low", "ci_high")}
+            "n_dropping": ("mean_dropping", "smd", "ci_low", "ci_high"),
+            "df_between": ("df_within", "f", "pvalue"), "df_within": ("df_between", "f", "pvalue"),
+            "df": ("chi_square", "pvalue")}
 
 
 def _withhold(report: dict, path: tuple):
@@ -586,10 +590,39 @@ def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
     cells = panel_cells(panel, measure)
     counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
     withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
-    done = Protection(checked=len(counts), unmodelled=unmodelled)
+    coarsened = []
+    if left and (report.get("groups") or {}).get("reports"):
+        # the groups' tables cannot be mended count by count: they go (coarsening)
+        coarsened = ["groups.reports", "groups.comparison"]
+        report["groups"]["reports"], report["groups"]["comparison"] = {}, []
+        counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
+        withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
+    done = Protection(checked=len(counts), unmodelled=unmodelled, coarsened=coarsened)
     for one in withheld:
         for path in one.paths:
             _withhold(report, path)
             done.withheld.append(path_text(path))
     done.unresolved = [f.to_dict() for f in left]
     return done.to_dict(min_cell)
+
+
+def disclosure_line(report: dict) -> str | None:
+    """The audit in one sentence, for the terminal and the appendix."""
+    blocks = [r.get("disclosure") for r in (report.get("measures") or {"": report}).values()]
+    blocks = [b for b in blocks if b]
+    if not blocks:
+        return None
+    m = blocks[0]["min_cell"]
+    extra = sum(len(b["secondary_suppressions"]) for b in blocks)
+    left = sum(len(b["unresolved"]) for b in blocks)
+    dropped = any(b.get("removed") for b in blocks)
+    line = (f"Disclosure audit: the report's counts were checked together (sums, differences, "
+            f"groups beside the whole) for any count of 1 to {m - 1} units they give away; ")
+    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld "
+             "(secondary suppression)" if extra else "none could be derived")
+    if dropped:
+        line += ", and the groups' own tables were removed"
+    if left:
+        line += (f"; {left} small count{'s' if left != 1 else ''} could still be bounded "
+                 "(listed in the JSON report's disclosure block)")
+    return line + "."

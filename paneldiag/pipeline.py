@@ -17,6 +17,7 @@ from paneldiag.diagnostics.crosslag import cross_lag_screen
 from paneldiag.diagnostics.groups import group_screen
 from paneldiag.diagnostics.missingness import missingness_section
 from paneldiag.diagnostics.profile import wave_profile
+from paneldiag.disclosure_audit import protect_report
 from paneldiag.io.ledger import Ledger
 from paneldiag.panel import Panel
 from paneldiag.results import plain
@@ -117,6 +118,8 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     report.update(run_sections(ctx))
     if options.by_group and panel.groups is not None:
         report["groups"] = plain(group_screen(ctx, lambda sub: _run_group(ctx, sub)))
+    # the counts of all sections together, before any of them is written
+    report["disclosure"] = protect_report(report, panel, measure, options.min_cell)
     report["cautions"] = cautions(options)
     return report
 

@@ -18,6 +18,7 @@ from importlib import metadata
 
 
 from paneldiag.disclosure import count_shown, share_shown
+from paneldiag.disclosure_audit import disclosure_line
 from paneldiag.errors import InputProblem
 from paneldiag.labels import family_name
 from paneldiag.render import bounds
@@ -427,6 +428,9 @@ def _min_cell(report: dict) -> int:
 def cautions_note(report: dict) -> Note:
     first = next(iter(measure_reports(report).values()))
     items = list(first.get("cautions") or [])
+    audit = disclosure_line(report)
+    if audit:
+        items.append(audit)
     items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
                  "and shares that would reveal them, appear as '<' the threshold, and "
                  "counts or shares that would give one by subtraction as '–' (each table's "
