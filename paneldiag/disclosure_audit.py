@@ -41,9 +41,8 @@ ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of e
                            # is an unknown; beyond it the patterns that occur in the panel
                            # (in every group: as if an attacker knew which patterns never
                            # occur, a stricter audit that keeps the programs small)
-# Counts the renderers always show (a wave's respondents beside its mean and spread):
-# the audit withholds others instead.
-FIXED = frozenset({"wave_profile", "distribution", "panel", "ledger"})
+# Counts the audit never withholds (all units, the row accounting): it withholds others.
+FIXED = frozenset({"panel", "ledger"})
 CANDIDATES_TRIED = 3       # secondary suppression: smallest counts tried per finding
 MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
 
@@ -556,7 +555,7 @@ def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, floa
 
 # A withheld count takes its figures derived from it along (a share of a shown base
 # gives the count back).
-SIBLINGS = {"n": ("share",), "n_observed": ("response_share", "retained_share"),
+SIBLINGS = {"n": ("share", "floor_share", "ceiling_share"), "n_observed": ("response_share", "retained_share"),
             "n_continuing": ("mean_continuing", "smd", "ci_low", "ci_high"),
             "n_dropping": ("mean_dropping", "smd", "ci_low", "ci_high"),
             "df_between": ("df_within", "f", "pvalue"), "df_within": ("df_between", "f", "pvalue"),
