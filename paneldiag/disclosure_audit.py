@@ -217,7 +217,6 @@ class _Collector:
         self.add(p + ("panel", "n_units"), f(every), nullable=False)
         self.add(p + ("n_units",), f(every), nullable=False)
         self.add(p + ("missingness", "patterns", "n_units"), f(every), nullable=False)
-        self.add(p + ("verdict_basis", "statistics", "n_units"), f(every), nullable=False)
         if whole:
             self.add(p + ("ledger", "units"), f(every), nullable=False)
             self.add(p + ("ledger", "rows_used"), f(every, k), nullable=False)
