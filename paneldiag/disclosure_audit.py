@@ -43,7 +43,7 @@ ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of e
                            # occur, a stricter audit that keeps the programs small)
 # Counts the audit never withholds (all units, the row accounting): it withholds others.
 FIXED = frozenset({"panel", "ledger"})
-CANDIDATES_TRIED = 3       # secondary suppression: smallest counts tried per finding
+CANDIDATES_TRIED = 2       # secondary suppression: smallest counts tried per finding
 MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
 
 

@@ -68,6 +68,9 @@ DROPOUT_IN_A_GROUP = {("oooo", "North"): 20, ("oooo", "South"): 20,
                       (".ooo", "North"): 5, (".ooo", "South"): 5}
 LATE_ENTRY = {("oooo", "North"): 25, ("oooo", "South"): 25, ("ooo.", "North"): 8,
               ("ooo.", "South"): 8, ("..oo", "South"): 2}   # two households join at wave 3
+SMALL_GROUP = {("oooo", "North"): 30, ("ooo.", "North"): 8, ("oooo", "South"): 30,
+               ("ooo.", "South"): 8,
+               ("oooo", "Quay"): 2, ("oo..", "Quay"): 1}   # a district of three households
 NOTHING_SMALL = {("oooo", "North"): 30, ("oooo", "South"): 30, ("ooo.", "North"): 10,
                  ("ooo.", "South"): 10, (".ooo", "North"): 10, (".ooo", "South"): 10}
 
@@ -97,7 +100,24 @@ def test_late_entry_pair_is_found_before_the_audit(tmp_path, monkeypatch):
     assert found["units with response pattern ..oo in group South"] == (2, 2)
 
 
-@pytest.mark.parametrize("design", [DROPOUT_IN_A_GROUP, LATE_ENTRY], ids=["dropout", "late"])
+def test_small_group_dropout_is_found_before_the_audit(tmp_path, monkeypatch):
+    """Quay's three households are not reported (nor North, the group's secondary
+    suppression), yet the whole panel's tables give away Quay's one early leaver."""
+    path = _panel_csv(tmp_path / "group.csv", SMALL_GROUP)
+    report, panel, cells, counts, _ = _unprotected(path, monkeypatch, group="district")
+    assert list(report["groups"]["reports"]) == ["South"]
+    att = report["attrition"]
+    monotone = next(r for r in att["unit_types"] if r["type"] == "monotone_dropout")
+    leave_last = att["selective"]["by_wave"][2]["n_dropping"]        # last seen at wave 3
+    leave_first = report["panel"]["n_units"] - report["wave_profile"][1]["n"]  # at wave 1
+    # the monotone leavers minus those last seen at wave 3 or at wave 1: last seen at 2
+    assert monotone["n"] - leave_last - leave_first == 1   # known truth: one 'oo..' unit
+    found = {f.what: (f.low, f.high) for f in da.audit(counts, cells, M, panel.wave_labels)}
+    assert found["attrition.unit_types.1.last_wave.1.n"] == (1, 1)
+
+
+@pytest.mark.parametrize("design", [DROPOUT_IN_A_GROUP, LATE_ENTRY, SMALL_GROUP],
+                         ids=["dropout", "late", "group"])
 def test_released_report_passes_the_audit(tmp_path, design):
     """Through the command line: the JSON records the audit and its withheld counts,
     the terminal says so in one line, and the released counts give nothing away."""
