@@ -527,18 +527,22 @@ def protect(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> tu
             same = [c for c in rest if np.array_equal(c.coef, finding.coef)]
             pool = sorted((c for c in (same or rest) if c.nullable),
                           key=lambda c: (c.value, c.label))
-            pick = next((c for c in pool[:CANDIDATES_TRIED]
-                         if _safe(*_interval_without(bounds, finding.coef, c), min_cell)),
-                        pool[0] if pool else None)
+            mends = next((c for c in pool[:CANDIDATES_TRIED]
+                          if _safe(*_interval_without(bounds, finding.coef, c), min_cell)),
+                         None)
+            pick = mends or (pool[0] if pool else None)
             if pick is None:
                 left.append(finding)
                 break
             pick.value = None
             bounds.refresh(pick)
             withheld.append(pick)
+            if mends:
+                break
         else:
             left.append(finding)
-    return withheld, left
+    # a finding given up may have been mended by a later one's withheld counts
+    return withheld, [f for f in left if not _safe(*_interval(bounds, f.coef), min_cell)]
 
 
 def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, float]:
