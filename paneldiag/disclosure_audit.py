@@ -619,7 +619,7 @@ def disclosure_line(report: dict) -> str | None:
     left = sum(len(b["unresolved"]) for b in blocks)
     dropped = any(b.get("removed") for b in blocks)
     line = (f"Disclosure audit: the report's counts were checked together (sums, differences, "
-            f"groups beside the whole) for any count of 1 to {m - 1} units they give away; ")
+            f"groups beside the whole) for any count under {m} units they give away; ")
     line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld "
              "(secondary suppression)" if extra else "none could be derived")
     if dropped:

@@ -195,7 +195,8 @@ def test_nan_is_written_as_null(tmp_path):
     text = out.read_text(encoding="utf-8")
     assert "NaN" not in text and "Infinity" not in text
     last = json.loads(text)["wave_profile"][-1]
-    assert last["wave"] == "2018" and last["n"] == 1
+    # its one respondent is a count under --min-cell: withheld (docs/disclosure.md)
+    assert last["wave"] == "2018" and last["n"] is None
     assert last["sd"] is None and last["skewness"] is None and last["mean"] == 4
 
 
@@ -283,7 +284,8 @@ def test_audit_only_keeps_the_audit_and_says_what_it_left_out(demo_file, quiet_r
     audit = json.loads(out.read_text())
     full = json.loads(quiet_run[1].read_text())
     assert set(audit) == {"schema_version", "tool", "input", "measure", "ledger", "panel",
-                          "wave_profile", "attrition", "missingness", "cautions"}
+                          "wave_profile", "attrition", "missingness", "disclosure",
+                          "cautions"}
     for key in ("ledger", "panel", "wave_profile", "attrition", "missingness"):
         assert audit[key] == full[key], key
     assert audit["input"]["options"]["audit_only"] is True
