@@ -249,7 +249,8 @@ class _Collector:
         self.add(g + ("trajectories", "n_units"), f(k >= 2))
         self.add(g + ("trajectories", "n_units_curvature"), f(k >= 4))
         self.add(g + ("slope_reliability", "n_units"), f(k >= 2))
-        self.add(g + ("slope_reliability", "df"), f(k >= 2), offset=1)  # J - 1
+        # J - 1; the terminal prints the slope test with its df, so the audit keeps it
+        self.add(g + ("slope_reliability", "df"), f(k >= 2), offset=1, nullable=False)
         # the ICC's F test on (J - 1, N - J) df: J units seen at least once, N observations
         self.add(g + ("icc", "df_between"), f(k >= 1), offset=1)
         self.add(g + ("icc", "df_within"), f(k >= 1, k - 1.0))
@@ -561,8 +562,7 @@ def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, floa
 SIBLINGS = {"n": ("share", "floor_share", "ceiling_share"), "n_observed": ("response_share", "retained_share"),
             "n_continuing": ("mean_continuing", "smd", "ci_low", "ci_high"),
             "n_dropping": ("mean_dropping", "smd", "ci_low", "ci_high"),
-            "df_between": ("df_within", "f", "pvalue"), "df_within": ("df_between", "f", "pvalue"),
-            "df": ("chi_square", "pvalue")}
+            "df_between": ("df_within", "f", "pvalue"), "df_within": ("df_between", "f", "pvalue")}
 
 
 def _withhold(report: dict, path: tuple):
