@@ -241,9 +241,8 @@ class _Collector:
             for u in range(s, t):
                 pair = f(obs[:, s] & obs[:, u])
                 self.add(p + ("missingness", "coverage", "n", s, u), pair)
-                for method in ("pearson_pairwise", "spearman", "polychoric"):
-                    if s < u:
-                        self.add(p + ("correlation", "methods", method, "n_pairs", s, u), pair)
+                for method in ("pearson_pairwise", "pearson_em", "spearman", "polychoric"):
+                    self.add(p + ("correlation", "methods", method, "n_pairs", s, u), pair)
         self._lags(p, rep, f, obs)
         g = p + ("growth",)
         self.add(g + ("trajectories", "n_units"), f(k >= 2))
