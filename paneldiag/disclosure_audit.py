@@ -34,7 +34,7 @@ import numpy as np
 
 from paneldiag.diagnostics.attrition import (UNIT_TYPES, end_of_follow_up, follow_up_end,
                                              follow_up_span, response_history,
-                                             unit_type_codes, units_due)
+                                             unit_type_codes)
 from paneldiag.disclosure import small
 
 ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
@@ -284,8 +284,6 @@ class _Collector:
         for i, (_, _, _, pairs) in enumerate(bands[:len(profile)]):
             weight = sum((obs[:, a] & obs[:, b]).astype(float) for a, b in pairs)
             self.add(p + ("lag_profile", i, "n_pairs"), f(weight > 0, weight))
-        lag1 = sum((obs[:, a] & obs[:, a + 1]).astype(float) for a in range(obs.shape[1] - 1))
-        return lag1
 
 
 def _group_comparisons(col: _Collector, whole_obs_span: int):
