@@ -44,6 +44,7 @@ class ScreenOptions:
     by_group: bool = True            # screen each group too when the panel has groups
     rules: object = None             # paneldiag.rules.Thresholds (None: the defaults)
     audit_only: bool = False         # only the audit areas (AUDIT_SECTIONS)
+    disclosure_audit: bool = False   # the released counts audited together (protect_report)
     triplet_table: bool = False      # every triplet's reliability, for a file of its own
 
 
@@ -119,6 +120,10 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     report.update(run_sections(ctx))
     if options.by_group and panel.groups is not None:
         report["groups"] = plain(group_screen(ctx, lambda sub: _run_group(ctx, sub)))
+    # the counts of all sections together, before any of them is written
+    if options.disclosure_audit:
+        from paneldiag.disclosure_audit import protect_report
+        report["disclosure"] = protect_report(report, panel, measure, options.min_cell)
     report["cautions"] = cautions(options)
     return report
 

@@ -48,6 +48,9 @@ class ScreenRequest:
     ordinal: bool | None = None
     rules: str | None = None             # a TOML file of thresholds
     audit_only: bool = False
+    # check the released counts together for small counts they give by subtraction, and
+    # withhold more where they do (docs/disclosure.md); off by default for its cost
+    disclosure_audit: bool = False
     trajectory_sample: int = 0
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
@@ -200,12 +203,15 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
         input_info["options"]["rules"] = request.rules
     if request.audit_only:
         input_info["options"]["audit_only"] = True
+    if request.disclosure_audit:
+        input_info["options"]["disclosure_audit"] = True
     # the diagnostics are imported only once there is data to screen, so a bad input is
     # reported without paying for their (heavy) imports
     from paneldiag.pipeline import ScreenOptions, screen
     options = ScreenOptions(min_cell=request.min_cell, scale=request.scale,
                             group_column=request.group, rules=thresholds,
                             audit_only=request.audit_only,
+                            disclosure_audit=request.disclosure_audit,
                             triplet_table=request.triplet_table,
                             chunk_units=request.chunk_units)
     return screen(panel, ledgers, input_info, options), panel

@@ -18,6 +18,7 @@ from importlib import metadata
 
 
 from paneldiag.disclosure import count_shown, share_shown
+from paneldiag.disclosure_audit import disclosure_line
 from paneldiag.errors import InputProblem
 from paneldiag.labels import family_name
 from paneldiag.render import bounds
@@ -432,6 +433,9 @@ def cautions_note(report: dict) -> Note:
     for name, one in measures.items():   # what the data leave undefined, and why
         items += [f"Not defined for {name}: {finding['note']}."
                   for finding in one.get("degenerate") or []]
+    audit = disclosure_line(report)
+    if audit:
+        items.append(audit)
     items.append(f"In this appendix, no count below {_min_cell(report)} is shown: such counts, "
                  "and shares that would reveal them, appear as '<' the threshold, and "
                  "counts or shares that would give one by subtraction as '–' (each table's "

@@ -178,7 +178,8 @@ def wave_means_figure(report: dict) -> Figure | None:
     times = _wave_times(report)
     if not rows or not times:
         return None
-    keep = [r for r in rows if r.get("n", 0) > 1 and _finite(r.get("mean"), r.get("sd"))]
+    keep = [r for r in rows if (r.get("n") is None or r["n"] > 1)   # None: withheld
+            and _finite(r.get("mean"), r.get("sd"))]
     if not keep:
         return None
     x = np.array([times[r["wave"]] for r in keep], dtype=float)

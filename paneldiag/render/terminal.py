@@ -6,6 +6,7 @@ from typing import Callable
 
 from paneldiag.render import intake
 from paneldiag.disclosure import count_shown, share_shown
+from paneldiag.disclosure_audit import disclosure_line
 from paneldiag.render.text import heading, number, share, table
 from paneldiag.render.text_attrition import attrition_block, missingness_block
 from paneldiag.render.text_dependence import dependence_block
@@ -107,6 +108,9 @@ def render_terminal(report: dict, color: bool = False, details: bool = False) ->
     parts.append("\n".join(cross_lag_block(report, lambda t: heading(t, color))))
     first = next(iter(measures.values()))
     notes = [heading("Cautions", color)] + [f"  · {c}" for c in first.get("cautions", [])]
+    audit = disclosure_line(report)
+    if audit:
+        notes.append(f"  · {audit}")
     if not details:
         notes.append("  (every area in full: --details; the methods appendix: --report DIR)")
     parts.append("\n".join(notes))

@@ -119,12 +119,14 @@ def missingness_block(report: dict, color: bool) -> list[str]:
              f"  {pat['n_patterns']:,} response patterns ('o' observed, '.' missing{span}):"]
     rows = pat["rows"][:TOP_PATTERNS]
     for r in rows:
-        lines.append(f"    {r['pattern']}  {r['n']:>7,}  {share(r['share']):>6}")
+        n = "–" if r["n"] is None else f"{r['n']:,}"   # withheld by the disclosure audit
+        lines.append(f"    {r['pattern']}  {n:>7}  {share(r['share']):>6}")
     rest = pat["remainder"]
-    rest_n = rest["n_units"] + sum(r["n"] for r in pat["rows"][TOP_PATTERNS:])
+    parts = [rest["n_units"]] + [r["n"] for r in pat["rows"][TOP_PATTERNS:]]
+    rest_n = "–" if None in parts else f"{sum(parts):,}"
     rest_k = rest["n_patterns"] + len(pat["rows"][TOP_PATTERNS:])
     if rest_k:
-        text = f"    {rest_k:,} other patterns  {rest_n:,} units"
+        text = f"    {rest_k:,} other patterns  {rest_n} units"
         if rest["n_small_patterns"]:
             text += (f" ({rest['n_small_patterns']:,} patterns with under {m} units each, "
                      "not shown on their own)")

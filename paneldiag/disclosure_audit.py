@@ -1,0 +1,627 @@
+"""The whole-report disclosure audit: can any count of 1 to ``min_cell`` - 1 units be
+derived from the counts a report releases, taken together?
+
+Each section withholds its own small counts (``paneldiag.disclosure``), but sections
+release counts of overlapping sets of units: the respondents at each wave, the units
+seen at two waves, the entrants, the unit types and leavers, the listed response
+patterns, the same tables per group beside the whole panel's, shares beside their bases
+and degrees of freedom that are unit counts in disguise. A count withheld in one place
+may follow by sums and differences from counts shown elsewhere.
+
+The audit writes every released count as a linear function of unknown cells: the
+number of units in each group with each response pattern of the measure (and the
+declared missing codes' counts per wave, tied to the units missing there). Given the
+released values, linear programming bounds each small cell and each withheld count
+(scipy.optimize.linprog, HiGHS). A quantity of 1 to min_cell - 1 units whose feasible
+interval is narrower than ``min_cell`` (or pinned) is disclosed; a shown count of
+1 to min_cell - 1 is disclosed outright. ``protect_report`` then withholds the smallest
+further counts that break the derivation (secondary suppression), and records what it
+did in the report's ``disclosure`` block. docs/disclosure.md lists the relations
+modelled and the ones that are not.
+
+References
+----------
+Hundepool, A., Domingo-Ferrer, J., Franconi, L., Giessing, S., Schulte Nordholt, E.,
+Spicer, K. and de Wolf, P.-P. (2012). Statistical Disclosure Control, Wiley, ch. 4
+(linear programming bounds on suppressed cells, secondary suppression) - from memory.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from paneldiag.diagnostics.attrition import (UNIT_TYPES, end_of_follow_up, follow_up_end,
+                                             follow_up_span, response_history,
+                                             unit_type_codes)
+from paneldiag.disclosure import small
+
+ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
+                           # is an unknown; beyond it the patterns that occur in the panel
+                           # (in every group: as if an attacker knew which patterns never
+                           # occur, a stricter audit that keeps the programs small)
+# Counts the audit never withholds (all units, the row accounting): it withholds others.
+FIXED = frozenset({"panel", "ledger"})
+CANDIDATES_TRIED = 2       # secondary suppression: smallest counts tried per finding
+MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
+
+
+@dataclass
+class Count:
+    """One count the report shows or withholds: where, as a function of the cells."""
+
+    paths: list            # places in the report holding it (one count may show twice)
+    coef: np.ndarray       # over the cells
+    value: int | None      # the released value; None: withheld
+    true: int              # the value from the data
+    nullable: bool = True  # may be withheld (renderers show a withheld count)
+
+    @property
+    def label(self) -> str:
+        return path_text(self.paths[0])
+
+
+@dataclass
+class Finding:
+    """A count of 1 to min_cell - 1 units an attacker can derive (or bound tightly)."""
+
+    what: str              # the count (a report path or a cell)
+    true: int
+    low: int
+    high: int
+    coef: np.ndarray = field(repr=False)
+
+    def to_dict(self) -> dict:
+        return {"count": self.what, "bounds": [self.low, self.high]}
+
+
+def path_text(path) -> str:
+    return ".".join(str(p) for p in path)
+
+
+# ------------------------------------------------------------------------ the cells
+
+@dataclass
+class Cells:
+    """The unknowns: units per (group, response pattern), then missing-code counts
+    per (code, wave)."""
+
+    observed: np.ndarray    # (C, T) pattern of each pattern cell
+    group: np.ndarray       # (C,) group index (0 without groups)
+    truth: np.ndarray       # (C + K,) true counts, pattern cells then code cells
+    group_labels: list
+    code_cells: list        # (code, wave index) of each code cell
+    missing_limits: list    # rows of A_ub: code cells at a wave <= units missing there
+
+    @property
+    def n_patterns(self) -> int:
+        return len(self.observed)
+
+    def name(self, c: int, wave_labels) -> str:
+        if c >= self.n_patterns:
+            code, t = self.code_cells[c - self.n_patterns]
+            return f"missing code {code} at wave {wave_labels[t]}"
+        pattern = "".join("o" if o else "." for o in self.observed[c])
+        where = f" in group {self.group_labels[self.group[c]]}" if len(self.group_labels) > 1 \
+            else ""
+        return f"units with response pattern {pattern}{where}"
+
+
+def build_cells(observed: np.ndarray, groups, codes: dict) -> Cells:
+    """The cells of a measure's panel: ``observed`` (units x waves), the units' groups
+    (or None) and the measure's declared missing codes {code: counts by wave}."""
+    n, t = observed.shape
+    if groups is None:
+        labels, gidx = [None], np.zeros(n, dtype=np.int64)
+    else:
+        labels, gidx = np.unique(groups, return_inverse=True)
+        labels = labels.tolist()
+    bits = observed.astype(np.int64) @ (1 << np.arange(t, dtype=np.int64))
+    key = gidx.astype(np.int64) * (1 << t) + bits
+    if len(labels) << t <= ALL_PATTERNS_LIMIT:
+        every = np.arange(len(labels) << t, dtype=np.int64)
+    else:
+        seen = np.unique(bits)
+        every = (np.arange(len(labels), dtype=np.int64)[:, None] * (1 << t) + seen).ravel()
+    counts = np.bincount(np.searchsorted(every, key), minlength=len(every))
+    pattern_bits = every % (1 << t)
+    cell_observed = ((pattern_bits[:, None] >> np.arange(t)) & 1).astype(bool)
+    code_cells = [(code, w) for code in codes for w in range(t)]
+    code_truth = [int(codes[code][w]) for code, w in code_cells]
+    limits = []
+    for w in range(t):   # a loop over waves: the coded units at w are missing at w
+        row = np.zeros(len(every) + len(code_cells))
+        row[:len(every)] = -(~cell_observed[:, w]).astype(float)
+        for k, (_, cw) in enumerate(code_cells):
+            if cw == w:
+                row[len(every) + k] = 1.0
+        if code_cells:
+            limits.append(row)
+    return Cells(cell_observed, (every >> t).astype(int),
+                 np.r_[counts, code_truth].astype(float), labels, code_cells, limits)
+
+
+def panel_cells(panel, measure: str) -> Cells:
+    observed = ~np.isnan(panel.values[measure])
+    return build_cells(observed, panel.groups, panel.codes.get(measure, {}))
+
+
+# ------------------------------------------------------- the counts a report releases
+
+def _get(node, path):
+    for key in path:
+        if isinstance(node, dict):
+            if key not in node:
+                return None
+        elif not isinstance(node, list) or not isinstance(key, int) or key >= len(node):
+            return None
+        node = node[key]
+    return node
+
+
+def _count_value(node):
+    if isinstance(node, bool) or node is None:
+        return None
+    if isinstance(node, (int, float)) and float(node).is_integer():
+        return int(node)
+    return None
+
+
+class _Collector:
+    """Gathers the counts of one report, scope by scope (the whole panel, each group)."""
+
+    def __init__(self, report: dict, cells: Cells, wave_times, min_cell: int):
+        self.report, self.cells, self.times, self.m = report, cells, wave_times, min_cell
+        self.counts: list[Count] = []
+        self.unmodelled: list[str] = []
+
+    def add(self, path, coef, value=None, nullable=True, offset=0, derived=False):
+        """A count at ``path`` (its value read there unless given) equal to coef . x;
+        ``offset`` turns a degree of freedom into the count it stands for."""
+        raw = _get(self.report, path) if value is None and not derived else value
+        if value is None and not derived:
+            if raw is None and _get(self.report, path[:-1]) is None:
+                return
+            if raw is not None and _count_value(raw) is None:
+                return
+            value = None if raw is None else _count_value(raw) + offset
+        nullable = nullable and not FIXED.intersection(str(p) for p in path)
+        true = int(round(float(coef @ self.cells.truth)))
+        if value is not None and value != true:
+            self.unmodelled.append(path_text(path))  # our relation is not the report's
+            return
+        self.counts.append(Count([tuple(path)], coef, value, true, nullable))
+
+    def scope(self, prefix: tuple, in_scope: np.ndarray, whole: bool):
+        """The counts of one measure report (``prefix``: where it sits) over the pattern
+        cells ``in_scope``."""
+        rep = _get(self.report, prefix)
+        if not isinstance(rep, dict):
+            return
+        c = self.cells
+        obs, t = c.observed, c.observed.shape[1]
+        k_codes = len(c.code_cells)
+        truth = c.truth[:c.n_patterns]
+
+        def f(mask, weight=None):
+            v = np.where(in_scope & mask, 1.0 if weight is None else weight, 0.0)
+            return np.r_[v, np.zeros(k_codes)]
+
+        first, last, k, _ = response_history(obs)
+        types = unit_type_codes(obs)
+        span = follow_up_span(obs[in_scope], truth[in_scope])
+        _, end = follow_up_end(obs, span)
+        every = np.ones(len(obs), dtype=bool)
+        p = prefix
+        self.add(p + ("panel", "n_units"), f(every), nullable=False)
+        self.add(p + ("n_units",), f(every), nullable=False)
+        self.add(p + ("missingness", "patterns", "n_units"), f(every), nullable=False)
+        if whole:
+            self.add(p + ("ledger", "units"), f(every), nullable=False)
+            self.add(p + ("ledger", "rows_used"), f(every, k), nullable=False)
+        for w in range(t):   # loops over waves and small tables of the report
+            self.add(p + ("wave_profile", w, "n"), f(obs[:, w]))
+            self.add(p + ("distribution", "waves", w, "n"), f(obs[:, w]))
+            self.add(p + ("attrition", "retention", w, "n_observed"), f(obs[:, w]))
+            self.add(p + ("attrition", "entry", "by_wave", w, "n"), f(first == w))
+        for i, row in enumerate(_get(rep, ("attrition", "unit_types")) or []):
+            code = UNIT_TYPES.index(row["type"])
+            self.add(p + ("attrition", "unit_types", i, "n"), f(types == code))
+            for j, _ in enumerate(row.get("last_wave") or []):
+                self.add(p + ("attrition", "unit_types", i, "last_wave", j, "n"),
+                         f((types == code) & (last == j)))
+        for w, _ in enumerate(_get(rep, ("attrition", "selective", "by_wave")) or []):
+            if w + 1 < t:
+                base = p + ("attrition", "selective", "by_wave", w)
+                self.add(base + ("n_continuing",), f(obs[:, w] & obs[:, w + 1]))
+                self.add(base + ("n_dropping",), f((last == w) & (end > w)))
+        self._patterns(p, rep, f, obs)
+        for s in range(t):
+            for u in range(s, t):
+                pair = f(obs[:, s] & obs[:, u])
+                self.add(p + ("missingness", "coverage", "n", s, u), pair)
+                for method in ("pearson_pairwise", "pearson_em", "spearman", "polychoric"):
+                    self.add(p + ("correlation", "methods", method, "n_pairs", s, u), pair)
+        self._lags(p, rep, f, obs)
+        g = p + ("growth",)
+        self.add(g + ("trajectories", "n_units"), f(k >= 2))
+        self.add(g + ("trajectories", "n_units_curvature"), f(k >= 4))
+        self.add(g + ("slope_reliability", "n_units"), f(k >= 2))
+        # J - 1; the terminal prints the slope test with its df, so the audit keeps it
+        self.add(g + ("slope_reliability", "df"), f(k >= 2), offset=1, nullable=False)
+        # the ICC's F test on (J - 1, N - J) df: J units seen at least once, N observations
+        self.add(g + ("icc", "df_between"), f(k >= 1), offset=1)
+        self.add(g + ("icc", "df_within"), f(k >= 1, k - 1.0))
+        if whole:
+            for r, row in enumerate(_get(rep, ("missingness", "codes", "rows")) or []):
+                for w, _ in enumerate(row.get("counts") or []):
+                    coef = np.zeros(c.n_patterns + k_codes)
+                    if (row["code"], w) in c.code_cells:
+                        coef[c.n_patterns + c.code_cells.index((row["code"], w))] = 1.0
+                        self.add(p + ("missingness", "codes", "rows", r, "counts", w), coef,
+                                 nullable=False)
+
+    def _patterns(self, p, rep, f, obs):
+        rows = _get(rep, ("missingness", "patterns", "rows")) or []
+        listed = np.zeros(len(obs), dtype=bool)
+        for i, row in enumerate(rows):
+            want = np.array([ch == "o" for ch in row["pattern"]])
+            if len(want) != obs.shape[1]:
+                continue
+            same = (obs == want).all(axis=1)
+            listed |= same
+            self.add(p + ("missingness", "patterns", "rows", i, "n"), f(same))
+        if rows:
+            self.add(p + ("missingness", "patterns", "remainder", "n_units"), f(~listed))
+
+    def _lags(self, p, rep, f, obs):
+        from paneldiag.diagnostics.dependence import lag_bands
+        profile = _get(rep, ("lag_profile",))
+        if not isinstance(profile, list):
+            return
+        _, bands = lag_bands(self.times)
+        for i, (_, _, _, pairs) in enumerate(bands[:len(profile)]):
+            weight = sum((obs[:, a] & obs[:, b]).astype(float) for a, b in pairs)
+            self.add(p + ("lag_profile", i, "n_pairs"), f(weight > 0, weight))
+
+
+def _group_comparisons(col: _Collector, whole_obs_span: int):
+    """The groups' figures beside each other: the lag-1 pairs and the retention base,
+    whose share kept gives the count kept back."""
+    c = col.cells
+    obs, t = c.observed, c.observed.shape[1]
+    k_codes = len(c.code_cells)
+    end_due, end_kept = end_of_follow_up(obs, whole_obs_span)
+    lag1 = sum((obs[:, a] & obs[:, a + 1]).astype(float) for a in range(t - 1))
+    for i, comp in enumerate(_get(col.report, ("groups", "comparison")) or []):
+        for j, row in enumerate(comp.get("by_group") or []):
+            if row.get("group") not in c.group_labels:
+                continue
+            mine = c.group == c.group_labels.index(row["group"])
+            path = ("groups", "comparison", i, "by_group", j)
+            if comp.get("figure") == "lag1_correlation":
+                col.add(path + ("n",), np.r_[np.where(mine, lag1, 0.0), np.zeros(k_codes)])
+            elif comp.get("figure") == "retention":
+                base = np.r_[np.where(mine & end_due, 1.0, 0.0), np.zeros(k_codes)]
+                kept = np.r_[np.where(mine & end_kept, 1.0, 0.0), np.zeros(k_codes)]
+                n = row.get("n")
+                col.add(path + ("n",), base, value=n if n else None, derived=True)
+                share = row.get("estimate")
+                if n and share is not None:
+                    col.add(path + ("estimate",), kept, value=int(round(share * n)),
+                            derived=True)
+            else:
+                col.add(path + ("n",), np.r_[mine.astype(float), np.zeros(k_codes)],
+                        nullable=False)
+
+
+def released_counts(report: dict, cells: Cells, wave_times, min_cell: int
+                    ) -> tuple[list[Count], list[str]]:
+    """Every count of one measure's report as a function of the cells, and the report
+    paths whose value our relations do not reproduce (left out of the audit)."""
+    col = _Collector(report, cells, wave_times, min_cell)
+    every = np.ones(cells.n_patterns, dtype=bool)
+    col.scope((), every, whole=True)
+    reports = _get(report, ("groups", "reports")) or {}
+    for label in reports:
+        if label in cells.group_labels:
+            col.scope(("groups", "reports", label),
+                      cells.group == cells.group_labels.index(label), whole=False)
+    if reports:
+        truth = cells.truth[:cells.n_patterns]
+        _group_comparisons(col, follow_up_span(cells.observed, truth))
+    return merge_same(col.counts), col.unmodelled
+
+
+def merge_same(counts: list[Count]) -> list[Count]:
+    """One entry per distinct count: the places showing the same count together
+    (withholding it means withholding it everywhere)."""
+    out: dict[bytes, Count] = {}
+    for one in counts:
+        key = one.coef.tobytes()
+        if key in out:
+            kept = out[key]
+            kept.paths += one.paths
+            kept.nullable = kept.nullable and one.nullable
+            if kept.value is None:
+                kept.value = one.value
+        else:
+            out[key] = Count(list(one.paths), one.coef, one.value, one.true, one.nullable)
+    return list(out.values())
+
+
+# ------------------------------------------------------------------------ the audit
+
+def _quiet(make):
+    """``make()`` with the process's standard output closed: HiGHS writes its banner
+    from C++ when a solver is made, and the library never prints."""
+    import os
+    import sys
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), 1)
+            return make()
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+
+
+class Bounds:
+    """Linear programming bounds on a count, given the released counts: one HiGHS
+    model holds a row per count (an equality while the count is shown, free once it
+    is withheld) and each bound is a new objective solved from the last basis."""
+
+    def __init__(self, counts: list[Count], cells: Cells):
+        import highspy
+        from scipy.sparse import csr_matrix
+        self.counts, self.inf = counts, highspy.kHighsInf
+        self.h = h = _quiet(highspy.Highs)
+        h.setOptionValue("output_flag", False)
+        n = len(cells.truth)
+        h.addVars(n, np.zeros(n), np.full(n, self.inf))
+        rows = [c.coef for c in counts] + list(cells.missing_limits)
+        lower = [self._row(c)[0] for c in counts] + [-self.inf] * len(cells.missing_limits)
+        upper = [self._row(c)[1] for c in counts] + [0.0] * len(cells.missing_limits)
+        if rows:
+            a = csr_matrix(np.array(rows))
+            h.addRows(len(rows), np.array(lower, float), np.array(upper, float), a.nnz,
+                      a.indptr.astype(np.int32), a.indices.astype(np.int32), a.data)
+        self.n, self.status = n, highspy.HighsModelStatus
+        self.used: set[int] = set()   # shown counts binding at the last solutions
+
+    def _row(self, count: Count) -> tuple[float, float]:
+        return (-self.inf, self.inf) if count.value is None else (count.value, count.value)
+
+    def refresh(self, count: Count):
+        """Take a count's new value (None: withheld) into the model."""
+        i = next(k for k, c in enumerate(self.counts) if c is count)
+        self.h.changeRowBounds(i, *self._row(count))
+
+    def solve(self, objective: np.ndarray):
+        """The cells at the minimum of objective . x (None: unbounded, which only a
+        maximum can be). Notes the shown counts the minimum rests on (their duals)."""
+        self.h.changeColsCost(self.n, np.arange(self.n, dtype=np.int32),
+                              np.asarray(objective, float))
+        self.h.run()
+        status = self.h.getModelStatus()
+        if status in (self.status.kUnbounded, self.status.kUnboundedOrInfeasible):
+            return None
+        if status != self.status.kOptimal:
+            raise RuntimeError("disclosure audit: linear program failed "
+                               f"({self.h.modelStatusToString(status)})")
+        sol = self.h.getSolution()
+        duals = np.asarray(sol.row_dual)[:len(self.counts)]
+        self.used |= {i for i in np.flatnonzero(np.abs(duals) > 1e-9).tolist()
+                      if self.counts[i].value is not None}
+        return np.asarray(sol.col_value)
+
+    def low(self, coef: np.ndarray) -> int:
+        return int(np.ceil(coef @ self.solve(coef) - 1e-7))
+
+    def high(self, coef: np.ndarray) -> float:
+        x = self.solve(-coef)
+        return np.inf if x is None else float(np.floor(coef @ x + 1e-7))
+
+    def may_be_empty(self, coefs: list[np.ndarray]) -> np.ndarray:
+        """Which of the counts can be 0 given the shown counts. One linear program
+        for many: the minimum of their sum sets many to 0 at once; the rest are
+        minimised on their own."""
+        empty = np.zeros(len(coefs), dtype=bool)
+        pending = np.arange(len(coefs))
+        while len(pending) > 1:
+            x = self.solve(np.sum([coefs[i] for i in pending], axis=0))
+            zero = np.array([coefs[i] @ x < 0.5 for i in pending])
+            if not zero.any():
+                break
+            empty[pending[zero]] = True
+            pending = pending[~zero]
+        for i in pending:
+            empty[i] = self.low(coefs[i]) == 0
+        return empty
+
+
+def _support(coef: np.ndarray) -> np.ndarray:
+    return coef != 0
+
+
+def audit(counts: list[Count], cells: Cells, min_cell: int, wave_labels,
+          bounds: Bounds | None = None) -> list[Finding]:
+    """The counts of 1 to min_cell - 1 units that are shown, or derivable from the shown
+    counts within an interval narrower than ``min_cell``."""
+    found = [Finding(c.label, c.value, c.value, c.value, c.coef) for c in counts
+             if c.value is not None and small(c.value, min_cell)]
+    bounds = bounds or Bounds(counts, cells)
+    n_cells = len(cells.truth)
+    targets = [(cells.name(i, wave_labels), int(cells.truth[i]), np.eye(1, n_cells, i)[0])
+               for i in np.flatnonzero(small(cells.truth, min_cell))]
+    targets += [(c.label, c.true, c.coef) for c in counts
+                if c.value is None and small(c.true, min_cell)]
+    reach = np.zeros(n_cells, dtype=bool)   # cells some shown count involves
+    for c in counts:
+        if c.value is not None:
+            reach |= _support(c.coef)
+    unique = {}
+    for what, true, coef in targets:
+        if (reach & _support(coef)).any():
+            unique.setdefault(coef.tobytes(), (what, true, coef))
+    targets = list(unique.values())
+    if not targets:
+        return found
+    empty = bounds.may_be_empty([coef for _, _, coef in targets])
+    for (what, true, coef), may_be_0 in zip(targets, empty):  # a loop over small cells
+        if may_be_0:
+            continue    # no unit need be there: nobody is singled out
+        low, high = bounds.low(coef), bounds.high(coef)
+        if high - low < min_cell:
+            found.append(Finding(what, true, low, int(min(high, 2 ** 31)), coef))
+    return found
+
+
+@dataclass
+class Protection:
+    """What the audit did to one measure's report."""
+
+    checked: int = 0                     # counts in the audit
+    withheld: list = field(default_factory=list)     # report paths withheld by the audit
+    unresolved: list = field(default_factory=list)   # findings it could not mend
+    unmodelled: list = field(default_factory=list)   # counts outside the relations
+    coarsened: list = field(default_factory=list)    # parts removed whole
+
+    def to_dict(self, min_cell: int) -> dict:
+        return {"audited": True, "min_cell": min_cell, "counts_audited": self.checked,
+                "secondary_suppressions": self.withheld, "removed": self.coarsened,
+                "unresolved": self.unresolved, "not_modelled": self.unmodelled}
+
+
+def _interval(bounds: Bounds, coef) -> tuple[int, float]:
+    bounds.used = set()
+    low = bounds.low(coef)
+    return low, (bounds.high(coef) if low > 0 else np.inf)
+
+
+def _safe(low, high, min_cell: int) -> bool:
+    return low == 0 or high - low >= min_cell
+
+
+def protect(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> tuple[
+        list[Count], list[Finding]]:
+    """Secondary suppression: withhold shown counts until no small count is derivable.
+
+    Withholding a count only widens every interval, so the audit runs once and each
+    finding is mended on its own: among the shown counts its bounds rest on (the
+    nonzero duals of its two linear programs), the smallest that alone breaks the
+    derivation is withheld, else the smallest of them, until it is safe. A shown small
+    count is withheld itself. Returns the counts withheld and the findings left."""
+    bounds = Bounds(counts, cells)
+    withheld, left = [], []
+    for finding in audit(counts, cells, min_cell, wave_labels, bounds):  # over findings
+        for _ in range(MAX_ROUNDS):
+            if _safe(*_interval(bounds, finding.coef), min_cell):
+                break
+            rest = [counts[i] for i in sorted(bounds.used)]
+            same = [c for c in rest if np.array_equal(c.coef, finding.coef)]
+            pool = sorted((c for c in (same or rest) if c.nullable),
+                          key=lambda c: (c.value, c.label))
+            mends = next((c for c in pool[:CANDIDATES_TRIED]
+                          if _safe(*_interval_without(bounds, finding.coef, c), min_cell)),
+                         None)
+            pick = mends or (pool[0] if pool else None)
+            if pick is None:
+                left.append(finding)
+                break
+            pick.value = None
+            bounds.refresh(pick)
+            withheld.append(pick)
+            if mends:
+                break
+        else:
+            left.append(finding)
+    # a finding given up may have been mended by a later one's withheld counts
+    return withheld, [f for f in left if not _safe(*_interval(bounds, f.coef), min_cell)]
+
+
+def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, float]:
+    saved, candidate.value = candidate.value, None
+    bounds.refresh(candidate)
+    low, high = _interval(bounds, coef)
+    candidate.value = saved
+    bounds.refresh(candidate)
+    return low, high
+
+
+# --------------------------------------------------------------- the report, mended
+
+# A withheld count takes its figures derived from it along (a share of a shown base
+# gives the count back).
+SIBLINGS = {"n": ("share", "floor_share", "ceiling_share"), "n_observed": ("response_share", "retained_share"),
+            "n_continuing": ("mean_continuing", "smd", "ci_low", "ci_high"),
+            "n_dropping": ("mean_dropping", "smd", "ci_low", "ci_high"),
+            "df_between": ("df_within", "f", "pvalue"), "df_within": ("df_between", "f", "pvalue")}
+
+
+def _withhold(report: dict, path: tuple):
+    parent = _get(report, path[:-1])
+    key = path[-1]
+    if isinstance(parent, list):             # a matrix cell: both halves, and its share
+        parent[key] = None
+        grand = _get(report, path[:-3])
+        row, col = path[-2], path[-1]
+        matrix = _get(report, path[:-2])
+        matrix[col][row] = None
+        if isinstance(grand, dict) and isinstance(grand.get("share"), list):
+            grand["share"][row][col] = grand["share"][col][row] = None
+        return
+    parent[key] = None
+    if path[-2:-1] and isinstance(path[-2], int) and path[:2] == ("groups", "comparison"):
+        for k in ("estimate", "ci_low", "ci_high", "se"):
+            parent[k] = None
+    for k in SIBLINGS.get(key, ()):
+        if k in parent:
+            parent[k] = None
+
+
+def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
+    """Audit one measure's report (and its group reports), withhold what must be
+    withheld, and return its ``disclosure`` block."""
+    cells = panel_cells(panel, measure)
+    counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
+    withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
+    coarsened = []
+    if left and (report.get("groups") or {}).get("reports"):
+        # the groups' tables cannot be mended count by count: they go (coarsening)
+        coarsened = ["groups.reports", "groups.comparison"]
+        report["groups"]["reports"], report["groups"]["comparison"] = {}, []
+        counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
+        withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
+    done = Protection(checked=len(counts), unmodelled=unmodelled, coarsened=coarsened)
+    for one in withheld:
+        for path in one.paths:
+            _withhold(report, path)
+            done.withheld.append(path_text(path))
+    done.unresolved = [f.to_dict() for f in left]
+    return done.to_dict(min_cell)
+
+
+def disclosure_line(report: dict) -> str | None:
+    """The audit in one sentence, for the terminal and the appendix."""
+    blocks = [r.get("disclosure") for r in (report.get("measures") or {"": report}).values()]
+    blocks = [b for b in blocks if b]
+    if not blocks:
+        return None
+    m = blocks[0]["min_cell"]
+    extra = sum(len(b["secondary_suppressions"]) for b in blocks)
+    left = sum(len(b["unresolved"]) for b in blocks)
+    dropped = any(b.get("removed") for b in blocks)
+    line = (f"Disclosure audit: the report's counts were checked together (sums, differences, "
+            f"groups beside the whole) for any count under {m} units they give away; ")
+    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld "
+             "(secondary suppression)" if extra else "none could be derived")
+    if dropped:
+        line += ", and the groups' own tables were removed"
+    if left:
+        line += (f"; {left} small count{'s' if left != 1 else ''} could still be bounded "
+                 "(listed in the JSON report's disclosure block)")
+    return line + "."
