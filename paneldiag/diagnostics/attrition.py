@@ -932,6 +932,8 @@ def attrition_section(ctx) -> Attrition:
         from paneldiag.summaries import relative_weights, replicate_groups
         weights = relative_weights(ctx.panel.weights)
         groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
+        if np.all(weights == 1.0):   # equal weights: the model-based intervals hold
+            weights = groups = None
     model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m,
                           weights=weights, replicate=groups)
     return Attrition(entry_design(patterns, labels, m), retention(patterns, labels, m),
