@@ -432,7 +432,34 @@ def cautions_note(report: dict) -> Note:
                  "counts or shares that would give one by subtraction as '–' (each table's "
                  "note says why a cell is empty); groups with fewer units are not reported; "
                  "individual trajectories appear only when asked for.")
+    if first.get("weighting"):
+        items.append(first["weighting"]["note"])
     return Note("Read this first", tuple(dict.fromkeys(items)))
+
+
+# The report sections behind each part of a measure's appendix, for its weighting note.
+SECTION_KEYS = {
+    "Sample": ("panel",), "Distribution by wave": ("wave_profile", "distribution"),
+    "Attrition": ("attrition",), "Missing data": ("missingness",),
+    "Dependence over time": ("correlation", "lag_profile", "markov", "stationarity",
+                             "decay_fit"),
+    "Reliability": ("reliability",), "Growth": ("growth",),
+    "Process families": ("verdict_basis", "families", "measurement", "power"),
+    "Groups": ("groups",),
+}
+
+
+def weighting_sentence(report: dict, title: str) -> str | None:
+    """Whether a part of the appendix is weighted (None for an unweighted screen)."""
+    states = (report.get("weighting") or {}).get("sections") or {}
+    weight = report.get("input", {}).get("options", {}).get("weight")
+    known = [states[k] for k in SECTION_KEYS.get(title, ()) if k in states]
+    if not known or not weight:
+        return None
+    if all(known):
+        return (f"Weighted by '{weight}': the shares, means, spreads, correlations and "
+                "fits here use the weights; counts are counts of units.")
+    return "Not weighted: counts of units and waves describe the panel as it is."
 
 
 def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, list[str]]:
@@ -488,6 +515,9 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
             if not (texts or drawn or tables):
                 continue
             blocks.append(Heading(3, title))
+            weighting = weighting_sentence(rep, title)
+            if weighting:
+                blocks.append(Paragraph(weighting))
             add_prose(texts)
             blocks.extend(tables)
             for name in drawn:
