@@ -774,8 +774,19 @@ def _jackknife_logit(y, xt, bounds, row_w, row_group, beta, start, max_iter, tol
     k = int(row_group.max()) + 1 if len(row_group) else 0
     copies = []
     for g in range(k):  # a loop over replicate groups
-        fit = _newton_logit(y, xt, bounds, max_iter, tol, start,
-                            np.where(row_group == g, 0.0, row_w))
+        w = np.where(row_group == g, 0.0, row_w)
+        # waves left without events or non-events drop out, as in the full fit
+        size = np.add.reduceat(w, bounds[:-1])
+        events = np.add.reduceat(np.where(y, w, 0.0), bounds[:-1])
+        kept = (events > 0) & (events < size)
+        rows = np.concatenate([np.arange(a, b) for a, b, keep in
+                               zip(bounds[:-1], bounds[1:], kept) if keep] or [[]]
+                              ).astype(np.int64)
+        sub_bounds = np.r_[0, np.cumsum(np.diff(bounds)[kept])]
+        fit = None
+        if kept.any():
+            fit = _newton_logit(y[rows], xt[:, rows], sub_bounds, max_iter, tol,
+                                (start[0][kept], start[1]), w[rows])
         if fit is None:
             nan = np.full(len(beta), np.nan)
             return nan, nan, nan

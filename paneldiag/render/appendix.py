@@ -449,10 +449,14 @@ SECTION_KEYS = {
 }
 
 
+def _weight_column(report: dict) -> str | None:
+    return report.get("input", {}).get("options", {}).get("weight")
+
+
 def weighting_sentence(report: dict, title: str) -> str | None:
     """Whether a part of the appendix is weighted (None for an unweighted screen)."""
     states = (report.get("weighting") or {}).get("sections") or {}
-    weight = report.get("input", {}).get("options", {}).get("weight")
+    weight = _weight_column(report)
     known = [states[k] for k in SECTION_KEYS.get(title, ()) if k in states]
     if not known or not weight:
         return None
@@ -533,6 +537,10 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
         blocks.append(Heading(2, "Cross-lagged correlations between measures", "cross-lag"))
         for pair in pairs:
             blocks.append(Heading(3, f"{pair['x']} and {pair['y']}"))
+            if pair.get("weighted"):
+                blocks.append(Paragraph(f"Weighted by '{_weight_column(report)}': the "
+                                        "correlations use the weights; counts are counts "
+                                        "of units."))
             add_prose(prose.cross_lag(pair, cite))
             blocks.append(cross_lag_table(pair, min_cell))
             add_figure(f"cross-lag-{stems[pair['x']]}-{stems[pair['y']]}")
