@@ -212,7 +212,9 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     (NaN). When the covariance becomes singular (a constant or collinear wave, or
     fewer units than waves) iteration stops with ``converged`` False and the last
     estimates.
-    Unweighted.
+    With weights (``patterns.w``) the weight sums stand where the counts did: the
+    estimates maximise the weighted log-likelihood (a pseudo-likelihood; Binder 1983,
+    International Statistical Review 51, 279-292), and ``n_units`` stays a count.
 
     Parameters
     ----------
