@@ -623,7 +623,7 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
 
 def _log_variances(moments: PairwiseMoments) -> np.ndarray:
     d = np.arange(moments.n.shape[1])
-    n = moments.n[0, d, d]
+    n = moments.mass[0, d, d]   # weight sums with weights (the sums are weighted)
     sx, sxx = moments.sum_x[0, d, d], moments.sum_xx[0, d, d]
     with np.errstate(invalid="ignore", divide="ignore"):
         var = (sxx - sx * sx / n) / (n - 1)
