@@ -8,7 +8,7 @@ not pay for it.
 """
 
 __version__ = "0.1.0"
-SCHEMA_VERSION = "2.1"  # 2.1: panel.times of dates in their own unit; attrition.entry, retention from entry
+SCHEMA_VERSION = "2.2"  # 2.2: --weight weights every estimate; wave_profile has no weighted_mean/sd;  2.1: panel.times of dates in their own unit; attrition.entry, retention from entry
 
 __all__ = ["screen", "Report", "InputProblem", "__version__"]
 

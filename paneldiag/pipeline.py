@@ -120,24 +120,47 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
     report.update(run_sections(ctx))
     if options.by_group and panel.groups is not None:
         report["groups"] = plain(group_screen(ctx, lambda sub: _run_group(ctx, sub)))
+        if panel.weights is not None and isinstance(report["groups"], dict):
+            report["groups"]["weighted"] = report["weighting"]["sections"]["groups"] = True
     # the counts of all sections together, before any of them is written
     if options.disclosure_audit:
         from paneldiag.disclosure_audit import protect_report
         report["disclosure"] = protect_report(report, panel, measure, options.min_cell)
-    report["cautions"] = cautions(options)
+    report["cautions"] = cautions(options, weighted=panel.weights is not None)
     return report
+
+
+# Sections that stay unweighted under --weight: what the panel is (its units, waves and
+# times), counted in units. Every other section is weighted (docs/design.md, "Weights").
+UNWEIGHTED_SECTIONS = ("panel",)
 
 
 def run_sections(ctx: MeasureContext, chosen: list[Section] | None = None) -> dict:
     """Each section (default: those of the context's options) on one context, as
-    JSON-ready values."""
+    JSON-ready values. With weights, each section that is a mapping says whether it is
+    weighted (``weighted``), and ``weighting`` lists every section's state."""
     out = {}
     for key, section in chosen or sections(ctx.options.audit_only):
         result = section(ctx)
         ctx.results[key] = result
         if result is not None:
             out[key] = plain(result)
+    if ctx.panel.weights is not None:
+        state = {key: key not in UNWEIGHTED_SECTIONS for key in out}
+        for key, value in out.items():
+            if isinstance(value, dict):
+                value["weighted"] = state[key]
+        out["weighting"] = {"sections": state, "note": WEIGHTING_NOTE}
     return out
+
+
+WEIGHTING_NOTE = (
+    "The unit weights are rescaled to average 1 over the units screened. Shares, means, "
+    "SDs, correlations, ML moments, the dropout model, reliabilities, growth figures and "
+    "the structure fits behind the verdicts are weighted (pseudo-likelihood where a "
+    "likelihood is fitted); intervals come from the delete-a-group jackknife. Counts are "
+    "counts of units, and disclosure control applies to them, never to weight sums; the "
+    "BIC and the tests take N as the number of units.")
 
 
 def _run_group(ctx: MeasureContext, sub: Panel) -> tuple[dict, dict]:
@@ -152,10 +175,17 @@ CAUTION_AUDIT_ONLY = (
     "verdicts were not computed (run the screen without --audit-only for them).")
 
 
-def cautions(options: ScreenOptions) -> list[str]:
+CAUTION_WEIGHTED = (
+    "Weighted screen: the tests and BIC treat the rescaled weights as frequencies and make "
+    "no design-effect correction, so their p-values are approximate; the jackknife "
+    "intervals account for the weights.")
+
+
+def cautions(options: ScreenOptions, weighted: bool = False) -> list[str]:
     return [CAUTION_SCREENING,
             f"Disclosure control: any count below {options.min_cell} units is suppressed and "
-            "never shown on its own."] + ([CAUTION_AUDIT_ONLY] if options.audit_only else [])
+            "never shown on its own."] + ([CAUTION_AUDIT_ONLY] if options.audit_only else []) \
+        + ([CAUTION_WEIGHTED] if weighted else [])
 
 
 def take_triplet_tables(report: dict) -> list[dict]:
@@ -202,4 +232,7 @@ def _screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
     if not options.audit_only:   # carry-over between measures belongs to the full screen
         out["cross_lag"] = plain(cross_lag_screen(panel, options.min_cell,
                                                   options.n_replicates, options.chunk_units))
+        if panel.weights is not None:   # the cross-lags are weighted as the rest
+            for pair in out["cross_lag"] or []:
+                pair["weighted"] = True
     return out

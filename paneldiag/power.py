@@ -132,8 +132,8 @@ def pattern_population(sigma: np.ndarray, observed: np.ndarray, shares: np.ndarr
     t = sigma.shape[0]
     counts = np.asarray(shares, dtype=float) * n
     m2 = counts[:, None, None] * sigma[None] * (observed[:, :, None] & observed[:, None, :])
-    patterns = SimpleNamespace(observed=observed, n=counts, mean=np.zeros(observed.shape),
-                               m2=m2)
+    patterns = SimpleNamespace(observed=observed, n=counts, mass=counts,
+                               mean=np.zeros(observed.shape), m2=m2)
     return st.PatternLikelihood(_groups(patterns, np.ones(t, dtype=bool)), t)
 
 

@@ -170,7 +170,9 @@ def test_piped_demo_with_several_measures(piped_run):
         assert measure["measure"] == name
         assert measure["ledger"]["rows_read"] == \
             measure["ledger"]["rows_used"] + measure["ledger"]["rows_dropped"]
-        assert "weighted_mean" in measure["wave_profile"][0]
+        assert measure["weighting"]["sections"]["wave_profile"] is True   # --weight given
+        assert measure["attrition"]["weighted"] is True and \
+            measure["panel"]["weighted"] is False
     # energy_use has no refusal codes; the 0-10 trust scale does (paneldiag/demo.py)
     reasons = {n: m["ledger"]["dropped_by_reason"] for n, m in report["measures"].items()}
     assert "declared_missing_code" not in reasons["energy_use"]

@@ -346,18 +346,28 @@ def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> En
     total = entering.sum()
     show = entry_shown(entering, n.sum(), min_cell)
     seen_twice = (obs.sum(axis=1) > 1) & (n > 0)
+    # the design from counts of units: a structure, not an estimate
     design = classify_entry(entering) if seen_twice.any() or total == 0 else "one_wave_each"
-    base, still = retention_to_end(obs, n)
-    share = entering / total if total > 0 else np.zeros_like(entering)
+    span = follow_up_span(obs, n)
+    due, kept = end_of_follow_up(obs, span)
+    base, still = float(n @ due), float(n @ kept)
+    mass = patterns.mass                 # shares: weighted when there are weights
+    entering_mass = entry_counts(obs, mass)
+    share = entering_mass / entering_mass.sum() if total > 0 and entering_mass.sum() > 0 \
+        else np.zeros_like(entering)
     rows = tuple(WaveCount(str(label), _count(entering[i], show[i]),
                            float(share[i]) if show[i] else None)
                  for i, label in enumerate(wave_labels))
     blocks = tuple(str(wave_labels[i]) for i in range(1, len(entering))
                    if share[i] >= ENTRY_BLOCK_SHARE and show[i])
     return EntryDesign(design, ENTRY_DESIGNS[design],
-                       float(share[0]) if len(show) and show[0] else None, blocks,
-                       follow_up_span(obs, n),
-                       still / base if end_shown(base, still, min_cell) else None, rows)
+                       float(share[0]) if len(show) and show[0] else None, blocks, span,
+                       _ratio(mass @ kept, mass @ due) if end_shown(base, still, min_cell)
+                       else None, rows)
+
+
+def _ratio(part: float, whole: float) -> float:
+    return float(part / whole) if whole > 0 else float("nan")
 
 
 # ------------------------------------------------------------------------ retention
@@ -404,13 +414,21 @@ def retention(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Reten
     """
     n_all = patterns.n.sum()
     observed, base, still, wave_ok, ret_ok = _retention_shown(patterns, min_cell)
+    if patterns.weighted:   # the shares from the weight sums; the counts stay counts
+        mass = patterns.mass
+        due = units_due(patterns.observed, follow_up_span(patterns.observed, patterns.n))
+        base, still = mass @ due, mass @ (due & patterns.observed)
+        share_observed, share_all = mass @ patterns.observed, mass.sum()
+    else:
+        share_observed, share_all = observed, n_all
     rows = []
     for t, label in enumerate(wave_labels):
         ok, keep_ret = bool(wave_ok[t]), bool(ret_ok[t])
         rows.append(RetentionRow(
             wave=str(label), n_observed=_count(observed[t], ok),
-            retained_share=float(still[t] / base[t]) if keep_ret else None,
-            response_share=float(observed[t] / n_all) if ok and n_all > 0 else None,
+            retained_share=_ratio(still[t], base[t]) if keep_ret else None,
+            response_share=_ratio(share_observed[t], share_all) if ok and n_all > 0
+            else None,
             suppressed=not ok))
     return Retention(tuple(rows))
 
@@ -486,20 +504,23 @@ def unit_types(patterns: PatternMoments, wave_labels, min_cell: int = 5, top: in
     2nd ed., sec. 1.3 (monotone and non-monotone patterns). Wiley.
     """
     codes, n_type, show = _type_shown(patterns, min_cell)
-    total = patterns.n.sum()
+    mass = patterns.mass      # shares: weighted when there are weights
+    total = mass.sum()
+    w_type = np.bincount(codes, weights=mass, minlength=len(UNIT_TYPES))
     types = tuple(TypeRow(name, _count(n_type[i], show[i]),
-                          float(n_type[i] / total) if show[i] else None)
+                          _ratio(w_type[i], total) if show[i] else None)
                   for i, name in enumerate(UNIT_TYPES))
     _, last, _, _ = response_history(patterns.observed)
     t = patterns.n_waves
     drop = codes == 1
     by_wave = np.bincount(last[drop], weights=patterns.n[drop], minlength=t)[:t - 1]
+    w_wave = np.bincount(last[drop], weights=mass[drop], minlength=t)[:t - 1]
     # each wave of last observation is one monotone pattern: shown when it is known
     known = known_patterns(patterns, min_cell, top)
     show_w = np.zeros(t - 1, dtype=bool)
     show_w[last[drop & known]] = True
     waves = tuple(WaveCount(str(wave_labels[i]), _count(by_wave[i], show_w[i]),
-                              float(by_wave[i] / total) if show_w[i] else None)
+                              _ratio(w_wave[i], total) if show_w[i] else None)
                   for i in range(t - 1))
     return UnitTypes(types, waves)
 
@@ -522,13 +543,16 @@ class DropoutDifference(Result):
 
 
 def _group_moments(patterns: PatternMoments, rows: np.ndarray, t: int):
-    n = patterns.n[rows]
+    """(units, weight sum, mean, centred sum of squares) of a set of patterns at wave t
+    (the weight sum is the count when unweighted)."""
+    count = float(patterns.n[rows].sum())
+    n = patterns.mass[rows]
     total = n.sum()
     if total == 0:
-        return 0.0, np.nan, np.nan
+        return count, 0.0, np.nan, np.nan
     mean = n @ patterns.mean[rows, t] / total
     ss = patterns.m2[rows, t, t].sum() + n @ (patterns.mean[rows, t] - mean) ** 2
-    return float(total), float(mean), float(ss)
+    return count, float(total), float(mean), float(ss)
 
 
 def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5,
@@ -557,12 +581,12 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
     for t in range(patterns.n_waves - 1):  # a loop over waves
         stay = patterns.observed[:, t] & patterns.observed[:, t + 1]
         leave = (last == t) & (end > t)   # the planned end of follow-up is no dropout
-        n1, m1, ss1 = _group_moments(patterns, stay, t)
-        n2, m2, ss2 = _group_moments(patterns, leave, t)
-        big1, ok2 = n1 >= min_cell, n2 >= min_cell
+        c1, n1, m1, ss1 = _group_moments(patterns, stay, t)
+        c2, n2, m2, ss2 = _group_moments(patterns, leave, t)
+        big1, ok2 = c1 >= min_cell, c2 >= min_cell
         ok1 = big1 and ok2   # the continuing count next to a withheld one would reveal it
         g = lo = hi = None
-        if ok1 and ok2 and n1 + n2 > 2:
+        if ok1 and ok2 and n1 + n2 > 2 and n1 > 0 and n2 > 0:
             sd = np.sqrt((ss1 + ss2) / (n1 + n2 - 2))
             if sd > 0:
                 g = float((1 - 3 / (4 * (n1 + n2) - 9)) * (m2 - m1) / sd)
@@ -570,7 +594,7 @@ def dropout_differences(patterns: PatternMoments, wave_labels, min_cell: int = 5
                 half = q * np.sqrt((n1 + n2) / (n1 * n2) + g * g / (2 * (n1 + n2)))
                 lo, hi = g - half, g + half
         out.append(DropoutDifference(
-            str(wave_labels[t]), _count(n1, ok1), _count(n2, ok2),
+            str(wave_labels[t]), _count(c1, ok1), _count(c2, ok2),
             m1 if big1 else None, m2 if ok2 else None, g, lo, hi))
     return tuple(out)
 
@@ -595,6 +619,7 @@ class DropoutModel(Result):
 
 def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = None,
                   min_cell: int = 5, max_iter: int = 50, tol: float = 1e-10,
+                  weights: np.ndarray | None = None, replicate: np.ndarray | None = None,
                   ) -> DropoutModel:
     """Discrete-time hazard of dropping out after wave t, as a logit with one
     intercept per wave and the measure at t, standardised within the wave:
@@ -610,7 +635,15 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     exact maximum-likelihood limit. The fit is Newton-Raphson on the whole cell
     arrays, using the block structure of the wave intercepts (no person-period
     design matrix with wave dummies is built); Wald intervals from the inverse
-    information. ``odds_ratio_per_sd`` is exp(b). Unweighted.
+    information. ``odds_ratio_per_sd`` is exp(b).
+
+    With unit ``weights`` every person-period carries its unit's weight: the
+    standardisation is weighted and the fit maximises the weighted log-likelihood
+    (pseudo-likelihood, Binder 1983, International Statistical Review 51, 279-292).
+    The model-based information no longer gives the variance then, so the intervals and
+    p-values come from the delete-a-group jackknife over the ``replicate`` groups (each
+    refit from the full estimate, with t on K - 1 df; Kott 2001, J. Official
+    Statistics 17, 521-526). The counts stay counts of units and person-periods.
 
     References
     ----------
@@ -626,6 +659,8 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     names = list(covariates)
     extra = [np.asarray(covariates[name], dtype=float) for name in names]
     seen = ~np.isnan(values)
+    if weights is not None:
+        seen &= (weights > 0)[:, None]   # a unit of weight 0 adds nothing to the fit
     # the last wave a unit is observed at (-1: never): the event at t is t == last
     last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
     last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
@@ -637,16 +672,23 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     del seen, last_seen
     xt = np.empty((1 + len(extra), n_rows))
     y = np.empty(n_rows, dtype=bool)
+    unit_of_row = np.empty(n_rows, dtype=np.int64)
     bounds, waves_used, any_risk = [0], np.zeros(t - 1, dtype=bool), np.zeros(n_units, bool)
     for s in range(t - 1):  # a loop over waves
         column = np.ascontiguousarray(values[:, s])   # one strided read, then contiguous
         risk = ~np.isnan(column)
+        if weights is not None:
+            risk &= weights > 0
         observed = column[risk]
         with np.errstate(invalid="ignore", divide="ignore"):
-            mean = observed.mean() if len(observed) else np.nan
-            dev = observed - mean
-            sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
-                else np.nan
+            if weights is None:
+                mean = observed.mean() if len(observed) else np.nan
+                dev = observed - mean
+                sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
+                    else np.nan
+            else:
+                sd = _weighted_sd(observed, weights[risk]) if len(observed) > 1 else np.nan
+                mean = np.average(observed, weights=weights[risk])
         if not sd > 0:
             continue   # no spread at this wave: no standardised value
         if due_end is not None:
@@ -666,9 +708,11 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
         for j, w in enumerate(extra):
             xt[j + 1, lo:hi] = w[rows, s]
         y[lo:hi] = event
+        unit_of_row[lo:hi] = rows
         bounds.append(hi)
     del last, due_end
-    xt, y = xt[:, :bounds[-1]], y[:bounds[-1]]
+    xt, y, unit_of_row = xt[:, :bounds[-1]], y[:bounds[-1]], unit_of_row[:bounds[-1]]
+    row_w = None if weights is None else weights[unit_of_row]
     n_pp, n_ev = len(y), int(y.sum())
     n_at_risk = int(any_risk.sum())
     base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
@@ -687,17 +731,27 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     spread = xt.std(axis=1)
     if np.any(spread == 0):
         return empty("a predictor is constant over the person-periods: not fitted")
-    xt[1:] = (xt[1:] - xt[1:].mean(axis=1, keepdims=True)) / spread[1:, None]
+    if row_w is None:
+        xt[1:] = (xt[1:] - xt[1:].mean(axis=1, keepdims=True)) / spread[1:, None]
+    else:
+        for j in range(1, xt.shape[0]):  # a loop over covariates
+            centre = np.average(xt[j], weights=row_w)
+            xt[j] = (xt[j] - centre) / np.sqrt(np.average((xt[j] - centre) ** 2,
+                                                          weights=row_w))
     bounds = np.asarray(bounds)
     fit = _newton_logit(y, xt, bounds, max_iter, tol,
-                        _subsample_start(y, xt, bounds, max_iter))
+                        _subsample_start(y, xt, bounds, max_iter, row_w), row_w)
     if fit is None:
         return empty("the dropout model did not converge (separation or a singular "
                      "information matrix)")
-    beta, se, iterations, _ = fit
-    zstat = beta / se
-    p = 2 * dist.norm_sf(np.abs(zstat))
-    lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
+    beta, se, iterations, start = fit
+    if row_w is None:
+        zstat = beta / se
+        p = 2 * dist.norm_sf(np.abs(zstat))
+        lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
+    else:
+        lo, hi, p = _jackknife_logit(y, xt, bounds, row_w, replicate[unit_of_row], beta,
+                                     start, max_iter, tol)
     extra = tuple({"name": name, "odds_ratio_per_sd": float(np.exp(beta[j + 1])),
                    "ci_low": float(lo[j + 1]), "ci_high": float(hi[j + 1]),
                    "pvalue": float(p[j + 1])} for j, name in enumerate(names))
@@ -710,7 +764,44 @@ SUBSAMPLE_STEP = 8          # start values from every event and every 32nd non-e
 SUBSAMPLE_MIN_ROWS = 1 << 20  # ... when there are at least this many person-periods
 
 
-def _subsample_start(y, xt, bounds, max_iter):
+def _weighted_sd(x: np.ndarray, w: np.ndarray) -> float:
+    """Weighted SD, divisor sum(w) - 1 (the screen's weights average 1)."""
+    centre = np.average(x, weights=w)
+    return float(np.sqrt(np.dot(w, (x - centre) ** 2) / (w.sum() - 1)))
+
+
+def _jackknife_logit(y, xt, bounds, row_w, row_group, beta, start, max_iter, tol):
+    """Odds-ratio intervals (exp scale) and p-values of the slopes from the
+    delete-a-group jackknife: each replicate group's person-periods get weight 0 and
+    the model is refitted from the full estimate. NaN when a refit fails."""
+    from paneldiag.summaries.jackknife import jackknife_se
+    k = int(row_group.max()) + 1 if len(row_group) else 0
+    copies = []
+    for g in range(k):  # a loop over replicate groups
+        w = np.where(row_group == g, 0.0, row_w)
+        # waves left without events or non-events drop out, as in the full fit
+        size = np.add.reduceat(w, bounds[:-1])
+        events = np.add.reduceat(np.where(y, w, 0.0), bounds[:-1])
+        kept = (events > 0) & (events < size)
+        rows = np.concatenate([np.arange(a, b) for a, b, keep in
+                               zip(bounds[:-1], bounds[1:], kept) if keep] or [[]]
+                              ).astype(np.int64)
+        sub_bounds = np.r_[0, np.cumsum(np.diff(bounds)[kept])]
+        fit = None
+        if kept.any():
+            fit = _newton_logit(y[rows], xt[:, rows], sub_bounds, max_iter, tol,
+                                (start[0][kept], start[1]), w[rows])
+        if fit is None:
+            nan = np.full(len(beta), np.nan)
+            return nan, nan, nan
+        copies.append(fit[0])
+    se = jackknife_se(beta, np.array(copies))
+    q = dist.t_ppf(0.975, k - 1)
+    p = 2 * dist.t_sf(np.abs(beta / se), k - 1)
+    return np.exp(beta - q * se), np.exp(beta + q * se), p
+
+
+def _subsample_start(y, xt, bounds, max_iter, row_w=None):
     """Start values (intercepts, slopes) for the full fit from a case-control
     subsample, or None (small data, or the subsample fit fails).
 
@@ -734,14 +825,15 @@ def _subsample_start(y, xt, bounds, max_iter):
         shifts.append(np.log(len(kept) / len(others)))
     rows = np.concatenate(parts)
     sub_bounds = np.concatenate([[0], np.cumsum([len(part) for part in parts])])
-    fit = _newton_logit(y[rows], xt[:, rows], sub_bounds, max_iter, 1e-6)
+    fit = _newton_logit(y[rows], xt[:, rows], sub_bounds, max_iter, 1e-6,
+                        weights=None if row_w is None else row_w[rows])
     if fit is None:
         return None
     alpha, beta = fit[3]
     return alpha + np.array(shifts), beta
 
 
-def _newton_logit(y, xt, bounds, max_iter, tol, start=None):
+def _newton_logit(y, xt, bounds, max_iter, tol, start=None, weights=None):
     """Logit with one intercept per level and slopes on the predictors (the rows of
     ``xt``, one row per predictor) by Newton-Raphson;
     returns (slopes, their standard errors, iterations, (intercepts, slopes)) or
@@ -749,18 +841,25 @@ def _newton_logit(y, xt, bounds, max_iter, tol, start=None):
     matrix is assembled from per-level sums (the intercept block is diagonal), one
     level's slice at a time, in reused buffers. ``start`` gives (intercepts, slopes)
     to start from; by default the intercepts are the levels' log-odds and the slopes
-    zero."""
+    zero. With ``weights`` (one per row) the weighted log-likelihood is maximised."""
     k = xt.shape[0]
     n_levels = len(bounds) - 1
     xt = np.ascontiguousarray(xt)   # one contiguous row per predictor: dot products
-    size = np.diff(bounds).astype(float)
-    events = np.array([np.count_nonzero(y[a:b]) for a, b in zip(bounds[:-1], bounds[1:])],
-                      dtype=float)
+    if weights is None:
+        size = np.diff(bounds).astype(float)
+        events = np.array([np.count_nonzero(y[a:b])
+                           for a, b in zip(bounds[:-1], bounds[1:])], dtype=float)
+    else:
+        size = np.add.reduceat(weights, bounds[:-1]) if n_levels else np.zeros(0)
+        events = np.array([weights[a:b][y[a:b]].sum()
+                           for a, b in zip(bounds[:-1], bounds[1:])])
+        if not np.all((events > 0) & (events < size)):
+            return None
     alpha = np.log(events / (size - events))
     beta = np.zeros(k)
     if start is not None:
         alpha, beta = np.array(start[0], dtype=float), np.array(start[1], dtype=float)
-    longest = int(size.max())
+    longest = int(np.diff(bounds).max())
     prob_buf, r_buf, w_buf = np.empty(longest), np.empty(longest), np.empty(longest)
     wx_buf = np.empty(longest)
     info = None
@@ -783,6 +882,9 @@ def _newton_logit(y, xt, bounds, max_iter, tol, start=None):
             np.subtract(y[a:b], prob, out=r)
             np.subtract(1.0, prob, out=w)
             w *= prob
+            if weights is not None:
+                r *= weights[a:b]
+                w *= weights[a:b]
             g_alpha[level], h_alpha[level] = r.sum(), w.sum()
             # einsum, not BLAS: a threaded BLAS dot is far slower on long vectors here
             for j in range(k):  # a loop over predictors
@@ -840,7 +942,15 @@ def attrition_section(ctx) -> Attrition:
         ctx.panel.n_waves, ctx.options.n_replicates)
     labels = ctx.panel.wave_labels
     m = ctx.options.min_cell
-    model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m)
+    weights, groups = None, None
+    if ctx.panel.weights is not None:
+        from paneldiag.summaries import relative_weights, replicate_groups
+        weights = relative_weights(ctx.panel.weights)
+        groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
+        if np.all(weights == 1.0):   # equal weights: the model-based intervals hold
+            weights = groups = None
+    model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m,
+                          weights=weights, replicate=groups)
     return Attrition(entry_design(patterns, labels, m), retention(patterns, labels, m),
                      unit_types(patterns, labels, m),
                      Selective(dropout_differences(patterns, labels, m), model))

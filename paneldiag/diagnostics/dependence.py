@@ -140,7 +140,12 @@ def _polychoric_matrices(tables: PairwiseTables) -> tuple[np.ndarray, np.ndarray
     t = pooled.shape[0]
     s_idx, t_idx = np.triu_indices(t, 1)
     stack = np.concatenate([pooled[None, s_idx, t_idx], tables.leave_one_out()[:, s_idx, t_idx]])
-    rho, n = polychoric(stack)
+    if tables.weighted is None:
+        rho, n = polychoric(stack)
+    else:   # weighted tables give the pseudo-ML polychoric; the counts stay counts
+        rho, _ = polychoric(np.concatenate([tables.pooled(True)[None, s_idx, t_idx],
+                                            tables.leave_one_out(True)[:, s_idx, t_idx]]))
+        n = stack.sum(axis=(-2, -1))
     copies = stack.shape[0]
     r = np.full((copies, t, t), np.nan)
     counts = np.zeros((copies, t, t))
@@ -618,7 +623,7 @@ def stationarity_tests(corr: WaveCorrelations, pairwise: PairwiseMoments,
 
 def _log_variances(moments: PairwiseMoments) -> np.ndarray:
     d = np.arange(moments.n.shape[1])
-    n = moments.n[0, d, d]
+    n = moments.mass[0, d, d]   # weight sums with weights (the sums are weighted)
     sx, sxx = moments.sum_x[0, d, d], moments.sum_xx[0, d, d]
     with np.errstate(invalid="ignore", divide="ignore"):
         var = (sxx - sx * sx / n) / (n - 1)
@@ -885,7 +890,7 @@ def _em_covariance(ctx) -> np.ndarray | None:
 
 
 def correlation_section(ctx) -> WaveCorrelations | None:
-    from paneldiag.summaries import replicate_groups
+    from paneldiag.summaries import relative_weights, replicate_groups
     from paneldiag.summaries.ranks import rank_moments
     if ctx.panel.n_waves < 2:
         return None
@@ -893,7 +898,7 @@ def correlation_section(ctx) -> WaveCorrelations | None:
     tables = ctx.summaries.get(PairwiseTables)
     groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
     ranks = rank_moments(ctx.values, groups, ctx.panel.wave_times, ctx.options.n_replicates,
-                         ctx.options.chunk_units)
+                         ctx.options.chunk_units, relative_weights(ctx.panel.weights))
     with_reps = _em_replicates(ctx)
     em_cov, em_reps = with_reps if with_reps is not None else (_em_covariance(ctx), None)
     return wave_correlations(pairwise, ranks, tables, ctx.panel.wave_labels,

@@ -200,7 +200,8 @@ def group_screen(ctx, run_group: Callable) -> GroupScreen | None:
     to the end of its follow-up (Pearson chi-square of the 2 x G table; Wilson intervals), and, where the
     diagnostics report them with an uncertainty, the stable share, the carry-over and the
     reliability (Cochran's Q with the reported SEs, or SEs read off symmetric CIs). Tests assume independent
-    groups, which holds for a unit-level grouping column; they are unweighted.
+    groups, which holds for a unit-level grouping column. With weights each group's
+    figures are weighted (its own screen rescales them); the retention test counts units.
     """
     panel, measure, min_cell = ctx.panel, ctx.measure, ctx.options.min_cell
     if panel.groups is None:

@@ -6,7 +6,8 @@ Everything here is a pure function of two mergeable summaries: the per-unit
 trajectory summary (``TrajectorySummary``, fitted pattern by pattern) and the
 pairwise moments of the waves (``PairwiseMoments``). Uncertainty comes from the
 delete-a-group jackknife over replicate groups where no closed form is used.
-All figures are unweighted.
+With weights, every mean, spread, slope, reliability and correlation here is weighted
+(the summaries carry weighted sums); the counts of units stay counts.
 """
 
 from __future__ import annotations
@@ -185,16 +186,17 @@ class GrowthScreen(Result):
 # ----------------------------------------------------------------------------- pooled moments
 
 def _slope_parts(s: TrajectorySummary, pd_: _PatternDesign):
-    """Counts, pattern means and centred sums of the linear coefficients (pooled)."""
+    """Units (weight sums with weights), pattern means and centred sums of the linear
+    coefficients (pooled)."""
     use = pd_.k >= LINEAR_MIN_WAVES
-    n = s.n[0] * use
+    n = s.mass[0] * use
     return n, s.lin_mean[0], s.lin_m2[0]
 
 
 def _trajectory_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
     n, mean, m2 = _slope_parts(s, pd_)
     j = n.sum()
-    out = {"n": j}
+    out = {"n": (s.n[0] * (pd_.k >= LINEAR_MIN_WAVES)).sum()}   # a count of units
     with np.errstate(invalid="ignore", divide="ignore"):
         centre = (n[:, None] * mean).sum(axis=0) / j
         dev = mean - centre
@@ -205,8 +207,8 @@ def _trajectory_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
                    sd_intercept=np.sqrt(cov[0, 0]), sd_slope=np.sqrt(cov[1, 1]),
                    correlation=cov[0, 1] / np.sqrt(cov[0, 0] * cov[1, 1]),
                    slope_ss=cross[1, 1])
-        nq = s.n[0] * (pd_.k >= 4)
-        out["n_curvature"] = nq.sum()
+        nq = s.mass[0] * (pd_.k >= 4)
+        out["n_curvature"] = (s.n[0] * (pd_.k >= 4)).sum()
         out["mean_curvature"] = (nq * s.quad_mean[0][:, 2]).sum() / nq.sum()
     return out
 
@@ -216,7 +218,7 @@ def _slope_reliability_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
     n, mean, m2 = _slope_parts(s, pd_)
     n = n * (pd_.ss_t > 0)
     j = n.sum()
-    df_resid = (s.n[0] * pd_.tr_m).sum()
+    df_resid = (s.mass[0] * pd_.tr_m).sum()
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma2 = s.rss[0].sum() / df_resid
         v = np.where(n > 0, sigma2 / pd_.ss_t, np.inf)
@@ -228,7 +230,8 @@ def _slope_reliability_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
         tau = (chi2 - (j - 1)) / (sum_w - sum_w2 / sum_w)
         lam = np.where(n > 0, tau / (tau + v), 0.0)
         reliability = (n * lam).sum() / j
-    return {"n": j, "sigma2": sigma2, "tau": tau, "mean_v": mean_v, "reliability": reliability,
+    units = (s.n[0] * (pd_.k >= LINEAR_MIN_WAVES) * (pd_.ss_t > 0)).sum()
+    return {"n": units, "sigma2": sigma2, "tau": tau, "mean_v": mean_v, "reliability": reliability,
             "pooled": pooled, "chi2": chi2, "df_resid": df_resid}
 
 
@@ -250,7 +253,7 @@ def _autocorrelation_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
 
 def _icc_point(s: TrajectorySummary, pd_: _PatternDesign) -> dict:
     """One-way random-effects ANOVA with units as classes and waves as replicates."""
-    n, k = s.n[0], pd_.k
+    n, k = s.mass[0], pd_.k
     units = n * (k > 0)
     j = units.sum()
     n_obs = (units * k).sum()
@@ -440,7 +443,7 @@ def orthogonal_polynomials(times: np.ndarray) -> np.ndarray:
 
 def _wave_means_and_covariance(moments) -> tuple[np.ndarray, np.ndarray]:
     p = moments.pooled()
-    n = p.n[0]
+    n = p.mass[0]
     nt = np.diag(n)
     means = moments.shift + np.diag(p.sum_x[0]) / nt
     cov = moments.covariance()

@@ -62,7 +62,7 @@ def pairwise_fallback(patterns: PatternMoments) -> EMResult:
 class _Group:
     """Patterns with the same number k of observed waves, in batch form."""
 
-    n: np.ndarray        # (P_k,)
+    n: np.ndarray        # (P_k,) units, or weight sums (a pseudo-likelihood)
     obs: np.ndarray      # (P_k, k) observed wave indices (into the used waves)
     mean: np.ndarray     # (P_k, k) pattern means of the observed waves
     m2: np.ndarray       # (P_k, k, k) centred cross-products of the observed waves
@@ -79,7 +79,7 @@ def _groups(patterns: PatternMoments, used: np.ndarray) -> list[_Group]:
     waves = np.flatnonzero(used)
     out = []
     for k in range(1, t + 1):  # a loop over numbers of observed waves
-        rows = np.flatnonzero((count == k) & (patterns.n > 0))
+        rows = np.flatnonzero((count == k) & (patterns.mass > 0))
         if len(rows) == 0:
             continue
         # stable argsort of "not observed" lists the observed waves first, in order
@@ -88,7 +88,7 @@ def _groups(patterns: PatternMoments, used: np.ndarray) -> list[_Group]:
         full = waves[obs]
         mean = np.take_along_axis(patterns.mean[rows], full, axis=1)
         m2 = patterns.m2[rows[:, None, None], full[:, :, None], full[:, None, :]]
-        out.append(_Group(patterns.n[rows], obs, mean, m2, obs[:, :, None] * t + obs[:, None, :],
+        out.append(_Group(patterns.mass[rows], obs, mean, m2, obs[:, :, None] * t + obs[:, None, :],
                           mis, mis[:, :, None] * t + obs[:, None, :],
                           mis[:, :, None] * t + mis[:, None, :]))
     return out
@@ -183,7 +183,7 @@ def _observed_loglik(groups: list[_Group], mu: np.ndarray, sigma: np.ndarray) ->
 
 def _start(patterns: PatternMoments, used: np.ndarray):
     """Available-case means and variances, zero covariances."""
-    n = patterns.n[:, None] * patterns.observed
+    n = patterns.mass[:, None] * patterns.observed
     count = n.sum(axis=0)
     mean = (n * patterns.mean).sum(axis=0) / np.maximum(count, 1)
     diag = np.einsum("ptt->pt", patterns.m2)
@@ -212,7 +212,9 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
     (NaN). When the covariance becomes singular (a constant or collinear wave, or
     fewer units than waves) iteration stops with ``converged`` False and the last
     estimates.
-    Unweighted.
+    With weights (``patterns.w``) the weight sums stand where the counts did: the
+    estimates maximise the weighted log-likelihood (a pseudo-likelihood; Binder 1983,
+    International Statistical Review 51, 279-292), and ``n_units`` stays a count.
 
     Parameters
     ----------
@@ -263,7 +265,7 @@ def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8
 def _em(patterns: PatternMoments, max_iter: int, tol: float,
         start: EMResult | None = None, with_loglik: bool = True) -> EMResult:
     t_all = patterns.n_waves
-    wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
+    wave_n = (patterns.mass[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
     means = np.full(t_all, np.nan)
     covariance = np.full((t_all, t_all), np.nan)
@@ -308,7 +310,13 @@ def _em(patterns: PatternMoments, max_iter: int, tol: float,
     except np.linalg.LinAlgError:
         loglik = np.nan
     return EMResult(converged, iteration, means, covariance, loglik,
-                    int(sum(g.n.sum() for g in groups)))
+                    _units_seen(patterns, used))
+
+
+def _units_seen(patterns: PatternMoments, used: np.ndarray) -> int:
+    """Units (a count, never a weight sum) observed at one of the ``used`` waves."""
+    return int(patterns.n[patterns.observed[:, used].any(axis=1)
+                          & (patterns.mass > 0)].sum())
 
 
 # ------------------------------------------------------------------ Little's test
@@ -342,7 +350,7 @@ def little_mcar_test(patterns: PatternMoments, em: EMResult | None = None) -> Li
     em = em if em is not None else em_moments(patterns)
     if em.method != "em":   # the test needs the ML estimates
         return LittleMCAR(np.nan, 0, np.nan, patterns.n_patterns)
-    wave_n = (patterns.n[:, None] * patterns.observed).sum(axis=0)
+    wave_n = (patterns.mass[:, None] * patterns.observed).sum(axis=0)
     used = wave_n > 0
     groups = _groups(patterns, used)
     n_patterns = sum(len(g.n) for g in groups)
@@ -424,21 +432,22 @@ def response_patterns(patterns: PatternMoments, min_cell: int = 5, top: int = 10
     2nd ed., sec. 1.3 (missing-data patterns). Wiley.
     """
     total = float(patterns.n.sum())
+    mass = patterns.mass[order := display_order(patterns)]   # shares: weighted
     text = pattern_text(patterns.observed)
-    order = display_order(patterns)
     counts = patterns.n[order]
     big = counts >= min_cell
     known = known_patterns(patterns, min_cell, top)[order]
     listed = [i for i in np.flatnonzero(big)[:top] if known[i]]
     small = counts[~big].sum()
     remainder = total - counts[listed].sum()
-    rows = tuple(PatternRow(text[order[i]], int(counts[i]), float(counts[i] / total),
+    rows = tuple(PatternRow(text[order[i]], int(counts[i]), float(mass[i] / mass.sum()),
                             int(patterns.observed[order[i]].sum())) for i in listed)
     return ResponsePatterns(
         legend=f"one character per wave: '{OBSERVED_MARK}' observed, '{MISSING_MARK}' missing",
         n_patterns=int(patterns.n_patterns), n_units=int(total), rows=rows,
         remainder_patterns=int(patterns.n_patterns - len(rows)),
-        remainder_units=int(remainder), remainder_share=remainder / total if total else np.nan,
+        remainder_units=int(remainder),
+        remainder_share=(mass.sum() - mass[listed].sum()) / mass.sum() if total else np.nan,
         n_small_patterns=int((~big).sum()),
         n_small_units=int(small) if small >= min_cell else None)
 
@@ -484,7 +493,8 @@ def coverage(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> Covera
     total = patterns.n.sum()
     show = coverage_shown(both, min_cell)
     n = np.where(show, both, np.nan)
-    share = np.where(show, both / total if total else np.nan, np.nan)
+    weighted = (obs * patterns.mass[:, None]).T @ obs    # shares: weighted
+    share = np.where(show, weighted / patterns.mass.sum() if total else np.nan, np.nan)
     labels = tuple(str(w) for w in wave_labels)
     off = np.where(~np.eye(len(labels), dtype=bool) & show, share, np.inf)
     if np.isfinite(off).any():

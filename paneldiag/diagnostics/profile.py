@@ -22,8 +22,6 @@ class WaveRow(Result):
     floor_share: float
     ceiling_share: float
     distinct: int
-    weighted_mean: float | None = None
-    weighted_sd: float | None = None
 
 
 @dataclass(frozen=True)
@@ -33,11 +31,7 @@ class WaveProfile(Result):
     ceiling: float
 
     def to_dict(self) -> list[dict]:  # the JSON key holds the list of rows
-        rows = [row.to_dict() for row in self.rows]
-        for row in rows:
-            if row["weighted_mean"] is None and row["weighted_sd"] is None:
-                del row["weighted_mean"], row["weighted_sd"]
-        return plain(rows)
+        return plain([row.to_dict() for row in self.rows])
 
 
 def wave_profile(moments: WaveMoments, wave_labels: tuple[str, ...]) -> WaveProfile:
@@ -47,18 +41,23 @@ def wave_profile(moments: WaveMoments, wave_labels: tuple[str, ...]) -> WaveProf
     (Joanes and Gill 1998, J. Royal Statistical Society D, eq. for g1; scipy.stats.skew's
     default). The floor and ceiling are the lowest and highest values observed at any
     wave, so shares are comparable across waves (floor and ceiling effects in the sense
-    of Terwee et al. 2007, J. Clinical Epidemiology). The weighted SD uses the divisor
-    sum(w), an estimate of the population SD under sampling weights.
+    of Terwee et al. 2007, J. Clinical Epidemiology). With weights (rescaled to average 1,
+    ``summaries.relative_weights``) the mean, SD, skewness and shares are weighted, the
+    SD with divisor sum(w) - 1 (statsmodels' DescrStatsW with ddof=1); n stays a count.
     """
     n = moments.n
+    mass = moments.mass
+    weighted = moments.w is not None
     floor = float(np.min(moments.minimum))
     ceiling = float(np.max(moments.maximum))
+    at_min = moments.w_at_min if weighted else moments.n_at_min
+    at_max = moments.w_at_max if weighted else moments.n_at_max
     with np.errstate(invalid="ignore", divide="ignore"):
-        sd = np.where(n > 1, np.sqrt(moments.m2 / (n - 1)), np.nan)  # none below 2
-        skew = np.where(moments.m2 > 0, (moments.m3 / n) / (moments.m2 / n) ** 1.5, np.nan)
-        floor_share = np.where(moments.minimum == floor, moments.n_at_min, 0) / n
-        ceiling_share = np.where(moments.maximum == ceiling, moments.n_at_max, 0) / n
-        wsd = None if moments.weight_sum is None else np.sqrt(moments.weighted_m2 / moments.weight_sum)
+        sd = np.where((n > 1) & (mass > 1), np.sqrt(moments.m2 / (mass - 1)), np.nan)
+        skew = np.where(moments.m2 > 0, (moments.m3 / mass) / (moments.m2 / mass) ** 1.5,
+                        np.nan)
+        floor_share = np.where(moments.minimum == floor, at_min, 0) / mass
+        ceiling_share = np.where(moments.maximum == ceiling, at_max, 0) / mass
     rows = []
     for t, label in enumerate(wave_labels):
         has = n[t] > 0
@@ -67,10 +66,7 @@ def wave_profile(moments: WaveMoments, wave_labels: tuple[str, ...]) -> WaveProf
             sd=float(sd[t]), min=float(moments.minimum[t]) if has else np.nan,
             max=float(moments.maximum[t]) if has else np.nan, skewness=float(skew[t]),
             floor_share=float(floor_share[t]), ceiling_share=float(ceiling_share[t]),
-            distinct=int(len(moments.distinct[t])),
-            weighted_mean=None if wsd is None else float(moments.weighted_mean[t]),
-            weighted_sd=None if wsd is None else float(wsd[t]),
-        ))
+            distinct=int(len(moments.distinct[t]))))
     return WaveProfile(rows=tuple(rows), floor=floor, ceiling=ceiling)
 
 
@@ -152,12 +148,12 @@ def distribution_check(moments: WaveMoments, wave_labels: tuple[str, ...],
     (Grubbs 1969, Technometrics 11, 1-21); a second outlier can mask the first, so the
     check finds the clearest case, not every one.
     """
-    n = moments.n
+    n, mass = moments.n, moments.mass   # weight sums with weights (see wave_profile)
     with np.errstate(invalid="ignore", divide="ignore"):
-        var = moments.m2 / n
-        skew = np.where(moments.m2 > 0, (moments.m3 / n) / var ** 1.5, np.nan)
-        kurt = np.where(moments.m2 > 0, (moments.m4 / n) / var ** 2 - 3.0, np.nan)
-        sd = np.where(n > 1, np.sqrt(moments.m2 / (n - 1)), np.nan)
+        var = moments.m2 / mass
+        skew = np.where(moments.m2 > 0, (moments.m3 / mass) / var ** 1.5, np.nan)
+        kurt = np.where(moments.m2 > 0, (moments.m4 / mass) / var ** 2 - 3.0, np.nan)
+        sd = np.where((n > 1) & (mass > 1), np.sqrt(moments.m2 / (mass - 1)), np.nan)
         mean = moments.mean
         far = np.maximum(moments.maximum - mean, mean - moments.minimum)
         g = np.where((sd > 0) & (n > 2), far / sd, np.nan)

@@ -359,15 +359,21 @@ class InternalConsistency(Result):
     waves: tuple[ItemWave, ...]
 
 
-def item_covariance(items: np.ndarray) -> tuple[np.ndarray, int]:
-    """Covariance (n - 1 divisor, centred) of the units with every item observed."""
+def item_covariance(items: np.ndarray, weights: np.ndarray | None = None
+                    ) -> tuple[np.ndarray, int]:
+    """Covariance (n - 1 divisor, centred) of the units with every item observed, and
+    their count; with weights, weighted (divisor sum(w) - 1, the weights averaging 1)."""
     complete = ~np.isnan(items).any(axis=1)
     x = items[complete]
     n = len(x)
     if n < 2:
         return np.full((items.shape[1],) * 2, np.nan), n
-    d = x - x.mean(axis=0)
-    return d.T @ d / (n - 1), n
+    if weights is None:
+        d = x - x.mean(axis=0)
+        return d.T @ d / (n - 1), n
+    w = weights[complete]
+    d = x - (w @ x) / w.sum()
+    return (d * w[:, None]).T @ d / (w.sum() - 1), n
 
 
 def cronbach_alpha(cov: np.ndarray) -> float:
@@ -427,13 +433,14 @@ def mcdonald_omega(loadings: np.ndarray, unique: np.ndarray) -> float:
 
 
 def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
-                         item_names: tuple[str, ...], level: float = 0.95
-                         ) -> InternalConsistency:
+                         item_names: tuple[str, ...], level: float = 0.95,
+                         weights: np.ndarray | None = None) -> InternalConsistency:
     """Cronbach's alpha and McDonald's omega of a scale's items, wave by wave.
 
     ``items`` is (n_units, n_waves, n_items); each wave uses the units with every
     item observed at that wave. Alpha and omega refer to the unweighted sum (or mean)
-    of the raw items, so they are computed from covariances. Omega uses a one-factor
+    of the raw items, so they are computed from covariances (weighted ones with
+    ``weights``; Feldt's interval keeps the count of units). Omega uses a one-factor
     model fitted by maximum likelihood; a Heywood case (a unique variance at its
     lower bound) and a negative alpha are reported with the reason, not altered.
 
@@ -450,7 +457,7 @@ def internal_consistency(items: np.ndarray, wave_labels: tuple[str, ...],
     rows = []
     k = items.shape[2]
     for t, label in enumerate(wave_labels):  # a loop over waves
-        cov, n = item_covariance(items[:, t, :])
+        cov, n = item_covariance(items[:, t, :], weights)
         problems = []
         if n < k + 1 or not np.all(np.isfinite(cov)) or np.any(np.diag(cov) <= 0):
             problems.append(f"too few complete units ({n}) or an item without variance")
@@ -581,8 +588,10 @@ def reliability_section(ctx) -> ReliabilityScreen | None:
     items = ctx.panel.items.get(ctx.measure)
     if items is None:
         return result
+    from paneldiag.summaries import relative_weights
     consistency = internal_consistency(items, ctx.panel.wave_labels,
-                                       ctx.panel.item_columns[ctx.measure])
+                                       ctx.panel.item_columns[ctx.measure],
+                                       weights=relative_weights(ctx.panel.weights))
     if result is None:  # two waves: no triplet, but the items still say something
         empty = ReliabilitySummary(
             estimate=float("nan"), ci_low=float("nan"), ci_high=float("nan"), se=float("nan"),

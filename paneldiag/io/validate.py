@@ -730,6 +730,9 @@ def _unit_weights(raw, spec, rows, unit_rows, unit_ids):
         raise InputProblem(f"weight is missing, negative or infinite for {int(bad.sum())} "
                            f"unit(s), first unit {unit_ids[first]}", file=raw.source, row=row,
                            column=spec.weight)
+    if len(values) and not values.sum() > 0:
+        raise InputProblem("weight is 0 for every unit: nothing to weight by",
+                           file=raw.source, column=spec.weight)
     return values
 
 

@@ -441,7 +441,38 @@ def cautions_note(report: dict) -> Note:
                  "counts or shares that would give one by subtraction as '–' (each table's "
                  "note says why a cell is empty); groups with fewer units are not reported; "
                  "individual trajectories appear only when asked for.")
+    if first.get("weighting"):
+        items.append(first["weighting"]["note"])
     return Note("Read this first", tuple(dict.fromkeys(items)))
+
+
+# The report sections behind each part of a measure's appendix, for its weighting note.
+SECTION_KEYS = {
+    "Sample": ("panel",), "Distribution by wave": ("wave_profile", "distribution"),
+    "Attrition": ("attrition",), "Missing data": ("missingness",),
+    "Dependence over time": ("correlation", "lag_profile", "markov", "stationarity",
+                             "decay_fit"),
+    "Reliability": ("reliability",), "Growth": ("growth",),
+    "Process families": ("verdict_basis", "families", "measurement", "power"),
+    "Groups": ("groups",),
+}
+
+
+def _weight_column(report: dict) -> str | None:
+    return report.get("input", {}).get("options", {}).get("weight")
+
+
+def weighting_sentence(report: dict, title: str) -> str | None:
+    """Whether a part of the appendix is weighted (None for an unweighted screen)."""
+    states = (report.get("weighting") or {}).get("sections") or {}
+    weight = _weight_column(report)
+    known = [states[k] for k in SECTION_KEYS.get(title, ()) if k in states]
+    if not known or not weight:
+        return None
+    if all(known):
+        return (f"Weighted by '{weight}': the shares, means, spreads, correlations and "
+                "fits here use the weights; counts are counts of units.")
+    return "Not weighted: counts of units and waves describe the panel as it is."
 
 
 def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, list[str]]:
@@ -497,6 +528,9 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
             if not (texts or drawn or tables):
                 continue
             blocks.append(Heading(3, title))
+            weighting = weighting_sentence(rep, title)
+            if weighting:
+                blocks.append(Paragraph(weighting))
             add_prose(texts)
             blocks.extend(tables)
             for name in drawn:
@@ -512,6 +546,10 @@ def build(report: dict, figures: dict[str, tuple[str, bytes]]) -> tuple[list, li
         blocks.append(Heading(2, "Cross-lagged correlations between measures", "cross-lag"))
         for pair in pairs:
             blocks.append(Heading(3, f"{pair['x']} and {pair['y']}"))
+            if pair.get("weighted"):
+                blocks.append(Paragraph(f"Weighted by '{_weight_column(report)}': the "
+                                        "correlations use the weights; counts are counts "
+                                        "of units."))
             add_prose(prose.cross_lag(pair, cite))
             blocks.append(cross_lag_table(pair, min_cell))
             add_figure(f"cross-lag-{stems[pair['x']]}-{stems[pair['y']]}")

@@ -102,6 +102,11 @@ def render_terminal(report: dict, color: bool = False, details: bool = False) ->
     header = (f"paneldiag {report['tool']['version']} · {report['input']['path']}"
               + (f" · {table}" if table else "")
               + f" · sha256 {report['input']['sha256'][:12]}…")
+    weight = report["input"].get("options", {}).get("weight")
+    if weight:
+        header += (f"\nweighted by '{weight}' (rescaled to average 1): shares, means, SDs, "
+                   "correlations, fits and verdicts use the weights; counts are counts of "
+                   "units")
     several = len(measures) > 1
     parts = [header] + [(heading(f"═══ {name}", color) + "\n\n" if several else "")
                         + render_measure(r, color, details) for name, r in measures.items()]

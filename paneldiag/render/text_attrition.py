@@ -97,14 +97,19 @@ def attrition_block(report: dict, color: bool) -> list[str]:
                      + f" ({away} of {len(gs)} intervals exclude 0)")
     model = selective["model"]
     if model["fitted"]:
+        interval = (f"[{model['ci_low']:.2f}, {model['ci_high']:.2f}], "
+                    f"{_p(model['pvalue'])}" if model["ci_low"] is not None
+                    else "(no interval: a replicate refit failed)")
         text = (f"  dropout model: odds ratio per SD {model['odds_ratio_per_sd']:.2f} "
-                f"[{model['ci_low']:.2f}, {model['ci_high']:.2f}], {_p(model['pvalue'])} "
+                f"{interval} "
                 f"({_count(model['n_person_periods'], m)} unit-waves at risk, "
                 f"{_count(model['n_events'], m)} dropouts)")
         lines.append(text)
         for c in model["covariates"]:
+            interval = (f"[{c['ci_low']:.2f}, {c['ci_high']:.2f}], {_p(c['pvalue'])}"
+                        if c["ci_low"] is not None else "(no interval)")
             lines.append(f"    with {c['name']}: odds ratio per SD {c['odds_ratio_per_sd']:.2f} "
-                         f"[{c['ci_low']:.2f}, {c['ci_high']:.2f}], {_p(c['pvalue'])}")
+                         f"{interval}")
     else:
         lines.append(f"  dropout model: {model['note']}")
     return lines

@@ -93,9 +93,9 @@ def relative_kurtosis(moments) -> float:
     kurtoses as its estimate, Bentler and Wu 1995, EQS manual, from memory). Light
     tails (below 1) keep the normal-theory statistics."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        n = np.asarray(moments.n, dtype=float)
+        n = np.asarray(moments.mass, dtype=float)
         kurt = (moments.m4 / n) / (moments.m2 / n) ** 2 / 3.0
-    kurt = kurt[np.isfinite(kurt) & (n > 3)]
+    kurt = kurt[np.isfinite(kurt) & (moments.n > 3)]
     return float(max(1.0, np.mean(kurt))) if kurt.size else 1.0
 
 
@@ -124,8 +124,8 @@ def _wave_margins(summaries) -> tuple[np.ndarray, np.ndarray] | None:
     tables = summaries.get(PairwiseTables)
     if tables is None or tables.counts is None:
         return None
-    return (np.einsum("ttii->ti", tables.pooled()),
-            np.einsum("kttii->kti", tables.leave_one_out()))
+    return (np.einsum("ttii->ti", tables.pooled(weighted=True)),
+            np.einsum("kttii->kti", tables.leave_one_out(weighted=True)))
 
 
 def _use_polychoric(inp, matrix, em, summaries) -> None:

@@ -253,7 +253,13 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
     pair_n = (obs.T * n) @ obs.astype(float)
     # kept to the end of follow-up, counted from each unit's own first wave
     from paneldiag.diagnostics.attrition import retention_to_end
-    base, kept = retention_to_end(obs, n)
+    mass = patterns.mass   # the estimates weighted; the thresholds on counts of units
+    if patterns.weighted:
+        from paneldiag.diagnostics.attrition import end_of_follow_up, follow_up_span
+        due, kept_rows = end_of_follow_up(obs, follow_up_span(obs, n))
+        base, kept = float(mass @ due), float(mass @ kept_rows)
+    else:
+        base, kept = retention_to_end(obs, n)
     retention = kept / base if base > 0 else np.nan
     # the previous score of units that leave after wave s vs units seen again later
     last = np.where(obs.any(axis=1), t - 1 - np.argmax(obs[:, ::-1], axis=1), -1)
@@ -264,14 +270,15 @@ def inputs_from_patterns(patterns, em, times, categories: int) -> Inputs:
         leave = here & (last == s)
         stay = here & (last > s)
         n_leave, n_stay = n[leave].sum(), n[stay].sum()
-        if n_leave >= 5 and n_stay >= 5 and sd[s] > 0:
-            m_leave = (n[leave] * patterns.mean[leave, s]).sum() / n_leave
-            m_stay = (n[stay] * patterns.mean[stay, s]).sum() / n_stay
+        w_leave, w_stay = mass[leave].sum(), mass[stay].sum()
+        if n_leave >= 5 and n_stay >= 5 and sd[s] > 0 and w_leave > 0 and w_stay > 0:
+            m_leave = (mass[leave] * patterns.mean[leave, s]).sum() / w_leave
+            m_stay = (mass[stay] * patterns.mean[stay, s]).sum() / w_stay
             smds.append((m_leave - m_stay) / sd[s])
-            weights.append(n_leave)
+            weights.append(w_leave)
     smd = float(np.average(smds, weights=weights)) if smds else np.nan
     sigma = np.asarray(em.covariance, float)
-    used = n > 0
+    used = mass > 0
     complete = bool(np.all(obs[used & obs.any(axis=1)]))
     likelihood = None
     if np.all(np.isfinite(sigma)) and em.method == "em":

@@ -60,6 +60,21 @@ def replicate_groups(unit_ids: np.ndarray, n_replicates: int = N_REPLICATES) -> 
 _LAST_GROUPS: list = []
 
 
+def relative_weights(weights: np.ndarray | None) -> np.ndarray | None:
+    """The unit weights rescaled to average 1 over the units screened (None: unweighted).
+
+    Every weighted figure is unchanged by a common factor of the weights except those
+    that count units: divisors n - 1, Fisher-z weights n - 3, likelihood-ratio tests
+    and the BIC. Rescaled, the weight sums stand on the scale of unit counts, so these
+    stay meaningful whether the weights sum to the sample or to a population."""
+    if weights is None:
+        return None
+    total = float(np.sum(weights))
+    if not total > 0:
+        return np.zeros_like(weights, dtype=float)
+    return np.asarray(weights, dtype=float) * (len(weights) / total)
+
+
 def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = CHUNK_UNITS,
               n_replicates: int = N_REPLICATES) -> dict[type, object]:
     """Build every summary kind in one pass over chunks of units.
@@ -69,11 +84,12 @@ def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = 
     kinds that share it."""
     values = panel.values[measure]
     groups = replicate_groups(panel.unit_ids, n_replicates)
+    weights = relative_weights(panel.weights)
     merged: dict[type, object] = {}
     for start in range(0, panel.n_units, chunk_units):
         stop = min(start + chunk_units, panel.n_units)
         chunk = Chunk(values=values[start:stop],
-                      weights=None if panel.weights is None else panel.weights[start:stop],
+                      weights=None if weights is None else weights[start:stop],
                       replicate=groups[start:stop], times=panel.wave_times,
                       n_replicates=n_replicates)
         shared: dict = {}

@@ -31,6 +31,12 @@ class PairwiseTables:
     low: int | None
     counts: np.ndarray | None
     reason: str | None = None
+    weighted: np.ndarray | None = None   # with weights: the weight sums of the same cells
+
+    @property
+    def mass(self) -> np.ndarray:
+        """The tables estimates use: weight sums with weights, else the counts."""
+        return self.counts if self.weighted is None else self.weighted
 
     @property
     def n_levels(self) -> int:
@@ -56,16 +62,21 @@ class PairwiseTables:
         m = n_levels + 1   # one extra code for "missing", dropped from the tables
         code = np.where(seen, x - low, n_levels).astype(np.intp)
         base = chunk.replicate.astype(np.intp) * (m * m)
-        counts = np.zeros((k, t, t, n_levels, n_levels), dtype=np.int64)
-        for s in range(t):  # a loop over pairs of waves; each step is one bincount
-            row = base + code[:, s] * m
-            for u in range(s, t):
-                table = np.bincount(row + code[:, u], minlength=k * m * m)
-                table = table.reshape(k, m, m)[:, :n_levels, :n_levels]
-                counts[:, s, u] = table
-                if u != s:
-                    counts[:, u, s] = table.transpose(0, 2, 1)
-        return cls(low, np.ascontiguousarray(counts))
+        def tabulate(weights, dtype):
+            out = np.zeros((k, t, t, n_levels, n_levels), dtype=dtype)
+            for s in range(t):  # a loop over pairs of waves; each step is one bincount
+                row = base + code[:, s] * m
+                for u in range(s, t):
+                    table = np.bincount(row + code[:, u], weights=weights,
+                                        minlength=k * m * m).astype(dtype, copy=False)
+                    table = table.reshape(k, m, m)[:, :n_levels, :n_levels]
+                    out[:, s, u] = table
+                    if u != s:
+                        out[:, u, s] = table.transpose(0, 2, 1)
+            return np.ascontiguousarray(out)
+
+        weighted = None if chunk.weights is None else tabulate(chunk.weights, float)
+        return cls(low, tabulate(None, np.int64), weighted=weighted)
 
     def merge(self, other: "PairwiseTables") -> "PairwiseTables":
         if self.reason is not None or other.reason is not None:
@@ -79,21 +90,27 @@ class PairwiseTables:
         if high - low + 1 > MAX_LEVELS:
             return PairwiseTables(None, None,
                                   f"integer values span more than {MAX_LEVELS} categories")
-        return PairwiseTables(low, self._widened(low, high) + other._widened(low, high))
+        weighted = None if self.weighted is None else \
+            self._widened(low, high, self.weighted) + other._widened(low, high, other.weighted)
+        return PairwiseTables(low, self._widened(low, high) + other._widened(low, high),
+                              weighted=weighted)
 
-    def _widened(self, low: int, high: int) -> np.ndarray:
+    def _widened(self, low: int, high: int, tables: np.ndarray | None = None) -> np.ndarray:
         before, after = self.low - low, high - (self.low + self.n_levels - 1)
         pad = [(0, 0)] * 3 + [(before, after)] * 2
-        return np.pad(self.counts, pad)
+        return np.pad(self.counts if tables is None else tables, pad)
 
-    def pooled(self) -> np.ndarray:
-        """Tables summed over replicate groups, (T, T, L, L)."""
-        return self.counts.sum(axis=0)
+    def pooled(self, weighted: bool = False) -> np.ndarray:
+        """Tables summed over replicate groups, (T, T, L, L) (``weighted``: of the
+        weight sums, when there are weights)."""
+        return (self.mass if weighted else self.counts).sum(axis=0)
 
-    def leave_one_out(self) -> np.ndarray:
-        """Tables with each occupied replicate group left out in turn, (G, T, T, L, L)."""
+    def leave_one_out(self, weighted: bool = False) -> np.ndarray:
+        """Tables with each occupied replicate group left out in turn, (G, T, T, L, L)
+        (``weighted``: of the weight sums, when there are weights)."""
         kept = occupied_groups(np.einsum("kttii->k", self.counts))
-        return self.counts.sum(axis=0, keepdims=True) - self.counts[kept]
+        tables = self.mass if weighted else self.counts
+        return tables.sum(axis=0, keepdims=True) - tables[kept]
 
     def categories(self) -> np.ndarray:
         """The category values seen at any wave (empty categories in the range dropped)."""

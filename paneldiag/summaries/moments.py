@@ -11,7 +11,8 @@ import pandas as pd
 @dataclass(frozen=True)
 class WaveMoments:
     """Count, mean, centred second, third and fourth power sums, extremes and distinct
-    values per wave; weighted sums alongside when the panel has weights.
+    values per wave. With weights the mean and power sums are weighted (the pairwise
+    update below holds with weight sums in place of counts) and the counts stay counts.
 
     Chunks combine with the pairwise update of Chan, Golub and LeVeque (1983,
     The American Statistician) extended to the third moment by Pebay (2008, Sandia
@@ -33,13 +34,20 @@ class WaveMoments:
     n_at_min: np.ndarray
     n_at_max: np.ndarray
     distinct: tuple[np.ndarray, ...]
-    weight_sum: np.ndarray | None = None
-    weighted_mean: np.ndarray | None = None
-    weighted_m2: np.ndarray | None = None
+    # with weights: the weight sums of the wave, and of its floor and ceiling values;
+    # the mean and the power sums are then weighted (``n`` stays a count of units)
+    w: np.ndarray | None = None
+    w_at_min: np.ndarray | None = None
+    w_at_max: np.ndarray | None = None
 
     @property
     def mean(self) -> np.ndarray:
         return self.shift + self.offset
+
+    @property
+    def mass(self) -> np.ndarray:
+        """What the moments are averaged over: the weight sums, or the counts."""
+        return self.n if self.w is None else self.w
 
     @classmethod
     def from_chunk(cls, chunk) -> "WaveMoments":
@@ -47,16 +55,23 @@ class WaveMoments:
         seen = ~np.isnan(x)
         n = seen.sum(axis=0).astype(float)
         unseen = ~seen
+        weights = None
+        if chunk.weights is not None:
+            weights = np.where(seen, chunk.weights[:, None], 0.0)
+            unseen = weights == 0   # units of weight 0 count, but carry no moments
+            mass = weights.sum(axis=0)
+        else:
+            mass = n
         # the shift: each wave's first observed value in the chunk (0 when it has none)
-        first = x[seen.argmax(axis=0), np.arange(x.shape[1])] if x.shape[0] else n
-        shift = np.where(n > 0, first, 0.0)
+        first = x[(~unseen).argmax(axis=0), np.arange(x.shape[1])] if x.shape[0] else n
+        shift = np.where(mass > 0, first, 0.0)
         with np.errstate(invalid="ignore", divide="ignore"):
             d = np.subtract(x, shift)
             d[unseen] = 0.0
-            offset = d.sum(axis=0) / n
+            offset = (d if weights is None else d * weights).sum(axis=0) / mass
             np.subtract(d, offset, out=d)
             d[unseen] = 0.0
-            dd = d * d
+            dd = d * d if weights is None else d * d * weights
             m2 = dd.sum(axis=0)
             dd *= d
             m3 = dd.sum(axis=0)
@@ -71,38 +86,35 @@ class WaveMoments:
         n_hi = np.where(n > 0, (x == hi).sum(axis=0), x.shape[0])
         distinct = tuple(_distinct(x[:, t]) for t in range(x.shape[1]))
         extra = {}
-        if chunk.weights is not None:
-            w = np.where(seen, chunk.weights[:, None], 0.0)
-            wsum = w.sum(axis=0)
-            with np.errstate(invalid="ignore", divide="ignore"):
-                wmean = (w * np.where(seen, x, 0.0)).sum(axis=0) / wsum
-                wd = np.where(seen, x - wmean, 0.0)
-            extra = dict(weight_sum=wsum, weighted_mean=wmean,
-                         weighted_m2=(w * wd * wd).sum(axis=0))
+        if weights is not None:
+            extra = dict(w=mass, w_at_min=np.where(x == lo, weights, 0.0).sum(axis=0),
+                         w_at_max=np.where(x == hi, weights, 0.0).sum(axis=0))
         return cls(n, shift, offset, m2, m3, m4, lo, hi, n_lo, n_hi, distinct, **extra)
 
     def merge(self, other: "WaveMoments") -> "WaveMoments":
-        mine = self.n > 0  # keep this side's shift; the other's offset is moved onto it
+        mass_a, mass_b = self.mass, other.mass
+        mine = mass_a > 0  # keep this side's shift; the other's offset is moved onto it
         shift = np.where(mine, self.shift, other.shift)
         moved = np.where(mine, (other.shift - self.shift) + other.offset, other.offset)
-        offset, m2, m3, m4 = _combine(self.n, np.where(mine, self.offset, 0.0), self.m2,
-                                      self.m3, self.m4, other.n, moved, other.m2, other.m3,
+        offset, m2, m3, m4 = _combine(mass_a, np.where(mine, self.offset, 0.0), self.m2,
+                                      self.m3, self.m4, mass_b, moved, other.m2, other.m3,
                                       other.m4)
         lo, hi = np.minimum(self.minimum, other.minimum), np.maximum(self.maximum, other.maximum)
-        n_lo = np.where(self.minimum == lo, self.n_at_min, 0) + \
-            np.where(other.minimum == lo, other.n_at_min, 0)
-        n_hi = np.where(self.maximum == hi, self.n_at_max, 0) + \
-            np.where(other.maximum == hi, other.n_at_max, 0)
+
+        def at(mine_count, other_count, mine_end, other_end, end):
+            return np.where(mine_end == end, mine_count, 0) + \
+                np.where(other_end == end, other_count, 0)
+
+        n_lo = at(self.n_at_min, other.n_at_min, self.minimum, other.minimum, lo)
+        n_hi = at(self.n_at_max, other.n_at_max, self.maximum, other.maximum, hi)
         distinct = tuple(np.union1d(a, b) for a, b in zip(self.distinct, other.distinct))
         extra = {}
-        if self.weight_sum is not None:
-            zero_a, zero_b = np.zeros_like(self.n), np.zeros_like(other.n)
-            wmean, wm2, _, _ = _combine(self.weight_sum, self.weighted_mean, self.weighted_m2,
-                                        zero_a, zero_a, other.weight_sum,
-                                        other.weighted_mean, other.weighted_m2, zero_b,
-                                        zero_b)
-            extra = dict(weight_sum=self.weight_sum + other.weight_sum,
-                         weighted_mean=wmean, weighted_m2=wm2)
+        if self.w is not None:
+            extra = dict(w=self.w + other.w,
+                         w_at_min=at(self.w_at_min, other.w_at_min, self.minimum,
+                                     other.minimum, lo),
+                         w_at_max=at(self.w_at_max, other.w_at_max, self.maximum,
+                                     other.maximum, hi))
         return WaveMoments(self.n + other.n, shift, offset, m2, m3, m4, lo, hi, n_lo, n_hi,
                            distinct, **extra)
 

@@ -113,7 +113,9 @@ def _pool(n_out: int, parts: list[tuple], packed: bool):
     mean_out = around.copy()
     for (index, n, mean, _), add in zip(parts, adders):
         safe = np.maximum(index, 0)
-        mean_out += add @ ((mean - around[safe]) * (n / n_total[safe])[:, None])
+        # an output of weight 0 (units of weight 0 only) keeps its first row's mean
+        share = np.divide(n, n_total[safe], out=np.zeros(len(n)), where=n_total[safe] > 0)
+        mean_out += add @ ((mean - around[safe]) * share[:, None])
     m2_out = None
     for (index, n, mean, m2), add in zip(parts, adders):
         # a row alone in its output has dev exactly 0 (its output's mean is its own)
@@ -125,11 +127,12 @@ def _pool(n_out: int, parts: list[tuple], packed: bool):
     return n_total, mean_out, m2_out
 
 
-def _cell_moments(x: np.ndarray, keys: np.ndarray):
+def _cell_moments(x: np.ndarray, keys: np.ndarray, weights: np.ndarray | None = None):
     """Units sorted by ``keys``; per run of equal keys (a cell, whose units share one
     pattern): the position of its first unit in ``x``, its size, means and centred
     cross-products of the observed waves (packed upper triangles; 0 at unobserved
-    waves)."""
+    waves), and with ``weights`` its weight sum, the means and cross-products then
+    weighted."""
     n_units, n_waves = x.shape
     rows, cols = _upper(n_waves)
     order = np.argsort(keys, kind="stable")
@@ -137,6 +140,8 @@ def _cell_moments(x: np.ndarray, keys: np.ndarray):
     sizes = np.diff(np.r_[starts, n_units])
     xs = np.take(x, order, axis=0)
     np.copyto(xs, 0.0, where=np.isnan(xs))
+    if weights is not None:
+        return _weighted_cell_moments(xs, order, starts, sizes, weights[order])
     # within a cell every unit has the same pattern, so after centring the unobserved
     # waves (0 in every row and in the mean) stay 0
     n_cells = len(starts)
@@ -157,7 +162,21 @@ def _cell_moments(x: np.ndarray, keys: np.ndarray):
         mean[small] = (add @ xs) / small_sizes[:, None]
         dev = xs - mean[small][cell_of_row]
         m2[small] = add @ _cross(dev, dev, packed=True)
-    return order[starts], sizes, mean, m2
+    return order[starts], sizes, mean, m2, None
+
+
+def _weighted_cell_moments(xs, order, starts, sizes, w):
+    """``_cell_moments`` with unit weights ``w`` (in the sorted order of ``xs``): one
+    sparse sum over all cells (a cell of weight 0 gets means and cross-products 0)."""
+    n_cells = len(starts)
+    cell_of_row = np.repeat(np.arange(n_cells), sizes)
+    add = _indicator(cell_of_row, n_cells)
+    mass = np.bincount(cell_of_row, weights=w, minlength=n_cells)
+    sums = add @ (xs * w[:, None])
+    mean = np.divide(sums, mass[:, None], out=np.zeros_like(sums), where=mass[:, None] > 0)
+    dev = xs - mean[cell_of_row]
+    m2 = add @ _cross(dev * w[:, None], dev, packed=True)
+    return order[starts], sizes, mean, m2, mass
 
 
 @dataclass(frozen=True)
@@ -172,6 +191,11 @@ class PatternCells:
     mean: np.ndarray        # (C, T) means of the observed waves (0 elsewhere)
     m2: np.ndarray          # (C, T(T+1)/2) centred cross-products, packed upper triangle
     n_replicates: int
+    w: np.ndarray | None = None  # (C,) weight sums (means and m2 then weighted)
+
+    @property
+    def mass(self) -> np.ndarray:
+        return self.n if self.w is None else self.w
 
     @classmethod
     def from_chunk(cls, chunk) -> "PatternCells":
@@ -182,8 +206,9 @@ class PatternCells:
             return cls.empty(n_waves, k)
         seen = ~np.isnan(x)
         replicate = np.asarray(chunk.replicate, dtype=np.int64)
-        first, sizes, mean, m2 = _cell_moments(x, cell_keys(seen, replicate, k))
-        return cls(seen[first], replicate[first], sizes.astype(float), mean, m2, k)
+        first, sizes, mean, m2, mass = _cell_moments(x, cell_keys(seen, replicate, k),
+                                                     chunk.weights)
+        return cls(seen[first], replicate[first], sizes.astype(float), mean, m2, k, mass)
 
     @classmethod
     def empty(cls, n_waves: int, n_replicates: int) -> "PatternCells":
@@ -217,18 +242,28 @@ class PatternCells:
                                     return_index=True, return_inverse=True)
         index = index.reshape(-1)
         split = self.n_cells
-        n, mean, m2 = _pool(len(first), [(index[:split], self.n, self.mean, self.m2),
-                                         (index[split:], other.n, other.mean, other.m2)],
-                            packed=True)
-        return PatternCells(observed[first], group[first], n, mean, m2, self.n_replicates)
+        mass, mean, m2 = _pool(len(first), [(index[:split], self.mass, self.mean, self.m2),
+                                            (index[split:], other.mass, other.mean,
+                                             other.m2)], packed=True)
+        if self.w is None:
+            return PatternCells(observed[first], group[first], mass, mean, m2,
+                                self.n_replicates)
+        n = np.bincount(index, weights=np.r_[self.n, other.n], minlength=len(first))
+        return PatternCells(observed[first], group[first], n, mean, m2, self.n_replicates,
+                            mass)
 
     def in_group(self, g: int) -> "PatternMoments":
         """The pattern moments of the units of replicate group ``g``."""
         rows = np.flatnonzero(self.group == g)
         rep = np.zeros((len(rows), self.n_replicates))
         rep[:, g] = self.n[rows]
+        extra = {}
+        if self.w is not None:
+            rep_w = np.zeros((len(rows), self.n_replicates))
+            rep_w[:, g] = self.w[rows]
+            extra = dict(w=self.w[rows], replicate_w=rep_w)
         return PatternMoments(self.observed[rows], self.n[rows], self.mean[rows],
-                              _unpack(self.m2[rows], self.n_waves), rep)
+                              _unpack(self.m2[rows], self.n_waves), rep, **extra)
 
     def patterns(self, drop_group: int | None = None) -> "PatternMoments":
         """The pattern moments of all cells (optionally leaving one group out)."""
@@ -244,11 +279,21 @@ class PatternCells:
         if len(kept_rows) == 0:
             return PatternMoments.empty(self.n_waves, k)
         n_out = int(index[kept_rows[-1]]) + 1
-        n, mean, m2 = _pool(n_out, [(index, self.n, self.mean, self.m2)], packed=True)
+        mass, mean, m2 = _pool(n_out, [(index, self.mass, self.mean, self.m2)], packed=True)
         first = kept_rows[np.r_[True, index[kept_rows[1:]] != index[kept_rows[:-1]]]]
-        rep = np.bincount(index[kept_rows] * k + self.group[kept_rows],
-                          weights=self.n[kept_rows], minlength=n_out * k).reshape(n_out, k)
-        return PatternMoments(self.observed[first], n, mean, _unpack(m2, self.n_waves), rep)
+        cell = index[kept_rows] * k + self.group[kept_rows]
+
+        def by_group(amount):
+            return np.bincount(cell, weights=amount[kept_rows],
+                               minlength=n_out * k).reshape(n_out, k)
+
+        if self.w is None:
+            return PatternMoments(self.observed[first], mass, mean,
+                                  _unpack(m2, self.n_waves), by_group(self.n))
+        rep = by_group(self.n)
+        return PatternMoments(self.observed[first], rep.sum(axis=1), mean,
+                              _unpack(m2, self.n_waves), rep, w=mass,
+                              replicate_w=by_group(self.w))
 
 
 def shared_pattern_cells(chunk) -> PatternCells:
@@ -295,6 +340,23 @@ class PatternMoments:
     mean: np.ndarray        # (P, T) means of the observed waves (0 elsewhere)
     m2: np.ndarray          # (P, T, T) centred cross-products (0 outside observed block)
     replicate_n: np.ndarray  # (P, K) units with the pattern per replicate group
+    # with weights: the weight sums per pattern (and per replicate group); the means and
+    # cross-products are then weighted, ``n`` and ``replicate_n`` stay counts of units
+    w: np.ndarray | None = None
+    replicate_w: np.ndarray | None = None
+
+    @property
+    def weighted(self) -> bool:
+        return self.w is not None
+
+    @property
+    def mass(self) -> np.ndarray:
+        """What estimates average over: the weight sums, or the counts of units."""
+        return self.n if self.w is None else self.w
+
+    @property
+    def replicate_mass(self) -> np.ndarray:
+        return self.replicate_n if self.replicate_w is None else self.replicate_w
 
     @property
     def n_waves(self) -> int:
@@ -324,7 +386,7 @@ class PatternMoments:
         """Available-case means (T,) and pairwise-complete covariances (T, T), ML divisor,
         from the pattern sums: O(P T^2), the fallback when ``ml_affordable`` is False."""
         obs = self.observed.astype(float)
-        weighted = self.n[:, None] * obs
+        weighted = self.mass[:, None] * obs
         n_wave = weighted.sum(axis=0)
         n_pair = weighted.T @ obs
         sums = weighted * self.mean                   # per pattern, sums of the waves
@@ -362,12 +424,21 @@ class PatternMoments:
                                     return_inverse=True)
         index = index.reshape(-1)
         split, t = self.n_patterns, self.n_waves
-        n, mean, m2 = _pool(len(first), [(index[:split], self.n, self.mean,
-                                          self.m2.reshape(split, t * t)),
-                                         (index[split:], other.n, other.mean,
-                                          other.m2.reshape(other.n_patterns, t * t))],
-                            packed=False)
-        rep = np.zeros((len(first), self.replicate_n.shape[1]))
-        rep[index[:split]] += self.replicate_n
-        rep[index[split:]] += other.replicate_n
-        return PatternMoments(observed[first], n, mean, m2.reshape(-1, t, t), rep)
+        mass, mean, m2 = _pool(len(first), [(index[:split], self.mass, self.mean,
+                                             self.m2.reshape(split, t * t)),
+                                            (index[split:], other.mass, other.mean,
+                                             other.m2.reshape(other.n_patterns, t * t))],
+                               packed=False)
+
+        def added(mine, theirs):
+            out = np.zeros((len(first),) + mine.shape[1:])
+            out[index[:split]] += mine
+            out[index[split:]] += theirs
+            return out
+
+        rep = added(self.replicate_n, other.replicate_n)
+        if self.w is None:
+            return PatternMoments(observed[first], mass, mean, m2.reshape(-1, t, t), rep)
+        return PatternMoments(observed[first], added(self.n, other.n), mean,
+                              m2.reshape(-1, t, t), rep, w=mass,
+                              replicate_w=added(self.replicate_w, other.replicate_w))

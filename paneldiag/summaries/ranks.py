@@ -23,8 +23,13 @@ from paneldiag.summaries.pairwise import PairwiseMoments
 COUNTING_SPAN = 1 << 16   # integer values spanning at most this many are ranked by counting
 
 
-def wave_ranks(values: np.ndarray) -> np.ndarray:
-    """Midranks within each wave among the units observed there; NaN stays NaN."""
+def wave_ranks(values: np.ndarray, weights: np.ndarray | None = None) -> np.ndarray:
+    """Midranks within each wave among the units observed there; NaN stays NaN. With
+    weights, the weighted midrank: the weight of the units below plus half the weight
+    of the ties (a unit of integer weight c ranks as c copies of it would, up to a
+    shift of 1/2 that leaves rank correlations unchanged)."""
+    if weights is not None:
+        return _weighted_ranks(values, weights)
     ranks = np.empty(values.shape)
     rank = np.empty(values.shape[0])
     for t in range(values.shape[1]):  # a loop over waves
@@ -80,14 +85,34 @@ def _midranks(values: np.ndarray) -> np.ndarray:
     return out
 
 
+def _weighted_ranks(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    ranks = np.full(values.shape, np.nan)
+    for t in range(values.shape[1]):  # a loop over waves
+        seen = np.flatnonzero(~np.isnan(values[:, t]))
+        if not len(seen):
+            continue
+        order = seen[np.argsort(values[seen, t], kind="stable")]
+        ordered, w = values[order, t], weights[order]
+        new = np.r_[True, ordered[1:] != ordered[:-1]]
+        tie = np.cumsum(new) - 1
+        tie_weight = np.bincount(tie, weights=w)
+        below = np.cumsum(tie_weight) - tie_weight
+        ranks[order, t] = (below + tie_weight / 2.0)[tie]
+    return ranks
+
+
 def rank_moments(values: np.ndarray, replicate: np.ndarray, times: np.ndarray,
-                 n_replicates: int, chunk_units: int) -> PairwiseMoments:
-    """Pairwise moments of the within-wave ranks, per replicate group, merged over chunks."""
-    ranks = wave_ranks(values)
+                 n_replicates: int, chunk_units: int,
+                 weights: np.ndarray | None = None) -> PairwiseMoments:
+    """Pairwise moments of the within-wave ranks, per replicate group, merged over chunks
+    (with ``weights``, weighted ranks and weighted moments)."""
+    ranks = wave_ranks(values, weights)
     merged = None
     for start in range(0, len(ranks), chunk_units):
         stop = min(start + chunk_units, len(ranks))
-        part = PairwiseMoments.from_chunk(Chunk(values=ranks[start:stop], weights=None,
+        part = PairwiseMoments.from_chunk(Chunk(values=ranks[start:stop],
+                                                weights=None if weights is None
+                                                else weights[start:stop],
                                                 replicate=replicate[start:stop], times=times,
                                                 n_replicates=n_replicates))
         merged = part if merged is None else merged.merge(part)

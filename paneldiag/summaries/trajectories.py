@@ -51,6 +51,13 @@ class TrajectorySummary:
     unit_mean: np.ndarray      # (K, P) mean of the unit means
     unit_mean_m2: np.ndarray   # (K, P) centred sum of squares of the unit means
     within_ss: np.ndarray      # (K, P) sum over units of squares around the own mean
+    # with weights: (K, P) weight sums; every mean, centred product and sum above is
+    # then weighted, ``n`` stays a count of units
+    w: np.ndarray | None = None
+
+    @property
+    def mass(self) -> np.ndarray:
+        return self.n if self.w is None else self.w
 
     @classmethod
     def from_chunk(cls, chunk) -> "TrajectorySummary":
@@ -71,8 +78,12 @@ class TrajectorySummary:
         def cell_key(min_waves):
             return np.where(k_row >= min_waves, key, cells)
 
-        def cell_sum(weights, where):
-            sums = np.bincount(where, weights=weights, minlength=cells + 1)[:cells]
+        unit_w = chunk.weights
+
+        def cell_sum(amounts, where):
+            if unit_w is not None:
+                amounts = amounts * unit_w
+            sums = np.bincount(where, weights=amounts, minlength=cells + 1)[:cells]
             return sums.reshape(n_pat, k_groups).T
 
         # two chunk-sized work arrays, reused in place (fresh memory is costly)
@@ -81,9 +92,12 @@ class TrajectorySummary:
         key1 = cell_key(1)
         count = np.bincount(key1, minlength=cells + 1)[:cells].astype(float)
         out = {"n": count.reshape(n_pat, k_groups).T}
+        if unit_w is not None:
+            count = np.bincount(key1, weights=unit_w, minlength=cells + 1)[:cells]
+            out["w"] = count.reshape(n_pat, k_groups).T
         with np.errstate(invalid="ignore", divide="ignore"):
             means = y0.sum(axis=1) / np.maximum(k_row, 1)
-        gm, gm2 = _cell_moments(means[:, None], key1, count, n_pat, k_groups)
+        gm, gm2 = _cell_moments(means[:, None], key1, count, n_pat, k_groups, unit_w)
         out["unit_mean"], out["unit_mean_m2"] = gm[..., 0], gm2[..., 0, 0]
         missing = ~seen
         np.subtract(y0, means[:, None], out=work)
@@ -99,25 +113,29 @@ class TrajectorySummary:
         rss = np.einsum("ij,ij->i", work, work)
         # e' L e: products of residuals at adjacent waves (zero where either is missing)
         lagged = np.einsum("ij,ij->i", work[:, :-1], work[:, 1:])
-        out["lin_mean"], out["lin_m2"] = _cell_moments(coef, key2, count, n_pat, k_groups)
+        out["lin_mean"], out["lin_m2"] = _cell_moments(coef, key2, count, n_pat, k_groups,
+                                                       unit_w)
         out["rss"] = cell_sum(rss, key2)
         out["rss_sq"] = cell_sum(rss * rss, key2)
         out["lag_cross"] = cell_sum(lagged, key2)
 
         key4 = cell_key(QUADRATIC_MIN_WAVES)
         coef = _pattern_fits(y0, patterns, pattern_of, tc, 2, QUADRATIC_MIN_WAVES, work)
-        out["quad_mean"], out["quad_m2"] = _cell_moments(coef, key4, count, n_pat, k_groups)
+        out["quad_mean"], out["quad_m2"] = _cell_moments(coef, key4, count, n_pat, k_groups,
+                                                         unit_w)
         out = {name: np.ascontiguousarray(value) for name, value in out.items()}
         return cls(times=times, centre=centre, patterns=patterns, **out)
 
     def merge(self, other: "TrajectorySummary") -> "TrajectorySummary":
         patterns = np.unique(np.concatenate([self.patterns, other.patterns]), axis=0)
         a, b = self._aligned(patterns), other._aligned(patterns)
-        n = a["n"] + b["n"]
-        merged = {"n": n}
+        merged = {"n": a["n"] + b["n"]}
+        mass = "n"
+        if self.w is not None:
+            merged["w"], mass = a["w"] + b["w"], "w"
         for mean_key, m2_key in _MOMENT_PAIRS:
             merged[mean_key], merged[m2_key] = _combine(
-                a["n"], a[mean_key], a[m2_key], b["n"], b[mean_key], b[m2_key])
+                a[mass], a[mean_key], a[m2_key], b[mass], b[mean_key], b[m2_key])
         for key in _SUM_KEYS:
             merged[key] = a[key] + b[key]
         return TrajectorySummary(times=self.times, centre=self.centre, patterns=patterns,
@@ -127,6 +145,8 @@ class TrajectorySummary:
         """Arrays re-indexed onto a superset of patterns (zeros where absent)."""
         k_groups = self.n.shape[0]
         out = _zeros(k_groups, len(patterns))
+        if self.w is not None:
+            out["w"] = np.zeros((k_groups, len(patterns)))
         where = _locate(patterns, self.patterns)
         for key in out:
             out[key][:, where] = getattr(self, key)
@@ -150,23 +170,25 @@ class TrajectorySummary:
         Exact and centred: n = sum n_h, mean = sum n_h m_h / n and
         M2 = sum (M2_h + n_h (m_h - mean)(m_h - mean)') over the kept groups h.
         """
-        n = np.einsum("oh,hp->op", keep, self.n)
+        n = np.einsum("oh,hp->op", keep, self.mass)
         out = {"n": n}
+        if self.w is not None:
+            out = {"n": np.einsum("oh,hp->op", keep, self.n), "w": n}
         safe = np.where(n > 0, n, 1.0)
         for mean_key, m2_key in _MOMENT_PAIRS:
             m, m2 = getattr(self, mean_key), getattr(self, m2_key)
             if m.ndim == 2:  # scalar moments: (K, P)
-                mean = np.einsum("oh,hp,hp->op", keep, self.n, m) / safe
+                mean = np.einsum("oh,hp,hp->op", keep, self.mass, m) / safe
                 dev = m[None] - mean[:, None]
                 out[mean_key] = mean
                 out[m2_key] = np.einsum("oh,hp->op", keep, m2) + \
-                    np.einsum("oh,hp,ohp->op", keep, self.n, dev * dev)
+                    np.einsum("oh,hp,ohp->op", keep, self.mass, dev * dev)
             else:  # vector moments: (K, P, q)
-                mean = np.einsum("oh,hp,hpq->opq", keep, self.n, m) / safe[..., None]
+                mean = np.einsum("oh,hp,hpq->opq", keep, self.mass, m) / safe[..., None]
                 dev = m[None] - mean[:, None]
                 out[mean_key] = mean
                 out[m2_key] = np.einsum("oh,hpqr->opqr", keep, m2) + \
-                    np.einsum("oh,hp,ohpq,ohpr->opqr", keep, self.n, dev, dev)
+                    np.einsum("oh,hp,ohpq,ohpr->opqr", keep, self.mass, dev, dev)
         for key in _SUM_KEYS:
             out[key] = np.einsum("oh,hp->op", keep, getattr(self, key))
         return [TrajectorySummary(times=self.times, centre=self.centre, patterns=self.patterns,
@@ -250,23 +272,27 @@ def _pattern_fits(y0: np.ndarray, patterns: np.ndarray, pattern_of: np.ndarray,
 
 
 def _cell_moments(values: np.ndarray, key: np.ndarray, count: np.ndarray, n_pat: int,
-                  k_groups: int):
+                  k_groups: int, weights: np.ndarray | None = None):
     """Mean (K, P, q) and centred cross-product matrix (K, P, q, q) of ``values`` (n, q)
     in each (pattern, replicate group) cell ``key`` = pattern * K + group (rows with
-    key P * K belong to no cell); ``count`` (P * K,) the units of each cell."""
+    key P * K belong to no cell); ``count`` (P * K,) the units of each cell (with
+    ``weights``: their weight sums, the moments then weighted)."""
     q = values.shape[1]
     cells = n_pat * k_groups
-    sums = np.stack([np.bincount(key, weights=values[:, j], minlength=cells + 1)
+    sums = np.stack([np.bincount(key, weights=values[:, j] if weights is None
+                                 else values[:, j] * weights, minlength=cells + 1)
                      for j in range(q)], axis=1)   # a loop over coefficients
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.zeros((cells + 1, q))
-        mean[:cells] = np.where(count[:, None] > 0, sums[:cells] / np.maximum(count, 1)[:, None],
-                                0.0)
+        safe = np.where(count > 0, count, 1)[:, None]
+        mean[:cells] = np.where(count[:, None] > 0, sums[:cells] / safe, 0.0)
     dev = values - mean[key]
     m2 = np.empty((cells, q, q))
     for a in range(q):  # a loop over coefficients (at most 3)
         for b in range(a, q):
-            m2[:, a, b] = m2[:, b, a] = np.bincount(key, weights=dev[:, a] * dev[:, b],
+            product = dev[:, a] * dev[:, b] if weights is None else \
+                dev[:, a] * dev[:, b] * weights
+            m2[:, a, b] = m2[:, b, a] = np.bincount(key, weights=product,
                                                     minlength=cells + 1)[:cells]
     mean = mean[:cells].reshape(n_pat, k_groups, q).swapaxes(0, 1)
     return mean, m2.reshape(n_pat, k_groups, q, q).swapaxes(0, 1)
