@@ -81,7 +81,20 @@ def panel_arrays(n_units: int, n_waves: int, seed: int = SEED) -> dict[str, np.n
 
 
 def data_files(n_units: int, n_waves: int) -> dict[str, Path]:
-    """The cached CSV and Parquet files, generated on first use."""
+    """The cached CSV and Parquet files, generated on first use in a process of its
+    own: a child inherits its parent's peak memory as its own starting peak
+    (ru_maxrss), so generating them here would set a floor under every figure."""
+    stem = DATA_DIR / f"panel_{n_units}x{n_waves}_v{GENERATOR_VERSION}"
+    files = {"csv": stem.with_suffix(".csv"), "parquet": stem.with_suffix(".parquet")}
+    if not all(p.exists() for p in files.values()):
+        print(f"generating {n_units:,} units x {n_waves} waves ...", flush=True)
+        code = (f"import sys; sys.path.insert(0, {str(Path(__file__).parent)!r}); "
+                f"import bench_screen; bench_screen._write_files({n_units}, {n_waves})")
+        subprocess.run([sys.executable, "-c", code], cwd=ROOT, check=True)
+    return files
+
+
+def _write_files(n_units: int, n_waves: int) -> None:
     import pyarrow as pa
     import pyarrow.csv as pacsv
     import pyarrow.parquet as pq
@@ -89,9 +102,6 @@ def data_files(n_units: int, n_waves: int) -> dict[str, Path]:
     DATA_DIR.mkdir(exist_ok=True)
     stem = DATA_DIR / f"panel_{n_units}x{n_waves}_v{GENERATOR_VERSION}"
     files = {"csv": stem.with_suffix(".csv"), "parquet": stem.with_suffix(".parquet")}
-    if all(p.exists() for p in files.values()):
-        return files
-    print(f"generating {n_units:,} units x {n_waves} waves ...", flush=True)
     table = pa.table(panel_arrays(n_units, n_waves))
     for fmt, path in files.items():
         part = path.with_suffix(path.suffix + ".part")
@@ -186,7 +196,7 @@ def measure(commands: dict[str, list[str]], repeat: int) -> dict[str, dict]:
 
 def stage_profile(path: Path) -> list[tuple[str, float, float]]:
     """Seconds and peak RSS (MiB, so far) after each stage of an in-process screen."""
-    from paneldiag import screen as screen_module
+    from paneldiag import pipeline as screen_module
     from paneldiag.io.readers import read_table
     from paneldiag.io.validate import LayoutSpec, build_panel
     from paneldiag.render.json import report_json
@@ -213,7 +223,7 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
     panel, ledgers = build_panel(raw, spec)
     del raw
     t = mark("build panel", t)
-    limit = screen_module.one_blas_thread()   # as screen_module.screen does
+    limit = screen_module.one_blas_thread()   # as pipeline.screen does
     limit.__enter__()
     options = screen_module.ScreenOptions()
     ctx = screen_module.MeasureContext(panel=panel, measure=VALUE, options=options,
@@ -254,7 +264,7 @@ def machine() -> dict:
 RUNS = ("screen", "audit", "core", "plain", "extended")
 # (paneldiag run, pandas baseline): the wall-time target of the ratio, or None (shown only)
 TARGETS = {("core", "plain"): 1.3, ("audit", "plain"): 1.6, ("screen", "plain"): None,
-           ("screen", "extended"): 2.0}
+           ("screen", "extended"): 1.0}
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -270,6 +280,7 @@ def main(argv: list[str] | None = None) -> int:
 
     info = machine()
     print("machine: " + ", ".join(f"{k} {v}" for k, v in info.items()))
+    print(f"load average {', '.join(f'{x:.1f}' for x in os.getloadavg())} (1, 5, 15 min)")
     files = data_files(args.units, args.waves)
     for fmt, path in files.items():
         print(f"{fmt:<8} {path.name}  {path.stat().st_size / 2 ** 20:,.0f} MiB")
@@ -307,7 +318,8 @@ def main(argv: list[str] | None = None) -> int:
                 f"  <= {target} time: {'met' if ratio <= target else 'missed'}"
             print(f"  {fmt:<8} {run:<7} {base:<9} {ratio:6.2f} {p['peak'] / b['peak']:7.2f} "
                   f"{p['cpu'] / b['cpu']:6.2f}{verdict}")
-    print("  memory target: screen / extended <= 1.5")
+    print("  memory target: screen / extended <= 1.0")
+    print(f"  load average {', '.join(f'{x:.1f}' for x in os.getloadavg())} (1, 5, 15 min)")
     if not args.no_stages:
         for fmt in args.formats.split(","):
             print(f"\nstages of paneldiag, in process ({fmt}): wall, CPU, peak memory so far")
