@@ -53,11 +53,19 @@ class RawTable:
     # every column of the file, read again only when a message needs them (None for
     # standard input, which cannot be read twice)
     all_columns: Callable[[], pd.DataFrame] | None = None
+    # a block of a streamed read: problems are noted here and raised once the whole file
+    # is seen (io.stream), so that their counts and order are the whole file's
+    refusals: object | None = None
 
     def row_number(self, index: int) -> int:
         if self.locate is not None:
             return self.locate(int(index))
         return self.first_row_number + int(index)
+
+    def row_later(self, index: int) -> Callable[[], int]:
+        """The row number of record ``index``, worked out when called (keeps no data)."""
+        locate, first, index = self.locate, self.first_row_number, int(index)
+        return (lambda: locate(index)) if locate is not None else (lambda: first + index)
 
 
 def detect_format(path: str, override: str | None) -> str:
