@@ -47,6 +47,7 @@ class ScreenRequest:
     trajectory_sample: int = 0
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
+    max_memory: str | None = None        # e.g. 2GB: read a long file in blocks within it
 
     @classmethod
     def option_names(cls) -> tuple[str, ...]:
@@ -56,8 +57,16 @@ class ScreenRequest:
     def default(cls, name: str):
         return next(f.default for f in fields(cls) if f.name == name)
 
+    def memory_budget(self) -> int | None:
+        """Bytes of --max-memory (None when not given)."""
+        if self.max_memory is None:
+            return None
+        from paneldiag.io.stream import parse_size
+        return parse_size(self.max_memory)
+
     def layout(self) -> LayoutSpec:
         ids = tuple(self.id)
+        self.memory_budget()   # a bad size stops here, with the other options
         return LayoutSpec(
             id=ids[0] if len(ids) == 1 else (ids or None), wave=self.wave,
             values=tuple(self.value), wide=wide_measures(self.wide),
@@ -149,6 +158,14 @@ def frame_table(frame, columns: list[str]):
                     first_row_number=1)
 
 
+def _whole_read_reason(data, spec: LayoutSpec) -> str:
+    if not isinstance(data, str):
+        return "DataFrames"
+    if data == "-":
+        return "standard input"
+    return "wide data" if spec.layout == "wide" else "files of this format"
+
+
 def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lambda _: None
                ) -> tuple[dict, object]:
     """The report (JSON-ready dict) and the Panel of a screen of ``data`` (a path, '-'
@@ -160,20 +177,32 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     if request.rules:
         from paneldiag.rules.thresholds import load_thresholds
         thresholds = load_thresholds(request.rules)
-    if isinstance(data, str):
-        from paneldiag.io.readers import read_table
-        stage(f"reading {data}")
-        raw = read_table(data, request.format, columns=spec.columns(),
-                         delimiter=request.delimiter)
+    budget = request.memory_budget()
+    from paneldiag.io.stream import should_stream, stream_panel, streamable
+    if should_stream(data, request.format, spec, budget):
+        stage(f"reading {data} in blocks")
+        panel, ledgers, digest, fmt = stream_panel(data, spec, request.format,
+                                                   request.delimiter, budget)
     else:
-        raw = frame_table(data, spec.columns())
-    stage("building the panel")
-    panel, ledgers = build_panel(raw, spec)
+        if budget is not None:
+            raise InputProblem(f"--max-memory reads {streamable()} in blocks; "
+                               f"{_whole_read_reason(data, spec)} are read whole: screen "
+                               "without --max-memory")
+        if isinstance(data, str):
+            from paneldiag.io.readers import read_table
+            stage(f"reading {data}")
+            raw = read_table(data, request.format, columns=spec.columns(),
+                             delimiter=request.delimiter)
+        else:
+            raw = frame_table(data, spec.columns())
+        stage("building the panel")
+        panel, ledgers = build_panel(raw, spec)
+        digest, fmt = raw.sha256, raw.format
+        del raw  # the parsed columns are in the panel now: free them before the screen
     stage("screening")
     input_info = {"path": data if isinstance(data, str) else "DataFrame",
-                  "sha256": raw.sha256, "format": raw.format,
+                  "sha256": digest, "format": fmt,
                   "options": dict(options_record(spec, request), scale=request.scale)}
-    del raw  # the parsed columns are in the panel now: free them before the screen
     if request.rules:
         input_info["options"]["rules"] = request.rules
     if request.audit_only:
