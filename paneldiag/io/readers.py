@@ -75,6 +75,8 @@ def detect_format(path: str, override: str | None) -> str:
         return override
     if path == "-":
         return "csv"
+    if os.path.isdir(path) and _holds_parquet(path):
+        return "parquet"  # a partitioned dataset: a folder of Parquet files
     name = path.lower()
     if name.endswith(".gz"):
         name = name[:-3]
@@ -90,6 +92,9 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
                delimiter: str | None = None) -> RawTable:
     """Read the named columns of a panel file; ``path='-'`` reads standard input."""
     fmt = detect_format(path, fmt)
+    if fmt == "parquet" and os.path.isdir(path):
+        from paneldiag.io.stream import read_parquet_folder
+        return read_parquet_folder(path, columns)
     data = _load_bytes(path)
     if isinstance(data, bytes):
         hashing, digest = None, hashlib.sha256(data).hexdigest()
@@ -107,6 +112,11 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
     if path != "-" and columns is not None:
         table.all_columns = lambda: read_table(path, fmt, None, delimiter).frame
     return table
+
+
+def _holds_parquet(folder: str) -> bool:
+    return any(name.lower().endswith((".parquet", ".pq"))
+               for _, _, names in os.walk(folder) for name in names)
 
 
 class _Background:

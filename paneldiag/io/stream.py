@@ -279,7 +279,10 @@ class _ParquetSource(_Source):
         super().__init__(path, fmt, columns, delimiter)
         import pyarrow as pa
         import pyarrow.dataset as ds
+        import pyarrow.parquet as pq
         try:
+            for name in _parquet_files(path):   # the in-memory read's message first
+                pq.read_schema(name)
             self.dataset = ds.dataset(path, format="parquet", partitioning="hive")
             names = self.dataset.schema.names
         except (pa.ArrowInvalid, OSError) as exc:
@@ -311,6 +314,17 @@ class _ParquetSource(_Source):
 
     def row_of(self, record: int) -> int:
         return record + 1
+
+
+def read_parquet_folder(path: str, columns: list[str] | None) -> RawTable:
+    """A folder of Parquet files read whole, in the order of a streamed read."""
+    import pyarrow as pa
+    source = _ParquetSource(path, "parquet", columns or [], None)
+    table = source.dataset.to_table(columns=columns, use_threads=False)
+    if not isinstance(table, pa.Table) or table.num_rows == 0:
+        raise InputProblem("no data rows", file=path)
+    return RawTable(frame=_to_frame(table), source=path, format="parquet",
+                    sha256=source.digest(), first_row_number=1)
 
 
 def _source(path, fmt, columns, delimiter) -> _Source:
@@ -445,8 +459,13 @@ class FixedWaves:
     def empty_ledgers(self, spec, n_rows, id_missing, wave_missing, n_outside) -> dict:
         reasons = {"missing_id": int(id_missing.sum()), "missing_wave": int(wave_missing.sum()),
                    "wave_outside_bins": n_outside, "duplicate_unit_wave": 0}
+        grouping = None
+        if spec.wave_grouping.active:
+            grouping = {"rule": self.reading.grouping, "rows_moved": 0,
+                        "rows_outside": n_outside, "rows_sharing_a_wave": 0}
         return {m: Ledger(rows_read=n_rows, rows_used=0, dropped_by_reason=dict(reasons),
-                          layout="long") for m in spec.measure_names()}
+                          layout="long", wave_grouping=grouping)
+                for m in spec.measure_names()}
 
 
 def _read_whole_file_waves(scan: _Scan, source: _Source, spec: LayoutSpec):
@@ -623,14 +642,16 @@ def _last_unit_start(table, spec: LayoutSpec) -> int:
 
 
 def stream_panel(path: str, spec: LayoutSpec, fmt: str | None, delimiter: str | None,
-                 budget: int | None) -> tuple[Panel, dict[str, Ledger], str, str]:
+                 budget: int | None, block_bytes: int | None = None
+                 ) -> tuple[Panel, dict[str, Ledger], str, str]:
     """The Panel, its ledgers, the file's digest and format of a long file read in
-    blocks within ``budget`` bytes (None: the default budget)."""
+    blocks within ``budget`` bytes (None: the default budget). ``block_bytes`` fixes the
+    size of the blocks instead (tests cut small files into many blocks with it)."""
     _check_spec(spec)
     fmt = detect_format(path, fmt)
     budget = budget or default_budget()
-    first_blocks = int(min(BLOCK_MAX, max(budget // (2 * BLOCK_WORK), 1)))
-    if first_blocks < BLOCK_MIN:
+    first_blocks = block_bytes or int(min(BLOCK_MAX, max(budget // (2 * BLOCK_WORK), 1)))
+    if first_blocks < BLOCK_MIN and not block_bytes:
         raise InputProblem(f"--max-memory {size_text(budget)} is too small to read a block of "
                            f"the file ({size_text(BLOCK_MIN * 2 * BLOCK_WORK)} at least); "
                            "raise it", file=path)
@@ -664,13 +685,13 @@ def stream_panel(path: str, spec: LayoutSpec, fmt: str | None, delimiter: str | 
     del run_ids, run_rows, scan
     holdings = _Holdings(n_units, n_waves, spec, {m: len(c) for m, c in spec.items})
     room = budget - holdings.bytes()
-    block_bytes = int(min(BLOCK_MAX, room // BLOCK_WORK))
-    if block_bytes < BLOCK_MIN:
+    if room // BLOCK_WORK < BLOCK_MIN:
         need = holdings.bytes() + BLOCK_MIN * BLOCK_WORK
         raise InputProblem(f"--max-memory {size_text(budget)} is too small: the panel's "
                            f"matrices ({n_units:,} units x {n_waves} waves) take "
                            f"{size_text(holdings.bytes())}; give at least "
                            f"{size_text(need)}", file=path)
+    block_bytes = block_bytes or int(min(BLOCK_MAX, room // BLOCK_WORK))
     built = _assemble(source, spec, labels, reading, n_units, block_bytes)
     return _finish(built, spec, reading, times, path, source, fmt)
 
