@@ -303,14 +303,31 @@ class _ParquetSource(_Source):
         return digest.hexdigest()
 
     def blocks(self, columns, block_bytes):
+        import pyarrow as pa
+        import pyarrow.parquet as pq
         rows = max(int(block_bytes / self.row_bytes), 1)
         record = 0
-        for batch in self.dataset.to_batches(columns=columns, batch_size=rows,
-                                             use_threads=False):
+        for batch in self._batches(columns, rows, pa, pq):
             if batch.num_rows:
-                import pyarrow as pa
                 yield _Block(pa.Table.from_batches([batch]), record)
                 record += batch.num_rows
+
+    def _batches(self, columns, rows, pa, pq):
+        """File by file, decoding pages as the batches need them; a column that only
+        the folder names hold (hive partitions, key=value) needs the dataset scanner,
+        which decodes a row group at a time."""
+        files = _parquet_files(self.path)
+        if all(set(columns) <= set(pq.read_schema(f).names) for f in files):
+            for name in files:
+                reader = pq.ParquetFile(name, pre_buffer=False)
+                yield from reader.iter_batches(batch_size=rows, columns=columns,
+                                               use_threads=False)
+            return
+        import pyarrow.dataset as ds
+        scan = ds.ParquetFragmentScanOptions(pre_buffer=False)
+        yield from self.dataset.to_batches(columns=columns, batch_size=rows,
+                                           batch_readahead=0, fragment_readahead=0,
+                                           fragment_scan_options=scan, use_threads=False)
 
     def row_of(self, record: int) -> int:
         return record + 1
@@ -319,10 +336,11 @@ class _ParquetSource(_Source):
 def read_parquet_folder(path: str, columns: list[str] | None) -> RawTable:
     """A folder of Parquet files read whole, in the order of a streamed read."""
     import pyarrow as pa
+    import pyarrow.parquet as pq
     source = _ParquetSource(path, "parquet", columns or [], None)
-    table = source.dataset.to_table(columns=columns, use_threads=False)
-    if not isinstance(table, pa.Table) or table.num_rows == 0:
-        raise InputProblem("no data rows", file=path)
+    columns = columns or source.dataset.schema.names
+    table = pa.Table.from_batches(list(source._batches(columns, 1 << 20, pa, pq)),
+                                  schema=source.dataset.schema.select(columns))
     return RawTable(frame=_to_frame(table), source=path, format="parquet",
                     sha256=source.digest(), first_row_number=1)
 
@@ -728,7 +746,8 @@ def _finish(built, spec, reading, times, path, source, fmt):
     raw = RawTable(frame=pd.DataFrame(), source=path, format=fmt, sha256="",
                    first_row_number=1)
     for measure, matrix in built["values"].items():
-        _check_magnitude(raw, measure, matrix)
+        if _beyond_magnitude(matrix):   # then the in-memory read's check makes the message
+            _check_magnitude(raw, measure, matrix)
     groups = built["groups"]
     panel = Panel(
         unit_ids=ids, wave_labels=reading.labels, wave_times=times, values=built["values"],
@@ -738,6 +757,16 @@ def _finish(built, spec, reading, times, path, source, fmt):
         covariates=built["covariates"], items=built["items"],
         item_columns={m: c for m, c in spec.items})
     return panel, ledgers, source.digest(), fmt
+
+
+def _beyond_magnitude(matrix: np.ndarray) -> bool:
+    """Whether ``validate._check_magnitude`` would stop, without its copies of the
+    matrix (the matrices hold no infinite value: those cells are refused or dropped)."""
+    from paneldiag.io.validate import LARGEST_VALUE, SMALLEST_SPREAD
+    if not np.isfinite(matrix).any():
+        return False
+    largest = max(abs(float(np.nanmax(matrix))), abs(float(np.nanmin(matrix))))
+    return largest > LARGEST_VALUE or 0 < largest < SMALLEST_SPREAD
 
 
 def _id_order(ids: np.ndarray, spec: LayoutSpec) -> np.ndarray | None:
