@@ -289,10 +289,15 @@ class _ParquetSource(_Source):
             raise InputProblem(f"not a readable Parquet file ({str(exc).splitlines()[0]})",
                                file=path) from None
         _require_columns(path, names, columns, ",", "")
-        rows = self.dataset.count_rows()
-        if rows == 0:
+        if self.dataset.count_rows() == 0:
             raise InputProblem("no data rows", file=path)
-        self.row_bytes = max(_input_bytes(path, "parquet") / rows, 1.0)
+
+    def _row_bytes(self, columns) -> float:
+        """A decoded row's bytes (encoded sizes can be far smaller: dictionaries, runs),
+        taken for the text bytes a CSV row of the same columns would have."""
+        schema = self.dataset.schema
+        return float(sum(schema.field(c).type.bit_width // 8 + 1
+                         if _fixed_width(schema.field(c).type) else 24 for c in columns))
 
     def digest(self) -> str:
         digest = hashlib.sha256()
@@ -305,7 +310,7 @@ class _ParquetSource(_Source):
     def blocks(self, columns, block_bytes):
         import pyarrow as pa
         import pyarrow.parquet as pq
-        rows = max(int(block_bytes / self.row_bytes), 1)
+        rows = max(int(block_bytes / self._row_bytes(columns)), 1)
         record = 0
         for batch in self._batches(columns, rows, pa, pq):
             if batch.num_rows:
@@ -331,6 +336,13 @@ class _ParquetSource(_Source):
 
     def row_of(self, record: int) -> int:
         return record + 1
+
+
+def _fixed_width(arrow_type) -> bool:
+    try:
+        return arrow_type.bit_width > 0
+    except ValueError:   # variable width: text, binary, nested
+        return False
 
 
 def read_parquet_folder(path: str, columns: list[str] | None) -> RawTable:

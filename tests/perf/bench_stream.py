@@ -29,12 +29,9 @@ import tempfile
 import time
 from pathlib import Path
 
-sys.path.insert(0, str(Path(__file__).resolve().parent))
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-from paneldiag.io.stream import parse_size  # noqa: E402
-from bench_screen import ID, VALUE, WAVE, data_files  # noqa: E402
-
 ROOT = Path(__file__).resolve().parents[2]
+HERE = Path(__file__).resolve().parent
+ID, WAVE, VALUE = "person", "wave", "score"   # bench_screen.py's columns
 
 IMPORTS = """
 import numpy, pandas, pyarrow, pyarrow.csv, pyarrow.parquet, pyarrow.dataset
@@ -58,6 +55,27 @@ spec = LayoutSpec(id="{ID}", wave="{WAVE}", values=("{VALUE}", "mood"))
 panel, ledgers, _, _ = stream_panel(sys.argv[1], spec, None, None, parse_size(sys.argv[2]))
 print(panel.n_units, panel.n_waves, ledgers["{VALUE}"].rows_read)
 """
+
+
+def parse_size(text: str) -> int:
+    """As paneldiag.io.stream.parse_size, for the sizes this script prints. The parent
+    imports neither pandas nor pyarrow: a child's ru_maxrss counts the parent's memory
+    copied at fork, so the parent stays small."""
+    number = text.rstrip("KMGTBkmgtbi")
+    unit = text[len(number):].upper()
+    scale = {"": 1, "B": 1, "KB": 10**3, "MB": 10**6, "GB": 10**9, "K": 2**10, "M": 2**20,
+             "G": 2**30, "KIB": 2**10, "MIB": 2**20, "GIB": 2**30}[unit]
+    return int(float(number) * scale)
+
+
+def data_files(n_units: int, n_waves: int) -> dict[str, str]:
+    """bench_screen.py's cached files, generated in a child process."""
+    code = (f"import sys, json; sys.path.insert(0, {str(HERE)!r}); "
+            f"from bench_screen import data_files; "
+            f"print(json.dumps({{k: str(v) for k, v in data_files({n_units}, {n_waves}).items()}}))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    return json.loads(out.stdout.strip().splitlines()[-1])
 
 
 def child(args: list[str]) -> tuple[float, float, str]:
