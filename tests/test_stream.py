@@ -212,6 +212,30 @@ def test_unit_rows_apart_stop_with_the_row(tmp_path):
     assert problem.value.row == 6 and problem.value.column == "unit"
 
 
+def test_budget_too_small_for_the_matrices(tmp_path):
+    rows = ["unit,wave,a,b,c"] + [f"{u},{w},1,2,3" for u in range(2000) for w in range(40)]
+    path = tmp_path / "many_waves.csv"
+    path.write_text("\n".join(rows) + "\n")
+    spec = LayoutSpec(id="unit", wave="wave", values=("a", "b", "c"))
+    # 2,000 x 40 x 3 matrices of 8 bytes (1.92 MB) + 80 bytes a unit = 2.08 MB, above the
+    # whole budget; at least that + a block of 64 KiB of text x 12 (0.79 MB) = 2.87 MB
+    with pytest.raises(InputProblem, match=r"--max-memory 1.6 MB is too small: the panel's "
+                                           r"matrices \(2,000 units x 40 waves\) take 2.1 MB; "
+                                           r"give at least 2.9 MB"):
+        stream_panel(str(path), spec, None, None, parse_size("1.6MB"))
+    panel, _, _, _ = stream_panel(str(path), spec, None, None, parse_size("3MB"))
+    assert panel.values["a"].shape == (2000, 40)
+
+
+def test_python_api_takes_the_budget(tenants_csv):
+    import paneldiag
+    options = dict(id="household", wave="year", value=["satisfaction", "trust"],
+                   missing_codes="-9,-8", audit_only=True)
+    whole = paneldiag.screen(str(tenants_csv), **options).to_dict()
+    blocks = paneldiag.screen(str(tenants_csv), max_memory="1.6MB", **options).to_dict()
+    assert numbers_close(whole, blocks) == []
+
+
 def test_types_that_change_between_blocks(tmp_path):
     # integer ids and values in the first rows, text further down: a whole-file read
     # takes the columns as text (and the values' text as non-numeric)

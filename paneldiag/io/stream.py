@@ -558,14 +558,13 @@ def _count_units(scan: _Scan, source, spec, labels, reading, block_bytes):
 
 def _unsorted_problem(source, spec, run_ids, run_rows, repeated) -> InputProblem:
     k = int(np.flatnonzero(repeated)[0])
-    ids = " ".join(f"--id {c}" for c in spec.id_columns)
+    ids = ID_SEPARATOR.join(spec.id_columns)
     return InputProblem(
         f"the rows of unit {run_ids[k]} are not together: they start again after other "
-        f"units' rows; a streamed read needs each unit's rows in one run: sort the file by "
-        f"{ID_SEPARATOR.join(spec.id_columns)} (a stable sort keeps the order of a unit's "
-        f"rows), or screen it without --max-memory if it fits in memory ({ids})",
-        file=source.path, row=source.row_of(int(run_rows[k])),
-        column=ID_SEPARATOR.join(spec.id_columns))
+        f"units' rows; a read in blocks needs each unit's rows in one run: sort the file by "
+        f"{ids} (a stable sort keeps each unit's rows in order; docs/scale.md shows one "
+        "within bounded memory), or screen it in memory if it fits (without --max-memory)",
+        file=source.path, row=source.row_of(int(run_rows[k])), column=ids)
 
 
 # ----------------------------------------------------------------------------- pass 2
