@@ -160,10 +160,10 @@ def frame_table(frame, columns: list[str]):
 
 def _whole_read_reason(data, spec: LayoutSpec) -> str:
     if not isinstance(data, str):
-        return "DataFrames"
+        return "a DataFrame is"
     if data == "-":
-        return "standard input"
-    return "wide data" if spec.layout == "wide" else "files of this format"
+        return "standard input is"
+    return "wide data are" if spec.layout == "wide" else "files of this format are"
 
 
 def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lambda _: None
@@ -186,7 +186,7 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     else:
         if budget is not None:
             raise InputProblem(f"--max-memory reads {streamable()} in blocks; "
-                               f"{_whole_read_reason(data, spec)} are read whole: screen "
+                               f"{_whole_read_reason(data, spec)} read whole: screen "
                                "without --max-memory")
         if isinstance(data, str):
             from paneldiag.io.readers import read_table

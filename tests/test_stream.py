@@ -96,6 +96,15 @@ def test_tenant_panel_in_many_blocks(tenants_csv):
     assert got is not None and got[0].n_units == 300
 
 
+def test_gzip_and_tab_separated(tmp_path):
+    import gzip
+    frame = tenant_panel(120)
+    text = frame.to_csv(index=False, sep="\t", float_format="%.10g", lineterminator="\n")
+    path = tmp_path / "tenants.tsv.gz"
+    path.write_bytes(gzip.compress(text.encode()))
+    same_outcome(path, LayoutSpec(**TENANTS), block_bytes=1500)
+
+
 def test_parquet_and_a_folder_of_parquet_files(tmp_path):
     frame = tenant_panel(200)
     single = tmp_path / "tenants.parquet"

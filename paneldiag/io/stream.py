@@ -108,9 +108,9 @@ def _input_bytes(path: str, fmt: str) -> int:
     if fmt == "parquet":
         import pyarrow.parquet as pq
         try:
-            return sum(pq.ParquetFile(f).metadata.row_group(g).total_byte_size
-                       for f in _parquet_files(path)
-                       for g in range(pq.ParquetFile(f).metadata.num_row_groups))
+            metas = [pq.ParquetFile(f).metadata for f in _parquet_files(path)]
+            return sum(m.row_group(g).total_byte_size for m in metas
+                       for g in range(m.num_row_groups))
         except Exception:  # unreadable: the reader says why
             return 0
     size = os.path.getsize(path)
