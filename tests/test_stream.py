@@ -105,6 +105,17 @@ def test_gzip_and_tab_separated(tmp_path):
     same_outcome(path, LayoutSpec(**TENANTS), block_bytes=1500)
 
 
+def test_byte_order_mark_windows_line_ends_and_blank_lines(tmp_path):
+    lines = messy_lines(6)
+    lines[30:30] = ["", ""]                     # blank lines move records off their index
+    path = tmp_path / "windows.csv"
+    path.write_bytes(b"\xef\xbb\xbf" + "\r\n".join(lines).encode() + b"\r\n")
+    for bad_values in ("drop", "error"):
+        spec = LayoutSpec(id="unit", wave="wave", values=("y", "z"), duplicates="last",
+                          missing_codes=MissingCodes((-9.0,)), bad_values=bad_values)
+        same_outcome(path, spec, block_bytes=70)
+
+
 def test_parquet_and_a_folder_of_parquet_files(tmp_path):
     frame = tenant_panel(200)
     single = tmp_path / "tenants.parquet"
@@ -193,7 +204,8 @@ def test_messy_file_ledgers_and_messages(tmp_path, seed, policy):
         spec = LayoutSpec(id="unit", wave="wave", values=("y", "z"), weight="w", group="g",
                           missing_codes=MissingCodes((-9.0,)), duplicates=policy,
                           bad_values=bad_values)
-        same_outcome(path, spec, block_bytes=90)
+        for block_bytes in (30 + 37 * seed, 90, 1000):   # a row or two a block, up to ten
+            same_outcome(path, spec, block_bytes=block_bytes)
 
 
 def test_units_together_but_not_in_id_order(tmp_path):
