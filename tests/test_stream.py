@@ -257,6 +257,24 @@ def test_python_api_takes_the_budget(tenants_csv):
     assert numbers_close(whole, blocks) == []
 
 
+def test_a_file_too_large_for_the_default_budget_is_read_in_blocks(tenants_csv, monkeypatch):
+    import paneldiag.io.stream as stream
+    from paneldiag.request import ScreenRequest, run_screen
+    request = ScreenRequest(id=("household",), wave="year", value=("trust",),
+                            missing_codes="-9,-8", audit_only=True)
+    whole, _ = run_screen(str(tenants_csv), request)
+    read_in_blocks = []
+    original = stream.stream_panel
+    # a machine with 4 MB of memory (half of it the budget), and the ~80 KB file taken
+    # to need 100 times its size in memory
+    monkeypatch.setattr(stream, "default_budget", lambda: 2 * 10**6)
+    monkeypatch.setattr(stream, "IN_MEMORY_WORK", 100)
+    monkeypatch.setattr(stream, "stream_panel",
+                        lambda *a, **k: read_in_blocks.append(a) or original(*a, **k))
+    blocks, _ = run_screen(str(tenants_csv), request)
+    assert len(read_in_blocks) == 1 and numbers_close(whole, blocks) == []
+
+
 def test_types_that_change_between_blocks(tmp_path):
     # integer ids and values in the first rows, text further down: a whole-file read
     # takes the columns as text (and the values' text as non-numeric)
