@@ -645,7 +645,8 @@ def _assemble(source, spec, labels, reading, n_units, block_bytes):
     for block in source.blocks(spec.columns(), block_bytes):
         table, first = block.table, block.first_record
         if carry is not None:
-            table, first = pa.concat_tables([carry.table, table]), carry.first_record
+            table = pa.concat_tables([carry.table, table], promote_options="permissive")
+            first = carry.first_record
         cut = _last_unit_start(table, spec)
         if cut > 0:
             take(_frame(_Block(table.slice(0, cut), first), source, None))
