@@ -352,7 +352,8 @@ def read_parquet_folder(path: str, columns: list[str] | None) -> RawTable:
     source = _ParquetSource(path, "parquet", columns or [], None)
     columns = columns or source.dataset.schema.names
     table = pa.Table.from_batches(list(source._batches(columns, 1 << 20, pa, pq)),
-                                  schema=source.dataset.schema.select(columns))
+                                  schema=pa.schema([source.dataset.schema.field(c)
+                                                    for c in columns]))
     return RawTable(frame=_to_frame(table), source=path, format="parquet",
                     sha256=source.digest(), first_row_number=1)
 
