@@ -23,7 +23,7 @@ import hashlib
 import os
 import re
 from dataclasses import dataclass, field
-from typing import Callable, Iterator
+from typing import Iterator
 
 import numpy as np
 import pandas as pd
@@ -140,7 +140,7 @@ class _Source:
     """Blocks of a file, and the row number of any record (worked out on demand)."""
 
     def __init__(self, path: str, fmt: str, columns: list[str], delimiter: str | None):
-        self.path, self.format, self.columns = path, fmt, columns
+        self.path, self.format = path, fmt
         self.delimiter = delimiter
         self.types: dict = {}     # CSV: Arrow type per column, fixed once inferred
         self.seen: dict = {}      # CSV: the types the blocks were inferred as
