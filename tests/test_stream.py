@@ -414,10 +414,11 @@ def test_command_gives_the_same_report_with_a_memory_budget(tmp_path, scope):
     frame.to_csv(path, index=False, float_format="%.10g", lineterminator="\n")
     whole, blocks = tmp_path / "whole.json", tmp_path / "blocks.json"
     first = run_cli("screen", path, *OPTIONS, *scope, "--json", whole)
-    # 600 households x 8 waves x 3 measures: ~0.16 MB of matrices and ids; 1 MB leaves
-    # blocks of ~70 KB of text against a file of ~170 KB: three blocks
+    # a file of ~155 KB; 1.6 MB: the first pass in blocks of 67 KB (1.6 MB / 24), three
+    # blocks; the matrices and ids take ~0.16 MB (600 x 8 waves x 3 measures x 8 bytes +
+    # 80 bytes a unit), leaving the second pass blocks of 120 KB: two blocks
     second = run_cli("screen", path, *OPTIONS, *scope, "--json", blocks, "--max-memory",
-                     "1MB")
+                     "1.6MB")
     assert first.returncode == 0 and second.returncode == 0, second.stderr.decode()
     a, b = json.loads(whole.read_text()), json.loads(blocks.read_text())
     assert numbers_close(a, b) == []
