@@ -54,6 +54,7 @@ class ScreenRequest:
     trajectory_sample: int = 0
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
+    max_memory: str | None = None        # e.g. 2GB: read a long file in blocks within it
     # units summarised at a time (memory, not results: the figures agree across chunk
     # sizes to rounding; an advanced option, hidden from the command's help)
     chunk_units: int = CHUNK_UNITS
@@ -66,8 +67,15 @@ class ScreenRequest:
     def default(cls, name: str):
         return next(f.default for f in fields(cls) if f.name == name)
 
+    def memory_budget(self) -> int | None:
+        """Bytes of --max-memory (None when not given)."""
+        if self.max_memory is None:
+            return None
+        return parse_size(self.max_memory, "--max-memory")
+
     def layout(self) -> LayoutSpec:
         ids = tuple(self.id)
+        self.memory_budget()   # a bad size stops here, with the other options
         return LayoutSpec(
             id=ids[0] if len(ids) == 1 else (ids or None), wave=self.wave,
             values=tuple(self.value), wide=wide_measures(self.wide),
@@ -161,6 +169,14 @@ def frame_table(frame, columns: list[str]):
                     first_row_number=1)
 
 
+def _whole_read_reason(data, spec: LayoutSpec) -> str:
+    if not isinstance(data, str):
+        return "a DataFrame is"
+    if data == "-":
+        return "standard input is"
+    return "wide data are" if spec.layout == "wide" else "files of this format are"
+
+
 def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lambda _: None
                ) -> tuple[dict, object]:
     """The report (JSON-ready dict) and the Panel of a screen of ``data`` (a path, '-'
@@ -180,25 +196,39 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     if not isinstance(data, (str, pd.DataFrame)):
         raise InputProblem(f"data must be a path or a pandas DataFrame, not "
                            f"{type(data).__name__}")
-    if isinstance(data, str):
-        from paneldiag.io.readers import read_table
-        stage(f"reading {data}")
-        raw = read_table(data, request.format, columns=spec.columns(),
-                         delimiter=request.delimiter, sheet=request.sheet,
-                         r_object=request.r_object)
-    else:
+    if not isinstance(data, str):
         for name in ("format", "delimiter", "sheet", "r_object"):
             if getattr(request, name) is not None:
                 raise InputProblem(f"{name} is for reading a file; data given as a "
                                    "DataFrame is already read")
-        raw = frame_table(data, spec.columns())
-    stage("building the panel")
-    panel, ledgers = build_panel(raw, spec)
+    budget = request.memory_budget()
+    from paneldiag.io.stream import should_stream, stream_panel, streamable
+    table_in_file: dict = {}
+    if should_stream(data, request.format, spec, budget):
+        stage(f"reading {data} in blocks")
+        panel, ledgers, digest, fmt = stream_panel(data, spec, request.format,
+                                                   request.delimiter, budget)
+    else:
+        if budget is not None:
+            raise InputProblem(f"--max-memory reads {streamable()} in blocks; "
+                               f"{_whole_read_reason(data, spec)} read whole: screen "
+                               "without --max-memory")
+        if isinstance(data, str):
+            from paneldiag.io.readers import read_table
+            stage(f"reading {data}")
+            raw = read_table(data, request.format, columns=spec.columns(),
+                             delimiter=request.delimiter, sheet=request.sheet,
+                             r_object=request.r_object)
+        else:
+            raw = frame_table(data, spec.columns())
+        stage("building the panel")
+        panel, ledgers = build_panel(raw, spec)
+        digest, fmt, table_in_file = raw.sha256, raw.format, raw.table_in_file
+        del raw  # the parsed columns are in the panel now: free them before the screen
     stage("screening")
     input_info = {"path": data if isinstance(data, str) else "DataFrame",
-                  "sha256": raw.sha256, "format": raw.format, **raw.table_in_file,
+                  "sha256": digest, "format": fmt, **table_in_file,
                   "options": dict(options_record(spec, request), scale=request.scale)}
-    del raw  # the parsed columns are in the panel now: free them before the screen
     if request.rules:
         input_info["options"]["rules"] = request.rules
     if request.audit_only:

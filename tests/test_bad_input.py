@@ -248,7 +248,7 @@ def test_memory_limit_must_be_a_size(tmp_path):
                          "year", "--value", "trust", "--memory-limit", "lots"], tmp_path)
     lines = result.stderr.decode().splitlines()
     assert result.returncode == 2 and len(lines) == 1
-    assert "--memory-limit must be a size such as 512M, 8G or 1.5T, got 'lots'" in lines[0]
+    assert "--memory-limit takes a size such as 2GB, 500MB or 8G, got 'lots'" in lines[0]
 
 
 def test_millions_of_wave_labels_stop_before_the_labels_are_read(tmp_path):

@@ -276,25 +276,25 @@ def test_continuous_time_stops():
     times = np.arange(MAX_WAVES + 1, dtype=float)
     with pytest.raises(InputProblem, match=f"{MAX_WAVES + 1} distinct values, more than the "
                                            f"{MAX_WAVES} waves"):
-        check_shared_waves(np.arange(MAX_WAVES + 1), times, "w", stop, WaveGrouping(),
+        check_shared_waves(np.ones(MAX_WAVES + 1, dtype=int), times, "w", stop, WaveGrouping(),
                            MAX_WAVES, "numbers", 1)
-    check_shared_waves(np.repeat(np.arange(MAX_WAVES + 1), 2), times, "w", stop,
+    check_shared_waves(np.full(MAX_WAVES + 1, 2), times, "w", stop,
                        WaveGrouping(), MAX_WAVES + 1, "numbers", 2)    # --max-waves
     # above SPARSE_ABOVE_WAVES values, occasions most units answer (a diary) are waves;
     # a handful of values per unit (ages) is continuous time
     many = SPARSE_ABOVE_WAVES + 10
     diary = np.tile(np.arange(many), 30)                         # 30 units, every occasion
-    check_shared_waves(diary, np.arange(float(many)), "w", stop, WaveGrouping(), MAX_WAVES,
+    check_shared_waves(np.bincount(diary), np.arange(float(many)), "w", stop, WaveGrouping(), MAX_WAVES,
                        "numbers", 30)
     ages = np.tile(np.arange(many), 3)                           # 30 units, 5 ages each
     with pytest.raises(InputProblem, match="answer 10% of them on average"):
-        check_shared_waves(ages, np.arange(float(many)), "w", stop, WaveGrouping(),
+        check_shared_waves(np.bincount(ages), np.arange(float(many)), "w", stop, WaveGrouping(),
                            MAX_WAVES, "numbers", 30)
     # four rows alone at their time out of six: the units have their own times
     with pytest.raises(InputProblem, match="4 of 6 rows are the only row at their time"):
-        check_shared_waves(np.array([0, 0, 1, 2, 3, 4]), np.arange(5.0), "w", stop,
+        check_shared_waves(np.bincount([0, 0, 1, 2, 3, 4]), np.arange(5.0), "w", stop,
                            WaveGrouping(), MAX_WAVES, "numbers", 2)
-    check_shared_waves(np.array([0, 0, 1, 1, 2, 3]), np.arange(4.0), "w", stop,
+    check_shared_waves(np.bincount([0, 0, 1, 1, 2, 3]), np.arange(4.0), "w", stop,
                        WaveGrouping(), MAX_WAVES, "numbers", 2)          # two of six alone
 
 

@@ -85,6 +85,10 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
                    "(default: the first).")
 @click.option("--r-object", "r_object", metavar="NAME",
               help="The data frame to read from an .RData file holding several.")
+@click.option("--max-memory", metavar="SIZE",
+              help="Read a long CSV/TSV or Parquet file in blocks, holding at most about "
+                   "SIZE (e.g. 2GB, 500MB) for the data; a file too large for half the "
+                   "memory is read in blocks anyway (see docs/scale.md).")
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--triplet-table", "triplet_path", metavar="PATH",
               help="Write every triplet of waves' reliability values to this CSV file "

@@ -62,11 +62,19 @@ class RawTable:
     # which table of a file holding several was read, for the report's input section:
     # {"sheet": name, "sheets": [names]} or {"r_object": name, "r_objects": [names]}
     table_in_file: dict = field(default_factory=dict)
+    # a block of a streamed read: problems are noted here and raised once the whole file
+    # is seen (io.stream), so that their counts and order are the whole file's
+    refusals: object | None = None
 
     def row_number(self, index: int) -> int:
         if self.locate is not None:
             return self.locate(int(index))
         return self.first_row_number + int(index)
+
+    def row_later(self, index: int) -> Callable[[], int]:
+        """The row number of record ``index``, worked out when called (keeps no data)."""
+        locate, first, index = self.locate, self.first_row_number, int(index)
+        return (lambda: locate(index)) if locate is not None else (lambda: first + index)
 
 
 def detect_format(path: str, override: str | None) -> str:
@@ -76,6 +84,8 @@ def detect_format(path: str, override: str | None) -> str:
         return override
     if path == "-":
         return "csv"
+    if os.path.isdir(path) and _holds_parquet(path):
+        return "parquet"  # a partitioned dataset: a folder of Parquet files
     name = path.lower()
     if name.endswith(".gz"):
         name = name[:-3]
@@ -95,6 +105,9 @@ def read_table(path: str, fmt: str | None = None, columns: list[str] | None = No
     ``r_object`` the data frame of an .RData file holding several."""
     fmt = detect_format(path, fmt)
     _check_table_choice(fmt, sheet, r_object)
+    if fmt == "parquet" and os.path.isdir(path):
+        from paneldiag.io.stream import read_parquet_folder
+        return read_parquet_folder(path, columns)
     data = _load_bytes(path)
     if isinstance(data, bytes):
         hashing, digest = None, hashlib.sha256(data).hexdigest()
@@ -129,6 +142,11 @@ def _check_table_choice(fmt: str, sheet, r_object) -> None:
         raise InputProblem(f"--sheet is for spreadsheet files (xlsx, xls, ods), not {fmt}")
     if r_object is not None and fmt != "rdata":
         raise InputProblem(f"--r-object is for .RData files, not {fmt}")
+
+
+def _holds_parquet(folder: str) -> bool:
+    return any(name.lower().endswith((".parquet", ".pq"))
+               for _, _, names in os.walk(folder) for name in names)
 
 
 class _Background:

@@ -167,7 +167,11 @@ def check_spec(spec: LayoutSpec) -> None:
 
 # ----------------------------------------------------------------------------- long
 
-def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledger]]:
+def _build_long(raw: RawTable, spec: LayoutSpec, fixed: "FixedWaves | None" = None
+                ) -> tuple[Panel | None, dict[str, Ledger]]:
+    """The panel of a long table. ``fixed`` (a streamed read) gives the waves of the whole
+    file; the table is then a block of whole units, whole-file checks are left to the
+    caller, and a block without usable rows gives no panel, only its ledger counts."""
     frame = raw.frame
     n_rows = len(frame)
     id_missing = _ids_missing(frame, spec)
@@ -184,23 +188,31 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
     else:
         valid_rows = np.arange(n_rows)
     if len(valid_rows) == 0:
+        if fixed is not None:
+            return None, fixed.empty_ledgers(spec, n_rows, id_missing, wave_missing, 0)
         raise InputProblem("no row has both a unit id and a wave", file=raw.source)
-    wave_index, reading, label_index = _parse_waves(raw, spec, valid_rows)
+    wave_index, reading, label_index = (_parse_waves(raw, spec, valid_rows) if fixed is None
+                                        else fixed.parse(raw, spec, valid_rows))
     outside = wave_index < 0 if spec.wave_grouping.active else np.zeros(0, dtype=bool)
     if outside.any():  # rows beyond the --wave-bins edges
         valid_rows, wave_index, label_index = (a[~outside] for a in
                                                (valid_rows, wave_index, label_index))
         if len(valid_rows) == 0:
+            if fixed is not None:
+                return None, fixed.empty_ledgers(spec, n_rows, id_missing, wave_missing,
+                                                 int(outside.sum()))
             raise InputProblem("no row has a wave inside the --wave-bins edges",
                                file=raw.source, column=spec.wave)
     unit_index, unit_ids = _factorize_ids(frame, spec.id_columns, valid_rows)
     labels, times = reading.labels, _override_times(spec, reading.times, len(reading.labels))
     n_units, n_waves = len(unit_ids), len(labels)
-    _check_extent(raw, n_units, n_waves)
-    check_memory(spec, n_units, n_waves, raw.source)
-    check_shared_waves(wave_index, reading.times, f"the wave column '{spec.wave}'",
-                       lambda what: InputProblem(what, file=raw.source, column=spec.wave),
-                       spec.wave_grouping, spec.max_waves, reading.kind, n_units)
+    if fixed is None:
+        _check_extent(raw, n_units, n_waves)
+        check_memory(spec, n_units, n_waves, raw.source)
+        check_shared_waves(np.bincount(wave_index, minlength=n_waves), reading.times,
+                           f"the wave column '{spec.wave}'",
+                           lambda what: InputProblem(what, file=raw.source, column=spec.wave),
+                           spec.wave_grouping, spec.max_waves, reading.kind, n_units)
 
     cell = unit_index * n_waves + wave_index
     kept, n_duplicate = _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves)
@@ -242,7 +254,8 @@ def _build_long(raw: RawTable, spec: LayoutSpec) -> tuple[Panel, dict[str, Ledge
             reasons = dict(structural)
         if measure in items:
             item_columns[measure] = dict(spec.items)[measure]
-        _require_observed(raw, measure, matrix)
+        if fixed is None:  # a streamed read checks the whole matrix at the end
+            _require_observed(raw, measure, matrix)
         for code, reason in _CELL_REASON.items():
             reasons[reason] = int((outcome_kept == code).sum())
         used = int((outcome_kept == OBSERVED).sum())
@@ -450,17 +463,21 @@ def size_text(n_bytes: float) -> str:
     return f"{int(n_bytes)} B"
 
 
-def parse_size(text) -> int | None:
-    """Bytes of a size written as a number with an optional unit (K, M, G, T, with or
-    without 'B' or 'iB'; binary multiples): '512M', '8G', '1.5 GiB', 2000000000."""
+SIZE_UNITS = {"": 1, "B": 1, "KB": 10**3, "MB": 10**6, "GB": 10**9, "TB": 10**12,
+              "K": 2**10, "M": 2**20, "G": 2**30, "T": 2**40,
+              "KIB": 2**10, "MIB": 2**20, "GIB": 2**30, "TIB": 2**40}
+
+
+def parse_size(text, option: str = "--memory-limit") -> int | None:
+    """Bytes of a size: '2GB', '500MB' (powers of 1000), '8G', '1.5GiB' (powers of
+    1024), 2000000000. None stays None."""
     if text is None:
         return None
-    match = re.fullmatch(r"\s*(\d+(?:\.\d+)?)\s*([KMGT]?)(?:i?B)?\s*", str(text), re.I)
-    if not match or float(match.group(1)) <= 0:
-        raise InputProblem(f"--memory-limit must be a size such as 512M, 8G or 1.5T, got "
-                           f"'{text}'")
-    power = " KMGT".index(match.group(2).upper() or " ")
-    return int(float(match.group(1)) * 1024 ** power)
+    match = re.fullmatch(r"\s*([0-9]*\.?[0-9]+)\s*([A-Za-z]*)\s*", str(text))
+    unit = match.group(2).upper() if match else None
+    if not match or unit not in SIZE_UNITS or float(match.group(1)) <= 0:
+        raise InputProblem(f"{option} takes a size such as 2GB, 500MB or 8G, got '{text}'")
+    return int(float(match.group(1)) * SIZE_UNITS[unit])
 
 
 def _parse_waves(raw: RawTable, spec: LayoutSpec, rows: np.ndarray):
@@ -532,7 +549,11 @@ def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     if n_duplicate == 0:
         return np.arange(len(cell)), 0
     if spec.duplicates == "error":
-        raise _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves)
+        if raw.refusals is None:
+            raise _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels,
+                                      n_waves)
+        _note_duplicates(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves)
+        return np.arange(len(cell)), n_duplicate  # the run stops once the file is read
     if spec.duplicates == "mean":
         return np.arange(len(cell)), n_duplicate
     order = np.argsort(cell, kind="stable")
@@ -544,22 +565,49 @@ def _resolve_duplicates(raw, spec, cell, valid_rows, unit_ids, labels, n_waves):
     return np.sort(order[boundary]), n_duplicate
 
 
-def _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves):
-    """The repeated unit-wave rows (or ids, in wide data), with the likeliest remedy."""
+def _repeated_pairs(raw, cell, counts, valid_rows, unit_ids, labels, n_waves, limit=3):
+    """Positions of the repeated rows and the first few repeated pairs, as shown."""
     wide = labels == ("",)
     dup_positions = np.flatnonzero(counts[cell] > 1)
     shown = []
-    for c in pd.unique(cell[dup_positions])[:3]:  # name the first few repeated pairs
+    for c in pd.unique(cell[dup_positions])[:limit]:  # name the first few repeated pairs
         same = dup_positions[cell[dup_positions] == c][:2]
         lines = " and ".join(str(raw.row_number(valid_rows[p])) for p in same)
         where = "" if wide else f" at wave {labels[c % n_waves]}"
         shown.append(f"{unit_ids[c // n_waves]}{where} (rows {lines})")
+    return dup_positions, shown
+
+
+def _note_duplicates(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves):
+    """A block's repeated pairs, for the message given once the whole file is read (the
+    remedy naming an outer id column needs every column of the file: not looked for)."""
+    already = raw.refusals.noted.get(("duplicates",))
+    room = 3 - (len(already[3]) if already else 0)
+    dup_positions, shown = _repeated_pairs(raw, cell, counts, valid_rows, unit_ids, labels,
+                                           n_waves, limit=max(room, 0))
+    row, source = raw.row_later(valid_rows[dup_positions[0]]), raw.source
+
+    def problem(n_cells: int, items=()) -> InputProblem:
+        return _duplicates_message(spec, n_cells, list(items), None, False, source, row())
+    _stop(raw, ("duplicates",), int(np.count_nonzero(counts > 1)), problem, items=shown)
+
+
+def _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n_waves):
+    """The repeated unit-wave rows (or ids, in wide data), with the likeliest remedy."""
+    wide = labels == ("",)
+    dup_positions, shown = _repeated_pairs(raw, cell, counts, valid_rows, unit_ids, labels,
+                                           n_waves)
     n_cells = int(np.count_nonzero(counts > 1))
+    outer = _outer_id_column(raw, spec, cell // n_waves, cell % n_waves, valid_rows,
+                             dup_positions, wide)
+    return _duplicates_message(spec, n_cells, shown, outer, wide, raw.source,
+                               raw.row_number(valid_rows[dup_positions[0]]))
+
+
+def _duplicates_message(spec, n_cells, shown, outer, wide, source, row) -> InputProblem:
     what = "unit id(s) appear in more than one row" if wide else \
         "unit-wave pair(s) appear more than once"
     more = ", ..." if n_cells > len(shown) else ""
-    outer = _outer_id_column(raw, spec, cell // n_waves, cell % n_waves, valid_rows,
-                             dup_positions, wide)
     if outer is not None:
         ids = " ".join(f"--id {c}" for c in (outer, *spec.id_columns))
         remedy = (f"the repeated ids differ in '{outer}', which is constant within each unit: "
@@ -570,8 +618,7 @@ def _duplicates_problem(raw, spec, cell, counts, valid_rows, unit_ids, labels, n
     else:
         remedy = f"choose --duplicates first{' or last' if wide else ', last or mean'}"
     return InputProblem(f"{n_cells} {what}: {', '.join(shown)}{more}; {remedy}",
-                        file=raw.source, row=raw.row_number(valid_rows[dup_positions[0]]),
-                        column=ID_SEPARATOR.join(spec.id_columns))
+                        file=source, row=row, column=ID_SEPARATOR.join(spec.id_columns))
 
 
 def _outer_id_column(raw, spec, unit_index, wave_index, valid_rows, dup_positions, wide):
@@ -671,10 +718,54 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray,
 def _refuse(raw, spec, column, rows, mask, what, detail) -> None:
     if mask.any() and spec.bad_values == "error":
         i = int(np.flatnonzero(mask)[0])
-        raise InputProblem(
-            f"{what}{detail(i)} in {int(mask.sum())} cell(s) of '{column}'; fix them or pass "
-            "--drop-bad-rows to drop and count them",
-            file=raw.source, row=raw.row_number(rows[i]), column=column)
+        shown, row, source = detail(i), raw.row_later(rows[i]), raw.source
+
+        def problem(count: int, _items=()) -> InputProblem:
+            return InputProblem(
+                f"{what}{shown} in {count} cell(s) of '{column}'; fix them or pass "
+                "--drop-bad-rows to drop and count them", file=source, row=row(),
+                column=column)
+        _stop(raw, (column, what), int(mask.sum()), problem)
+
+
+def _stop(raw, key, count, problem, order=None, items=()) -> None:
+    """Raise ``problem(count, items)`` now, or, in a block of a streamed read, note it."""
+    if raw.refusals is None:
+        raise problem(count, items)
+    raw.refusals.note(key, count, problem, order, items)
+
+
+class Refusals:
+    """The problems met block by block in a streamed read. Once the whole file is seen,
+    ``raise_first`` raises the one an in-memory read raises: the first in the order of
+    the checks, with its count over the whole file and its first row (or, for a check
+    over units, the first unit in id order)."""
+
+    def __init__(self, spec: LayoutSpec):
+        keys = [("duplicates",)]
+        for measure in spec.measure_names():
+            for column in dict(spec.items).get(measure, (measure,)):
+                keys += [(column, "non-numeric value"), (column, "infinite value")]
+            keys.append(("no observed value", measure))
+        keys += [("varies", spec.weight), ("bad weight",), ("varies", spec.group)]
+        self.rank = {key: i for i, key in enumerate(keys)}
+        self.noted: dict = {}  # key -> [count, problem, order, items]
+
+    def note(self, key, count, problem, order=None, items=()) -> None:
+        entry = self.noted.get(key)
+        if entry is None:
+            self.noted[key] = [count, problem, order, list(items)]
+            return
+        entry[0] += count
+        if order is not None and order < entry[2]:
+            entry[1], entry[2] = problem, order
+        entry[3] += list(items)[:max(0, 3 - len(entry[3]))]
+
+    def raise_first(self) -> None:
+        if self.noted:
+            key = min(self.noted, key=self.rank.__getitem__)
+            count, problem, _, items = self.noted[key]
+            raise problem(count, items)
 
 
 def _shown_value(value) -> str:
@@ -695,8 +786,12 @@ def _cell_means(outcome, numbers, cell, n_units, n_waves) -> np.ndarray:
 
 def _require_observed(raw, measure, matrix) -> None:
     if not np.isfinite(matrix).any():
-        raise InputProblem(f"measure '{measure}' has no observed value", file=raw.source,
-                           column=measure)
+        raise no_observed_value(raw.source, measure)
+
+
+def no_observed_value(source: str, measure: str) -> InputProblem:
+    return InputProblem(f"measure '{measure}' has no observed value", file=source,
+                        column=measure)
 
 
 def _code_counts(code_text: np.ndarray | None, wave_index: np.ndarray, n_waves: int) -> dict:
@@ -726,10 +821,14 @@ def _unit_weights(raw, spec, rows, unit_rows, unit_ids):
     bad = ~np.isfinite(values) | (values < 0)
     if bad.any():
         first = int(np.flatnonzero(bad)[0])
-        row = raw.row_number(rows[np.flatnonzero(unit_rows == first)[0]])
-        raise InputProblem(f"weight is missing, negative or infinite for {int(bad.sum())} "
-                           f"unit(s), first unit {unit_ids[first]}", file=raw.source, row=row,
-                           column=spec.weight)
+        row = raw.row_later(rows[np.flatnonzero(unit_rows == first)[0]])
+        unit, source = unit_ids[first], raw.source
+
+        def problem(count: int, _items=()) -> InputProblem:
+            return InputProblem(f"weight is missing, negative or infinite for {count} "
+                                f"unit(s), first unit {unit}", file=source, row=row(),
+                                column=spec.weight)
+        _stop(raw, ("bad weight",), int(bad.sum()), problem, order=unit)
     if len(values) and not values.sum() > 0:
         raise InputProblem("weight is 0 for every unit: nothing to weight by",
                            file=raw.source, column=spec.weight)
@@ -753,10 +852,13 @@ def _unit_constant(raw, column, rows, unit_rows, unit_ids, numeric):
     first, distinct = grouped.first(), grouped.nunique()
     if (distinct > 1).any():
         unit_pos = int(distinct.index[np.flatnonzero(distinct.to_numpy() > 1)[0]])
-        row = rows[np.flatnonzero(unit_rows == unit_pos)[0]]
-        raise InputProblem(f"'{column}' varies within unit {unit_ids[unit_pos]}; it must be "
-                           "constant for a unit", file=raw.source, row=raw.row_number(row),
-                           column=column)
+        row = raw.row_later(rows[np.flatnonzero(unit_rows == unit_pos)[0]])
+        unit, source = unit_ids[unit_pos], raw.source
+
+        def problem(_count=0, _items=()) -> InputProblem:
+            return InputProblem(f"'{column}' varies within unit {unit}; it must be "
+                                "constant for a unit", file=source, row=row(), column=column)
+        _stop(raw, ("varies", column), 0, problem, order=unit)
     out = first.reindex(range(len(unit_ids)))
     if numeric:
         return out.to_numpy(dtype=float, na_value=np.nan)

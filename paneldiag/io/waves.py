@@ -579,14 +579,15 @@ def _ordered(times: np.ndarray, labels: list[str], unit: str | None, kind: str,
 
 # ----------------------------------------------------------------------------- checks
 
-def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, problem: Problem,
-                       grouping: WaveGrouping, max_waves: int, kind: str,
+def check_shared_waves(rows_per_wave: np.ndarray, times: np.ndarray, where: str,
+                       problem: Problem, grouping: WaveGrouping, max_waves: int, kind: str,
                        n_units: int) -> None:
     """Stop when the wave column holds continuous time rather than shared waves: more
     distinct values than ``max_waves``, more than ``SPARSE_ABOVE_WAVES`` answered
-    sparsely, or most rows alone at their time."""
+    sparsely, or most rows alone at their time. ``rows_per_wave`` counts the rows."""
     n_waves = len(times)
-    coverage = len(wave_index) / max(n_units * n_waves, 1)
+    n_rows = int(rows_per_wave.sum())
+    coverage = n_rows / max(n_units * n_waves, 1)
     remedy = _grouping_remedy(times, kind)
     after = " after grouping" if grouping.active else ""
     if n_waves > max_waves:
@@ -596,12 +597,12 @@ def check_shared_waves(wave_index: np.ndarray, times: np.ndarray, where: str, pr
             f"{where} has {n_waves:,} distinct values{after} and the units answer "
             f"{coverage:.0%} of them on average: it looks like continuous time, not shared "
             f"waves; {remedy}")
-    if grouping.active or kind == "text" or len(wave_index) * UNIT_SPECIFIC_SHARE >= n_waves:
+    if grouping.active or kind == "text" or n_rows * UNIT_SPECIFIC_SHARE >= n_waves:
         return  # (a row alone is a wave of one row: at most n_waves rows are alone)
-    alone = int(np.count_nonzero(np.bincount(wave_index, minlength=n_waves) == 1))
-    if alone > UNIT_SPECIFIC_SHARE * len(wave_index):
+    alone = int(np.count_nonzero(rows_per_wave == 1))
+    if alone > UNIT_SPECIFIC_SHARE * n_rows:
         raise problem(
-            f"{where}: {alone:,} of {len(wave_index):,} rows are the only row at their "
+            f"{where}: {alone:,} of {n_rows:,} rows are the only row at their "
             f"time, so the units have their own times, not shared waves; {remedy}")
 
 
