@@ -19,6 +19,7 @@ import json
 import os
 
 from paneldiag.errors import InputProblem
+from paneldiag.labels import FAMILY_NAMES
 from paneldiag.request import ScreenRequest, run_screen
 
 _REPEATED = ("id", "value", "wide", "items", "covariate")   # options given more than once
@@ -64,7 +65,13 @@ def screen(data, *, id, wave=None, value=None, wide=None, **options) -> "Report"
     if isinstance(data, os.PathLike):
         data = os.fspath(data)
     request = ScreenRequest(**{k: v for k, v in given.items() if v is not None})
-    report, panel = run_screen(data, request)
+    try:
+        report, panel = run_screen(data, request)
+    except InputProblem as problem:
+        if problem.listing:   # what the command prints below its line, here in a note
+            title, items = problem.listing
+            problem.add_note(f"{title}: {', '.join(map(str, items))}")
+        raise
     return Report(report, panel, request, data if isinstance(data, str) else None)
 
 
@@ -156,7 +163,10 @@ class Report:
         panel = self._panel
         parts = []
         for name, one in self.measures.items():
-            top = [f["family"].replace("_", " ") for f in one.get("families") or []
+            if "families" not in one:
+                parts.append(f"{name}: audit only, no verdicts")
+                continue
+            top = [FAMILY_NAMES.get(f["family"], f["family"]) for f in one["families"]
                    if f.get("verdict") == "supported"]
             parts.append(f"{name}: {', '.join(top) or 'no family'} supported")
         return (f"<paneldiag report: {panel.n_units:,} units x {panel.n_waves} waves; "

@@ -172,3 +172,33 @@ def test_file_options_refused_for_other_formats(panel_file):
         paneldiag.screen(str(panel_file), id="household", wave="year", value="trust", sheet=2)
     assert str(problem.value) == printed == \
         "--sheet is for spreadsheet files (xlsx, xls, ods), not csv"
+
+
+def test_repr_names_families_as_every_output_does_and_says_audit_only(panel_file):
+    """The family names of paneldiag.labels (one name everywhere); an audit-only report
+    claims no verdict."""
+    full = paneldiag.screen(panel_file, id="household", wave="year", value="trust")
+    supported = [f["family"] for f in full.to_dict()["families"] if f["verdict"] == "supported"]
+    from paneldiag.labels import FAMILY_NAMES
+    for family in supported:
+        assert FAMILY_NAMES[family] in repr(full)
+    audit = paneldiag.screen(panel_file, id="household", wave="year", value="trust",
+                             audit_only=True)
+    assert "audit only, no verdicts" in repr(audit)
+
+
+def test_a_listed_header_rides_on_the_exception_as_a_note(panel_file, tmp_path):
+    """The command prints a long header below its one line; the API's exception carries
+    the same line and the header in a note (PEP 678), shown under the traceback."""
+    frame = pd.read_csv(panel_file)
+    for i in range(8):   # a header too long to print inside the line
+        frame[f"household_background_variable_{i}"] = i
+    path = tmp_path / "wide_header.csv"
+    frame.to_csv(path, index=False)
+    with pytest.raises(paneldiag.InputProblem) as caught:
+        paneldiag.screen(path, id="no_such_column", wave="year", value="trust")
+    done = run_cli("screen", path, "--id", "no_such_column", "--wave", "year",
+                   "--value", "trust")
+    assert done.stderr.decode().splitlines()[0] == f"paneldiag: error: {caught.value}"
+    notes = " ".join(getattr(caught.value, "__notes__", []))
+    assert all(name in notes for name in frame.columns)
