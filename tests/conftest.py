@@ -34,3 +34,17 @@ def run_cli(*args, stdin: bytes | None = None, cwd=None):
     env = dict(os.environ, NO_COLOR="1", PYTHONPATH=path)
     return subprocess.run([sys.executable, "-m", "paneldiag", *map(str, args)], input=stdin,
                           capture_output=True, cwd=cwd, env=env)
+
+
+def json_leaves(node, skip=(), path=""):
+    """Every leaf of a JSON-ready report with its path ('.key', '[i]'), keys in ``skip``
+    left out."""
+    if isinstance(node, dict):
+        for key, value in node.items():
+            if key not in skip:
+                yield from json_leaves(value, skip, f"{path}.{key}")
+    elif isinstance(node, list):
+        for i, value in enumerate(node):
+            yield from json_leaves(value, skip, f"{path}[{i}]")
+    else:
+        yield path, node

@@ -13,6 +13,7 @@ import sys
 import numpy as np
 import pandas as pd
 
+from conftest import json_leaves
 from paneldiag.simulate import family_values
 
 OUTPUTS = ("report.json", "appendix.md", "appendix.html", "tables.tex")
@@ -75,19 +76,9 @@ def test_reports_agree_across_chunk_sizes(tmp_path):
     for name in ("appendix.md", "appendix.html", "tables.tex"):
         assert all(run[name] == runs[0][name] for run in runs), name
 
-    def leaves(value, path=""):
-        if isinstance(value, dict):
-            for key, item in value.items():
-                yield from leaves(item, f"{path}.{key}")
-        elif isinstance(value, list):
-            for i, item in enumerate(value):
-                yield from leaves(item, f"{path}[{i}]")
-        else:
-            yield path, value
-
-    first = dict(leaves(json.loads(runs[0]["report.json"])))
+    first = dict(json_leaves(json.loads(runs[0]["report.json"])))
     for run in runs[1:]:
-        other = dict(leaves(json.loads(run["report.json"])))
+        other = dict(json_leaves(json.loads(run["report.json"])))
         assert first.keys() == other.keys()
         for key, value in first.items():
             if isinstance(value, float):

@@ -18,6 +18,7 @@ import pandas as pd
 import pytest
 
 import paneldiag
+from conftest import json_leaves
 from paneldiag.diagnostics.attrition import dropout_model
 from paneldiag.diagnostics.missingness import em_moments
 from paneldiag.panel import Panel
@@ -270,17 +271,9 @@ def test_screen_with_integer_weights_equals_replicated_screen():
     assert mine["growth"]["weighted"] is True and "weighted" not in theirs["growth"]
 
 
-def _numbers(node, path=""):
+def _numbers(node):
     """Every number in a report with its path (the weighting notes left out)."""
-    if isinstance(node, dict):
-        for key, value in node.items():
-            if key not in ("weighted", "weighting", "input", "cautions"):
-                yield from _numbers(value, f"{path}.{key}")
-    elif isinstance(node, list):
-        for i, value in enumerate(node):
-            yield from _numbers(value, f"{path}[{i}]")
-    else:
-        yield path, node
+    return json_leaves(node, skip=("weighted", "weighting", "input", "cautions"))
 
 
 def test_weights_of_one_give_the_unweighted_screen():
