@@ -34,7 +34,7 @@ from paneldiag.io.readers import (NULL_TOKENS, RawTable, _arrow_types, _check_te
                                   _record_lines, _refuse_binary_columns, _require_columns,
                                   _text_head, _text_parse_problem, detect_format)
 from paneldiag.io.validate import (_CELL_REASON, ID_SEPARATOR, LayoutSpec, Refusals,
-                                   _build_long, _check_extent, _check_magnitude, check_spec,
+                                   _build_long, _check_extent, _check_magnitude, check_some_weight, check_spec,
                                    _factorize_ids, _first_missing_id, _ids_missing,
                                    _missing_mask, _override_times, _time_basis, _trimmed,
                                    no_observed_value)
@@ -747,6 +747,8 @@ def _finish(built, spec, reading, times, path, source, fmt):
     for measure, matrix in built["values"].items():
         if _beyond_magnitude(matrix):   # then the in-memory read's check makes the message
             _check_magnitude(raw, measure, matrix)
+    if built["weights"] is not None:
+        check_some_weight(built["weights"], path, spec.weight)
     groups = built["groups"]
     panel = Panel(
         unit_ids=ids, wave_labels=reading.labels, wave_times=times, values=built["values"],

@@ -673,7 +673,9 @@ def _classify(raw: RawTable, spec: LayoutSpec, column: str, rows: np.ndarray,
         if column in raw.tagged_missing:
             text_bad &= pd.isna(raw.tagged_missing[column][rows])
         outcome[text_bad] = NON_NUMERIC
-        if whole_measure and text_bad.any() and not np.isfinite(numbers).any():
+        # (a streamed block is part of the column: its cells are refused one by one)
+        if whole_measure and raw.refusals is None and text_bad.any() \
+                and not np.isfinite(numbers).any():
             i = int(np.flatnonzero(text_bad)[0])
             example = _shown_value(series.iloc[i])
             raise InputProblem(
@@ -829,10 +831,15 @@ def _unit_weights(raw, spec, rows, unit_rows, unit_ids):
                                 f"unit(s), first unit {unit}", file=source, row=row(),
                                 column=spec.weight)
         _stop(raw, ("bad weight",), int(bad.sum()), problem, order=unit)
+    if raw.refusals is None:   # a streamed block: checked on the whole file (io.stream)
+        check_some_weight(values, raw.source, spec.weight)
+    return values
+
+
+def check_some_weight(values: np.ndarray, source, column: str) -> None:
     if len(values) and not values.sum() > 0:
         raise InputProblem("weight is 0 for every unit: nothing to weight by",
-                           file=raw.source, column=spec.weight)
-    return values
+                           file=source, column=column)
 
 
 def _unit_groups(raw, spec, rows, unit_rows, unit_ids):
