@@ -2,6 +2,15 @@
 
 from __future__ import annotations
 
+import re
+
+# Line breaks and other control characters in quoted data would split the one-line message.
+_CONTROL = re.compile(r"[\x00-\x1f\x7f\u2028\u2029\x85]")
+
+
+def _one_line(text: str) -> str:
+    return _CONTROL.sub(lambda m: repr(m.group())[1:-1] if m.group() != "\t" else " ", text)
+
 
 class InputProblem(Exception):
     """A problem the user can fix: bad data, a bad option, an unreadable file.
@@ -16,6 +25,7 @@ class InputProblem(Exception):
     def __init__(self, what: str, file: str | None = None, row: int | None = None,
                  column: str | None = None,
                  listing: tuple[str, tuple[str, ...]] | None = None):
+        what = _one_line(what)
         super().__init__(what)
         self.what = what
         self.file = file
@@ -24,7 +34,7 @@ class InputProblem(Exception):
         self.listing = listing
 
     def where(self) -> str:
-        parts = [str(p) for p in (self.file, self.row, self.column) if p is not None]
+        parts = [_one_line(str(p)) for p in (self.file, self.row, self.column) if p is not None]
         return ":".join(parts)
 
     def __str__(self) -> str:

@@ -135,6 +135,9 @@ WIDE = LayoutSpec(id="id", wide=(("y", ("w1", "w2", "w3")),))
 @example(table=(b"id,wave,y\n1,1,1e400\n1,2,2\n2,1,3\n2,2,4\n", ","), gz=1, tell=True,
          spec=LONG_LENIENT)
 @example(table=(b'\r""\r', ","), gz=1, tell=False, spec=LONG)   # found: lone \r line ends
+# found: a quoted line break inside a wave label split the one-line message
+@example(table=(b'id,wave,y,id,id\r\n,,,,\r\n,,,,\r\ninf,"0\r0",,,\r\n,,,,\r\ninf,  7 ,,,\r\n', ","),
+         gz=0, tell=False, spec=LONG_LENIENT)
 def test_text_files_read_or_refuse_cleanly(folder, table, gz, tell, spec):
     data, sep = table
     path = folder / ("table.csv.gz" if gz == 0 else "table.csv")
