@@ -1,7 +1,8 @@
 """Reruns give the same bytes: the JSON report, the appendix (Markdown, HTML) and the
-LaTeX tables do not depend on Python's hash seed or the BLAS library's thread count;
-the appendix and the LaTeX tables do not depend on the chunk size either, and the JSON
-report's figures agree across chunk sizes to rounding (see the test).
+LaTeX tables do not depend on Python's hash seed, the BLAS library's thread count, or
+the size of the blocks a file is read in (``--max-memory``). The summaries' own chunk
+size (a knob for tests of the merges) changes the order of their sums, so there the
+JSON figures agree to rounding and the appendix and tables byte for byte (see the test).
 A property of the program itself (no outside reference is involved)."""
 
 from __future__ import annotations
@@ -28,16 +29,16 @@ def _screen(path, folder, *options, **env):
     return {name: (folder / name).read_bytes() for name in OUTPUTS}
 
 
-def _panel_file(tmp_path):
+def _panel_file(tmp_path, n_units=300):
     # a trait + carry-over panel with MCAR gaps (simulated, known truth): every area
-    # runs, the EM and full-information fits included
-    values = family_values("trait_autoregressive", 300, 6, 0.8, "mcar",
+    # runs, the EM and full-information fits included; each unit's rows together
+    values = family_values("trait_autoregressive", n_units, 6, 0.8, "mcar",
                            np.random.default_rng(4), "none")
     frame = pd.DataFrame(values)
-    frame.insert(0, "id", [f"u{i}" for i in range(len(frame))])
+    frame.insert(0, "id", [f"u{i:05d}" for i in range(len(frame))])
     long = frame.melt(id_vars="id", var_name="wave", value_name="y").dropna()
     path = tmp_path / "panel.csv"
-    long.to_csv(path, index=False)
+    long.sort_values(["id", "wave"]).to_csv(path, index=False)
     return path
 
 
@@ -50,7 +51,20 @@ def test_reports_are_byte_identical_across_hash_seeds_and_blas_threads(tmp_path)
         assert runs[0][name] == runs[1][name] == runs[2][name], name
 
 
-def test_reports_agree_across_chunk_sizes(tmp_path):
+def test_reports_are_byte_identical_across_read_block_sizes(tmp_path):
+    """The file read whole, and read in blocks of about 66, 133 and 266 KB (a budget of
+    24 blocks): a unit's rows always land in one block, so the panel and every figure
+    built from it are the same bits."""
+    path = _panel_file(tmp_path, n_units=1500)
+    assert path.stat().st_size > 3 * 66_000          # several blocks at the smallest budget
+    runs = [_screen(path, tmp_path / f"run{k}", *budget)
+            for k, budget in enumerate([[], ["--max-memory", "1.6MB"],
+                                        ["--max-memory", "3.2MB"], ["--max-memory", "6.4MB"]])]
+    for name in OUTPUTS:
+        assert all(run[name] == runs[0][name] for run in runs), name
+
+
+def test_reports_agree_across_summary_chunk_sizes(tmp_path):
     """Summaries built in chunks of 1, 7 or 64 units (or all at once) and merged: the
     appendix and the LaTeX tables are byte-identical, and so is every figure of the
     JSON report up to its last bits.
