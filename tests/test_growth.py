@@ -257,6 +257,12 @@ def test_residual_autocorrelation_exact_for_three_equally_spaced_waves():
     auto = residual_autocorrelation(traj)
     assert auto.lag1 == pytest.approx(-2 / 3, rel=1e-12)
     assert auto.expected_under_independence == pytest.approx(-2 / 3, rel=1e-12)
+    # so nothing is left to test: no z from the rounding of an identity (the same algebra)
+    assert np.isnan(auto.z) and np.isnan(auto.pvalue)
+    # one unit with four waves makes it testable again
+    x = np.column_stack([rng.normal(size=(50, 3)), np.full(50, np.nan)])
+    x[0, 3] = 1.0
+    assert np.isfinite(residual_autocorrelation(summaries(x, [0, 1, 2, 3])[0]).z)
 
 
 def test_residual_autocorrelation_expectation_matches_simulation():

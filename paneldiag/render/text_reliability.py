@@ -75,9 +75,14 @@ def render_growth(report: dict, color: bool) -> list[str]:
     basis = "ML means under MAR" if g["mean_shape"].get("basis") == "em_missing_at_random" \
         else "available-case means"
     lines.append(f"  mean shape ({basis}), share of change: " + "; ".join(parts))
-    lines.append(f"  residual lag-1 autocorrelation after own lines {number(auto['lag1'])} "
-                 f"(expected {number(auto['expected_under_independence'])} under independence; "
-                 f"excess {number(auto['excess'])}, {_p(auto['pvalue'])})")
+    if auto["pvalue"] is None and auto["lag1"] is not None:
+        lines.append(f"  residual lag-1 autocorrelation after own lines {number(auto['lag1'])}, "
+                     "not testable: no unit has four waves, and with three a line's "
+                     "residuals fix it in advance")
+    else:
+        lines.append(f"  residual lag-1 autocorrelation after own lines {number(auto['lag1'])} "
+                     f"(expected {number(auto['expected_under_independence'])} under "
+                     f"independence; excess {number(auto['excess'])}, {_p(auto['pvalue'])})")
     trend = g["variance_trend"]
     if trend["log_variance_slope"] is not None:
         factor = math.exp(trend["log_variance_slope"])

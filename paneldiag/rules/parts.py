@@ -79,6 +79,10 @@ class Part(ABC):
     def share(self, theta: np.ndarray, times: np.ndarray):
         """(this part's T x T share of Sigma, list of its derivatives by parameter)."""
 
+    def canonical(self, theta: np.ndarray) -> np.ndarray:
+        """The one of the parameter vectors giving the same share that is reported."""
+        return theta
+
 
 @dataclass(frozen=True)
 class Error(Part):
@@ -232,11 +236,14 @@ class Growth(Part):
     (``order`` 2), loadings on ``basis`` (T values from 0 to 1); with ``free_loadings``
     the slope loadings between the first (0) and the last wave (1) are estimated.
 
-    The factors' covariance is Psi = C C' with C lower triangular and a non-negative
-    diagonal (the Cholesky parameterisation of random-effect covariances; Lindstrom and
-    Bates 1988, JASA 83, 1014-1022), so Psi is never indefinite: a zero slope variance
-    forces a zero covariance with the intercept, and growth cannot be mimicked by a
-    covariance without a variance."""
+    The factors' covariance is Psi = C C' with C lower triangular (the Cholesky
+    parameterisation of random-effect covariances; Lindstrom and Bates 1988, JASA 83,
+    1014-1022), so Psi is never indefinite: a zero slope variance forces a zero
+    covariance with the intercept, and growth cannot be mimicked by a covariance
+    without a variance. The diagonal is searched without a sign (a column of C and its
+    negative give the same Psi): a bound at zero there would be a wall at which the
+    search stops short of the optimum, one side of a fold of the parameter space; the
+    fit is reported with a non-negative diagonal."""
 
     basis: tuple = ()
     order: int = 1
@@ -263,7 +270,7 @@ class Growth(Part):
         return out
 
     def bounds(self, scale):
-        out = [(0.0, None) if i == j else (None, None) for i, j in self._cov_names()]
+        out = [(None, None)] * len(self._cov_names())
         if self.free_loadings:
             out += [(-5.0, 5.0)] * (len(scale.var) - 2)
         return out
@@ -290,6 +297,13 @@ class Growth(Part):
         for k, (i, j) in enumerate(self._cov_names()):
             c[i, j] = theta[k]
         return c
+
+    def canonical(self, theta) -> np.ndarray:
+        c = self.factor(theta)
+        c = c * np.where(np.diag(c) < 0, -1.0, 1.0)    # each column's sign
+        out = np.array(theta, dtype=float)
+        out[:len(self._cov_names())] = [c[i, j] for i, j in self._cov_names()]
+        return out
 
     def psi(self, theta) -> np.ndarray:
         c = self.factor(theta)

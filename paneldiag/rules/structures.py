@@ -125,6 +125,11 @@ class Structure:
         return [np.concatenate([np.asarray(s, float) for s in combo])
                 for combo in itertools.product(*options)]
 
+    def canonical(self, theta, t: int) -> np.ndarray:
+        """The reported form of ``theta`` (each part's :meth:`Part.canonical`)."""
+        return np.concatenate([part.canonical(values)
+                               for part, values in zip(self.parts, self.split(theta, t))])
+
     def error_variances(self, theta, t: int) -> np.ndarray:
         for part, values in zip(self.parts, self.split(theta, t)):
             if isinstance(part, Error):
@@ -450,7 +455,9 @@ def _scoring(fn, structure: Structure, times, start, lower, upper, tol: float,
         slope = float(grad @ step)
         if not slope < 0:
             break
-        if -0.5 * slope < tol:
+        # the predicted decrease under the unscaled Hessian: a secant factor above 1 would
+        # shrink it, and a search slowed by a large factor would pass for converged
+        if -0.5 * slope * max(curvature, 1.0) < tol:
             return theta, value, True
         length, accepted = 1.0, False
         for _ in range(40):
@@ -559,7 +566,7 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
         return Skipped(structure, "the fit did not reach a positive definite covariance")
     if np.isfinite(m.saturated) and value < m.saturated - 1e-8 * max(1.0, abs(m.saturated)):
         return Skipped(structure, "the fit ran to a numerically singular covariance")
-    theta = best.x
+    theta = structure.canonical(best.x, t)
     sigma, grads = structure.build(theta, m.times)
     df = n_moments - q
     stats = fit_statistics(value, m, df, sigma)

@@ -100,9 +100,12 @@ class TrajectorySummary:
         gm, gm2 = _cell_moments(means[:, None], key1, count, n_pat, k_groups, unit_w)
         out["unit_mean"], out["unit_mean_m2"] = gm[..., 0], gm2[..., 0, 0]
         missing = ~seen
-        np.subtract(y0, means[:, None], out=work)
-        np.copyto(work, 0.0, where=missing)    # deviations from the own mean, 0 if missing
-        out["within_ss"] = cell_sum(np.einsum("ij,ij->i", work, work), key1)
+        # deviations from the unit's own mean, 0 if missing: the fits below run on them
+        # (their residuals and slopes are the same), so a measure far from zero keeps
+        # its digits; the means return to the intercepts afterwards
+        y0 -= means[:, None]
+        np.copyto(y0, 0.0, where=missing)
+        out["within_ss"] = cell_sum(np.einsum("ij,ij->i", y0, y0), key1)
 
         key2 = cell_key(LINEAR_MIN_WAVES)
         coef = _pattern_fits(y0, patterns, pattern_of, tc, 1, LINEAR_MIN_WAVES, work)
@@ -113,6 +116,7 @@ class TrajectorySummary:
         rss = np.einsum("ij,ij->i", work, work)
         # e' L e: products of residuals at adjacent waves (zero where either is missing)
         lagged = np.einsum("ij,ij->i", work[:, :-1], work[:, 1:])
+        coef[:, 0] += np.where(k_row >= LINEAR_MIN_WAVES, means, 0.0)
         out["lin_mean"], out["lin_m2"] = _cell_moments(coef, key2, count, n_pat, k_groups,
                                                        unit_w)
         out["rss"] = cell_sum(rss, key2)
@@ -121,6 +125,7 @@ class TrajectorySummary:
 
         key4 = cell_key(QUADRATIC_MIN_WAVES)
         coef = _pattern_fits(y0, patterns, pattern_of, tc, 2, QUADRATIC_MIN_WAVES, work)
+        coef[:, 0] += np.where(k_row >= QUADRATIC_MIN_WAVES, means, 0.0)
         out["quad_mean"], out["quad_m2"] = _cell_moments(coef, key4, count, n_pat, k_groups,
                                                          unit_w)
         out = {name: np.ascontiguousarray(value) for name, value in out.items()}
