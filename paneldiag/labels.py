@@ -29,6 +29,30 @@ STATISTIC_LABELS = {
     "residual_lag1": "residual lag-1 autocorrelation (per-unit lines)",
 }
 
+# entry designs (diagnostics.attrition.classify_entry): the terminal's few words, the
+# appendix's sentence, and the JSON report's description
+ENTRY_DESIGNS = {
+    "single_cohort": ("single cohort",
+                      "a single cohort: nearly all units entered at the first wave",
+                      "single cohort: nearly all units start at the first wave"),
+    "refreshment": ("refreshment samples",
+                    "a main sample at the first wave with refreshment samples joining later",
+                    "refreshment samples: the first wave holds the main sample and later "
+                    "waves add blocks of new units"),
+    "cohort_sequential": ("cohort-sequential entry",
+                          "cohort-sequential: units entered spread over many waves",
+                          "cohort-sequential (accelerated) entry: units enter spread over "
+                          "many waves"),
+    "mixed_entry": ("mixed entry",
+                    "mixed: units entered at several waves, in no regular pattern",
+                    "mixed entry: units start at several waves, in none of the patterns "
+                    "of a single cohort, refreshment samples or cohort-sequential entry"),
+    "one_wave_each": ("no unit observed twice",
+                      "repeated cross-sections: no unit was observed at more than one wave",
+                      "no unit observed at more than one wave: repeated cross-sections, "
+                      "not a panel"),
+}
+
 # the figures of the lag-profile fit r(d) = a + b rho^d (decay_fit)
 LAG_PROFILE = "lag-profile"
 

@@ -21,6 +21,7 @@ import numpy as np
 
 from paneldiag import distributions as dist
 from paneldiag.disclosure import shown_mask, small
+from paneldiag.labels import ENTRY_DESIGNS
 from paneldiag.results import Result
 from paneldiag.summaries.patterns import PatternMoments, display_order
 
@@ -194,18 +195,6 @@ SPREAD_MIN_WAVES = 3        # cohort-sequential: under half start at the first w
 FOLLOW_UP_SHARE = 0.05      # cohort-sequential: the planned follow-up is the longest span
                             # of waves that at least this share of units reaches
 
-ENTRY_DESIGNS = {
-    "single_cohort": "single cohort: nearly all units start at the first wave",
-    "refreshment": "refreshment samples: the first wave holds the main sample and later "
-                   "waves add blocks of new units",
-    "cohort_sequential": "cohort-sequential (accelerated) entry: units enter spread over "
-                         "many waves",
-    "mixed_entry": "mixed entry: units start at several waves, in none of the patterns "
-                   "of a single cohort, refreshment samples or cohort-sequential entry",
-    "one_wave_each": "no unit observed at more than one wave: repeated cross-sections, "
-                     "not a panel",
-}
-
 
 def first_observed(observed: np.ndarray) -> np.ndarray:
     """Each row's first observed wave (-1: never observed)."""
@@ -227,7 +216,7 @@ def entry_shown(entering: np.ndarray, total: float, min_cell: int) -> np.ndarray
 
 
 def classify_entry(entering: np.ndarray) -> str:
-    """The design's name (a key of ``ENTRY_DESIGNS``) from the entry counts by wave."""
+    """The design's name (a key of ``labels.ENTRY_DESIGNS``) from the entry counts by wave."""
     total = entering.sum()
     if total == 0:
         return "single_cohort"
@@ -360,7 +349,7 @@ def entry_design(patterns: PatternMoments, wave_labels, min_cell: int = 5) -> En
                  for i, label in enumerate(wave_labels))
     blocks = tuple(str(wave_labels[i]) for i in range(1, len(entering))
                    if share[i] >= ENTRY_BLOCK_SHARE and show[i])
-    return EntryDesign(design, ENTRY_DESIGNS[design],
+    return EntryDesign(design, ENTRY_DESIGNS[design][2],
                        float(share[0]) if len(show) and show[0] else None, blocks, span,
                        _ratio(mass @ kept, mass @ due) if end_shown(base, still, min_cell)
                        else None, rows)

@@ -13,7 +13,7 @@ import re
 from dataclasses import dataclass, field
 
 from paneldiag.render import intake
-from paneldiag.labels import LAG_PROFILE, family_name
+from paneldiag.labels import ENTRY_DESIGNS, LAG_PROFILE, family_name
 from paneldiag.render import bounds
 
 REFERENCES = {
@@ -206,23 +206,14 @@ def wave_profile(report: dict, cite: Citations) -> list[str]:
     return [text] + ([" ".join(caveats)] if caveats else [])
 
 
-ENTRY_WORDS = {
-    "single_cohort": "a single cohort: nearly all units entered at the first wave",
-    "refreshment": "a main sample at the first wave with refreshment samples joining later",
-    "cohort_sequential": "cohort-sequential: units entered spread over many waves",
-    "mixed_entry": "mixed: units entered at several waves, in no regular pattern",
-    "one_wave_each": "repeated cross-sections: no unit was observed at more than one wave",
-}
-
-
 def attrition(report: dict, cite: Citations) -> list[str]:
     section = report.get("attrition") or {}
     unit = unit_of_time(report)
     entry = section.get("entry") or {}
     out, text = [], ""
-    if entry.get("design") in ENTRY_WORDS:
+    if entry.get("design") in ENTRY_DESIGNS:
         text = ("By the wave at which units were first observed, the design was "
-                + ENTRY_WORDS[entry["design"]])
+                + ENTRY_DESIGNS[entry["design"]][1])
         if ok(entry.get("first_wave_share")):
             text += f" ({pct(entry['first_wave_share'])} at the first wave)"
         text += "."

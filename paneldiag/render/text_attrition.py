@@ -7,6 +7,7 @@ size; nothing below it is ever printed.
 
 from __future__ import annotations
 
+from paneldiag.labels import ENTRY_DESIGNS
 from paneldiag.render.intake import SHOWN_WAVES
 from paneldiag.render.text import heading, number, share
 
@@ -31,16 +32,11 @@ def _pct(value) -> str:
     return "–" if value is None else f"{100 * value:.0f}%"
 
 
-DESIGN_NAMES = {"single_cohort": "single cohort", "refreshment": "refreshment samples",
-                "cohort_sequential": "cohort-sequential entry", "mixed_entry": "mixed entry",
-                "one_wave_each": "no unit observed twice"}
-
-
 def entry_line(entry: dict, short: bool = False) -> str:
     """The entry design in a few words: its name, the first wave's share of the units,
     (unless ``short``) the waves that add blocks and, when it is not the whole panel,
     the follow-up."""
-    text = DESIGN_NAMES.get(entry["design"], entry["design"])
+    text = ENTRY_DESIGNS.get(entry["design"], (entry["design"],))[0]
     facts = []
     if entry.get("first_wave_share") is not None:
         facts.append(f"{_pct(entry['first_wave_share'])} start at the first wave")
