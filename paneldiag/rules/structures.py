@@ -193,6 +193,9 @@ class CovarianceLikelihood:
     def at_population(self, sigma0: np.ndarray) -> "CovarianceLikelihood":
         return CovarianceLikelihood(sigma0)
 
+    def expected_hessian(self, sigma: np.ndarray, grads) -> np.ndarray | None:
+        return _expected_hessian(sigma, grads)
+
 
 def _inverse_and_logdet(sigma, precision, logdet_all, g):
     """Each pattern's inverse observed block Q and log|Sigma_oo|, (P, k, k) and (P,).
@@ -264,6 +267,27 @@ class PatternLikelihood:
         if not np.isfinite(value):
             return None
         return value / self.n_total, grad.reshape(t, t) / self.n_total
+
+    def expected_hessian(self, sigma: np.ndarray, grads) -> np.ndarray | None:
+        """The expected Hessian of the discrepancy: each pattern's complete-data one on
+        its observed waves, n_p tr(Q_p D_k Q_p D_l) summed and divided by N (the
+        observed-data information under MAR; the saturated means are orthogonal to the
+        covariance parameters). Fisher scoring with it takes full steps where the
+        complete-data Hessian, which counts information the missing waves do not hold,
+        takes short ones."""
+        factored = _factor(sigma)
+        if factored is None:
+            return None
+        logdet_all, precision = factored
+        flat_grads = np.asarray(grads).reshape(len(grads), -1)
+        hess = np.zeros((len(grads), len(grads)))
+        for g in self.groups:
+            q, _ = _inverse_and_logdet(sigma, precision, logdet_all, g)
+            if q is None:
+                return None
+            m = np.einsum("pij,apjk->apik", q, flat_grads[:, g.flat])
+            hess += np.einsum("apij,bpji,p->ab", m, m, g.n)
+        return hess / self.n_total
 
     def at_population(self, sigma0: np.ndarray) -> "PatternLikelihood":
         """The same patterns with their expected moments under covariance ``sigma0``
@@ -416,8 +440,8 @@ def _expected_hessian(sigma: np.ndarray, grads: list) -> np.ndarray | None:
     return mats.reshape(q, -1) @ np.swapaxes(mats, 1, 2).reshape(q, -1).T
 
 
-def _scoring(fn, structure: Structure, times, start, lower, upper, tol: float,
-             max_iter: int = 200):
+def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: float,
+             max_iter: int = 40):
     """Fisher scoring with the complete-data expected Hessian, projected onto the
     bounds (variables at a bound whose gradient points outward stay there), with
     step halving. Converges in tens of steps where a quasi-Newton search needs
@@ -425,12 +449,13 @@ def _scoring(fn, structure: Structure, times, start, lower, upper, tol: float,
     magnitude (Lee and Jennrich 1979, Psychometrika 44, 99-113). Converged when the
     predicted decrease of the discrepancy is below ``tol``; returns (theta, value,
     converged)."""
+    fn = _objective(likelihood, structure, times)
     theta = np.clip(np.asarray(start, dtype=float), lower, upper)
     value, grad = fn(theta)
     curvature = 1.0   # secant rescaling of the complete-data Hessian (missing information)
     for _ in range(max_iter):
         sigma, grads = structure.build(theta, times)
-        hess = _expected_hessian(sigma, grads)
+        hess = likelihood.expected_hessian(sigma, grads)
         if hess is not None:
             hess = curvature * hess
         if hess is None or not np.isfinite(value):
@@ -484,11 +509,14 @@ class _Result:
     ends: list = field(default_factory=list)   # (x, fun) reached from every start
 
 
-def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float):
+def _minimise(likelihood, structure: Structure, times, starts, scale: Scale, tol: float,
+              limits: tuple | None = None):
     """The best of Fisher scoring from each start, polished by L-BFGS-B (in units of
-    the parameters' typical sizes) where scoring stops short of a stationary point."""
-    lower, upper = structure.limits(scale)
+    the parameters' typical sizes) where scoring stops short of a stationary point.
+    ``limits`` (lower, upper) replace the structure's bounds (to hold parameters)."""
+    lower, upper = limits or structure.limits(scale)
     typical = _typical(structure, scale)
+    fn = _objective(likelihood, structure, times)
 
     def scaled(z):
         value, grad = fn(z * typical)
@@ -496,7 +524,8 @@ def _minimise(fn, structure: Structure, times, starts, scale: Scale, tol: float)
 
     best, ends = None, []
     for start in starts:
-        theta, value, converged = _scoring(fn, structure, times, start, lower, upper, tol)
+        theta, value, converged = _scoring(likelihood, structure, times, start, lower, upper,
+                                           tol)
         if not converged:
             res = optimize.minimize(scaled, theta / typical, jac=True, method="L-BFGS-B",
                                     bounds=list(zip(lower / typical, upper / typical)),
@@ -555,12 +584,11 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
         return Skipped(structure, f"not identified with {t} waves at these times")
     with np.errstate(all="ignore"):
         tol = 1e-7 / m.n_units     # a change of 1e-7 in a chi-square
-        first = _minimise(_objective(m.first_stage, structure, m.times), structure,
-                          m.times, structure.starts(m.scale), m.scale, tol)
+        first = _minimise(m.first_stage, structure, m.times, structure.starts(m.scale),
+                          m.scale, tol)
         best = first
         if m.full:
-            best = _minimise(_objective(m.likelihood, structure, m.times), structure,
-                             m.times, [first.x], m.scale, tol)
+            best = _minimise(m.likelihood, structure, m.times, [first.x], m.scale, tol)
     value = float(best.fun)
     if not np.isfinite(value) or value >= 1e9:
         return Skipped(structure, "the fit did not reach a positive definite covariance")
@@ -598,7 +626,6 @@ def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict |
 
     candidates = list(result.ends)
     lower, upper = structure.limits(m.scale)
-    fn = _objective(m.first_stage, structure, m.times)
     for rho in PROFILE_RHO:
         if abs(rho - best[rho_at]) <= m.flat_coefficient:
             continue
@@ -606,9 +633,9 @@ def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict |
         start[rho_at] = rho
         held_low, held_high = lower.copy(), upper.copy()
         held_low[rho_at] = held_high[rho_at] = rho
-        theta, value, _ = _scoring(fn, structure, m.times, start, held_low, held_high,
-                                   1e-7 / m.n_units)
-        candidates.append((theta, value))
+        held = _minimise(m.first_stage, structure, m.times, [start], m.scale,
+                         1e-7 / m.n_units, limits=(held_low, held_high))
+        candidates.append((held.x, held.fun))
     for x, value in candidates:
         gap = m.n_units * (value - result.fun) / m.lr_scaling
         apart = abs(float(x[rho_at]) - float(best[rho_at]))
@@ -776,8 +803,7 @@ def noncentrality(simple: Structure, rich: Fit, m: Moments) -> float:
     starts = [fit.theta for fit in [m.fit(simple)] if isinstance(fit, Fit)] or \
         simple.starts(m.scale)
     with np.errstate(all="ignore"):
-        best = _minimise(_objective(population, simple, m.times), simple, m.times, starts,
-                         m.scale, 1e-7 / m.n_units)
+        best = _minimise(population, simple, m.times, starts, m.scale, 1e-7 / m.n_units)
     return float(max(0.0, m.n_units * (best.fun - base[0])))
 
 
