@@ -269,25 +269,10 @@ class PatternLikelihood:
         return value / self.n_total, grad.reshape(t, t) / self.n_total
 
     def expected_hessian(self, sigma: np.ndarray, grads) -> np.ndarray | None:
-        """The expected Hessian of the discrepancy: each pattern's complete-data one on
-        its observed waves, n_p tr(Q_p D_k Q_p D_l) summed and divided by N (the
-        observed-data information under MAR; the saturated means are orthogonal to the
-        covariance parameters). Fisher scoring with it takes full steps where the
-        complete-data Hessian, which counts information the missing waves do not hold,
-        takes short ones."""
-        factored = _factor(sigma)
-        if factored is None:
-            return None
-        logdet_all, precision = factored
-        flat_grads = np.asarray(grads).reshape(len(grads), -1)
-        hess = np.zeros((len(grads), len(grads)))
-        for g in self.groups:
-            q, _ = _inverse_and_logdet(sigma, precision, logdet_all, g)
-            if q is None:
-                return None
-            m = np.einsum("pij,apjk->apik", q, flat_grads[:, g.flat])
-            hess += np.einsum("apij,bpji,p->ab", m, m, g.n)
-        return hess / self.n_total
+        """The complete-data expected Hessian: the patterns' own (the observed-data
+        information) costs P T^4 a step, which thousands of patterns make dearer than
+        the steps it saves; scoring rescales this one along each step instead."""
+        return _expected_hessian(sigma, grads)
 
     def at_population(self, sigma0: np.ndarray) -> "PatternLikelihood":
         """The same patterns with their expected moments under covariance ``sigma0``
@@ -480,10 +465,13 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
         slope = float(grad @ step)
         if not slope < 0:
             break
-        # the predicted decrease under the unscaled Hessian: a secant factor above 1 would
-        # shrink it, and a search slowed by a large factor would pass for converged
-        if -0.5 * slope * max(curvature, 1.0) < tol:
-            return theta, value, True
+        if -0.5 * slope < tol:
+            if curvature <= 1.0:
+                return theta, value, True
+            # a secant factor above 1 shrinks the step and the predicted decrease with
+            # it, so a search it slowed would pass for converged: judge again unscaled
+            curvature = 1.0
+            continue
         length, accepted = 1.0, False
         for _ in range(40):
             trial = np.clip(theta + length * step, lower, upper)
