@@ -83,7 +83,7 @@ def connect(scheduler: str | None):
     import logging
     if scheduler is None:
         cluster = distributed.LocalCluster(n_workers=os.cpu_count() or 1, threads_per_worker=1,
-                                           processes=True, dashboard_address=None,
+                                           processes=True, dashboard_address=":0",
                                            silence_logs=logging.CRITICAL)
         with cluster, distributed.Client(cluster) as client:
             yield client
@@ -319,6 +319,8 @@ def _assemble(parts: list[dict], spec: LayoutSpec, n_waves: int) -> dict:
     refusals = Refusals(spec)
     for part in parts:
         for key, (count, problem, order, items) in part["noted"].items():
+            if order is None:   # shuffled parts are not in file order: the first row wins
+                order = problem(count, items).row
             refusals.note(key, count, problem, order, items)
     totals = {m: {"rows_read": 0, "rows_used": 0, "reasons": {}, "grouping": None}
               for m in spec.measure_names()}

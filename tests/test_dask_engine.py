@@ -43,7 +43,7 @@ SMALL_PARTS = "100KB"   # with BLOCK_MIN lowered: parts of about 4 KB of text
 def cluster():
     import logging
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                  protocol="tcp", dashboard_address=None,
+                                  protocol="tcp", dashboard_address=":0",
                                   silence_logs=logging.CRITICAL) as running:
         yield running.scheduler_address
 
@@ -185,3 +185,21 @@ def test_inputs_the_engine_does_not_read(files, tmp_path):
     with pytest.raises(InputProblem, match="--scheduler is for --engine dask"):
         paneldiag.screen(str(files["sorted.csv"]), id="household", wave="year",
                          value="trust", scheduler="tcp://127.0.0.1:8786")
+
+
+def test_bad_input_gives_the_local_message(cluster, files, small_parts, tmp_path):
+    """Problems met on the workers are raised once, with the whole file's count and its
+    first row in file order, though the shuffled partitions are not in file order."""
+    frame = pd.read_csv(files["unsorted.csv"])
+    frame["trust"] = frame["trust"].astype(object)
+    frame.loc[[900, 150, 1200], "trust"] = ["n/k", "abc", "x"]
+    path = tmp_path / "bad.csv"
+    frame.to_csv(path, index=False)
+    options = dict(id="household", wave="year", value="trust", audit_only=True)
+    with pytest.raises(InputProblem) as local:
+        paneldiag.screen(str(path), **options)
+    with pytest.raises(InputProblem) as dask:
+        paneldiag.screen(str(path), engine="dask", scheduler=cluster, max_memory=SMALL_PARTS,
+                         **options)
+    assert str(dask.value) == str(local.value)
+    assert "in 3 cell(s)" in str(local.value) and local.value.row == 152   # header + 0-based
