@@ -409,6 +409,7 @@ def dask_panel(client, path: str, spec: LayoutSpec, fmt: str | None, delimiter: 
                 if kind not in seen.setdefault(name, []):
                     seen[name].append(kind)
         types = {name: _unify_types(kinds) for name, kinds in seen.items()}
+        source.types = types   # any later read on the client (stream._count_units) too
         source.spans = [(f, *span[1:]) for f, span in zip(firsts, source.spans)]
         if not any(len(seen[c]) > 1 for c in (*spec.id_columns, spec.wave)):
             break
