@@ -33,7 +33,6 @@ import numpy as np
 import pandas as pd
 
 from paneldiag.errors import InputProblem
-from paneldiag.io.ledger import Ledger
 from paneldiag.io.readers import NULL_TOKENS, RawTable, _refuse_binary_columns, _to_frame, \
     detect_format
 from paneldiag.io.stream import (BLOCK_MAX, BLOCK_MIN, BLOCK_WORK, FixedWaves, _Block,

@@ -140,7 +140,7 @@ def test_command_line_on_a_cluster(cluster, files, tmp_path):
     client is another process: the parts cross the wire)."""
     path = files["unsorted.csv"]
     args = ["screen", path, "--id", "household", "--wave", "year", "--value", "trust",
-            "--value", "energy_use", "--weight", "weight", "--group", "district",
+            "--weight", "weight", "--group", "district",
             "--audit-only", "-q"]
     local, dask = tmp_path / "local.json", tmp_path / "dask.json"
     assert run_cli(*args, "--json", local).returncode == 0
