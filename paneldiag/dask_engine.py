@@ -36,6 +36,7 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.readers import NULL_TOKENS, RawTable, _refuse_binary_columns, _to_frame, \
     detect_format
 from paneldiag.io.stream import (BLOCK_MAX, BLOCK_MIN, BLOCK_WORK, FixedWaves, _Block,
+                                 _last_record_end,
                                  _count_units, _finish, _parquet_files, _read_whole_file_waves,
                                  _scan, _Scan, _source, _TextSource, _unify_types, size_text)
 from paneldiag.io.validate import (LayoutSpec, Refusals, _build_long, _check_extent,
@@ -113,6 +114,10 @@ class Part:
     file: str | None = None       # Parquet
     row_group: int | None = None
     first_record: int = 0         # its first row's record number in the file (pass 2)
+    # pass 2 without a shuffle: its first rows left to the part before (they go on a
+    # unit of that part), and the first rows of the parts after that go on its last unit
+    skip: int = 0
+    heads: tuple = ()             # ((Part, rows), ...)
 
 
 def plan_parts(source, part_bytes: int) -> list[Part]:
@@ -135,41 +140,57 @@ def plan_parts(source, part_bytes: int) -> list[Part]:
 
 
 def read_part(part: Part, source, columns: list[str], types: dict | None,
-              first_record: int = 0):
-    """The part's rows of ``columns`` as an Arrow table (on a worker)."""
+              first_record: int = 0, rows: int | None = None):
+    """The part's rows of ``columns`` as an Arrow table (on a worker); ``rows``: only
+    its first rows (a text part is then read from its start until they are in)."""
     import pyarrow as pa
     try:
         if isinstance(source, _TextSource):
-            import pyarrow.csv as pacsv
             opener = gzip.open if source.gzipped else open
             with opener(part.path, "rb") as handle:
                 header = handle.readline()
                 handle.seek(part.offset)
-                text = handle.read() if part.length is None else handle.read(part.length)
-            try:
-                table = pacsv.read_csv(
-                    pa.BufferReader(header + text),
-                    parse_options=pacsv.ParseOptions(delimiter=source.sep),
-                    convert_options=pacsv.ConvertOptions(
-                        include_columns=columns, null_values=NULL_TOKENS,
-                        strings_can_be_null=True,
-                        column_types={c: t for c, t in (types or {}).items() if c in columns}),
-                    read_options=pacsv.ReadOptions(block_size=1 << 24))
-            except pa.ArrowInvalid as exc:
-                from paneldiag.io.readers import _text_parse_problem
-                raise _text_parse_problem(part.path, None, source.sep, str(exc)) from None
+                if rows is None:
+                    text = handle.read() if part.length is None else handle.read(part.length)
+                    table = _parse_text(part, source, header + text, columns, types)
+                else:
+                    table, size = None, 1 << 16
+                    while table is None or table.num_rows < rows and size < part.length:
+                        size *= 4
+                        handle.seek(part.offset)
+                        text = handle.read(min(size, part.length))
+                        if len(text) < part.length:   # whole records only
+                            text = text[:_last_record_end(text)]
+                        table = _parse_text(part, source, header + text, columns, types)
+                    table = table.slice(0, rows)
         elif part.file is None:
             import pyarrow.parquet as pq
             table = pa.Table.from_batches(list(source._batches(columns, 1 << 20, pa, pq)))
         else:
             import pyarrow.parquet as pq
             table = pq.ParquetFile(part.file).read_row_group(part.row_group, columns=columns)
+            table = table if rows is None else table.slice(0, rows)
     except OSError as exc:
         raise InputProblem(f"a worker could not read the file ({exc.strerror or exc}); the "
                            "data path must be visible to every worker", file=part.path) from None
     if isinstance(source, _TextSource):
         _refuse_binary_columns(part.path, table, lambda i: source.row_of(first_record + i))
     return table
+
+
+def _parse_text(part: Part, source, text: bytes, columns, types):
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+    try:
+        return pacsv.read_csv(
+            pa.BufferReader(text), parse_options=pacsv.ParseOptions(delimiter=source.sep),
+            convert_options=pacsv.ConvertOptions(
+                include_columns=columns, null_values=NULL_TOKENS, strings_can_be_null=True,
+                column_types={c: t for c, t in (types or {}).items() if c in columns}),
+            read_options=pacsv.ReadOptions(block_size=1 << 24))
+    except pa.ArrowInvalid as exc:
+        from paneldiag.io.readers import _text_parse_problem
+        raise _text_parse_problem(part.path, None, source.sep, str(exc)) from None
 
 
 class _OneBlock:
@@ -242,11 +263,45 @@ def units_span_parts(scans: list[_Scan]) -> bool:
 def frame_part(part: Part, source, names, types) -> pd.DataFrame:
     """A partition (``names``, not ``columns``: Dask passes a ``columns`` argument of
     its own to a function that has one)."""
-    first_record = part.first_record
-    table = read_part(part, source, names, types, first_record)
+    import pyarrow as pa
+    tables = [read_part(part, source, names, types, part.first_record).slice(part.skip)]
+    records = [np.arange(part.first_record + part.skip, part.first_record + part.skip
+                         + tables[0].num_rows, dtype=np.int64)]
+    for after, rows in part.heads:
+        tables.append(read_part(after, source, names, types, after.first_record, rows))
+        records.append(np.arange(after.first_record, after.first_record + rows,
+                                 dtype=np.int64))
+    table = tables[0] if len(tables) == 1 else pa.concat_tables(tables)
     frame = _to_frame(table)
-    frame[RECORD] = np.arange(first_record, first_record + len(frame), dtype=np.int64)
+    frame[RECORD] = np.concatenate(records)
     return frame
+
+
+def carry_units(parts: list[Part], scans: list[_Scan], rows: list[int]) -> list[Part]:
+    """The parts of a file whose units' rows are together, each unit in the part where
+    its rows start: a part's first rows that go on the last unit of the part before are
+    read with that part instead (a shuffle is not needed)."""
+    leads, last = [], None
+    for scan, n in zip(scans, rows):
+        ids = np.concatenate(scan.run_ids) if scan.run_ids else np.zeros(0)
+        starts = np.concatenate(scan.run_rows) if scan.run_rows else np.zeros(0, int)
+        if last is not None and (not len(ids) or ids[0] == last):
+            leads.append(int(starts[1]) if len(ids) > 1 else n)
+        else:
+            leads.append(0)
+        if len(ids):
+            last = ids[-1]
+    carried = []
+    for k, part in enumerate(parts):
+        heads, j = [], k + 1
+        while j < len(parts) and leads[j] and leads[k] < rows[k]:  # (a part taken whole
+            # by the one before has no unit of its own to carry rows to)
+            heads.append((parts[j], leads[j]))
+            if leads[j] < rows[j]:
+                break
+            j += 1
+        carried.append(replace(part, skip=leads[k], heads=tuple(heads)))
+    return carried
 
 
 def _meta(source, columns, types) -> pd.DataFrame:
@@ -433,11 +488,15 @@ def dask_panel(client, path: str, spec: LayoutSpec, fmt: str | None, delimiter: 
                        lambda what: InputProblem(what, file=path, column=spec.wave),
                        spec.wave_grouping, spec.max_waves, reading.kind, n_units)
     spanning = units_span_parts(scans)
-    del scan, scans, found
+    runs = np.concatenate(scan.run_ids) if scan.run_ids else np.zeros(0)
+    together = not pd.Index(runs).duplicated().any()   # each unit's rows in one run
+    parts = [replace(part, first_record=first) for part, first in zip(parts, firsts)]
+    if spanning and together:
+        parts, spanning = carry_units(parts, scans, [rows for _, rows, _ in found]), False
+    del scan, scans, found, runs
 
     columns = spec.columns()
     with dask.config.set({"dataframe.convert-string": False}):
-        parts = [replace(part, first_record=first) for part, first in zip(parts, firsts)]
         frame = dd.from_map(frame_part, parts, args=(source, columns, types),
                             meta=_meta(source, columns, types), label="paneldiag-read",
                             enforce_metadata=False)

@@ -63,12 +63,23 @@ def files(tmp_path_factory):
 
 @pytest.fixture
 def small_parts(monkeypatch):
+    """Small partitions; records how each run met units cut across them: the number of
+    parts, whether some unit spans parts, whether the parts were re-cut at unit starts
+    (units together in the file) instead of shuffled."""
     monkeypatch.setattr(engine, "BLOCK_MIN", 1024)
-    spans = []
-    found = engine.units_span_parts
-    monkeypatch.setattr(engine, "units_span_parts", lambda scans: spans.append(
-        (len(scans), found(scans))) or spans[-1][1])
-    return spans
+    seen = {"carried": False}
+    spans, carry = engine.units_span_parts, engine.carry_units
+
+    def spanning(scans):
+        seen.update(parts=len(scans), spanning=spans(scans))
+        return seen["spanning"]
+
+    def carried(*args):
+        seen["carried"] = True
+        return carry(*args)
+    monkeypatch.setattr(engine, "units_span_parts", spanning)
+    monkeypatch.setattr(engine, "carry_units", carried)
+    return seen
 
 
 def tolerance(key: str) -> tuple[float, float]:
@@ -114,11 +125,11 @@ def test_audit_equals_local_engine(cluster, files, small_parts, name):
         ledger = report["ledger"]
         assert ledger["rows_read"] == ledger["rows_used"] + sum(
             ledger["dropped_by_reason"].values())
-    parts, spanning = small_parts[0]
     if name.endswith(".gz"):
-        assert parts == 1   # a gzip stream is one partition
-    else:
-        assert parts > 5 and spanning   # units cut across parts: shuffled by unit
+        assert small_parts["parts"] == 1   # a gzip stream is one partition
+    else:   # units cut across parts: re-cut at unit starts when sorted, else shuffled
+        assert small_parts["parts"] > 5 and small_parts["spanning"]
+        assert small_parts["carried"] == name.startswith("sorted")
 
 
 @pytest.mark.slow   # two whole screens: about 40 s on the shared machine
@@ -132,7 +143,7 @@ def test_dependence_and_growth_equal_local_engine(cluster, files, small_parts):
     dask = paneldiag.screen(path, engine="dask", scheduler=cluster, max_memory=SMALL_PARTS,
                             **options).to_dict()
     assert differences(local, dask) == []
-    assert small_parts[0][1]
+    assert small_parts["spanning"] and not small_parts["carried"]
 
 
 def test_command_line_on_a_cluster(cluster, files, tmp_path):
@@ -203,3 +214,26 @@ def test_bad_input_gives_the_local_message(cluster, files, small_parts, tmp_path
                          **options)
     assert str(dask.value) == str(local.value)
     assert "in 3 cell(s)" in str(local.value) and local.value.row == 152   # header + 0-based
+
+
+@pytest.mark.parametrize("name", [pytest.param("tiny.parquet", marks=pytest.mark.slow),
+                                  "tiny.csv"])   # (a task per part: the Parquet one is slow)
+def test_units_over_several_parts(cluster, small_parts, monkeypatch, tmp_path, name):
+    """Parts of about 3 rows, so a unit's rows (up to 8) run over three or four parts,
+    some parts taken whole by the part before, and rows without an id inside the runs:
+    the parts are re-cut at unit starts and the audit and ledger are the local one's."""
+    monkeypatch.setattr(engine, "BLOCK_MIN", 64)
+    long = tenant_panel(30)
+    long.loc[[5, 6, 7, 30], "household"] = None
+    path = tmp_path / name
+    if name.endswith(".parquet"):
+        long.to_parquet(path, row_group_size=3)
+    else:
+        long.to_csv(path, index=False)
+    options = dict(OPTIONS, audit_only=True, drop_bad_rows=True)
+    local = paneldiag.screen(str(path), **options).to_dict()
+    dask = paneldiag.screen(str(path), engine="dask", scheduler=cluster, max_memory="3KB",
+                            **options).to_dict()
+    assert differences(local, dask) == []
+    assert small_parts["carried"] and small_parts["parts"] > 30
+    assert local["measures"]["trust"]["ledger"]["dropped_by_reason"]["missing_id"] == 4
