@@ -111,9 +111,11 @@ def sections(audit_only: bool = False) -> list[Section]:
 
 
 def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
-                   options: ScreenOptions) -> dict:
-    """The JSON-ready report for one measure."""
+                   options: ScreenOptions, summaries: dict | None = None) -> dict:
+    """The JSON-ready report for one measure (``summaries``: built elsewhere, merged)."""
     ctx = MeasureContext(panel=panel, measure=measure, options=options, ledger=ledger)
+    if summaries is not None:
+        ctx.summaries = summaries
     report = {"schema_version": SCHEMA_VERSION,
               "tool": {"name": "paneldiag", "version": __version__},
               "input": input_info, "measure": measure, "ledger": ledger.to_dict()}
@@ -213,16 +215,18 @@ def one_blas_thread():
 
 
 def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
-           options: ScreenOptions | None = None) -> dict:
-    """The whole report: the measure's report itself, or ``measures {name: report}``."""
+           options: ScreenOptions | None = None, summaries: dict | None = None) -> dict:
+    """The whole report: the measure's report itself, or ``measures {name: report}``.
+    ``summaries`` ({measure: {kind: summary}}) were built and merged elsewhere (the dask
+    engine's workers); without them each measure is summarised here."""
     with one_blas_thread():
-        return _screen(panel, ledgers, input_info, options)
+        return _screen(panel, ledgers, input_info, options, summaries or {})
 
 
 def _screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
-            options: ScreenOptions | None) -> dict:
+            options: ScreenOptions | None, summaries: dict) -> dict:
     options = options or ScreenOptions()
-    reports = {m: screen_measure(panel, m, ledgers[m], input_info, options)
+    reports = {m: screen_measure(panel, m, ledgers[m], input_info, options, summaries.get(m))
                for m in panel.measures}
     if len(reports) == 1:
         return next(iter(reports.values()))

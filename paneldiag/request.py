@@ -55,6 +55,8 @@ class ScreenRequest:
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
     max_memory: str | None = None        # e.g. 2GB: read a long file in blocks within it
+    engine: str = "local"                # "dask": read and summarise on a Dask cluster
+    scheduler: str | None = None         # the cluster's scheduler (None: start a local one)
     # units summarised at a time (memory, not results: the figures agree across chunk
     # sizes to rounding; an advanced option, hidden from the command's help)
     chunk_units: int = CHUNK_UNITS
@@ -204,7 +206,21 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
     budget = request.memory_budget()
     from paneldiag.io.stream import should_stream, stream_panel, streamable
     table_in_file: dict = {}
-    if should_stream(data, request.format, spec, budget):
+    summaries = None
+    engine = check_engine(request)
+    if engine is not None:
+        from paneldiag.dask_engine import check_input, connect, dask_panel, part_bytes
+        from paneldiag.pipeline import AUDIT_SUMMARY_KINDS, SUMMARY_KINDS
+        from paneldiag.summaries import N_REPLICATES
+        check_input(data, spec, request.format)
+        size = part_bytes(budget)
+        stage(f"reading {data} on a Dask cluster")
+        with connect(request.scheduler) as client:
+            panel, ledgers, digest, fmt, summaries = dask_panel(
+                client, data, spec, request.format, request.delimiter, size,
+                AUDIT_SUMMARY_KINDS if request.audit_only else SUMMARY_KINDS,
+                request.chunk_units, N_REPLICATES)
+    elif should_stream(data, request.format, spec, budget):
         stage(f"reading {data} in blocks")
         panel, ledgers, digest, fmt = stream_panel(data, spec, request.format,
                                                    request.delimiter, budget)
@@ -244,4 +260,19 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
                             disclosure_audit=request.disclosure_audit,
                             triplet_table=request.triplet_table,
                             chunk_units=request.chunk_units)
-    return screen(panel, ledgers, input_info, options), panel
+    return screen(panel, ledgers, input_info, options, summaries), panel
+
+
+def check_engine(request: ScreenRequest) -> str | None:
+    """The distributed engine asked for (None: the local one), its options checked."""
+    from paneldiag.dask_engine import ENGINES, require_dask
+    if request.engine not in ENGINES:
+        raise InputProblem(f"engine must be one of {', '.join(ENGINES)}, got "
+                           f"{request.engine!r}")
+    if request.engine == "local":
+        if request.scheduler is not None:
+            raise InputProblem("--scheduler is for --engine dask: add --engine dask or "
+                               "leave out --scheduler")
+        return None
+    require_dask()
+    return request.engine

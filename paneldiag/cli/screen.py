@@ -89,6 +89,14 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
               help="Read a long CSV/TSV or Parquet file in blocks, holding at most about "
                    "SIZE (e.g. 2GB, 500MB) for the data; a file too large for half the "
                    "memory is read in blocks anyway (see docs/scale.md).")
+@click.option("--engine", type=click.Choice(["local", "dask"]), default=D("engine"),
+              show_default=True,
+              help="Where a long CSV/TSV or Parquet file is read and summarised: here, or "
+                   "on the workers of a Dask cluster (needs paneldiag[dask]; docs/scale.md).")
+@click.option("--scheduler", metavar="ADDRESS",
+              help="With --engine dask: the scheduler of a running cluster, e.g. "
+                   "tcp://host:8786 (default: a cluster of this machine's cores, started "
+                   "for the run).")
 @click.option("--json", "json_path", metavar="PATH", help="Write the full JSON report here.")
 @click.option("--triplet-table", "triplet_path", metavar="PATH",
               help="Write every triplet of waves' reliability values to this CSV file "

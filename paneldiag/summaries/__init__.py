@@ -76,15 +76,20 @@ def relative_weights(weights: np.ndarray | None) -> np.ndarray | None:
 
 
 def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = CHUNK_UNITS,
-              n_replicates: int = N_REPLICATES) -> dict[type, object]:
+              n_replicates: int = N_REPLICATES, weights: np.ndarray | None = None
+              ) -> dict[type, object]:
     """Build every summary kind in one pass over chunks of units.
+
+    ``weights`` are the units' weights already rescaled, for a panel that is a part of
+    the one screened (rescaled over the whole panel, not the part: the dask engine).
 
     A kind with a ``shared_pass`` (a function of the chunk) is built by
     ``from_shared`` from that function's result, computed once a chunk for all the
     kinds that share it."""
     values = panel.values[measure]
     groups = replicate_groups(panel.unit_ids, n_replicates)
-    weights = relative_weights(panel.weights)
+    if weights is None:
+        weights = relative_weights(panel.weights)
     merged: dict[type, object] = {}
     for start in range(0, panel.n_units, chunk_units):
         stop = min(start + chunk_units, panel.n_units)
