@@ -716,13 +716,17 @@ class Protection:
     """What the audit did to one measure's report."""
 
     checked: int = 0                     # counts in the audit
-    withheld: list = field(default_factory=list)     # report paths withheld by the audit
+    counts_withheld: int = 0             # distinct counts withheld by the audit
+    withheld: list = field(default_factory=list)     # their report paths
     unresolved: list = field(default_factory=list)   # findings it could not mend
     unmodelled: list = field(default_factory=list)   # counts outside the relations
     coarsened: list = field(default_factory=list)    # parts removed whole
 
     def to_dict(self, min_cell: int) -> dict:
         return {"audited": True, "min_cell": min_cell, "counts_audited": self.checked,
+                "counts_withheld": self.counts_withheld, "reason": (
+                    "disclosure control: without them, the other counts would pin a count "
+                    f"of 1 to {min_cell - 1} units between 1 and {min_cell - 1}"),
                 "secondary_suppressions": self.withheld, "removed": self.coarsened,
                 "unresolved": self.unresolved, "not_modelled": self.unmodelled}
 
@@ -771,7 +775,8 @@ def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
         report["groups"]["reports"], report["groups"]["comparison"] = {}, []
         counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
         withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
-    done = Protection(checked=len(counts), unmodelled=unmodelled, coarsened=coarsened)
+    done = Protection(checked=len(counts), counts_withheld=len(withheld),
+                      unmodelled=unmodelled, coarsened=coarsened)
     for one in withheld:
         for path in one.paths:
             _withhold(report, path)
@@ -785,15 +790,20 @@ def disclosure_line(report: dict) -> str | None:
     blocks = [r.get("disclosure") for r in (report.get("measures") or {"": report}).values()]
     blocks = [b for b in blocks if b]
     if not blocks:
+        if (report.get("input") or {}).get("options", {}).get("disclosure_audit") is False:
+            return ("Disclosure audit: off (--no-disclosure-audit); each table withholds its "
+                    "own small counts, but counts were not checked across tables.")
         return None
     m = blocks[0]["min_cell"]
-    extra = sum(len(b["secondary_suppressions"]) for b in blocks)
+    extra = sum(b.get("counts_withheld", 0) for b in blocks)
     left = sum(len(b["unresolved"]) for b in blocks)
     dropped = any(b.get("removed") for b in blocks)
-    line = (f"Disclosure audit: the report's counts were checked together (sums, differences, "
-            f"groups beside the whole) for any count under {m} units they give away; ")
-    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld "
-             "(secondary suppression)" if extra else "none could be derived")
+    line = ("Disclosure audit: all the counts of this report were checked together (sums, "
+            "differences, groups beside the whole); ")
+    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld so that "
+             f"none gives away a count of fewer than {m} units (disclosure control)" if extra
+             else f"none gives away a count of fewer than {m} units, so nothing more was "
+             "withheld")
     if dropped:
         line += ", and the groups' own tables were removed"
     if left:
