@@ -49,7 +49,7 @@ class ScreenRequest:
     rules: str | None = None             # a TOML file of thresholds
     audit_only: bool = False
     # check the released counts together for small counts they give by subtraction, and
-    # withhold the fewest further counts that stop it (docs/disclosure.md)
+    # withhold as few further counts as it can so that none does (docs/disclosure.md)
     disclosure_audit: bool = True
     trajectory_sample: int = 0
     trajectory_seed: int = 1

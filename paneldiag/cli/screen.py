@@ -120,7 +120,7 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
               show_default=True,
               help="Check all released counts together (sums, differences, groups beside "
                    "the whole) for counts under --min-cell they give away, and withhold "
-                   "the fewest further counts that stop it (docs/disclosure.md).")
+                   "as few further counts as it can so that none does (docs/disclosure.md).")
 @click.option("--chunk-units", type=click.IntRange(1), default=D("chunk_units"), hidden=True,
               help="Units summarised at a time (memory only; see DEVELOPERS.md).")
 @click.option("--details", is_flag=True,
