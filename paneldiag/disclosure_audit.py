@@ -535,9 +535,10 @@ def audit(counts: list[Count], cells: Cells, min_cell: int, wave_labels,
 
 # What a reader loses when the audit withholds a count, by the place it is shown (its
 # report path's keys, list positions and a group's prefix left out; * any one key).
-# A count shown in several places costs its dearest place plus 0.1 for each further
-# place. The mending withholds the cheapest set of counts; docs/disclosure.md shows
-# this table.
+# A count shown in several places costs its dearest place plus 1 for each further
+# place (each a figure emptied: on the demo panel this halves the places emptied for
+# as many counts withheld). The mending withholds the cheapest set of counts;
+# docs/disclosure.md shows this table.
 WITHHOLDING_COSTS = (
     ("attrition.entry.by_wave.n", 1, "entrants at one wave; the entry profile keeps "
      "its other waves"),
@@ -558,7 +559,7 @@ WITHHOLDING_COSTS = (
      "difference, interval)"),
     ("groups.comparison.by_group.*", 3, "takes the group's figure and interval out of "
      "a comparison across groups"),
-    ("growth.icc.df_*", 5, "a test's degrees of freedom: takes the intraclass "
+    ("growth.icc.df_*", 10, "a test's degrees of freedom: takes the intraclass "
      "correlation's F test and p-value"),
 )
 OTHER_COST = 2   # a count in no place above
@@ -574,7 +575,7 @@ def place_cost(path) -> float:
 
 
 def withholding_cost(count: Count) -> float:
-    return max(place_cost(p) for p in count.paths) + 0.1 * (len(count.paths) - 1)
+    return max(place_cost(p) for p in count.paths) + len(count.paths) - 1
 
 
 # ------------------------------------------------------------ secondary suppression

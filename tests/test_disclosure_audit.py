@@ -257,7 +257,7 @@ def _fewest_withheld(counts, cells, min_cell, wave_labels):
 # The least-cost suppression against the audit's mending, on the crafted panels: the
 # ratio of their costs as measured (rounded up at the second decimal; docs/disclosure.md
 # lists them); a larger one is a regression of the mending.
-MEASURED_GAP = {"dropout": 1.30, "late": 1.0, "leaver": 1.28, "pattern": 1.16, "group": 1.15}
+MEASURED_GAP = {"dropout": 1.0, "late": 1.0, "leaver": 1.0, "pattern": 1.10, "group": 1.37}
 
 
 @pytest.mark.parametrize("design", list(DESIGNS))
