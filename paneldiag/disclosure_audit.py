@@ -383,6 +383,17 @@ def _solver(primal: bool):
 TOL = 1e-6   # a linear program's value read as a whole number of units
 
 
+def _run(h, status):
+    """Solve from the last basis; when the simplex stops without an answer (it can,
+    rarely, after many warm starts), solve again from scratch."""
+    h.run()
+    if h.getModelStatus() not in (status.kOptimal, status.kInfeasible, status.kUnbounded,
+                                  status.kUnboundedOrInfeasible):
+        h.clearSolver()
+        h.run()
+    return h.getModelStatus()
+
+
 class Bounds:
     """Linear programming bounds on a count, given the released counts: one HiGHS
     model holds a row per count (an equality while the count is shown, free once it
@@ -416,8 +427,7 @@ class Bounds:
         maximum can be)."""
         self.h.changeColsCost(self.n, np.arange(self.n, dtype=np.int32),
                               np.asarray(objective, float))
-        self.h.run()
-        status = self.h.getModelStatus()
+        status = _run(self.h, self.status)
         if status in (self.status.kUnbounded, self.status.kUnboundedOrInfeasible):
             return None
         if status != self.status.kOptimal:
@@ -645,9 +655,8 @@ class Mending:
         best = None
         for side in ((0.0, 0.0), (float(self.m), self.inf)):
             self.h.changeRowBounds(row, *side)
-            self.h.run()
-            if self.h.getModelStatus() != self.status.kOptimal:
-                continue
+            if _run(self.h, self.status) != self.status.kOptimal:
+                continue   # this side cannot be reached
             values = np.asarray(self.h.getSolution().col_value)
             deviation = values[self.n:self.n + self.k] - values[self.n + self.k:]
             chosen = np.flatnonzero(np.abs(deviation) > TOL)
