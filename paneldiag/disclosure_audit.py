@@ -43,8 +43,6 @@ ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of e
                            # occur, a stricter audit that keeps the programs small)
 # Counts the audit never withholds (all units, the row accounting): it withholds others.
 FIXED = frozenset({"panel", "ledger"})
-CANDIDATES_TRIED = 2       # secondary suppression: smallest counts tried per finding
-MAX_ROUNDS = 60            # rounds of secondary suppression before giving up
 
 
 @dataclass
@@ -369,115 +367,358 @@ def _quiet(make):
         os.close(saved)
 
 
+def _solver(primal: bool):
+    """A quiet HiGHS model. ``primal``: for new objectives over fixed constraints (the
+    last basis stays feasible, so primal simplex takes a few steps from it: about 5 x
+    quicker than the dual on the demo panel); else the dual, for changed bounds."""
+    import highspy
+    h = _quiet(highspy.Highs)
+    h.setOptionValue("output_flag", False)
+    h.setOptionValue("presolve", "off")   # each solve starts from the last basis
+    if primal:
+        h.setOptionValue("simplex_strategy", 4)
+    return h, highspy
+
+
+TOL = 1e-6   # a linear program's value read as a whole number of units
+
+
+def _run(h, status):
+    """Solve from the last basis; when the simplex stops without an answer (it can,
+    rarely, after many warm starts), solve again from scratch."""
+    h.run()
+    if h.getModelStatus() not in (status.kOptimal, status.kInfeasible, status.kUnbounded,
+                                  status.kUnboundedOrInfeasible):
+        h.clearSolver()
+        h.run()
+    return h.getModelStatus()
+
+
 class Bounds:
     """Linear programming bounds on a count, given the released counts: one HiGHS
     model holds a row per count (an equality while the count is shown, free once it
     is withheld) and each bound is a new objective solved from the last basis."""
 
     def __init__(self, counts: list[Count], cells: Cells):
-        import highspy
         from scipy.sparse import csr_matrix
+        self.h, highspy = _solver(primal=True)
         self.counts, self.inf = counts, highspy.kHighsInf
-        self.h = h = _quiet(highspy.Highs)
-        h.setOptionValue("output_flag", False)
+        self.row = {id(c): i for i, c in enumerate(counts)}
         n = len(cells.truth)
-        h.addVars(n, np.zeros(n), np.full(n, self.inf))
+        self.h.addVars(n, np.zeros(n), np.full(n, self.inf))
         rows = [c.coef for c in counts] + list(cells.missing_limits)
         lower = [self._row(c)[0] for c in counts] + [-self.inf] * len(cells.missing_limits)
         upper = [self._row(c)[1] for c in counts] + [0.0] * len(cells.missing_limits)
         if rows:
             a = csr_matrix(np.array(rows))
-            h.addRows(len(rows), np.array(lower, float), np.array(upper, float), a.nnz,
-                      a.indptr.astype(np.int32), a.indices.astype(np.int32), a.data)
+            self.h.addRows(len(rows), np.array(lower, float), np.array(upper, float), a.nnz,
+                           a.indptr.astype(np.int32), a.indices.astype(np.int32), a.data)
         self.n, self.status = n, highspy.HighsModelStatus
-        self.used: set[int] = set()   # shown counts binding at the last solutions
 
     def _row(self, count: Count) -> tuple[float, float]:
         return (-self.inf, self.inf) if count.value is None else (count.value, count.value)
 
     def refresh(self, count: Count):
         """Take a count's new value (None: withheld) into the model."""
-        i = next(k for k, c in enumerate(self.counts) if c is count)
-        self.h.changeRowBounds(i, *self._row(count))
+        self.h.changeRowBounds(self.row[id(count)], *self._row(count))
 
     def solve(self, objective: np.ndarray):
         """The cells at the minimum of objective . x (None: unbounded, which only a
-        maximum can be). Notes the shown counts the minimum rests on (their duals)."""
+        maximum can be)."""
         self.h.changeColsCost(self.n, np.arange(self.n, dtype=np.int32),
                               np.asarray(objective, float))
-        self.h.run()
-        status = self.h.getModelStatus()
+        status = _run(self.h, self.status)
         if status in (self.status.kUnbounded, self.status.kUnboundedOrInfeasible):
             return None
         if status != self.status.kOptimal:
             raise RuntimeError("disclosure audit: linear program failed "
                                f"({self.h.modelStatusToString(status)})")
-        sol = self.h.getSolution()
-        duals = np.asarray(sol.row_dual)[:len(self.counts)]
-        self.used |= {i for i in np.flatnonzero(np.abs(duals) > 1e-9).tolist()
-                      if self.counts[i].value is not None}
-        return np.asarray(sol.col_value)
+        return np.asarray(self.h.getSolution().col_value)
 
     def low(self, coef: np.ndarray) -> int:
-        return int(np.ceil(coef @ self.solve(coef) - 1e-7))
+        return int(np.ceil(coef @ self.solve(coef) - TOL))
 
     def high(self, coef: np.ndarray) -> float:
         x = self.solve(-coef)
-        return np.inf if x is None else float(np.floor(coef @ x + 1e-7))
+        return np.inf if x is None else float(np.floor(coef @ x + TOL))
 
-    def may_be_empty(self, coefs: list[np.ndarray]) -> np.ndarray:
-        """Which of the counts can be 0 given the shown counts. One linear program
-        for many: the minimum of their sum sets many to 0 at once; the rest are
-        minimised on their own."""
-        empty = np.zeros(len(coefs), dtype=bool)
-        pending = np.arange(len(coefs))
+
+@dataclass
+class Target:
+    """A small count to protect: a cell of 1 to min_cell - 1 units, or a withheld count
+    of as many. ``witness``: cells agreeing with every shown count at which it is 0 or
+    at least min_cell (its proof of protection)."""
+
+    what: str
+    true: int
+    coef: np.ndarray = field(repr=False)
+    witness: np.ndarray | None = field(default=None, repr=False)
+    low: int = 0
+    high: float = np.inf
+
+
+def protected_at(coef: np.ndarray, x: np.ndarray, min_cell: int) -> bool:
+    """The protection range: the count may be 0 (no unit need be there) or min_cell
+    or more (it need not be small) at the cells x."""
+    value = coef @ x
+    return value <= TOL or value >= min_cell - TOL
+
+
+def _targets(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> list[Target]:
+    n_cells = len(cells.truth)
+    found = [Target(cells.name(i, wave_labels), int(cells.truth[i]), np.eye(1, n_cells, i)[0])
+             for i in np.flatnonzero(small(cells.truth, min_cell))]
+    found += [Target(c.label, c.true, c.coef) for c in counts
+              if c.value is None and small(c.true, min_cell)]
+    reach = np.zeros(n_cells, dtype=bool)   # cells some shown count involves
+    for c in counts:
+        if c.value is not None:
+            reach |= c.coef != 0
+    unique = {}
+    for t in found:
+        if (reach & (t.coef != 0)).any():
+            unique.setdefault(t.coef.tobytes(), t)
+    return list(unique.values())
+
+
+def unprotected(bounds: Bounds, targets: list[Target], min_cell: int,
+                first: bool = False) -> list[Target]:
+    """The targets the shown counts pin inside 1 .. min_cell - 1 (their ``low`` and
+    ``high`` set); every other target gets a witness (``first``: stop at the first
+    pinned one). Every solution of a linear program is a feasible point and settles
+    every target it is a witness for, so the least and the greatest of the targets'
+    sum settle most of them at once."""
+    pending = list(targets)
+
+    def settle(x):
+        nonlocal pending
+        if x is not None:
+            for t in pending:
+                if protected_at(t.coef, x, min_cell):
+                    t.witness = x
+            pending = [t for t in pending if t.witness is None]
+    # a target first tries the side its last witness was on (the least: it was 0)
+    zero_first = {id(t): t.witness is not None and t.coef @ t.witness <= TOL for t in pending}
+    for t in pending:
+        t.witness = None
+    for sign in (1.0, -1.0):   # at most a few rounds each
         while len(pending) > 1:
-            x = self.solve(np.sum([coefs[i] for i in pending], axis=0))
-            zero = np.array([coefs[i] @ x < 0.5 for i in pending])
-            if not zero.any():
+            before = len(pending)
+            settle(bounds.solve(sign * np.sum([t.coef for t in pending], axis=0)))
+            if len(pending) == before:
                 break
-            empty[pending[zero]] = True
-            pending = pending[~zero]
-        for i in pending:
-            empty[i] = self.low(coefs[i]) == 0
-        return empty
-
-
-def _support(coef: np.ndarray) -> np.ndarray:
-    return coef != 0
+    weak = []
+    for t in list(pending):   # a loop over the few targets left
+        ends = {}
+        for sign in ((1.0, -1.0) if zero_first[id(t)] else (-1.0, 1.0)):
+            if t not in pending:
+                break
+            ends[sign] = x = bounds.solve(sign * t.coef)
+            if x is None:   # no greatest: it may be min_cell or more
+                pending.remove(t)
+            settle(x)
+        if t in pending:
+            t.low = int(np.ceil(t.coef @ ends[1.0] - TOL))
+            t.high = float(np.floor(t.coef @ ends[-1.0] + TOL))
+            pending.remove(t)
+            weak.append(t)
+            if first:
+                break
+    return weak
 
 
 def audit(counts: list[Count], cells: Cells, min_cell: int, wave_labels,
           bounds: Bounds | None = None) -> list[Finding]:
-    """The counts of 1 to min_cell - 1 units that are shown, or derivable from the shown
-    counts within an interval narrower than ``min_cell``."""
+    """The counts of 1 to min_cell - 1 units that are shown, or that the shown counts
+    pin inside 1 .. min_cell - 1 (outside the protection range)."""
     found = [Finding(c.label, c.value, c.value, c.value, c.coef) for c in counts
              if c.value is not None and small(c.value, min_cell)]
-    bounds = bounds or Bounds(counts, cells)
-    n_cells = len(cells.truth)
-    targets = [(cells.name(i, wave_labels), int(cells.truth[i]), np.eye(1, n_cells, i)[0])
-               for i in np.flatnonzero(small(cells.truth, min_cell))]
-    targets += [(c.label, c.true, c.coef) for c in counts
-                if c.value is None and small(c.true, min_cell)]
-    reach = np.zeros(n_cells, dtype=bool)   # cells some shown count involves
-    for c in counts:
-        if c.value is not None:
-            reach |= _support(c.coef)
-    unique = {}
-    for what, true, coef in targets:
-        if (reach & _support(coef)).any():
-            unique.setdefault(coef.tobytes(), (what, true, coef))
-    targets = list(unique.values())
-    if not targets:
-        return found
-    empty = bounds.may_be_empty([coef for _, _, coef in targets])
-    for (what, true, coef), may_be_0 in zip(targets, empty):  # a loop over small cells
-        if may_be_0:
-            continue    # no unit need be there: nobody is singled out
-        low, high = bounds.low(coef), bounds.high(coef)
-        if high - low < min_cell:
-            found.append(Finding(what, true, low, int(min(high, 2 ** 31)), coef))
+    targets = _targets(counts, cells, min_cell, wave_labels)
+    if targets:
+        weak = unprotected(bounds or Bounds(counts, cells), targets, min_cell)
+        found += [Finding(t.what, t.true, t.low, int(min(t.high, 2 ** 31)), t.coef)
+                  for t in weak]
     return found
+
+
+# -------------------------------------------------------- what a withheld count costs
+
+# What a reader loses when the audit withholds a count, by the place it is shown (its
+# report path's keys, list positions and a group's prefix left out; * any one key).
+# A count shown in several places costs its dearest place plus 1 for each further
+# place (each a figure emptied: on the demo panel this halves the places emptied for
+# as many counts withheld). The mending withholds the cheapest set of counts;
+# docs/disclosure.md shows this table.
+WITHHOLDING_COSTS = (
+    ("attrition.entry.by_wave.n", 1, "entrants at one wave; the entry profile keeps "
+     "its other waves"),
+    ("attrition.unit_types.last_wave.n", 1, "leavers by last wave, a detail of a unit type"),
+    ("missingness.patterns.rows.n", 1, "one listed response pattern; the others stay"),
+    ("missingness.patterns.remainder.n_units", 1, "units in the unlisted patterns"),
+    ("missingness.coverage.n", 1, "units seen at both waves of a pair, with its share"),
+    ("correlation.methods.*.n_pairs", 1, "a pair count beside a correlation that stays"),
+    ("lag_profile.n_pairs", 1, "pairs in a lag band; its correlation stays"),
+    ("growth.*.n_units*", 2, "units behind a growth figure; the figure stays"),
+    ("wave_profile.n", 2, "respondents at a wave, with their response share"),
+    ("distribution.waves.n", 2, "respondents at a wave, with their floor and ceiling "
+     "shares"),
+    ("attrition.retention.n_observed", 2, "respondents at a wave, with the retained and "
+     "response shares"),
+    ("attrition.unit_types.n", 2, "a unit type's count and share"),
+    ("attrition.selective.by_wave.*", 3, "takes the wave's dropout comparison (means, "
+     "difference, interval)"),
+    ("groups.comparison.by_group.*", 3, "takes the group's figure and interval out of "
+     "a comparison across groups"),
+    ("growth.icc.df_*", 10, "a test's degrees of freedom: takes the intraclass "
+     "correlation's F test and p-value"),
+)
+OTHER_COST = 2   # a count in no place above
+
+
+def place_cost(path) -> float:
+    """The cost of withholding the count at one report path (WITHHOLDING_COSTS)."""
+    from fnmatch import fnmatchcase
+    keys = list(path[3:] if path[:2] == ("groups", "reports") else path)
+    place = ".".join(k for k in keys if isinstance(k, str))
+    return next((cost for pattern, cost, _ in WITHHOLDING_COSTS
+                 if fnmatchcase(place, pattern)), OTHER_COST)
+
+
+def withholding_cost(count: Count) -> float:
+    return max(place_cost(p) for p in count.paths) + len(count.paths) - 1
+
+
+# ------------------------------------------------------------ secondary suppression
+
+class Mending:
+    """The cheapest counts to withhold for one target, by linear programming: cells x
+    that agree with the non-withheld counts up to deviations d, the target at 0 or at
+    min_cell or more, least sum of |d| weighted by each count's withholding cost. The
+    counts that deviate are the ones to withhold, and x is then the target's witness
+    (the L1 deviation heuristic of cell suppression; cf. Fischetti and
+    Salazar-Gonzalez 2001, Management Science 47(7) - from memory)."""
+
+    def __init__(self, counts: list[Count], cells: Cells, targets: list[Target],
+                 min_cell: int):
+        from scipy import sparse
+        self.h, highspy = _solver(primal=False)
+        self.inf, self.status, self.m = highspy.kHighsInf, highspy.HighsModelStatus, min_cell
+        self.counts, self.targets = counts, targets
+        n, k = len(cells.truth), len(counts)
+        self.n, self.k = n, k
+        self.cost = np.array([withholding_cost(c) for c in counts])
+        lower, upper, cost = self._deviation_bounds()
+        self.h.addVars(n, np.zeros(n), np.full(n, self.inf))
+        self.h.addVars(2 * k, lower, upper)
+        self.h.changeColsCost(2 * k, np.arange(n, n + 2 * k, dtype=np.int32), cost)
+        coefs = sparse.csr_matrix(np.array([c.coef for c in counts]))
+        eye = sparse.identity(k, format="csr")
+        rows = [sparse.hstack([coefs, -eye, eye])]
+        if cells.missing_limits:
+            rows.append(sparse.hstack([sparse.csr_matrix(np.array(cells.missing_limits)),
+                                       sparse.csr_matrix((len(cells.missing_limits), 2 * k))]))
+        rows.append(sparse.hstack([sparse.csr_matrix(np.array([t.coef for t in targets])),
+                                   sparse.csr_matrix((len(targets), 2 * k))]))
+        a = sparse.vstack(rows).tocsr()
+        n_limits = len(cells.missing_limits)
+        row_low = np.r_[[self._row(c)[0] for c in counts], np.full(n_limits, -self.inf),
+                        np.full(len(targets), -self.inf)]
+        row_high = np.r_[[self._row(c)[1] for c in counts], np.zeros(n_limits),
+                         np.full(len(targets), self.inf)]
+        self.h.addRows(a.shape[0], row_low, row_high, a.nnz, a.indptr.astype(np.int32),
+                       a.indices.astype(np.int32), a.data)
+        self.first_target = k + n_limits
+
+    def _row(self, count: Count):
+        return (-self.inf, self.inf) if count.value is None else (count.value, count.value)
+
+    def _deviation_bounds(self):
+        """A shown count may deviate (at its cost) if the audit may withhold it."""
+        may = np.array([c.value is not None and c.nullable for c in self.counts])
+        upper = np.where(may, self.inf, 0.0)
+        return np.zeros(2 * self.k), np.r_[upper, upper], np.r_[self.cost, self.cost]
+
+    def refresh(self):
+        """Take every count's value (None: withheld) into the model."""
+        k = self.k
+        lower, upper, _ = self._deviation_bounds()
+        self.h.changeColsBounds(2 * k, np.arange(self.n, self.n + 2 * k, dtype=np.int32),
+                                lower, upper)
+        bounds = np.array([self._row(c) for c in self.counts], float)
+        self.h.changeRowsBounds(k, np.arange(k, dtype=np.int32), bounds[:, 0], bounds[:, 1])
+
+    def cheapest(self, target: Target):
+        """(cost, counts to withhold, witness) for the cheaper side of the protection
+        range (the target at 0, or at min_cell or more); None when neither side can be
+        reached by withholding counts."""
+        row = self.first_target + next(i for i, t in enumerate(self.targets) if t is target)
+        best = None
+        for side in ((0.0, 0.0), (float(self.m), self.inf)):
+            self.h.changeRowBounds(row, *side)
+            if _run(self.h, self.status) != self.status.kOptimal:
+                continue   # this side cannot be reached
+            values = np.asarray(self.h.getSolution().col_value)
+            deviation = values[self.n:self.n + self.k] - values[self.n + self.k:]
+            chosen = np.flatnonzero(np.abs(deviation) > TOL)
+            option = (float(self.cost[chosen].sum()), chosen.tolist(), values[:self.n])
+            if best is None or option[0] < best[0]:
+                best = option
+        self.h.changeRowBounds(row, -self.inf, self.inf)
+        return best
+
+
+def protect(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> tuple[
+        list[Count], list[Finding]]:
+    """Secondary suppression: withhold the least costly counts so that every small count
+    is in its protection range (it may be 0, or it may be min_cell or more).
+
+    A shown small count is withheld itself. Each target the shown counts pin is mended
+    on its own by the cheapest withholding for it (``Mending``), sharing what earlier
+    targets withheld; then each count the mending withheld is shown again, dearest
+    first, when every target keeps a witness without it (so no withheld count is
+    superfluous). Returns the counts withheld and the findings left."""
+    withheld, left = [], []
+    for c in counts:
+        if c.value is not None and small(c.value, min_cell):
+            if c.nullable:
+                c.value = None
+                withheld.append(c)
+            else:
+                left.append(Finding(c.label, c.value, c.value, c.value, c.coef))
+    targets = _targets(counts, cells, min_cell, wave_labels)
+    bounds = Bounds(counts, cells)
+    weak = unprotected(bounds, targets, min_cell) if targets else []
+    if not weak:
+        return withheld, left
+    mending = Mending(counts, cells, weak, min_cell)
+    added, reason = [], {}
+    for target in weak:   # a loop over the few pinned targets
+        if not unprotected(bounds, [target], min_cell, first=True):
+            continue   # mended by an earlier target's withholding
+        best = mending.cheapest(target)
+        if best is None:
+            left.append(Finding(target.what, target.true, target.low,
+                                int(min(target.high, 2 ** 31)), target.coef))
+            continue
+        _, chosen, target.witness = best
+        for i in chosen:
+            counts[i].value = None
+            bounds.refresh(counts[i])
+            added.append(counts[i])
+            reason[id(counts[i])] = target
+        mending.refresh()
+    for c in sorted(added, key=lambda c: (-withholding_cost(c), c.label)):
+        c.value = c.true   # shown again if every target keeps a witness
+        bounds.refresh(c)
+        broken = [t for t in targets if t.witness is None
+                  or abs(c.coef @ t.witness - c.true) > TOL]
+        cause = [t for t in broken if t is reason[id(c)]]   # the likeliest to fail: first
+        if any(unprotected(bounds, group, min_cell, first=True)
+               for group in (cause, [t for t in broken if t not in cause]) if group):
+            c.value = None
+            bounds.refresh(c)
+    withheld += [c for c in added if c.value is None]
+    return withheld, left
 
 
 @dataclass
@@ -485,71 +726,19 @@ class Protection:
     """What the audit did to one measure's report."""
 
     checked: int = 0                     # counts in the audit
-    withheld: list = field(default_factory=list)     # report paths withheld by the audit
+    counts_withheld: int = 0             # distinct counts withheld by the audit
+    withheld: list = field(default_factory=list)     # their report paths
     unresolved: list = field(default_factory=list)   # findings it could not mend
     unmodelled: list = field(default_factory=list)   # counts outside the relations
     coarsened: list = field(default_factory=list)    # parts removed whole
 
     def to_dict(self, min_cell: int) -> dict:
         return {"audited": True, "min_cell": min_cell, "counts_audited": self.checked,
+                "counts_withheld": self.counts_withheld, "reason": (
+                    "disclosure control: without them, the other counts would pin a count "
+                    f"of 1 to {min_cell - 1} units between 1 and {min_cell - 1}"),
                 "secondary_suppressions": self.withheld, "removed": self.coarsened,
                 "unresolved": self.unresolved, "not_modelled": self.unmodelled}
-
-
-def _interval(bounds: Bounds, coef) -> tuple[int, float]:
-    bounds.used = set()
-    low = bounds.low(coef)
-    return low, (bounds.high(coef) if low > 0 else np.inf)
-
-
-def _safe(low, high, min_cell: int) -> bool:
-    return low == 0 or high - low >= min_cell
-
-
-def protect(counts: list[Count], cells: Cells, min_cell: int, wave_labels) -> tuple[
-        list[Count], list[Finding]]:
-    """Secondary suppression: withhold shown counts until no small count is derivable.
-
-    Withholding a count only widens every interval, so the audit runs once and each
-    finding is mended on its own: among the shown counts its bounds rest on (the
-    nonzero duals of its two linear programs), the smallest that alone breaks the
-    derivation is withheld, else the smallest of them, until it is safe. A shown small
-    count is withheld itself. Returns the counts withheld and the findings left."""
-    bounds = Bounds(counts, cells)
-    withheld, left = [], []
-    for finding in audit(counts, cells, min_cell, wave_labels, bounds):  # over findings
-        for _ in range(MAX_ROUNDS):
-            if _safe(*_interval(bounds, finding.coef), min_cell):
-                break
-            rest = [counts[i] for i in sorted(bounds.used)]
-            same = [c for c in rest if np.array_equal(c.coef, finding.coef)]
-            pool = sorted((c for c in (same or rest) if c.nullable),
-                          key=lambda c: (c.value, c.label))
-            mends = next((c for c in pool[:CANDIDATES_TRIED]
-                          if _safe(*_interval_without(bounds, finding.coef, c), min_cell)),
-                         None)
-            pick = mends or (pool[0] if pool else None)
-            if pick is None:
-                left.append(finding)
-                break
-            pick.value = None
-            bounds.refresh(pick)
-            withheld.append(pick)
-            if mends:
-                break
-        else:
-            left.append(finding)
-    # a finding given up may have been mended by a later one's withheld counts
-    return withheld, [f for f in left if not _safe(*_interval(bounds, f.coef), min_cell)]
-
-
-def _interval_without(bounds: Bounds, coef, candidate: Count) -> tuple[int, float]:
-    saved, candidate.value = candidate.value, None
-    bounds.refresh(candidate)
-    low, high = _interval(bounds, coef)
-    candidate.value = saved
-    bounds.refresh(candidate)
-    return low, high
 
 
 # --------------------------------------------------------------- the report, mended
@@ -596,7 +785,8 @@ def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
         report["groups"]["reports"], report["groups"]["comparison"] = {}, []
         counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
         withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
-    done = Protection(checked=len(counts), unmodelled=unmodelled, coarsened=coarsened)
+    done = Protection(checked=len(counts), counts_withheld=len(withheld),
+                      unmodelled=unmodelled, coarsened=coarsened)
     for one in withheld:
         for path in one.paths:
             _withhold(report, path)
@@ -610,15 +800,20 @@ def disclosure_line(report: dict) -> str | None:
     blocks = [r.get("disclosure") for r in (report.get("measures") or {"": report}).values()]
     blocks = [b for b in blocks if b]
     if not blocks:
+        if (report.get("input") or {}).get("options", {}).get("disclosure_audit") is False:
+            return ("Disclosure audit: off (--no-disclosure-audit); each table withholds its "
+                    "own small counts, but counts were not checked across tables.")
         return None
     m = blocks[0]["min_cell"]
-    extra = sum(len(b["secondary_suppressions"]) for b in blocks)
+    extra = sum(b.get("counts_withheld", 0) for b in blocks)
     left = sum(len(b["unresolved"]) for b in blocks)
     dropped = any(b.get("removed") for b in blocks)
-    line = (f"Disclosure audit: the report's counts were checked together (sums, differences, "
-            f"groups beside the whole) for any count under {m} units they give away; ")
-    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld "
-             "(secondary suppression)" if extra else "none could be derived")
+    line = ("Disclosure audit: all the counts of this report were checked together (sums, "
+            "differences, groups beside the whole); ")
+    line += (f"{extra} further count{'s were' if extra != 1 else ' was'} withheld so that "
+             f"none gives away a count of fewer than {m} units (disclosure control)" if extra
+             else f"none gives away a count of fewer than {m} units, so nothing more was "
+             "withheld")
     if dropped:
         line += ", and the groups' own tables were removed"
     if left:

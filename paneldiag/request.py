@@ -49,8 +49,8 @@ class ScreenRequest:
     rules: str | None = None             # a TOML file of thresholds
     audit_only: bool = False
     # check the released counts together for small counts they give by subtraction, and
-    # withhold more where they do (docs/disclosure.md); off by default for its cost
-    disclosure_audit: bool = False
+    # withhold as few further counts as it can so that none does (docs/disclosure.md)
+    disclosure_audit: bool = True
     trajectory_sample: int = 0
     trajectory_seed: int = 1
     triplet_table: bool = False          # keep every triplet's values for a file of their own
@@ -249,8 +249,8 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
         input_info["options"]["rules"] = request.rules
     if request.audit_only:
         input_info["options"]["audit_only"] = True
-    if request.disclosure_audit:
-        input_info["options"]["disclosure_audit"] = True
+    if not request.disclosure_audit:
+        input_info["options"]["disclosure_audit"] = False
     # the diagnostics are imported only once there is data to screen, so a bad input is
     # reported without paying for their (heavy) imports
     from paneldiag.pipeline import ScreenOptions, screen

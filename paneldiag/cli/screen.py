@@ -124,10 +124,11 @@ D = ScreenRequest.default   # the defaults live with the request, shared with th
               help="Only the audit of who is observed when (wave profile, attrition, "
                    "response patterns, EM moments, Little's test): no dependence, "
                    "reliability, growth or verdicts. Quicker.")
-@click.option("--disclosure-audit", is_flag=True, default=D("disclosure_audit"),
+@click.option("--disclosure-audit/--no-disclosure-audit", default=D("disclosure_audit"),
+              show_default=True,
               help="Check all released counts together (sums, differences, groups beside "
                    "the whole) for counts under --min-cell they give away, and withhold "
-                   "more where they do (docs/disclosure.md). Slower.")
+                   "as few further counts as it can so that none does (docs/disclosure.md).")
 @click.option("--chunk-units", type=click.IntRange(1), default=D("chunk_units"), hidden=True,
               help="Units summarised at a time (memory only; see DEVELOPERS.md).")
 @click.option("--details", is_flag=True,
