@@ -11,8 +11,8 @@ from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import Callable
 
-from paneldiag import SCHEMA_VERSION, __version__
-from paneldiag.diagnostics.attrition import attrition_section
+from paneldiag import SCHEMA_VERSION, __version__, ahead
+from paneldiag.diagnostics.attrition import attrition_section, measure_dropout_model
 from paneldiag.diagnostics.crosslag import cross_lag_screen
 from paneldiag.diagnostics.degenerate import degenerate_section
 from paneldiag.diagnostics.groups import group_screen
@@ -46,6 +46,7 @@ class ScreenOptions:
     audit_only: bool = False         # only the audit areas (AUDIT_SECTIONS)
     disclosure_audit: bool = False   # the released counts audited together (protect_report)
     triplet_table: bool = False      # every triplet's reliability, for a file of its own
+    workers: int = field(default_factory=ahead.workers)  # threads (1: a serial run)
 
 
 @dataclass
@@ -57,6 +58,7 @@ class MeasureContext:
     options: ScreenOptions
     ledger: Ledger
     results: dict = field(default_factory=dict)  # earlier sections' results, by key
+    started: dict = field(default_factory=dict)  # work started ahead (paneldiag.ahead)
 
     @cached_property
     def summaries(self) -> dict:
@@ -137,11 +139,20 @@ def screen_measure(panel: Panel, measure: str, ledger: Ledger, input_info: dict,
 UNWEIGHTED_SECTIONS = ("panel",)
 
 
+def work_ahead(ctx: MeasureContext) -> list[Callable]:
+    """The costly work of the context's screen that depends on the panel alone."""
+    if ctx.options.audit_only:
+        return [measure_dropout_model]
+    from paneldiag.diagnostics.dependence import measure_rank_moments
+    return [measure_dropout_model] + ([measure_rank_moments] if ctx.panel.n_waves > 1 else [])
+
+
 def run_sections(ctx: MeasureContext, chosen: list[Section] | None = None) -> dict:
     """Each section (default: those of the context's options) on one context, as
     JSON-ready values. With weights, each section that is a mapping says whether it is
     weighted (``weighted``), and ``weighting`` lists every section's state."""
     out = {}
+    ahead.start(ctx, work_ahead(ctx) if chosen is None else [])
     for key, section in chosen or sections(ctx.options.audit_only):
         result = section(ctx)
         ctx.results[key] = result
@@ -218,14 +229,15 @@ def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
            options: ScreenOptions | None = None, summaries: dict | None = None) -> dict:
     """The whole report: the measure's report itself, or ``measures {name: report}``.
     ``summaries`` ({measure: {kind: summary}}) were built and merged elsewhere (the dask
-    engine's workers); without them each measure is summarised here."""
-    with one_blas_thread():
+    engine's workers); without them each measure is summarised here. Runs on
+    ``options.workers`` threads (paneldiag.ahead)."""
+    options = options or ScreenOptions()
+    with one_blas_thread(), ahead.threads(options.workers):
         return _screen(panel, ledgers, input_info, options, summaries or {})
 
 
 def _screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
-            options: ScreenOptions | None, summaries: dict) -> dict:
-    options = options or ScreenOptions()
+            options: ScreenOptions, summaries: dict) -> dict:
     reports = {m: screen_measure(panel, m, ledgers[m], input_info, options, summaries.get(m))
                for m in panel.measures}
     if len(reports) == 1:

@@ -364,3 +364,39 @@ def test_demo_shows_dropout_depends_on_satisfaction(tmp_path):
     entry = report["attrition"]["entry"]
     assert entry["design"] == "refreshment" and entry["entry_waves"] == ["2017"]
     assert "entry: refreshment samples" in text
+
+
+def test_dropout_model_on_grid_values_fits_binomial_cells_equal_to_the_rows(monkeypatch):
+    # reference: statsmodels Logit with one dummy per wave on pandas person-period rows,
+    # for scores written with two decimals (the cells of equal wave and value are
+    # fitted as binomial counts, whose likelihood is the rows' own)
+    from paneldiag.diagnostics import attrition
+    rng = np.random.default_rng(14)
+    n, t = 4000, 5
+    x = np.round(50 + 8 * (rng.normal(size=(n, 1)) + rng.normal(size=(n, t))), 2)
+    x[dropout_after(x, rng, base_rate=0.12, log_odds_per_sd=-0.6)] = np.nan
+    x[rng.random(x.shape) < 0.05] = np.nan
+    calls = []
+    grouped = attrition._grouped_person_periods
+    monkeypatch.setattr(attrition, "_grouped_person_periods",
+                        lambda *a: calls.append(1) or grouped(*a))
+    fit = dropout_model(x, list("abcde"))
+    assert calls and fit.fitted
+    long = _person_period(x)
+    design = pd.get_dummies(long["wave"], prefix="wave", dtype=float)
+    design["z"] = long["z"]
+    ref = sm.Logit(long["event"], design).fit(disp=0, tol=1e-12, maxiter=100)
+    assert fit.n_person_periods == len(long) and fit.n_events == int(long["event"].sum())
+    # tolerances as in the reference test above: both iterate to 1e-10 or tighter
+    assert fit.odds_ratio_per_sd == pytest.approx(np.exp(ref.params["z"]), rel=1e-8)
+    low, high = np.exp(ref.conf_int().loc["z"])
+    assert fit.ci_low == pytest.approx(low, rel=1e-6)
+    assert fit.ci_high == pytest.approx(high, rel=1e-6)
+    assert fit.pvalue == pytest.approx(ref.pvalues["z"], rel=1e-5)
+    # the row-by-row fit of the same panel agrees to rounding (same likelihood)
+    monkeypatch.setattr(attrition, "_grouped_person_periods", lambda *a: None)
+    rows = dropout_model(x, list("abcde"))
+    assert rows.odds_ratio_per_sd == pytest.approx(fit.odds_ratio_per_sd, rel=1e-10)
+    assert rows.ci_low == pytest.approx(fit.ci_low, rel=1e-10)
+    assert (rows.n_person_periods, rows.n_events, rows.n_units, rows.waves_in_model) == \
+        (fit.n_person_periods, fit.n_events, fit.n_units, fit.waves_in_model)

@@ -100,3 +100,74 @@ def test_reports_agree_across_summary_chunk_sizes(tmp_path):
                                     abs_tol=tolerance), key
             else:
                 assert value == other[key], key
+
+
+def test_work_on_a_second_thread_gives_the_serial_bytes(tmp_path):
+    # the dropout model and the rank moments started ahead on a worker thread
+    # (paneldiag.ahead) against the same screen run serially, with groups so that each
+    # group's screen starts its own work too, and with weights and scores on a grid of
+    # two decimals so that the weighted dropout model is fitted on cells; simulated
+    # growth + carry-over panel with dropout (known truth; the property checked is the
+    # program's own)
+    values = family_values("growth_autoregressive", 400, 5, 0.8, "dependent",
+                           np.random.default_rng(9), "none")
+    frame = pd.DataFrame(np.round(values, 2))
+    frame.insert(0, "id", [f"u{i}" for i in range(len(frame))])
+    frame.insert(1, "district", np.where(np.arange(len(frame)) % 3 == 0, "North", "South"))
+    frame.insert(2, "weight", np.resize([0.5, 1.0, 2.0, 1.5], len(frame)))
+    long = frame.melt(id_vars=["id", "district", "weight"], var_name="wave",
+                      value_name="y").dropna()
+    path = tmp_path / "panel.csv"
+    long.to_csv(path, index=False)
+    options = ("--group", "district", "--weight", "weight")
+    serial = _screen(path, tmp_path / "serial", *options, PANELDIAG_WORKERS="1")
+    threaded = _screen(path, tmp_path / "threaded", *options, PANELDIAG_WORKERS="2")
+    assert b'"groups"' in serial["report.json"] and b'"weighting"' in serial["report.json"]
+    for name in OUTPUTS:
+        assert serial[name] == threaded[name], name
+
+
+def test_both_threads_take_items_and_results_keep_their_order():
+    # the mechanism itself: a barrier of two can only be passed when the worker thread
+    # has taken an item beside the calling thread (a property of the program)
+    import threading
+
+    from paneldiag import ahead
+    barrier = threading.Barrier(2, timeout=60)
+    names = {}
+
+    def square(i):
+        if i < 2:
+            barrier.wait()
+        names[i] = threading.current_thread().name
+        return i * i
+
+    with ahead.threads(2):
+        assert ahead.share(square, range(10)) == [i * i for i in range(10)]
+    assert len({names[0], names[1]}) == 2
+    with ahead.threads(1):   # serial: everything on the calling thread
+        assert ahead.share(lambda i: threading.current_thread().name, range(3)) == \
+            [threading.current_thread().name] * 3
+
+
+def test_threaded_screen_of_many_chunks_equals_the_serial_one():
+    # every shared list at once (chunks of the summaries, the structures' fits, the EM
+    # copies) and the work started ahead, on a panel cut into 7 chunks; simulated
+    # trait + carry-over with dependent dropout (the property checked is the program's)
+    from dataclasses import replace
+
+    from paneldiag.io.ledger import Ledger
+    from paneldiag.panel import Panel
+    from paneldiag.pipeline import ScreenOptions, screen
+    from paneldiag.render.json import report_json
+    y = family_values("trait_autoregressive", 700, 5, 0.7, "dependent",
+                      np.random.default_rng(12), "none")
+    panel = Panel(unit_ids=np.arange(len(y)), wave_labels=("1", "2", "3", "4", "5"),
+                  wave_times=np.arange(5.0), values={"y": y})
+    ledgers = {"y": Ledger(rows_read=int(np.isfinite(y).sum()),
+                           rows_used=int(np.isfinite(y).sum()))}
+    serial = ScreenOptions(workers=1, chunk_units=100)
+    one = report_json(screen(panel, ledgers, {"path": "memory"}, serial))
+    two = report_json(screen(panel, ledgers, {"path": "memory"}, replace(serial, workers=2)))
+    assert '"families"' in one
+    assert one == two

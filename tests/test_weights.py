@@ -292,3 +292,44 @@ def test_weights_of_one_give_the_unweighted_screen():
             assert value == pytest.approx(other, rel=1e-10, abs=1e-10), path
         else:
             assert value == other, path
+
+
+def test_weighted_dropout_model_on_grid_values_fits_cells_equal_to_the_rows(monkeypatch):
+    """Scores written with two decimals: the weighted person-periods of one wave, value
+    and replicate group are fitted as one cell carrying the summed weights. Checked
+    against statsmodels GLM(Binomial) on the cells with the proportion of weighted
+    events as the response and var_weights = the cell's weight sum: a cell is one
+    observation of a proportion whose variance is p(1 - p) / trials, which is what
+    var_weights says (freq_weights would say the cell is that many rows; the estimate
+    is the same, but statsmodels would then count weight sums as observations); and
+    against the row-by-row fit of the same panel (reference library; tolerances: both
+    iterate to 1e-10 or tighter)."""
+    import statsmodels.api as sm
+
+    from paneldiag.diagnostics import attrition
+    values = np.round(simulated(seed=9), 2)
+    weights = relative_weights(np.random.default_rng(5).uniform(0.3, 2.5, len(values)))
+    groups = np.arange(len(values)) % 20
+    made = []
+    grouped = attrition._grouped_person_periods
+    monkeypatch.setattr(attrition, "_grouped_person_periods",
+                        lambda *a: made.append(grouped(*a)) or made[-1])
+    fit = dropout_model(values, list("abcde"), weights=weights, replicate=groups)
+    xt, events, trials, bounds, _, n_pp, _ = made[0]
+    assert fit.fitted and len(trials) < n_pp   # fewer cells than person-periods
+    wave = np.repeat(np.arange(len(bounds) - 1), np.diff(bounds))
+    design = np.column_stack([pd.get_dummies(pd.Series(wave), dtype=float).to_numpy(),
+                              xt[0]])
+    glm = sm.GLM(events / trials, design, family=sm.families.Binomial(),
+                 var_weights=trials).fit(tol=1e-12)
+    assert fit.odds_ratio_per_sd == pytest.approx(np.exp(glm.params[-1]), rel=1e-8)
+    # the row-by-row fit: the same estimate and the same jackknife interval
+    monkeypatch.setattr(attrition, "_grouped_person_periods", lambda *a: None)
+    rows = dropout_model(values, list("abcde"), weights=weights, replicate=groups)
+    assert rows.odds_ratio_per_sd == pytest.approx(fit.odds_ratio_per_sd, rel=1e-10)
+    assert rows.ci_low == pytest.approx(fit.ci_low, rel=1e-10)
+    assert rows.ci_high == pytest.approx(fit.ci_high, rel=1e-10)
+    assert rows.pvalue == pytest.approx(fit.pvalue, rel=1e-8)   # a far tail: 1e-10 of
+    # the statistic moves a small p-value by more
+    assert (rows.n_person_periods, rows.n_events, rows.n_units, rows.waves_in_model) == \
+        (fit.n_person_periods, fit.n_events, fit.n_units, fit.waves_in_model)

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from paneldiag import distributions as dist
+from paneldiag.ahead import computed
 from paneldiag.disclosure import shown_mask, small
 from paneldiag.labels import ENTRY_DESIGNS
 from paneldiag.results import Result
@@ -623,8 +624,10 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     out. Waves without events (or without non-events) are left out, which is their
     exact maximum-likelihood limit. The fit is Newton-Raphson on the whole cell
     arrays, using the block structure of the wave intercepts (no person-period
-    design matrix with wave dummies is built); Wald intervals from the inverse
-    information. ``odds_ratio_per_sd`` is exp(b).
+    design matrix with wave dummies is built); without covariates, and with values
+    on a decimal grid, the person-periods of one wave and value are fitted as one
+    binomial cell (the same likelihood, a fraction of the rows). Wald intervals from
+    the inverse information. ``odds_ratio_per_sd`` is exp(b).
 
     With unit ``weights`` every person-period carries its unit's weight: the
     standardisation is weighted and the fit maximises the weighted log-likelihood
@@ -647,6 +650,75 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     n_units, t = values.shape
     names = list(covariates)
     extra = [np.asarray(covariates[name], dtype=float) for name in names]
+    waves_used, any_risk = np.zeros(t - 1, dtype=bool), np.zeros(n_units, bool)
+    # without covariates, person-periods with the same wave and value (and replicate
+    # group, when weighted) are one binomial cell: the same likelihood, far fewer rows
+    # when the values lie on a grid
+    cells = None if extra else _grouped_person_periods(values, weights, replicate,
+                                                       waves_used, any_risk)
+    if cells is not None:
+        xt, y, trials, bounds, row_group, n_pp, n_ev = cells
+    else:
+        xt, y, bounds, unit_of_row = _person_periods(values, extra, weights, waves_used,
+                                                     any_risk)
+        n_pp, n_ev = len(y), int(y.sum())
+        trials = None if weights is None else weights[unit_of_row]
+        row_group = None if weights is None else replicate[unit_of_row]
+        del unit_of_row
+        if trials is not None:
+            y = np.where(y, trials, 0.0)   # weighted events
+    n_at_risk = int(any_risk.sum())
+    base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
+                n_events=_count(n_ev, n_ev >= min_cell),
+                # against the panel's count it would give the units never at risk
+                n_units=_count(n_at_risk, n_at_risk >= min_cell and
+                               not small(n_units - n_at_risk, min_cell)),
+                waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
+
+    def empty(note, iterations=0):
+        return DropoutModel(False, note, **base, odds_ratio_per_sd=None, ci_low=None,
+                            ci_high=None, pvalue=None, covariates=(), iterations=iterations)
+
+    if n_ev < min_cell or n_pp - n_ev < min_cell:
+        return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
+    # the measure is constant when its extremes meet (a full-length std would cost a
+    # temporary of every person-period); the covariates are standardised here
+    if len(xt[0]) == 0 or xt[0].min() == xt[0].max() or np.any(xt[1:].std(axis=1) == 0):
+        return empty("a predictor is constant over the person-periods: not fitted")
+    for j in range(1, xt.shape[0]):  # a loop over covariates
+        if trials is None:
+            xt[j] = (xt[j] - xt[j].mean()) / xt[j].std()
+        else:
+            centre = np.average(xt[j], weights=trials)
+            xt[j] = (xt[j] - centre) / np.sqrt(np.average((xt[j] - centre) ** 2,
+                                                          weights=trials))
+    bounds = np.asarray(bounds)
+    start = None if cells is not None else _subsample_start(y, xt, bounds, max_iter, trials)
+    fit = _newton_logit(y, xt, bounds, max_iter, tol, start, trials)
+    if fit is None:
+        return empty("the dropout model did not converge (separation or a singular "
+                     "information matrix)")
+    beta, se, iterations, start = fit
+    if weights is None:
+        zstat = beta / se
+        p = 2 * dist.norm_sf(np.abs(zstat))
+        lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
+    else:
+        lo, hi, p = _jackknife_logit(y, xt, bounds, trials, row_group, beta, start,
+                                     max_iter, tol)
+    extra = tuple({"name": name, "odds_ratio_per_sd": float(np.exp(beta[j + 1])),
+                   "ci_low": float(lo[j + 1]), "ci_high": float(hi[j + 1]),
+                   "pvalue": float(p[j + 1])} for j, name in enumerate(names))
+    return DropoutModel(True, "fitted", **base, odds_ratio_per_sd=float(np.exp(beta[0])),
+                        ci_low=float(lo[0]), ci_high=float(hi[0]), pvalue=float(p[0]),
+                        covariates=extra, iterations=iterations)
+
+
+def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray | None):
+    """For each wave s before the last with spread and with both events and
+    non-events: (s, units at risk, their values, whether each is an event, the wave's
+    mean and SD of the observed values)."""
+    n_units, t = values.shape
     seen = ~np.isnan(values)
     if weights is not None:
         seen &= (weights > 0)[:, None]   # a unit of weight 0 adds nothing to the fit
@@ -656,13 +728,7 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
     # the last wave each unit is due at, when a cohort's follow-up ends before the panel's
     span = follow_up_span(seen, np.ones(n_units))
     due_end = follow_up_end(seen, span)[1] if span < t else None
-    # person-periods wave by wave: predictor j of wave s's rows is xt[j, bounds[s]:...]
-    n_rows = int(seen[:, :-1].sum())
     del seen, last_seen
-    xt = np.empty((1 + len(extra), n_rows))
-    y = np.empty(n_rows, dtype=bool)
-    unit_of_row = np.empty(n_rows, dtype=np.int64)
-    bounds, waves_used, any_risk = [0], np.zeros(t - 1, dtype=bool), np.zeros(n_units, bool)
     for s in range(t - 1):  # a loop over waves
         column = np.ascontiguousarray(values[:, s])   # one strided read, then contiguous
         risk = ~np.isnan(column)
@@ -689,64 +755,74 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
         n_events = int(event.sum())
         if not 0 < n_events < len(rows):
             continue   # no events or no non-events: left out (the exact ML limit)
+        yield s, rows, column[rows], event, mean, sd
+
+
+def _person_periods(values, extra, weights, waves_used, any_risk):
+    """Person-period rows wave by wave: predictor j of wave s's rows is
+    xt[j, bounds[s]:bounds[s + 1]] (the measure standardised within the wave, then the
+    covariates as they are), y whether the row is an event, and each row's unit. Marks
+    the waves and units used."""
+    seen = ~np.isnan(values[:, :-1])
+    n_rows = int(seen.sum())
+    del seen
+    xt = np.empty((1 + len(extra), n_rows))
+    y = np.empty(n_rows, dtype=bool)
+    unit_of_row = np.empty(n_rows, dtype=np.int64)
+    bounds = [0]
+    for s, rows, at, event, mean, sd in _risk_sets(values, extra, weights):
         waves_used[s] = True
         any_risk[rows] = True
         lo, hi = bounds[-1], bounds[-1] + len(rows)
-        np.subtract(column[rows], mean, out=xt[0, lo:hi])
+        np.subtract(at, mean, out=xt[0, lo:hi])
         xt[0, lo:hi] /= sd
         for j, w in enumerate(extra):
             xt[j + 1, lo:hi] = w[rows, s]
         y[lo:hi] = event
         unit_of_row[lo:hi] = rows
         bounds.append(hi)
-    del last, due_end
-    xt, y, unit_of_row = xt[:, :bounds[-1]], y[:bounds[-1]], unit_of_row[:bounds[-1]]
-    row_w = None if weights is None else weights[unit_of_row]
-    n_pp, n_ev = len(y), int(y.sum())
-    n_at_risk = int(any_risk.sum())
-    base = dict(n_person_periods=_count(n_pp, n_pp >= min_cell),
-                n_events=_count(n_ev, n_ev >= min_cell),
-                # against the panel's count it would give the units never at risk
-                n_units=_count(n_at_risk, n_at_risk >= min_cell and
-                               not small(n_units - n_at_risk, min_cell)),
-                waves_in_model=tuple(labels[i] for i in np.flatnonzero(waves_used)))
+    end = bounds[-1]
+    return xt[:, :end], y[:end], bounds, unit_of_row[:end]
 
-    def empty(note, iterations=0):
-        return DropoutModel(False, note, **base, odds_ratio_per_sd=None, ci_low=None,
-                            ci_high=None, pvalue=None, covariates=(), iterations=iterations)
 
-    if n_ev < min_cell or n_pp - n_ev < min_cell:
-        return empty(f"fewer than {min_cell} dropouts or continuers at risk: not fitted")
-    spread = xt.std(axis=1)
-    if np.any(spread == 0):
-        return empty("a predictor is constant over the person-periods: not fitted")
-    if row_w is None:
-        xt[1:] = (xt[1:] - xt[1:].mean(axis=1, keepdims=True)) / spread[1:, None]
-    else:
-        for j in range(1, xt.shape[0]):  # a loop over covariates
-            centre = np.average(xt[j], weights=row_w)
-            xt[j] = (xt[j] - centre) / np.sqrt(np.average((xt[j] - centre) ** 2,
-                                                          weights=row_w))
-    bounds = np.asarray(bounds)
-    fit = _newton_logit(y, xt, bounds, max_iter, tol,
-                        _subsample_start(y, xt, bounds, max_iter, row_w), row_w)
-    if fit is None:
-        return empty("the dropout model did not converge (separation or a singular "
-                     "information matrix)")
-    beta, se, iterations, start = fit
-    if row_w is None:
-        zstat = beta / se
-        p = 2 * dist.norm_sf(np.abs(zstat))
-        lo, hi = np.exp(beta - Z95 * se), np.exp(beta + Z95 * se)
-    else:
-        lo, hi, p = _jackknife_logit(y, xt, bounds, row_w, replicate[unit_of_row], beta,
-                                     start, max_iter, tol)
-    extra = tuple({"name": name, "odds_ratio_per_sd": float(np.exp(beta[j + 1])),
-                   "ci_low": float(lo[j + 1]), "ci_high": float(hi[j + 1]),
-                   "pvalue": float(p[j + 1])} for j, name in enumerate(names))
-    return DropoutModel(True, "fitted", **base, odds_ratio_per_sd=float(np.exp(beta[0])),
-                        ci_low=float(lo[0]), ci_high=float(hi[0]), pvalue=float(p[0]),
-                        covariates=extra, iterations=iterations)
+def _grouped_person_periods(values, weights, replicate, waves_used, any_risk):
+    """The person-periods as binomial cells of equal wave and value (and replicate
+    group, when weighted, so that the jackknife can leave a group out): (xt with the
+    cells' standardised values, events per cell, person-periods per cell, bounds, each
+    cell's group or None, person-periods, events). Weighted, a cell's events and
+    person-periods are weight sums. None when some wave's values are not on a grid of
+    at most 65,536 steps of 10^-d (d <= 3; ``summaries.ranks._counting_index``);
+    nothing is marked then. A cell's value is standardised by the same arithmetic as
+    its rows would be, so the cells give the rows' likelihood."""
+    from paneldiag.summaries.ranks import _counting_index
+    k = 1 if weights is None else int(replicate.max()) + 1 if len(replicate) else 1
+    parts, n_pp, n_ev = [], 0, 0
+    for s, rows, at, event, mean, sd in _risk_sets(values, [], weights):
+        index = _counting_index(at)
+        if index is None:
+            waves_used[:], any_risk[:] = False, False
+            return None
+        waves_used[s] = True
+        any_risk[rows] = True
+        n_pp, n_ev = n_pp + len(rows), n_ev + int(event.sum())
+        w = None if weights is None else weights[rows]
+        if weights is not None:
+            index = index * k + replicate[rows]   # cells of one value and group
+        trials = np.bincount(index, weights=w).astype(float)
+        events = np.bincount(index, weights=event if w is None else np.where(event, w, 0.0),
+                             minlength=len(trials))
+        value = np.empty(len(trials))
+        value[index] = at                  # equal positions hold equal values
+        kept = np.flatnonzero(np.bincount(index, minlength=len(trials)))
+        z = value[kept]
+        z -= mean
+        z /= sd
+        parts.append((z, events[kept], trials[kept], kept % k))
+    bounds = [0] + list(np.cumsum([len(z) for z, _, _, _ in parts]))
+    join = (lambda i: np.concatenate([part[i] for part in parts])) if parts else \
+        (lambda i: np.empty(0))
+    group = join(3).astype(np.int64) if weights is not None else None
+    return join(0)[None, :], join(1), join(2), bounds, group, n_pp, n_ev
 
 
 SUBSAMPLE_STEP = 8          # start values from every event and every 32nd non-event ...
@@ -761,16 +837,18 @@ def _weighted_sd(x: np.ndarray, w: np.ndarray) -> float:
 
 def _jackknife_logit(y, xt, bounds, row_w, row_group, beta, start, max_iter, tol):
     """Odds-ratio intervals (exp scale) and p-values of the slopes from the
-    delete-a-group jackknife: each replicate group's person-periods get weight 0 and
-    the model is refitted from the full estimate. NaN when a refit fails."""
+    delete-a-group jackknife: each replicate group's rows (person-periods or cells,
+    ``y`` their weighted events, ``row_w`` their weights) get weight 0 and the model
+    is refitted from the full estimate. NaN when a refit fails."""
     from paneldiag.summaries.jackknife import jackknife_se
     k = int(row_group.max()) + 1 if len(row_group) else 0
     copies = []
     for g in range(k):  # a loop over replicate groups
-        w = np.where(row_group == g, 0.0, row_w)
+        out = row_group == g
+        w, events_w = np.where(out, 0.0, row_w), np.where(out, 0.0, y)
         # waves left without events or non-events drop out, as in the full fit
         size = np.add.reduceat(w, bounds[:-1])
-        events = np.add.reduceat(np.where(y, w, 0.0), bounds[:-1])
+        events = np.add.reduceat(events_w, bounds[:-1])
         kept = (events > 0) & (events < size)
         rows = np.concatenate([np.arange(a, b) for a, b, keep in
                                zip(bounds[:-1], bounds[1:], kept) if keep] or [[]]
@@ -778,7 +856,7 @@ def _jackknife_logit(y, xt, bounds, row_w, row_group, beta, start, max_iter, tol
         sub_bounds = np.r_[0, np.cumsum(np.diff(bounds)[kept])]
         fit = None
         if kept.any():
-            fit = _newton_logit(y[rows], xt[:, rows], sub_bounds, max_iter, tol,
+            fit = _newton_logit(events_w[rows], xt[:, rows], sub_bounds, max_iter, tol,
                                 (start[0][kept], start[1]), w[rows])
         if fit is None:
             nan = np.full(len(beta), np.nan)
@@ -805,8 +883,8 @@ def _subsample_start(y, xt, bounds, max_iter, row_w=None):
         return None
     parts, shifts = [], []
     for a, b in zip(bounds[:-1], bounds[1:]):  # a loop over waves
-        events = np.flatnonzero(y[a:b])
-        others = np.flatnonzero(~y[a:b])
+        events = np.flatnonzero(y[a:b] > 0)
+        others = np.flatnonzero(y[a:b] == 0)
         kept = others[::SUBSAMPLE_STEP]
         if len(events) == 0 or len(kept) == 0:
             return None   # a wave without events (or non-events): no start values
@@ -830,7 +908,9 @@ def _newton_logit(y, xt, bounds, max_iter, tol, start=None, weights=None):
     matrix is assembled from per-level sums (the intercept block is diagonal), one
     level's slice at a time, in reused buffers. ``start`` gives (intercepts, slopes)
     to start from; by default the intercepts are the levels' log-odds and the slopes
-    zero. With ``weights`` (one per row) the weighted log-likelihood is maximised."""
+    zero. With ``weights`` (one per row) the weighted log-likelihood is maximised and
+    ``y`` holds each row's weighted events: a row is then a person-period of that
+    weight, or a binomial cell of that many (or that weight sum of) person-periods."""
     k = xt.shape[0]
     n_levels = len(bounds) - 1
     xt = np.ascontiguousarray(xt)   # one contiguous row per predictor: dot products
@@ -840,8 +920,7 @@ def _newton_logit(y, xt, bounds, max_iter, tol, start=None, weights=None):
                            for a, b in zip(bounds[:-1], bounds[1:])], dtype=float)
     else:
         size = np.add.reduceat(weights, bounds[:-1]) if n_levels else np.zeros(0)
-        events = np.array([weights[a:b][y[a:b]].sum()
-                           for a, b in zip(bounds[:-1], bounds[1:])])
+        events = np.add.reduceat(y, bounds[:-1]) if n_levels else np.zeros(0)
         if not np.all((events > 0) & (events < size)):
             return None
     alpha = np.log(events / (size - events))
@@ -868,11 +947,13 @@ def _newton_logit(y, xt, bounds, max_iter, tol, start=None, weights=None):
                 np.exp(prob, out=prob)
             prob += 1.0
             np.reciprocal(prob, out=prob)       # 1 / (1 + exp(-eta))
-            np.subtract(y[a:b], prob, out=r)
             np.subtract(1.0, prob, out=w)
             w *= prob
-            if weights is not None:
-                r *= weights[a:b]
+            if weights is None:
+                np.subtract(y[a:b], prob, out=r)
+            else:
+                np.multiply(weights[a:b], prob, out=r)
+                np.subtract(y[a:b], r, out=r)
                 w *= weights[a:b]
             g_alpha[level], h_alpha[level] = r.sum(), w.sum()
             # einsum, not BLAS: a threaded BLAS dot is far slower on long vectors here
@@ -925,12 +1006,8 @@ class Attrition(Result):
     selective: Selective
 
 
-def attrition_section(ctx) -> Attrition:
-    """The ``attrition`` block of the report for one measure."""
-    patterns = ctx.summaries.get(PatternMoments) or PatternMoments.empty(
-        ctx.panel.n_waves, ctx.options.n_replicates)
-    labels = ctx.panel.wave_labels
-    m = ctx.options.min_cell
+def measure_dropout_model(ctx) -> DropoutModel:
+    """The dropout model of the context's measure (work a screen starts ahead)."""
     weights, groups = None, None
     if ctx.panel.weights is not None:
         from paneldiag.summaries import relative_weights, replicate_groups
@@ -938,8 +1015,17 @@ def attrition_section(ctx) -> Attrition:
         groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
         if np.all(weights == 1.0):   # equal weights: the model-based intervals hold
             weights = groups = None
-    model = dropout_model(ctx.values, labels, ctx.panel.covariates, min_cell=m,
-                          weights=weights, replicate=groups)
+    return dropout_model(ctx.values, ctx.panel.wave_labels, ctx.panel.covariates,
+                         min_cell=ctx.options.min_cell, weights=weights, replicate=groups)
+
+
+def attrition_section(ctx) -> Attrition:
+    """The ``attrition`` block of the report for one measure."""
+    patterns = ctx.summaries.get(PatternMoments) or PatternMoments.empty(
+        ctx.panel.n_waves, ctx.options.n_replicates)
+    labels = ctx.panel.wave_labels
+    m = ctx.options.min_cell
+    model = computed(ctx, measure_dropout_model)
     return Attrition(entry_design(patterns, labels, m), retention(patterns, labels, m),
                      unit_types(patterns, labels, m),
                      Selective(dropout_differences(patterns, labels, m), model))

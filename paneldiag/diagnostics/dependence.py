@@ -22,6 +22,7 @@ import numpy as np
 from scipy import optimize
 
 from paneldiag import distributions as dist
+from paneldiag.ahead import computed
 from paneldiag.diagnostics.attrition import coverage_shown
 from paneldiag.diagnostics.polychoric import polychoric
 from paneldiag.results import Result, plain
@@ -889,16 +890,21 @@ def _em_covariance(ctx) -> np.ndarray | None:
     return em.covariance
 
 
-def correlation_section(ctx) -> WaveCorrelations | None:
+def measure_rank_moments(ctx) -> PairwiseMoments:
+    """Pairwise moments of the measure's within-wave ranks (work a screen starts ahead)."""
     from paneldiag.summaries import relative_weights, replicate_groups
     from paneldiag.summaries.ranks import rank_moments
+    groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
+    return rank_moments(ctx.values, groups, ctx.panel.wave_times, ctx.options.n_replicates,
+                        ctx.options.chunk_units, relative_weights(ctx.panel.weights))
+
+
+def correlation_section(ctx) -> WaveCorrelations | None:
     if ctx.panel.n_waves < 2:
         return None
     pairwise = ctx.summary(PairwiseMoments)
     tables = ctx.summaries.get(PairwiseTables)
-    groups = replicate_groups(ctx.panel.unit_ids, ctx.options.n_replicates)
-    ranks = rank_moments(ctx.values, groups, ctx.panel.wave_times, ctx.options.n_replicates,
-                         ctx.options.chunk_units, relative_weights(ctx.panel.weights))
+    ranks = computed(ctx, measure_rank_moments)
     with_reps = _em_replicates(ctx)
     em_cov, em_reps = with_reps if with_reps is not None else (_em_covariance(ctx), None)
     return wave_correlations(pairwise, ranks, tables, ctx.panel.wave_labels,

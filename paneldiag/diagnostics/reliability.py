@@ -20,6 +20,7 @@ import numpy as np
 from scipy import optimize
 
 from paneldiag import distributions as dist
+from paneldiag.ahead import share
 from paneldiag.results import Result
 from paneldiag.summaries.jackknife import jackknife_ci_bounded, jackknife_se
 
@@ -538,15 +539,14 @@ def _em_basis(replicates, full) -> EMBasis | None:
     full = full if full is not None and full.converged else fit(replicates.pooled())
     if full is None or not np.all(np.isfinite(full.covariance)):
         return None
-    parts = []
-    for patterns in replicates.leave_one_out():  # a loop over replicate groups
-        # a looser stopping rule for the copies: their changes from the full fit are of
-        # the order of the standard error, far above 1e-6 of the waves' scale; each
-        # copy holds all but 1/K of the units, so it starts from the full fit
-        em = fit(patterns, tol=1e-6, start=full)
-        if em is None:
-            return None
-        parts.append(em)
+    # a looser stopping rule for the copies: their changes from the full fit are of
+    # the order of the standard error, far above 1e-6 of the waves' scale; each copy
+    # holds all but 1/K of the units, so it starts from the full fit. The copies are
+    # fitted on both threads of the screen (paneldiag.ahead), kept in group order.
+    parts = share(lambda patterns: fit(patterns, tol=1e-6, start=full),
+                  replicates.leave_one_out())
+    if any(em is None for em in parts):
+        return None
     return EMBasis(full.covariance, [p.covariance for p in parts], full.means,
                    [p.means for p in parts])
 

@@ -53,6 +53,7 @@ import numpy as np
 from scipy import optimize, special
 
 from paneldiag import distributions as dist
+from paneldiag.ahead import share
 from paneldiag.rules.parts import Carry, Error, Part, Scale
 
 Z95 = float(dist.norm_ppf(0.975))
@@ -400,6 +401,13 @@ class Moments:
         if structure not in self.cache:
             self.cache[structure] = _fit(structure, self)
         return self.cache[structure]
+
+    def fit_many(self, structures) -> None:
+        """Fit the structures not fitted yet, on both threads of the screen (each fit
+        is a function of its structure and these moments alone)."""
+        todo = list(dict.fromkeys(s for s in structures if s not in self.cache))
+        for structure, fit in zip(todo, share(lambda s: _fit(s, self), todo)):
+            self.cache[structure] = fit
 
 
 def _objective(likelihood, structure: Structure, times: np.ndarray):

@@ -48,6 +48,7 @@ import numpy as np
 from scipy import special
 
 from paneldiag import distributions as dist
+from paneldiag.ahead import share
 from paneldiag.labels import FAMILY_NAMES, STATISTIC_LABELS, measurement_label
 from paneldiag.results import Result
 from paneldiag.rules import structures as st
@@ -382,7 +383,9 @@ def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None,
     departs = ev.shape is not None and t >= 4 and np.isfinite(ev.shape.remainder_p) and \
         ev.shape.remainder_p < alpha
     shape_basis = st.mean_basis(inp.mu, inp.times) if departs else None
-    for family, plan in family_specs(inp.times, shape_basis).items():
+    plans = family_specs(inp.times, shape_basis)
+    m.fit_many(s for plan in plans.values() for s in plan)
+    for family, plan in plans.items():
         ff = FamilyFit(family, [(s, m.fit(s)) for s in plan])
         fits = [fit for _, fit in ff.options if isinstance(fit, st.Fit)]
         if fits:
@@ -1295,19 +1298,23 @@ def _power_rows(ev: Evidence, th: Thresholds) -> list[PartPower]:
     from the richer family's estimated covariance at the panel's response patterns."""
     alpha = th["alpha"]
     rows = []
-    for name in ("dependence", "trait", "carry", "growth", "growth_carry"):
-        res = ev.tests.get(name)
-        if res is None:
-            continue
-        _, df, p, simple_fit, rich_fit = res
-        boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
+    names = [name for name in ("dependence", "trait", "carry", "growth", "growth_carry")
+             if ev.tests.get(name) is not None]
+
+    def noncentrality(name):
+        _, _, _, simple_fit, rich_fit = ev.tests[name]
         try:
-            with _one_thread():
-                lam = st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / \
-                    _test_scaling(ev, simple_fit, rich_fit)
+            return st.noncentrality(simple_fit.structure, rich_fit, ev.moments) / \
+                _test_scaling(ev, simple_fit, rich_fit)
         except (np.linalg.LinAlgError, FloatingPointError, ValueError):
-            continue   # no power row for this test: its noncentrality could not be fitted
-        if not np.isfinite(lam):
+            return None   # no power row for this test: its noncentrality could not be fitted
+
+    with _one_thread():   # the tests' noncentralities, on both threads of the screen
+        lams = share(noncentrality, names)
+    for name, lam in zip(names, lams):
+        _, df, p, simple_fit, rich_fit = ev.tests[name]
+        boundary = (PART_TESTS.get(name) or GROWTH_WITHOUT_CARRY)[4]
+        if lam is None or not np.isfinite(lam):
             continue
         power, _ = lr_power(lam, df, alpha, boundary)
         lam90 = noncentrality_for_power(0.9, df, alpha, boundary)

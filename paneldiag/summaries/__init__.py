@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from paneldiag.ahead import share
 from paneldiag.panel import Panel
 
 CHUNK_UNITS = 1 << 18
@@ -90,21 +91,28 @@ def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = 
     groups = replicate_groups(panel.unit_ids, n_replicates)
     if weights is None:
         weights = relative_weights(panel.weights)
-    merged: dict[type, object] = {}
-    for start in range(0, panel.n_units, chunk_units):
+
+    def parts(start: int) -> dict[type, object]:
         stop = min(start + chunk_units, panel.n_units)
         chunk = Chunk(values=values[start:stop],
                       weights=None if weights is None else weights[start:stop],
                       replicate=groups[start:stop], times=panel.wave_times,
                       n_replicates=n_replicates)
-        shared: dict = {}
+        shared, out = {}, {}
         for kind in kinds:
             shared_pass = getattr(kind, "shared_pass", None)
             if shared_pass is None:
-                part = kind.from_chunk(chunk)
+                out[kind] = kind.from_chunk(chunk)
             else:
                 if shared_pass not in shared:
                     shared[shared_pass] = shared_pass(chunk)
-                part = kind.from_shared(shared[shared_pass])
-            merged[kind] = part if kind not in merged else merged[kind].merge(part)
+                out[kind] = kind.from_shared(shared[shared_pass])
+        return out
+
+    # the chunks are summarised by both threads of the screen (paneldiag.ahead) and
+    # merged here in chunk order, as a serial run merges them
+    merged: dict[type, object] = {}
+    for part in share(parts, range(0, panel.n_units, chunk_units)):
+        for kind in kinds:
+            merged[kind] = part[kind] if kind not in merged else merged[kind].merge(part[kind])
     return merged

@@ -21,6 +21,7 @@ from paneldiag.summaries import Chunk
 from paneldiag.summaries.pairwise import PairwiseMoments
 
 COUNTING_SPAN = 1 << 16   # integer values spanning at most this many are ranked by counting
+PROBE = 1024              # values tried on each grid before all of them are
 
 
 def wave_ranks(values: np.ndarray, weights: np.ndarray | None = None) -> np.ndarray:
@@ -65,6 +66,9 @@ def _counting_index(observed: np.ndarray) -> np.ndarray | None:
             return None
         if max(abs(low), abs(high)) * scale >= 2.0 ** 40:
             return None   # beyond this, distinct grid points could meet in a double
+        probe = observed[:PROBE]   # a cheap necessary condition before the full check
+        if not np.array_equal(np.rint(probe * scale) / scale, probe):
+            continue
         grid = np.rint(observed * scale)
         if np.array_equal(grid / scale, observed):
             return (grid - np.rint(low * scale)).astype(np.int64)

@@ -225,7 +225,7 @@ def stage_profile(path: Path) -> list[tuple[str, float, float]]:
     t = mark("build panel", t)
     limit = screen_module.one_blas_thread()   # as pipeline.screen does
     limit.__enter__()
-    options = screen_module.ScreenOptions()
+    options = screen_module.ScreenOptions(workers=1)   # serial: stage by stage
     ctx = screen_module.MeasureContext(panel=panel, measure=VALUE, options=options,
                                        ledger=ledgers[VALUE])
     summaries = {}

@@ -1,0 +1,96 @@
+"""The screen's second thread: work started ahead, and lists of independent pieces
+shared by both threads.
+
+Some costly pieces of a measure's screen depend on the panel alone, not on the
+summaries or on earlier sections: the dropout model and the within-wave ranks. The
+screen starts them on a worker thread (``start``) while the calling thread builds the
+summaries; the section that needs one takes it with ``computed``, which waits for it,
+or computes it there and then when nothing was started (a serial run, a test's context).
+Lists of independent pieces (the summaries' chunks, the structures' fits, the
+replicate groups' refits) are worked through by both threads at once (``share``), each
+result kept in its place, so whatever merges them merges in the same order.
+
+The work is the same function of the same data either way, so the report is the same
+byte for byte. Threads, not processes: the panel is shared without copying, and the
+work is numpy on long arrays or batches of small matrices, which runs outside the
+interpreter lock.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from concurrent.futures import Executor, ThreadPoolExecutor
+from contextlib import contextmanager
+from contextvars import ContextVar
+from typing import Callable, Iterable
+
+WORKERS_VARIABLE = "PANELDIAG_WORKERS"
+
+# the executor of the running screen; a worker thread sees None, so work on the
+# worker never waits for the worker
+_EXECUTOR: ContextVar[Executor | None] = ContextVar("paneldiag_executor", default=None)
+
+
+def workers() -> int:
+    """Threads a screen uses: 2, or what the environment variable PANELDIAG_WORKERS
+    says (1: everything on the calling thread, in order)."""
+    text = os.environ.get(WORKERS_VARIABLE, "").strip()
+    return max(1, int(text)) if text.isdigit() else 2
+
+
+@contextmanager
+def threads(n_workers: int):
+    """Within this context, ``start`` and ``share`` use ``n_workers - 1`` worker
+    threads beside the calling one (none when ``n_workers`` is 1)."""
+    executor = ThreadPoolExecutor(n_workers - 1, "paneldiag") if n_workers > 1 else None
+    token = _EXECUTOR.set(executor)
+    try:
+        yield executor
+    finally:
+        _EXECUTOR.reset(token)
+        if executor is not None:
+            executor.shutdown(cancel_futures=True)
+
+
+def start(ctx, works: Iterable[Callable]) -> None:
+    """Submit each ``work(ctx)`` to the worker; nothing in a serial run."""
+    executor = _EXECUTOR.get()
+    if executor is None:
+        return
+    for work in works:
+        ctx.started[work] = executor.submit(work, ctx)
+
+
+def computed(ctx, work: Callable):
+    """``work(ctx)``: its result from the worker when it was started ahead."""
+    future = getattr(ctx, "started", {}).get(work)
+    return work(ctx) if future is None else future.result()
+
+
+def share(fn: Callable, items: Iterable) -> list:
+    """``[fn(item) for item in items]``, the items taken in turn by this thread and
+    the worker (which joins once its earlier work is done)."""
+    items = list(items)
+    executor = _EXECUTOR.get()
+    if executor is None or len(items) < 2:
+        return [fn(item) for item in items]
+    results = [None] * len(items)
+    queue = iter(range(len(items)))
+    lock = threading.Lock()
+
+    def work_through():
+        while True:
+            with lock:
+                i = next(queue, None)
+            if i is None:
+                return
+            results[i] = fn(items[i])
+
+    helper = executor.submit(work_through)
+    try:
+        work_through()
+    finally:
+        if not helper.cancel():   # the worker took items: wait for its last one
+            helper.result()
+    return results
