@@ -36,9 +36,9 @@ from paneldiag.errors import InputProblem
 from paneldiag.io.readers import NULL_TOKENS, RawTable, _refuse_binary_columns, _to_frame, \
     detect_format
 from paneldiag.io.stream import (BLOCK_MAX, BLOCK_MIN, BLOCK_WORK, FixedWaves, _Block,
-                                 _last_record_end,
-                                 _count_units, _finish, _parquet_files, _read_whole_file_waves,
-                                 _scan, _Scan, _source, _TextSource, _unify_types, size_text)
+                                 _count_units, _finish, _last_record_end, _parquet_files,
+                                 _read_whole_file_waves, _scan, _Scan, _source, _TextSource,
+                                 _unify_types, add_ledgers, ledger_totals, size_text)
 from paneldiag.io.validate import (LayoutSpec, Refusals, _build_long, _check_extent,
                                    _factorize_ids, _ids_missing, _missing_mask,
                                    _override_times)
@@ -376,21 +376,9 @@ def _assemble(parts: list[dict], spec: LayoutSpec, n_waves: int) -> dict:
             if order is None:   # shuffled parts are not in file order: the first row wins
                 order = problem(count, items).row
             refusals.note(key, count, problem, order, items)
-    totals = {m: {"rows_read": 0, "rows_used": 0, "reasons": {}, "grouping": None}
-              for m in spec.measure_names()}
+    totals = ledger_totals(spec)
     for part in parts:
-        for measure, ledger in part["ledgers"].items():
-            total = totals[measure]
-            total["rows_read"] += ledger.rows_read
-            total["rows_used"] += ledger.rows_used
-            for reason, count in ledger.dropped_by_reason.items():
-                total["reasons"][reason] = total["reasons"].get(reason, 0) + count
-            if ledger.wave_grouping:
-                grouping = total["grouping"] or dict(ledger.wave_grouping, rows_moved=0,
-                                                     rows_outside=0, rows_sharing_a_wave=0)
-                for key in ("rows_moved", "rows_outside", "rows_sharing_a_wave"):
-                    grouping[key] += ledger.wave_grouping[key]
-                total["grouping"] = grouping
+        add_ledgers(totals, part["ledgers"])
     panels = [p["panel"] for p in parts if p["panel"] is not None]
     measures = spec.measure_names()
     if not panels:

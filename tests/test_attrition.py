@@ -247,6 +247,25 @@ def test_retention_suppresses_small_waves():
 
 # ----------------------------------------------------- the discrete-time model
 
+def _matches_statsmodels_logit(fit, long, with_covariate=False):
+    """The dropout model's figures against statsmodels' Logit on the person-period rows
+    (wave dummies, the measure z and optionally the covariate w standardised); both
+    iterate to 1e-10 or tighter, hence the tolerances. Returns the reference fit."""
+    design = pd.get_dummies(long["wave"], prefix="wave", dtype=float)
+    design["z"] = long["z"]
+    if with_covariate:
+        design["w"] = (long["w"] - long["w"].mean()) / long["w"].std(ddof=0)
+    ref = sm.Logit(long["event"], design).fit(disp=0, tol=1e-12, maxiter=100)
+    assert fit.fitted
+    assert fit.n_person_periods == len(long) and fit.n_events == int(long["event"].sum())
+    assert fit.odds_ratio_per_sd == pytest.approx(np.exp(ref.params["z"]), rel=1e-8)
+    low, high = np.exp(ref.conf_int().loc["z"])
+    assert fit.ci_low == pytest.approx(low, rel=1e-6)
+    assert fit.ci_high == pytest.approx(high, rel=1e-6)
+    assert fit.pvalue == pytest.approx(ref.pvalues["z"], rel=1e-5)
+    return ref
+
+
 def _person_period(x, cov=None):
     """Person-period rows built with pandas, independently of paneldiag."""
     n, t = x.shape
@@ -273,17 +292,7 @@ def test_dropout_model_equals_statsmodels_logit_on_person_periods():
     x[rng.random(x.shape) < 0.05] = np.nan   # intermittent skips too
     fit = dropout_model(x, list("abcde"), {"w": w})
     long = _person_period(x, w)
-    design = pd.get_dummies(long["wave"], prefix="wave", dtype=float)
-    design["z"] = long["z"]
-    design["w"] = (long["w"] - long["w"].mean()) / long["w"].std(ddof=0)
-    ref = sm.Logit(long["event"], design).fit(disp=0, tol=1e-12, maxiter=100)
-    assert fit.fitted
-    assert fit.n_person_periods == len(long) and fit.n_events == int(long["event"].sum())
-    assert fit.odds_ratio_per_sd == pytest.approx(np.exp(ref.params["z"]), rel=1e-8)
-    low, high = np.exp(ref.conf_int().loc["z"])
-    assert fit.ci_low == pytest.approx(low, rel=1e-6)
-    assert fit.ci_high == pytest.approx(high, rel=1e-6)
-    assert fit.pvalue == pytest.approx(ref.pvalues["z"], rel=1e-5)
+    ref = _matches_statsmodels_logit(fit, long, with_covariate=True)
     assert fit.covariates[0]["odds_ratio_per_sd"] == pytest.approx(np.exp(ref.params["w"]),
                                                                    rel=1e-8)
 
@@ -383,16 +392,7 @@ def test_dropout_model_on_grid_values_fits_binomial_cells_equal_to_the_rows(monk
     fit = dropout_model(x, list("abcde"))
     assert calls and fit.fitted
     long = _person_period(x)
-    design = pd.get_dummies(long["wave"], prefix="wave", dtype=float)
-    design["z"] = long["z"]
-    ref = sm.Logit(long["event"], design).fit(disp=0, tol=1e-12, maxiter=100)
-    assert fit.n_person_periods == len(long) and fit.n_events == int(long["event"].sum())
-    # tolerances as in the reference test above: both iterate to 1e-10 or tighter
-    assert fit.odds_ratio_per_sd == pytest.approx(np.exp(ref.params["z"]), rel=1e-8)
-    low, high = np.exp(ref.conf_int().loc["z"])
-    assert fit.ci_low == pytest.approx(low, rel=1e-6)
-    assert fit.ci_high == pytest.approx(high, rel=1e-6)
-    assert fit.pvalue == pytest.approx(ref.pvalues["z"], rel=1e-5)
+    _matches_statsmodels_logit(fit, long)
     # the row-by-row fit of the same panel agrees to rounding (same likelihood)
     monkeypatch.setattr(attrition, "_grouped_person_periods", lambda *a: None)
     rows = dropout_model(x, list("abcde"))

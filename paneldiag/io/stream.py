@@ -572,6 +572,28 @@ class _Holdings:
         return cells * matrices + self.n_units * (8 + 8 + 64)  # ids, weights, groups
 
 
+def ledger_totals(spec: LayoutSpec) -> dict:
+    """Each measure's ledger counts over blocks, empty (filled by ``add_ledgers``)."""
+    return {m: {"rows_read": 0, "rows_used": 0, "reasons": {}, "grouping": None}
+            for m in spec.measure_names()}
+
+
+def add_ledgers(totals: dict, ledgers: dict) -> None:
+    """Adds one block's ledgers (by measure) to the running ``totals``."""
+    for measure, ledger in ledgers.items():
+        total = totals[measure]
+        total["rows_read"] += ledger.rows_read
+        total["rows_used"] += ledger.rows_used
+        for reason, count in ledger.dropped_by_reason.items():
+            total["reasons"][reason] = total["reasons"].get(reason, 0) + count
+        if ledger.wave_grouping:
+            grouping = total["grouping"] or dict(ledger.wave_grouping, rows_moved=0,
+                                                 rows_outside=0, rows_sharing_a_wave=0)
+            for key in ("rows_moved", "rows_outside", "rows_sharing_a_wave"):
+                grouping[key] += ledger.wave_grouping[key]
+            total["grouping"] = grouping
+
+
 def _assemble(source, spec, labels, reading, n_units, block_bytes):
     n_waves = len(reading.labels)
     fixed = FixedWaves(labels, reading)
@@ -586,26 +608,14 @@ def _assemble(source, spec, labels, reading, n_units, block_bytes):
     unit_ids: list = []
     codes = {m: {} for m in spec.measure_names()}
     code_labels = {m: {} for m in spec.measure_names()}
-    totals = {m: {"rows_read": 0, "rows_used": 0, "reasons": {}, "grouping": None}
-              for m in spec.measure_names()}
+    totals = ledger_totals(spec)
     placed = 0
 
     def take(raw: RawTable) -> None:
         nonlocal placed
         raw.refusals = refusals
         panel, ledgers = _build_long(raw, spec, fixed)
-        for measure, ledger in ledgers.items():
-            total = totals[measure]
-            total["rows_read"] += ledger.rows_read
-            total["rows_used"] += ledger.rows_used
-            for reason, count in ledger.dropped_by_reason.items():
-                total["reasons"][reason] = total["reasons"].get(reason, 0) + count
-            if ledger.wave_grouping:
-                grouping = total["grouping"] or dict(ledger.wave_grouping, rows_moved=0,
-                                                     rows_outside=0, rows_sharing_a_wave=0)
-                for key in ("rows_moved", "rows_outside", "rows_sharing_a_wave"):
-                    grouping[key] += ledger.wave_grouping[key]
-                total["grouping"] = grouping
+        add_ledgers(totals, ledgers)
         if panel is None:
             return
         if placed + panel.n_units > n_units:  # the first pass saw each unit in one run
