@@ -38,11 +38,10 @@ from paneldiag.io.readers import NULL_TOKENS, RawTable, _refuse_binary_columns, 
 from paneldiag.io.stream import (BLOCK_MAX, BLOCK_MIN, BLOCK_WORK, FixedWaves, _Block,
                                  _count_units, _finish, _last_record_end, _parquet_files,
                                  _read_whole_file_waves, _scan, _Scan, _source, _TextSource,
-                                 _unify_types, add_ledgers, ledger_totals, size_text)
-from paneldiag.io.validate import (LayoutSpec, Refusals, _build_long, _check_extent,
-                                   _factorize_ids, _ids_missing, _missing_mask,
-                                   _override_times)
-from paneldiag.io.waves import check_shared_waves
+                                 _unify_types, add_ledgers, check_scanned_extent,
+                                 ledger_totals, size_text)
+from paneldiag.io.validate import (LayoutSpec, Refusals, _build_long, _factorize_ids,
+                                   _ids_missing, _missing_mask)
 
 ENGINES = ("local", "dask")
 DASK_FORMATS = ("csv", "tsv", "parquet")
@@ -464,17 +463,7 @@ def dask_panel(client, path: str, spec: LayoutSpec, fmt: str | None, delimiter: 
         raise InputProblem("no row has a wave inside the --wave-bins edges",
                            file=path, column=spec.wave)
     n_units = _count_units(scan, source, spec, labels, reading, size)[0]
-    times = _override_times(spec, reading.times, len(reading.labels))
-    n_waves = len(reading.labels)
-    _check_extent(RawTable(frame=pd.DataFrame(), source=path, format=fmt, sha256="",
-                           first_row_number=1), n_units, n_waves)
-    rows_per_wave = np.zeros(n_waves, dtype=np.int64)
-    for label, position in zip(labels, reading.position):
-        if position >= 0:
-            rows_per_wave[position] += scan.labels[label][1]
-    check_shared_waves(rows_per_wave, reading.times, f"the wave column '{spec.wave}'",
-                       lambda what: InputProblem(what, file=path, column=spec.wave),
-                       spec.wave_grouping, spec.max_waves, reading.kind, n_units)
+    times, n_waves = check_scanned_extent(scan, labels, reading, spec, path, fmt, n_units)
     spanning = units_span_parts(scans)
     runs = np.concatenate(scan.run_ids) if scan.run_ids else np.zeros(0)
     together = not pd.Index(runs).duplicated().any()   # each unit's rows in one run

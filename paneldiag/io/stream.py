@@ -21,7 +21,6 @@ import bisect
 import gzip
 import hashlib
 import os
-import re
 from dataclasses import dataclass, field
 from typing import Iterator
 
@@ -572,6 +571,24 @@ class _Holdings:
         return cells * matrices + self.n_units * (8 + 8 + 64)  # ids, weights, groups
 
 
+def check_scanned_extent(scan: _Scan, labels, reading, spec: LayoutSpec, path: str, fmt: str,
+                         n_units: int) -> tuple[np.ndarray, int]:
+    """The whole file's checks of size and waves from the first pass (the panel's extent,
+    waves sharing a time); returns the wave times and the number of waves."""
+    times = _override_times(spec, reading.times, len(reading.labels))
+    n_waves = len(reading.labels)
+    _check_extent(RawTable(frame=pd.DataFrame(), source=path, format=fmt, sha256="",
+                           first_row_number=1), n_units, n_waves)
+    rows_per_wave = np.zeros(n_waves, dtype=np.int64)
+    for label, position in zip(labels, reading.position):
+        if position >= 0:
+            rows_per_wave[position] += scan.labels[label][1]
+    check_shared_waves(rows_per_wave, reading.times, f"the wave column '{spec.wave}'",
+                       lambda what: InputProblem(what, file=path, column=spec.wave),
+                       spec.wave_grouping, spec.max_waves, reading.kind, n_units)
+    return times, n_waves
+
+
 def ledger_totals(spec: LayoutSpec) -> dict:
     """Each measure's ledger counts over blocks, empty (filled by ``add_ledgers``)."""
     return {m: {"rows_read": 0, "rows_used": 0, "reasons": {}, "grouping": None}
@@ -695,18 +712,7 @@ def stream_panel(path: str, spec: LayoutSpec, fmt: str | None, delimiter: str | 
                            file=path, column=spec.wave)
     n_units, run_ids, run_rows, repeated = _count_units(scan, source, spec, labels, reading,
                                                        first_blocks)
-    times = _override_times(spec, reading.times, len(reading.labels))
-    n_waves = len(reading.labels)
-    place = RawTable(frame=pd.DataFrame(), source=path, format=fmt, sha256="",
-                     first_row_number=1)
-    _check_extent(place, n_units, n_waves)
-    rows_per_wave = np.zeros(n_waves, dtype=np.int64)
-    for label, position in zip(labels, reading.position):
-        if position >= 0:
-            rows_per_wave[position] += scan.labels[label][1]
-    check_shared_waves(rows_per_wave, reading.times, f"the wave column '{spec.wave}'",
-                       lambda what: InputProblem(what, file=path, column=spec.wave),
-                       spec.wave_grouping, spec.max_waves, reading.kind, n_units)
+    times, n_waves = check_scanned_extent(scan, labels, reading, spec, path, fmt, n_units)
     if repeated.any():
         raise _unsorted_problem(source, spec, run_ids, run_rows, repeated)
     del run_ids, run_rows, scan
