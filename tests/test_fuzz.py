@@ -334,6 +334,13 @@ def _check_command(outcome, written: list[str]) -> None:
 @fuzz_settings(12, shrink=False)
 @given(frame=panels(max_units=50, max_waves=6), table=text_tables(),
        which=st.sampled_from(["panel", "panel", "text"]))
+# found: a measure in hundreds of millions put the polish's scaled bounds at infinity
+@example(frame=pd.DataFrame({"id": [f"h{i:04d}" for i in range(23)],
+                             "w1": [0.0, 0.0, 250000000.0, 0.0, 100000000.0, 250000000.0, 100000000.0, 100000000.0, 0.0, 250000000.0, 250000000.0, 250000000.0, 250000000.0, 100000000.0, 250000000.0, 100000000.0, 0.0, 0.0, 250000000.0, 100000000.0, 250000000.0, 0.0, 100000000.0],
+                             "w2": [100000000.0, 0.0, 0.0, 100000000.0, np.nan, 100000000.0, np.nan, np.nan, 100000000.0, 250000000.0, 250000000.0, 100000000.0, np.nan, np.nan, 0.0, np.nan, 100000000.0, 0.0, np.nan, 250000000.0, 250000000.0, 100000000.0, 250000000.0],
+                             "w3": [np.nan, 0.0, 0.0, 0.0, np.nan, 0.0, np.nan, np.nan, 0.0, 0.0, 0.0, np.nan, np.nan, np.nan, 0.0, np.nan, 0.0, np.nan, np.nan, np.nan, 0.0, np.nan, 0.0],
+                             "w4": [np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, 3.0, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan, np.nan]}),
+         table=(b"", ","), which="panel")
 def test_command_line_forked(tmp_path_factory, frame, table, which):
     """The command's main in forked children (cheap), on generated panels and files."""
     out = tmp_path_factory.mktemp("cli")

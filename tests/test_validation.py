@@ -95,6 +95,7 @@ def departures_reduced():
 
 
 @pytest.mark.departures
+@pytest.mark.slow     # 350 panels, about 2.5 minutes on two cores: `pytest --full-grid`
 @pytest.mark.parametrize("departure", DEPARTURES_TESTED)
 def test_departure_targets(departures_reduced, departure):
     """The targets in the target region (N >= 1000, T >= 6), per departure and true
@@ -125,6 +126,7 @@ def test_departure_grid_cells():
     assert {c.departure for c in validation.conditions_of(validation.REDUCED_GRID)} == {"none"}
 
 
+@pytest.mark.slow
 def test_departure_report_whatever_the_workers():
     """A small departure grid gives the same verdicts with one worker or two, and its
     report has a row per departure and true family, and a confusion table each."""
