@@ -17,6 +17,8 @@ one block of the file; docs/scale.md states the bound as measured.
 
 from __future__ import annotations
 
+from abc import ABC, abstractmethod
+
 import bisect
 import gzip
 import hashlib
@@ -121,7 +123,7 @@ class _Block:
     first_record: int        # record number (0-based) of its first row in the file
 
 
-class _Source:
+class _Source(ABC):
     """Blocks of a file, and the row number of any record (worked out on demand)."""
 
     def __init__(self, path: str, fmt: str, columns: list[str], delimiter: str | None):
@@ -130,14 +132,17 @@ class _Source:
         self.types: dict = {}     # CSV: Arrow type per column, fixed once inferred
         self.seen: dict = {}      # CSV: the types the blocks were inferred as
 
+    @abstractmethod
     def row_of(self, record: int) -> int:
-        raise NotImplementedError
+        """The file's row number of a record (0-based record index)."""
 
+    @abstractmethod
     def blocks(self, columns: list[str], block_bytes: int) -> Iterator[_Block]:
-        raise NotImplementedError
+        """The file's records in blocks of about ``block_bytes``."""
 
+    @abstractmethod
     def digest(self) -> str:
-        raise NotImplementedError
+        """The SHA-256 of the file's bytes."""
 
 
 class _TextSource(_Source):
