@@ -70,24 +70,32 @@ def computed(ctx, work: Callable):
     return work(ctx) if future is None else future.result()
 
 
-def share(fn: Callable, items: Iterable) -> list:
+def share(fn: Callable, items: Iterable, give_up: Callable | None = None) -> list:
     """``[fn(item) for item in items]``, the items taken in turn by this thread and
-    the worker (which joins once its earlier work is done)."""
+    the worker (which joins once its earlier work is done). With ``give_up``, once a
+    result satisfies it the items not yet taken are skipped (their places hold None):
+    for lists that are useless as soon as one piece fails."""
     items = list(items)
-    executor = _EXECUTOR.get()
-    if executor is None or len(items) < 2:
-        return [fn(item) for item in items]
     results = [None] * len(items)
     queue = iter(range(len(items)))
     lock = threading.Lock()
+    failed = False
 
     def work_through():
+        nonlocal failed
         while True:
             with lock:
-                i = next(queue, None)
+                i = None if failed else next(queue, None)
             if i is None:
                 return
             results[i] = fn(items[i])
+            if give_up is not None and give_up(results[i]):
+                failed = True
+
+    executor = _EXECUTOR.get()
+    if executor is None or len(items) < 2:
+        work_through()
+        return results
 
     helper = executor.submit(work_through)
     try:

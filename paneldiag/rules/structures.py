@@ -468,6 +468,7 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
     theta = np.clip(np.asarray(start, dtype=float), lower, upper)
     value, grad = fn(theta)
     curvature = 1.0   # secant rescaling of the complete-data Hessian (missing information)
+    last_length = 1.0
     for _ in range(max_iter):
         sigma, grads = structure.build(theta, times)
         hess = likelihood.expected_hessian(sigma, grads)
@@ -499,7 +500,9 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
         # shrinks it, and a search slowed by a large factor would pass for converged
         if -0.5 * slope * max(curvature, 1.0) < tol:
             return theta, value, True
-        length, accepted = 1.0, False
+        # a search that needed short steps starts the next one near them (a ridge or a
+        # bound along which the full step overshoots), not 20 halvings above
+        length, accepted = min(1.0, 4.0 * last_length), False
         for _ in range(40):
             trial = np.clip(theta + length * step, lower, upper)
             new_value, new_grad = fn(trial)
@@ -513,7 +516,7 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
         along = float(moved @ hess @ moved)
         if along > 0:
             curvature *= float(np.clip((new_grad - grad) @ moved / along, 0.05, 20.0))
-        theta, value, grad = trial, new_value, new_grad
+        theta, value, grad, last_length = trial, new_value, new_grad, length
     return theta, value, False
 
 
