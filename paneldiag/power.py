@@ -138,9 +138,10 @@ def pattern_population(sigma: np.ndarray, observed: np.ndarray, shares: np.ndarr
 
 
 def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
-                     alpha: float | None = None, hazard: float = 0.0) -> dict:
+                     alpha: float | None = None, hazard: float = 0.0, tests=None) -> dict:
     """The rules' part tests run on population moments (N = n): by test,
-    (noncentrality, df, p, simpler fit, richer fit). With a dropout ``hazard`` the units
+    (noncentrality, df, p, simpler fit, richer fit), for every test, or with ``tests``
+    for those named (and any other test on the same richer family; the rest are None). With a dropout ``hazard`` the units
     fall into the response patterns of monotone dropout (``monotone_patterns``) and the
     tests use the full-information likelihood of those patterns."""
     times = np.asarray(times, dtype=float)
@@ -157,7 +158,11 @@ def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
     table = default_thresholds()
     alpha = float(table["alpha"] if alpha is None else alpha)
     with verdicts._one_thread():
-        return verdicts._fit_all(inp, alpha, int(table["max_waves_per_wave"])).tests
+        families = None if tests is None else \
+            {verdicts.PART_TESTS[test][1] for test in tests} | \
+            ({verdicts.GROWTH_WITHOUT_CARRY[1]} if "growth" in tests else set())
+        return verdicts._fit_all(inp, alpha, int(table["max_waves_per_wave"]),
+                                 families=families).tests
 
 
 def part_test_power(test: str, family: str, n_units: int, n_waves: int,
@@ -172,7 +177,7 @@ def part_test_power(test: str, family: str, n_units: int, n_waves: int,
     process = family_process(family, times, reliability)
     sigma = population_covariance(process, times)
     res = population_tests(sigma, population_mean(process, times), times, n_units, alpha,
-                           hazard)
+                           hazard, tests=(test,))
     lam, df, _, simple_fit, rich_fit = res[test]
     boundary = verdicts.PART_TESTS[test][4]
     power, critical = lr_power(lam, df, alpha, boundary)

@@ -250,7 +250,7 @@ def power_bound(condition: Condition) -> float:
     # every required test from one run of the rules on the population moments
     tests = population_tests(population_covariance(process, times),
                              population_mean(process, times), times, condition.n_units,
-                             alpha, hazard)
+                             alpha, hazard, tests=required)
     return min(lr_power(tests[test][0], tests[test][1], alpha, PART_TESTS[test][4])[0]
                for test in required)
 

@@ -370,9 +370,10 @@ def _criterion(fit: st.Fit, m: st.Moments) -> float:
 
 
 def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None,
-             flat: tuple[float, float] | None = None) -> Evidence:
-    """Every family's specifications fitted, the choice within and across families by
-    BIC, and the part tests."""
+             flat: tuple[float, float] | None = None, families=None) -> Evidence:
+    """Every family's specifications fitted (or those of ``families`` only: a part test
+    needs its richer family alone), the choice within and across families by BIC, and
+    the part tests whose richer family was fitted."""
     t = len(inp.times)
     m = moments_of(inp, max_waves_per_wave, flat)
     ev = Evidence(m)
@@ -383,7 +384,8 @@ def _fit_all(inp: Inputs, alpha: float, max_waves_per_wave: int | None = None,
     departs = ev.shape is not None and t >= 4 and np.isfinite(ev.shape.remainder_p) and \
         ev.shape.remainder_p < alpha
     shape_basis = st.mean_basis(inp.mu, inp.times) if departs else None
-    plans = family_specs(inp.times, shape_basis)
+    plans = {family: plan for family, plan in family_specs(inp.times, shape_basis).items()
+             if families is None or family in families}
     m.fit_many(s for plan in plans.values() for s in plan)
     for family, plan in plans.items():
         ff = FamilyFit(family, [(s, m.fit(s)) for s in plan])
