@@ -119,11 +119,11 @@ def _within(x, y, scale: float, path: str = "") -> bool:
     # points that agree to about 1e-6: a last shown digit may turn either way
     if path.startswith(".verdict_basis.specifications."):
         return abs(x - y) <= 1.5e-4 * max(abs(x), abs(y), 1.0)
-    # units for a power of 0.9: the ceiling of N times a ratio of noncentralities, each a
-    # fit's minimum found to a change of 1e-7 in chi-square; at the small noncentralities
-    # behind counts of tens of thousands that is 1e-6 relative, so the ceiling may turn
+    # units for a power of 0.9: N times a ratio of noncentralities (each a fit's minimum
+    # found to a change of 1e-7 in chi-square), rounded up to three significant figures;
+    # at a ratio's rounding edge the last shown figure may turn
     if path.endswith(".units_for_power_90"):
-        return abs(x - y) <= 1 + 1e-5 * max(abs(x), abs(y))
+        return abs(x - y) <= 10 ** max(len(str(int(max(x, y)))) - 3, 0)
     # relative, and absolute below 1: a figure that is a difference of O(1) figures
     # (the simulated measures are O(1)) carries their absolute rounding, 1e-16
     return abs(x - y) <= tolerance * max(abs(x), abs(y), scale, 1.0)

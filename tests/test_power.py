@@ -188,3 +188,11 @@ def test_power_study_statistic_matches_a_direct_ml_fit():
         assert [type(p).__name__ for p in rich.structure.parts] == ["Trait", "Carry", "Error"]
         assert rich.structure.parts[-1].kind == "equal" and df == 1
         assert stat == pytest.approx(_direct_ml_trait_statistic(y), rel=1e-5)
+
+
+def test_unit_counts_for_power_are_rounded_up_to_three_figures():
+    # a planned sample size is never rounded down (common practice): the count shown
+    # reaches the power; three figures because the later ones follow the fits' rounding
+    from paneldiag.rules.verdicts import units_needed
+    assert [units_needed(x) for x in (1, 12.2, 999.5, 1001, 661_331, 2_193_540.2)] == \
+        [1, 13, 1000, 1010, 662_000, 2_200_000]

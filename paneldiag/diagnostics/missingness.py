@@ -196,7 +196,7 @@ def _start(patterns: PatternMoments, used: np.ndarray):
 _EM_CACHE: dict[tuple, tuple[weakref.ref, EMResult]] = {}
 
 
-def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-8,
+def em_moments(patterns: PatternMoments, max_iter: int = 2000, tol: float = 1e-12,
                start: EMResult | None = None, loglik: bool = True) -> EMResult:
     """ML estimates of the wave means and covariance under missing at random.
 

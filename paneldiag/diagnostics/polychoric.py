@@ -256,18 +256,42 @@ def latent_scale(margins: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
         return tau, mu, sd
 
     def negloglik(x):
+        """Minus the log-likelihood of the margins and its gradient (the derivative of
+        each category's probability is the normal density at its two thresholds)."""
         tau, mu, sd = unpack(x)
         if np.any(np.diff(tau) <= 0):
-            return 1e20
+            return 1e20, np.zeros_like(x)
         z = (tau[None, :] - mu[:, None]) / sd[:, None]
         cdf = np.concatenate([np.zeros((n_waves, 1)), ndtr(z), np.ones((n_waves, 1))],
                              axis=1)
         prob = np.clip(np.diff(cdf, axis=1), 1e-300, None)
-        return -float(np.sum(margins * np.log(prob)))
+        ratio = margins / prob
+        by_z = -np.exp(-0.5 * z * z) / np.sqrt(2 * np.pi) * (ratio[:, :-1] - ratio[:, 1:])
+        grad = np.concatenate([(by_z / sd[:, None]).sum(axis=0),
+                               -(by_z / sd[:, None]).sum(axis=1)[1:],
+                               -(by_z * z).sum(axis=1)[1:]])
+        return -float(np.sum(margins * np.log(prob))), grad
 
-    res = optimize.minimize(negloglik, start, method="Nelder-Mead" if start.size <= 3
-                            else "BFGS", options={"maxiter": 5000})
+    # analytic gradients and a stopping rule relative to the counts: the estimates are
+    # reproducible to rounding, not to a numerical gradient's step
+    res = optimize.minimize(negloglik, start, jac=True, method="BFGS",
+                            options={"maxiter": 5000, "gtol": 1e-10 * margins.sum()})
     if not np.isfinite(res.fun):
         return None
-    _, mu, sd = unpack(res.x)
+    x = res.x
+    for _ in range(3):
+        # BFGS stops on rounding in its line search some way from the optimum (one wave
+        # in 1e9); Newton steps on the analytic gradient, with its derivative by central
+        # differences, take the estimates to rounding, so they do not depend on the
+        # order the counts were summed in
+        value, grad = negloglik(x)
+        hess = optimize.approx_fprime(x, lambda y: negloglik(y)[1], 1e-6)
+        try:
+            trial = x - np.linalg.solve(0.5 * (hess + hess.T), grad)
+        except np.linalg.LinAlgError:
+            break
+        if not np.linalg.norm(negloglik(trial)[1]) < np.linalg.norm(grad):
+            break
+        x = trial
+    _, mu, sd = unpack(x)
     return mu, sd

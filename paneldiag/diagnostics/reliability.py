@@ -529,7 +529,7 @@ def em_basis(replicates, full=None) -> EMBasis | None:
 def _em_basis(replicates, full) -> EMBasis | None:
     from paneldiag.diagnostics.missingness import em_moments
 
-    def fit(patterns, tol=1e-8, start=None, max_iter=2000):
+    def fit(patterns, tol=1e-12, start=None, max_iter=2000):
         try:   # the copies' log-likelihoods are never used
             em = em_moments(patterns, max_iter, tol, start=start, loglik=start is None)
         except np.linalg.LinAlgError:
@@ -543,13 +543,13 @@ def _em_basis(replicates, full) -> EMBasis | None:
     full = full if full is not None and full.converged else fit(replicates.pooled())
     if full is None or not np.all(np.isfinite(full.covariance)):
         return None
-    # a looser stopping rule for the copies: their changes from the full fit are of
-    # the order of the standard error, far above 1e-6 of the waves' scale; each copy
-    # holds all but 1/K of the units, so it starts from the full fit. The copies are
+    # each copy holds all but 1/K of the units, so it starts from the full fit; it is
+    # fitted to the same tolerance, so that the interval ends it gives do not depend on
+    # the order the summaries were summed in (accelerated EM makes that cheap). The copies are
     # fitted on both threads of the screen (paneldiag.ahead), kept in group order.
     # A copy that has not converged in COPY_EM_STEPS accelerated steps sits on a flat
     # or degenerate likelihood, and one such copy voids the basis: the rest are skipped.
-    parts = share(lambda patterns: fit(patterns, tol=1e-6, start=full, max_iter=COPY_EM_STEPS),
+    parts = share(lambda patterns: fit(patterns, start=full, max_iter=COPY_EM_STEPS),
                   replicates.leave_one_out(), give_up=lambda em: em is None)
     if any(em is None for em in parts):
         return None

@@ -1321,12 +1321,22 @@ def _power_rows(ev: Evidence, th: Thresholds) -> list[PartPower]:
         power, _ = lr_power(lam, df, alpha, boundary)
         lam90 = noncentrality_for_power(0.9, df, alpha, boundary)
         # no effect at the estimates (the richer fit is the simpler one): no unit count
-        n90 = (int(np.ceil(ev.moments.n_units * lam90 / lam)) if lam > 1e-6 and
+        n90 = (units_needed(ev.moments.n_units * lam90 / lam) if lam > 1e-6 and
                np.isfinite(lam90) and ev.moments.n_units * lam90 / lam < 1e9 else None)
         rows.append(PartPower(name, simple_fit.structure.name, rich_fit.structure.name,
                               int(df), round(float(lam), 3), round(float(power), 3), n90,
                               bool(p < alpha)))
     return rows
+
+
+def units_needed(units: float) -> int:
+    """A unit count for a planned power, rounded up to three significant figures: it
+    scales the panel's N by a ratio of estimated noncentralities, so its later digits
+    are noise (a small noncentrality is a difference of two fits, each found to 1e-7 in
+    chi-square) and would change with the order of the sums."""
+    whole = int(np.ceil(units))
+    step = 10 ** max(len(str(whole)) - 3, 0)
+    return -(-whole // step) * step
 
 
 def lr_power(lam: float, df: int, alpha: float, boundary: bool = False
