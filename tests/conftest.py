@@ -48,3 +48,21 @@ def json_leaves(node, skip=(), path=""):
             yield from json_leaves(value, skip, f"{path}[{i}]")
     else:
         yield path, node
+
+
+@pytest.fixture(scope="session")
+def demo_screen(tmp_path_factory):
+    """The invented demo panel (paneldiag/demo.py) screened once for the whole session
+    with the command the demo suggests, plus --details: (data file, JSON report,
+    terminal text). Tests that read the demo's full screen share it."""
+    import json
+
+    from paneldiag.demo import SCREEN_HINT
+    folder = tmp_path_factory.mktemp("demo_screen")
+    data = folder / "t.csv"
+    made = run_cli("demo", data)
+    assert made.returncode == 0, made.stderr.decode()
+    out = folder / "r.json"
+    done = run_cli(*SCREEN_HINT.format(path=data).split()[1:], "--json", str(out), "--details")
+    assert done.returncode == 0, done.stderr.decode()
+    return data, json.loads(out.read_text()), done.stdout.decode()

@@ -561,20 +561,14 @@ def test_decay_fit_uses_time_distance_under_unequal_spacing():
 # --------------------------------------------------------------------------- CLI
 
 @pytest.fixture(scope="module")
-def demo_file(tmp_path_factory):
-    data = tmp_path_factory.mktemp("demo") / "t.csv"
-    assert run_cli("demo", data).returncode == 0
-    return data
+def demo_file(demo_screen):
+    return demo_screen[0]
 
 
 @pytest.fixture(scope="module")
-def demo_report(demo_file):
-    out = demo_file.parent / "t.json"
-    done = run_cli("screen", demo_file, "--id", "household", "--wave", "year", "--value",
-                   "satisfaction", "--value", "trust", "--missing-codes", "-9,-8",
-                   "--details", "--json", out)
-    assert done.returncode == 0, done.stderr.decode()
-    return json.loads(out.read_text()), done.stdout.decode()
+def demo_report(demo_screen):
+    """The demo's full screen (conftest.demo_screen): weighted, by district."""
+    return demo_screen[1], demo_screen[2]
 
 
 def test_cli_demo_trust_decays_to_floor_and_satisfaction_is_ordinal(demo_report):
@@ -591,7 +585,8 @@ def test_cli_demo_trust_decays_to_floor_and_satisfaction_is_ordinal(demo_report)
     assert sat["decay_fit"]["shape"] == "flat"
     rows = trust["lag_profile"]
     assert {"basis", "lag", "time_distance", "mean_r", "ci_low", "ci_high", "n_pairs"} <= set(rows[0])
-    assert set(sat["stationarity"]) == {"equal_correlations", "lag_bands", "bands", "equal_variances"}
+    assert set(sat["stationarity"]) == {"equal_correlations", "lag_bands", "bands",
+                                        "equal_variances", "weighted"}
     assert "Dependence" in text
 
 

@@ -185,17 +185,9 @@ def test_lag_rows_for_equal_and_unequal_spacing():
 # in doubles from the same JSON numbers (a share as a percentage, a curve on a grid).
 
 @pytest.fixture(scope="module")
-def demo_report(tmp_path_factory):
-    import json
-
-    from conftest import run_cli
-    folder = tmp_path_factory.mktemp("figures")
-    assert run_cli("demo", folder / "t.csv").returncode == 0
-    done = run_cli("screen", folder / "t.csv", "--id", "household", "--wave", "year",
-                   "--value", "trust", "--value", "energy_use", "--group", "district",
-                   "--missing-codes", "-9,-8", "--details", "--json", folder / "t.json", "-q")
-    assert done.returncode == 0, done.stderr.decode()
-    return json.loads((folder / "t.json").read_text())
+def demo_report(demo_screen):
+    """The demo's full screen (conftest.demo_screen): weighted, by district."""
+    return demo_screen[1]
 
 
 def _nan(value):

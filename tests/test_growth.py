@@ -9,7 +9,6 @@ import pandas as pd
 import pytest
 
 from conftest import run_cli
-from paneldiag.demo import SCREEN_HINT
 from paneldiag.diagnostics.growth import (
     growth_screen, intraclass_correlation, mean_shape, orthogonal_polynomials,
     residual_autocorrelation, slope_reliability, trajectory_fits, variance_trend)
@@ -359,15 +358,9 @@ def test_growth_screen_json_keys():
 # ----------------------------------------------------------------------------- the CLI on the demo
 
 @pytest.fixture(scope="module")
-def demo_report(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("demo")
-    data = folder / "t.csv"
-    assert run_cli("demo", data).returncode == 0
-    out = folder / "r.json"
-    args = SCREEN_HINT.format(path=data).split()[1:] + ["--json", str(out), "--details"]
-    done = run_cli(*args)
-    assert done.returncode == 0, done.stderr.decode()
-    return json.loads(out.read_text()), done.stdout.decode()
+def demo_report(demo_screen):
+    _, report, text = demo_screen
+    return report, text
 
 
 def test_demo_energy_use_shows_growth(demo_report):
