@@ -141,9 +141,10 @@ def population_tests(sigma: np.ndarray, mean: np.ndarray, times, n: float,
                      alpha: float | None = None, hazard: float = 0.0, tests=None) -> dict:
     """The rules' part tests run on population moments (N = n): by test,
     (noncentrality, df, p, simpler fit, richer fit), for every test, or with ``tests``
-    for those named (and any other test on the same richer family; the rest are None). With a dropout ``hazard`` the units
-    fall into the response patterns of monotone dropout (``monotone_patterns``) and the
-    tests use the full-information likelihood of those patterns."""
+    for those named (and any other test on the same richer family; the rest are None).
+    With a dropout ``hazard`` the units fall into the response patterns of monotone
+    dropout (``monotone_patterns``) and the tests use the full-information likelihood of
+    those patterns."""
     times = np.asarray(times, dtype=float)
     t = len(times)
     sigma = np.asarray(sigma, float)

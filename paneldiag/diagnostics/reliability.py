@@ -504,8 +504,8 @@ class EMBasis:
             yield EMBasis(part, [])
 
 
-# most leave-one-group-out EM copies, started at the full fit, converge in 10-60
-# accelerated steps (the demo panel's districts: median 19, 95th percentile under 200)
+# leave-one-group-out EM copies, started at the full fit, converge in tens of
+# accelerated steps (the demo panel's districts: median about 20)
 COPY_EM_STEPS = 300
 
 _EM_BASIS_CACHE: dict[int, tuple[weakref.ref, EMBasis | None]] = {}
@@ -545,8 +545,8 @@ def _em_basis(replicates, full) -> EMBasis | None:
         return None
     # each copy holds all but 1/K of the units, so it starts from the full fit; it is
     # fitted to the same tolerance, so that the interval ends it gives do not depend on
-    # the order the summaries were summed in (accelerated EM makes that cheap). The copies are
-    # fitted on both threads of the screen (paneldiag.ahead), kept in group order.
+    # the order the summaries were summed in (accelerated EM makes that cheap). The
+    # copies are fitted on both threads of the screen (paneldiag.ahead), in group order.
     # A copy that has not converged in COPY_EM_STEPS accelerated steps sits on a flat
     # or degenerate likelihood, and one such copy voids the basis: the rest are skipped.
     parts = share(lambda patterns: fit(patterns, start=full, max_iter=COPY_EM_STEPS),
