@@ -14,7 +14,7 @@ import sys
 import numpy as np
 import pandas as pd
 
-from conftest import json_leaves
+from conftest import json_leaves, search_steps
 from paneldiag.simulate import family_values
 
 OUTPUTS = ("report.json", "appendix.md", "appendix.html", "tables.tex")
@@ -94,6 +94,8 @@ def test_reports_agree_across_summary_chunk_sizes(tmp_path):
         other = dict(json_leaves(json.loads(run["report.json"])))
         assert first.keys() == other.keys()
         for key, value in first.items():
+            if search_steps(key):
+                continue
             if isinstance(value, float):
                 tolerance = 1e-6 if key.startswith(".decay_fit.") else 1e-10
                 assert math.isclose(value, other[key], rel_tol=tolerance,

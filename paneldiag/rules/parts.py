@@ -83,6 +83,18 @@ class Part(ABC):
         """The one of the parameter vectors giving the same share that is reported."""
         return theta
 
+    def in_measure_unit(self, scale) -> np.ndarray:
+        """Which parameters are in the measure's unit (or its square), not unit-free: by
+        default those open above (variances); those bounded on both sides are
+        coefficients and loadings."""
+        return np.array([hi is None for _, hi in self.bounds(scale)], dtype=bool)
+
+    def regular_point(self, theta: np.ndarray, sizes: np.ndarray) -> np.ndarray:
+        """A point next to ``theta`` (within 1e-3 of the parameters' ``sizes``) at which
+        the map from the parameters to the share has full rank; ``theta`` itself for
+        parts whose map has full rank everywhere."""
+        return theta
+
 
 @dataclass(frozen=True)
 class Error(Part):
@@ -270,7 +282,13 @@ class Growth(Part):
         return out
 
     def bounds(self, scale):
-        out = [(None, None)] * len(self._cov_names())
+        # no sign, but a box: an entry of C a thousand times the largest wave SD gives a
+        # factor variance a million times any wave's, which no panel's waves can hold;
+        # without it a search on a small, ill-conditioned panel can run off to where
+        # Sigma's rounding makes up a likelihood above the saturated one
+        top = float(np.sqrt(np.max(scale.var))) if np.all(np.isfinite(scale.var)) else 0.0
+        box = (-1e3 * top, 1e3 * top) if top > 0 else (None, None)
+        out = [box] * len(self._cov_names())
         if self.free_loadings:
             out += [(-5.0, 5.0)] * (len(scale.var) - 2)
         return out
@@ -283,6 +301,11 @@ class Growth(Part):
         if self.free_loadings:
             start += list(np.asarray(self.basis, float)[1:-1])
         return [start]
+
+    def in_measure_unit(self, scale) -> np.ndarray:
+        # the factor entries are in the measure's unit though boxed; loadings have none
+        n_cov = len(self._cov_names())
+        return np.arange(len(self.bounds(scale))) < n_cov
 
     def loadings(self, theta, t: int) -> np.ndarray:
         lam = np.asarray(self.basis, dtype=float).copy()
@@ -303,6 +326,16 @@ class Growth(Part):
         c = c * np.where(np.diag(c) < 0, -1.0, 1.0)    # each column's sign
         out = np.array(theta, dtype=float)
         out[:len(self._cov_names())] = [c[i, j] for i, j in self._cov_names()]
+        return out
+
+    def regular_point(self, theta, sizes) -> np.ndarray:
+        # where a diagonal entry of C is 0, Psi = C C' is singular and its derivatives
+        # by that column vanish; 1e-3 of the entry's size away they do not, and the
+        # delta method there is that of Psi itself (the chain rule through C cancels)
+        out = np.array(theta, dtype=float)
+        for k, (i, j) in enumerate(self._cov_names()):
+            if i == j and np.isfinite(sizes[k]) and sizes[k] > 0:
+                out[k] = max(abs(out[k]), 1e-3 * sizes[k])
         return out
 
     def psi(self, theta) -> np.ndarray:

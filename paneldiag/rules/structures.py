@@ -131,6 +131,13 @@ class Structure:
         return np.concatenate([part.canonical(values)
                                for part, values in zip(self.parts, self.split(theta, t))])
 
+    def regular_point(self, theta, t: int, sizes) -> np.ndarray:
+        """``theta`` moved off the folds of the parameterisation (each part's
+        :meth:`Part.regular_point`), for the delta method."""
+        return np.concatenate([part.regular_point(values, part_sizes) for part, values,
+                               part_sizes in zip(self.parts, self.split(theta, t),
+                                                 self.split(sizes, t))])
+
     def error_variances(self, theta, t: int) -> np.ndarray:
         for part, values in zip(self.parts, self.split(theta, t)):
             if isinstance(part, Error):
@@ -332,20 +339,27 @@ class Fit:
     n_params: int = 0
     # where the fit is weakly identified (``flat_likelihood``), or None
     weak_identification: dict | None = None
+    # the parameters at which ``theta_cov`` and the delta method's derivatives are taken:
+    # off the folds of the parameterisation (Structure.regular_point), else ``params``
+    delta_point: dict | None = None
 
     def derived(self, fn) -> tuple[float, float, float]:
-        """(estimate, ci_low, ci_high) of fn(params) by the delta method."""
+        """(estimate, ci_low, ci_high) of fn(params) by the delta method, its derivatives
+        taken at ``delta_point`` (where a growth factor's Cholesky diagonal is 0 its
+        derivatives vanish, and the interval would follow how close to 0 the search
+        stopped)."""
         est = _safe(fn, self.params)
         if self.theta_cov is None or not np.isfinite(est):
             return est, np.nan, np.nan
-        keys = list(self.params)
+        point = self.delta_point or self.params
+        keys = list(point)
         grad = np.zeros(len(keys))
         # steps relative to each parameter, or to its typical size when it is 0 (on a
         # bound): its unit is the measure's, or none
         typical = _typical(self.structure, Scale.of(self.sigma))
         for i, key in enumerate(keys):
-            h = 1e-6 * (abs(self.params[key]) or typical[i])
-            up, down = dict(self.params), dict(self.params)
+            h = 1e-6 * (abs(point[key]) or typical[i])
+            up, down = dict(point), dict(point)
             up[key] += h
             down[key] -= h
             grad[i] = (_safe(fn, up) - _safe(fn, down)) / (2 * h)
@@ -568,17 +582,17 @@ def _minimise(likelihood, structure: Structure, times, starts, scale: Scale, tol
 def _typical(structure: Structure, scale: Scale) -> np.ndarray:
     """The typical size of each parameter: its start value. A parameter that starts at
     zero (an off-diagonal entry of a growth part's Cholesky factor) takes the largest
-    start of the parameters of its own part that share its unit: those open above (in
-    the measure's unit) or those bounded on both sides (coefficients and loadings, in
-    none). A size taken from the variances would be the square of the right one, off
-    by the measure's unit squared."""
+    start of the parameters of its own part that share its unit: those in the measure's
+    unit (Part.in_measure_unit) or the unit-free ones (coefficients and loadings). A
+    size taken from the variances would be the square of the right one, off by the
+    measure's unit squared."""
     t = len(scale.var)
     sizes = []
     for part, start in zip(structure.parts, structure.split(structure.starts(scale)[0], t)):
         start = np.abs(np.asarray(start, dtype=float))
-        open_above = np.array([hi is None for _, hi in part.bounds(scale)], dtype=bool)
+        measured = part.in_measure_unit(scale)
         size = start.copy()
-        for kind, fallback in ((open_above, np.sqrt(scale.mean_var)), (~open_above, 1.0)):
+        for kind, fallback in ((measured, np.sqrt(scale.mean_var)), (~measured, 1.0)):
             alike = start[kind]
             fill = alike.max() if alike.size and alike.max() > 0 else fallback
             size[kind & (start == 0)] = fill
@@ -621,12 +635,16 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
     if np.isfinite(m.saturated) and value < m.saturated - 1e-8 * max(1.0, abs(m.saturated)):
         return Skipped(structure, "the fit ran to a numerically singular covariance")
     theta = structure.canonical(best.x, t)
-    sigma, grads = structure.build(theta, m.times)
+    sigma, _ = structure.build(theta, m.times)
     df = n_moments - q
     stats = fit_statistics(value, m, df, sigma)
-    return Fit(structure, dict(zip(structure.names(t), map(float, theta))), theta, value,
-               *stats, theta_cov=_information_cov(sigma, grads, m.n_eff), sigma=sigma,
-               n_params=q, weak_identification=flat_likelihood(structure, first, m))
+    names = structure.names(t)
+    point = structure.regular_point(theta, t, _typical(structure, m.scale))
+    point_sigma, point_grads = structure.build(point, m.times)
+    return Fit(structure, dict(zip(names, map(float, theta))), theta, value,
+               *stats, theta_cov=_information_cov(point_sigma, point_grads, m.n_eff),
+               sigma=sigma, n_params=q, weak_identification=flat_likelihood(structure, first, m),
+               delta_point=dict(zip(names, map(float, point))))
 
 
 def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict | None:
