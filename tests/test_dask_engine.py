@@ -162,13 +162,18 @@ def test_command_line_on_a_cluster(cluster, files, tmp_path):
     assert differences(json.loads(local.read_text()), json.loads(dask.read_text())) == []
 
 
-def test_scheduler_that_does_not_answer(files, tmp_path, monkeypatch):
+def test_scheduler_that_does_not_answer(files, tmp_path, monkeypatch, capsys):
+    # the command run in this process, so that the wait can be shortened to a second
+    from paneldiag import dask_engine
+    from paneldiag.cli import main
+    monkeypatch.setattr(dask_engine, "CONNECT_TIMEOUT", 1)
     out = tmp_path / "report.json"
-    done = run_cli("screen", files["sorted.csv"], "--id", "household", "--wave", "year",
-                   "--value", "trust", "--engine", "dask", "--scheduler", "tcp://127.0.0.1:9",
-                   "--json", out)
-    assert done.returncode == 2
-    lines = done.stderr.decode().strip().splitlines()
+    with pytest.raises(SystemExit) as stopped:
+        main(["screen", str(files["sorted.csv"]), "--id", "household", "--wave", "year",
+              "--value", "trust", "--engine", "dask", "--scheduler", "tcp://127.0.0.1:9",
+              "--json", str(out)])
+    assert stopped.value.code == 2
+    lines = capsys.readouterr().err.strip().splitlines()
     assert len(lines) == 1 and "no Dask scheduler answered at tcp://127.0.0.1:9" in lines[0]
     assert not out.exists()
 

@@ -120,7 +120,7 @@ def test_work_on_a_second_thread_gives_the_serial_bytes(tmp_path):
     # two decimals so that the weighted dropout model is fitted on cells; simulated
     # growth + carry-over panel with dropout (known truth; the property checked is the
     # program's own)
-    values = family_values("growth_autoregressive", 400, 5, 0.8, "dependent",
+    values = family_values("growth_autoregressive", 240, 5, 0.8, "dependent",
                            np.random.default_rng(9), "none")
     frame = pd.DataFrame(np.round(values, 2))
     frame.insert(0, "id", [f"u{i}" for i in range(len(frame))])
