@@ -603,6 +603,15 @@ def _phi(z):
     return float(dist.norm_cdf(z)) if np.isfinite(z) else 0.5
 
 
+def _not_shown_small(est, lo, hi, threshold) -> bool:
+    """Whether an effect of a part whose test rejected is not shown to be below its
+    threshold: its 95% interval reaches the threshold (the point estimate when there is
+    no interval). Used for growth's effects, which the likelihood trades against
+    carry-over, so that their point estimates wander far from the truth in panels
+    where both tests reject (docs/validation.md)."""
+    return bool((hi if np.isfinite(hi) else est) >= threshold)
+
+
 def _margin(est, lo, hi, threshold):
     """How clearly an estimate clears a threshold, in [0, 1] (0.5 = on it)."""
     se = (hi - lo) / (2 * st.Z95) if np.isfinite(lo) and np.isfinite(hi) else np.nan
@@ -728,11 +737,11 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         if p_growth is not None:
             slope_sentence = (f"Unit-specific growth: share of the variance of change from "
                               f"the first to the last wave carried by unit slopes "
-                              f"{slope_text} (counts from "
+                              f"{slope_text} (counts unless its interval lies below "
                               f"{led.thr('min_slope_share')}); test against a stationary "
                               f"trait + carry-over structure: {growth_test_text} (threshold "
                               f"{led.thr('alpha')}).")
-            G = p_growth < alpha and slope[0] >= th["min_slope_share"]
+            G = p_growth < alpha and _not_shown_small(*slope, th["min_slope_share"])
             # a stationary family the growth structures do not nest (the quasi-simplex,
             # whose variances may rise like growth's) must be beaten by BIC
             best_growth = min(GROWTH, key=lambda g: ev.families[g].criterion)
@@ -834,12 +843,13 @@ def judge(inp: Inputs, thresholds: Thresholds | None = None) -> Judgement:
         grho_text = led.estimate("growth_carry_rho", *grho)
         dshare_text = led.estimate("growth_carry_share", *dshare)
         gcarry_sentence = (f"Carry-over in the deviations from growth: rho {grho_text}, "
-                           f"carried-over share of the deviations {dshare_text} (counts from "
+                           f"carried-over share of the deviations {dshare_text} (each "
+                           f"counts unless its interval lies below {led.thr('min_rho')} and "
                            f"{led.thr('min_carry_share')}); test against growth with "
                            f"independent deviations: {gcarry_test_text} (threshold "
                            f"{led.thr('alpha')}).")
-        AG = (p_gcarry < alpha and grho[0] >= th["min_rho"]
-              and dshare[0] >= th["min_carry_share"])
+        AG = (p_gcarry < alpha and _not_shown_small(*grho, th["min_rho"])
+              and _not_shown_small(*dshare, th["min_carry_share"]))
 
     # the growth screen's within-unit residual autocorrelation (quoted, not decisive)
     rac = inp.residual_autocorrelation
