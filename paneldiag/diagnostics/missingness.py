@@ -323,60 +323,48 @@ def _squarem(groups, mu, sigma, n_total, max_iter, tol):
     R. and Roland, C. 2008, Simple and globally convergent methods for accelerating
     the convergence of any EM algorithm, Scandinavian Journal of Statistics 35(2),
     335-353). Each cycle makes two EM steps from the current estimate, extrapolates
-    along them with the step length -|r|/|v|, and makes one EM step from there; the
-    extrapolated estimate is kept only when its covariance is positive definite and
-    its log-likelihood is no lower than the cycle's start (else the two plain steps
-    are kept), so the likelihood never falls. Converged when one EM step changes no
-    entry by more than ``tol`` of the waves' scale, the rule of plain EM; with much
-    missing information plain EM needs hundreds of steps, this a few dozen.
+    along them with the step length -|r|/|v|, and makes one EM step from there. The
+    extrapolated estimate is kept when that step succeeds and its change (the residual
+    of the EM map) is no larger than the first plain step's; else the two plain steps
+    are kept. A residual, not the likelihood, judges it: the log-likelihood over the
+    patterns costs as much as an EM step. Converged when one EM step changes no entry by
+    more than ``tol`` of the waves' scale, the rule of plain EM; with much missing
+    information plain EM needs hundreds of steps, this a few dozen.
     Returns (mu, sigma, converged, EM steps made)."""
     steps = 0
-    loglik = None   # of the current estimate, computed when an extrapolation needs it
 
     def advance(mu0, sigma0):
         nonlocal steps
         steps += 1
         new_mu, new_sigma, outcome = _em_map(groups, n_total, mu0, sigma0)
-        done = outcome != "ok" or _em_change(mu0, sigma0, new_mu, new_sigma) <= tol
-        return new_mu, new_sigma, outcome, done
+        change = _em_change(mu0, sigma0, new_mu, new_sigma) if outcome == "ok" else np.inf
+        return new_mu, new_sigma, outcome, change
 
     while steps < max_iter:
-        mu1, sigma1, outcome, done = advance(mu, sigma)
-        if done:
+        mu1, sigma1, outcome, change1 = advance(mu, sigma)
+        if outcome != "ok" or change1 <= tol:
             return (mu1, sigma1, outcome == "ok", steps)
-        mu2, sigma2, outcome, done = advance(mu1, sigma1)
-        if done or steps >= max_iter:
-            return (mu2, sigma2, done and outcome == "ok", steps)
+        mu2, sigma2, outcome, change2 = advance(mu1, sigma1)
+        if outcome != "ok" or change2 <= tol or steps >= max_iter:
+            return (mu2, sigma2, outcome == "ok" and change2 <= tol, steps)
         scale = np.sqrt(np.diag(sigma))
         r = np.concatenate([(mu1 - mu) / scale, ((sigma1 - sigma) / np.outer(scale, scale)).ravel()])
         v = np.concatenate([(mu2 - 2 * mu1 + mu) / scale,
                             ((sigma2 - 2 * sigma1 + sigma) / np.outer(scale, scale)).ravel()])
         alpha = -np.sqrt(r @ r / (v @ v)) if v @ v > 0 else -1.0
         if not alpha < -1.0:   # no longer than the plain steps: keep them
-            mu, sigma, loglik = mu2, sigma2, None
+            mu, sigma = mu2, sigma2
             continue
         mu_x = mu - 2 * alpha * (mu1 - mu) + alpha ** 2 * (mu2 - 2 * mu1 + mu)
         sigma_x = sigma - 2 * alpha * (sigma1 - sigma) + alpha ** 2 * (sigma2 - 2 * sigma1 + sigma)
-        mu3, sigma3, outcome, done = advance(mu_x, 0.5 * (sigma_x + sigma_x.T))
-        if outcome == "ok":
-            if loglik is None:
-                loglik = _safe_loglik(groups, mu, sigma)
-            loglik3 = _safe_loglik(groups, mu3, sigma3)
-            if loglik3 >= loglik:
-                mu, sigma, loglik = mu3, sigma3, loglik3
-                if done:
-                    return (mu, sigma, True, steps)
-                continue
-        mu, sigma, loglik = mu2, sigma2, None   # the extrapolation went astray
+        mu3, sigma3, outcome, change3 = advance(mu_x, 0.5 * (sigma_x + sigma_x.T))
+        if outcome == "ok" and change3 <= change1:
+            if change3 <= tol:
+                return (mu3, sigma3, True, steps)
+            mu, sigma = mu3, sigma3
+        else:
+            mu, sigma = mu2, sigma2   # the extrapolation went astray
     return (mu, sigma, False, steps)
-
-
-def _safe_loglik(groups, mu, sigma) -> float:
-    try:
-        with np.errstate(all="ignore"):
-            return _observed_loglik(groups, mu, sigma)
-    except np.linalg.LinAlgError:
-        return -np.inf
 
 
 def _units_seen(patterns: PatternMoments, used: np.ndarray) -> int:
