@@ -347,16 +347,19 @@ def _squarem(groups, mu, sigma, n_total, max_iter, tol):
         mu2, sigma2, outcome, change2 = advance(mu1, sigma1)
         if outcome != "ok" or change2 <= tol or steps >= max_iter:
             return (mu2, sigma2, outcome == "ok" and change2 <= tol, steps)
+        # the first step r and the change between the steps v, each of mu and sigma;
+        # their lengths in the waves' scale set the step length
+        r_mu, r_sigma = mu1 - mu, sigma1 - sigma
+        v_mu, v_sigma = mu2 - 2 * mu1 + mu, sigma2 - 2 * sigma1 + sigma
         scale = np.sqrt(np.diag(sigma))
-        r = np.concatenate([(mu1 - mu) / scale, ((sigma1 - sigma) / np.outer(scale, scale)).ravel()])
-        v = np.concatenate([(mu2 - 2 * mu1 + mu) / scale,
-                            ((sigma2 - 2 * sigma1 + sigma) / np.outer(scale, scale)).ravel()])
+        r = np.concatenate([r_mu / scale, (r_sigma / np.outer(scale, scale)).ravel()])
+        v = np.concatenate([v_mu / scale, (v_sigma / np.outer(scale, scale)).ravel()])
         alpha = -np.sqrt(r @ r / (v @ v)) if v @ v > 0 else -1.0
         if not alpha < -1.0:   # no longer than the plain steps: keep them
             mu, sigma = mu2, sigma2
             continue
-        mu_x = mu - 2 * alpha * (mu1 - mu) + alpha ** 2 * (mu2 - 2 * mu1 + mu)
-        sigma_x = sigma - 2 * alpha * (sigma1 - sigma) + alpha ** 2 * (sigma2 - 2 * sigma1 + sigma)
+        mu_x = mu - 2 * alpha * r_mu + alpha ** 2 * v_mu
+        sigma_x = sigma - 2 * alpha * r_sigma + alpha ** 2 * v_sigma
         mu3, sigma3, outcome, change3 = advance(mu_x, 0.5 * (sigma_x + sigma_x.T))
         if outcome == "ok" and change3 <= change1:
             if change3 <= tol:

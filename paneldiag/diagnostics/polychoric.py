@@ -279,19 +279,20 @@ def latent_scale(margins: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
     if not np.isfinite(res.fun):
         return None
     x = res.x
+    grad = negloglik(x)[1]
     for _ in range(3):
         # BFGS stops on rounding in its line search some way from the optimum (one wave
         # in 1e9); Newton steps on the analytic gradient, with its derivative by central
         # differences, take the estimates to rounding, so they do not depend on the
         # order the counts were summed in
-        value, grad = negloglik(x)
         hess = optimize.approx_fprime(x, lambda y: negloglik(y)[1], 1e-6)
         try:
             trial = x - np.linalg.solve(0.5 * (hess + hess.T), grad)
         except np.linalg.LinAlgError:
             break
-        if not np.linalg.norm(negloglik(trial)[1]) < np.linalg.norm(grad):
+        trial_grad = negloglik(trial)[1]
+        if not np.linalg.norm(trial_grad) < np.linalg.norm(grad):
             break
-        x = trial
+        x, grad = trial, trial_grad
     _, mu, sd = unpack(x)
     return mu, sd

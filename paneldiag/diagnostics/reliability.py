@@ -529,9 +529,9 @@ def em_basis(replicates, full=None) -> EMBasis | None:
 def _em_basis(replicates, full) -> EMBasis | None:
     from paneldiag.diagnostics.missingness import em_moments
 
-    def fit(patterns, tol=1e-12, start=None, max_iter=2000):
+    def fit(patterns, start=None, max_iter=2000):
         try:   # the copies' log-likelihoods are never used
-            em = em_moments(patterns, max_iter, tol, start=start, loglik=start is None)
+            em = em_moments(patterns, max_iter, start=start, loglik=start is None)
         except np.linalg.LinAlgError:
             return None
         ok = em.converged and np.all(np.isfinite(em.covariance)) and \
