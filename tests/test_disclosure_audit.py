@@ -15,6 +15,7 @@ Wiley, ch. 4-5 - from memory).
 
 from __future__ import annotations
 
+import copy
 import json
 
 import numpy as np
@@ -175,6 +176,27 @@ def test_nothing_small_gets_no_extra_suppression(tmp_path):
     assert _reaudit(report, panel) == []
 
 
+@pytest.mark.parametrize("n_waves", [8, 20, 70])
+def test_cells_count_the_response_patterns(n_waves):
+    """The audit's unknowns are the units of each (group, response pattern), counted
+    here by pandas' value_counts of the rows; beyond 62 waves the patterns no longer fit
+    an integer bit code (70 waves failed with an overflow), and three units that differ
+    from the others only after wave 65 must still be a cell of their own."""
+    rng = np.random.default_rng(7)
+    observed = rng.random((300, n_waves)) > 0.1
+    observed[:, n_waves // 2:] = True
+    observed[:3, -2:] = False
+    groups = np.array(["north", "south"])[rng.integers(0, 2, 300)]
+    cells = da.build_cells(observed, groups, {})
+    found = {(cells.group_labels[g], row.tobytes()): int(n) for g, row, n
+             in zip(cells.group, cells.observed, cells.truth) if n > 0}
+    rows = pd.DataFrame(observed).assign(group=groups)
+    expected = {(key[-1], np.array(key[:-1], bool).tobytes()): n
+                for key, n in rows.value_counts().items()}
+    assert found == expected
+    assert cells.truth.sum() == 300
+
+
 def test_bounds_of_a_two_by_two_table_are_frechet_bounds():
     """Two waves, units observed at both / first only / second only / neither: with
     only the margins shown (all units, respondents at each wave), the units observed at
@@ -330,6 +352,22 @@ def _demo(tmp_path, *extra):
                             audit_only="--audit-only" in extra)
     _, panel = run_screen(str(tmp_path / "tenants.csv"), request)
     return json.loads(out.read_text()), panel
+
+
+def test_audit_stops_and_says_so_beyond_the_mending_limit(tmp_path, monkeypatch):
+    """When the released counts pin more small counts than MENDING_LIMIT (panels where
+    most units have a pattern of their own), the audit stops with its reason instead of
+    mending them one by one, and the terminal line says it was not completed."""
+    path = _panel_csv(tmp_path / "two.csv", TWO_IN_A_PATTERN)
+    report, panel = run_screen(str(path), _request(disclosure_audit=False))
+    mended = da.protect_report(copy.deepcopy(report), panel, "satisfaction", M)
+    assert mended["counts_withheld"] >= 1     # within the limit, this panel is mended
+    monkeypatch.setattr(da, "MENDING_LIMIT", 0)
+    stopped = da.protect_report(copy.deepcopy(report), panel, "satisfaction", M)
+    assert stopped["audited"] is False
+    assert "pin more than 0 counts of 1 to 4 units" in stopped["reason"]
+    assert da.disclosure_line({"disclosure": stopped}).startswith(
+        "Disclosure audit: not completed, stopped: the released counts pin")
 
 
 def test_demo_audit_passes(tmp_path):
