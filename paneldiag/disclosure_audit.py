@@ -42,16 +42,27 @@ ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of e
                            # is an unknown; beyond it the patterns that occur in the panel
                            # (in every group: as if an attacker knew which patterns never
                            # occur, a stricter audit that keeps the programs small)
-# Small counts pinned by the released ones that the audit mends one by one (the demo's
-# measures have 21-41, each mended by its own linear programs); beyond this many, most
-# units have a response pattern of their own (as in panels of many occasions: 300
-# units x 70 waves pin all 289 pattern cells, and mending them would take about 15
-# minutes) and the audit stops, saying so, instead.
+# Small counts the audit mends one by one, each by its own linear programs (the demo's
+# measures have 21-41 pinned by the released counts). Beyond this many, the audit stops
+# and says so: most units then have a response pattern of their own (panels of many
+# occasions), the pattern is as good as an identifier, and mending would take hours
+# (300 units x 70 waves: 289 cells pinned, about 15 minutes; 2,000 x 150: a single
+# linear program of 1,552 cells and 11,546 counts took 84 s).
 MENDING_LIMIT = 100
 
 
-class TooManyPinned(Exception):
-    """More small counts pinned than MENDING_LIMIT."""
+class AuditStopped(Exception):
+    """The audit cannot be completed at a reasonable cost (the reason, for the report)."""
+
+
+def check_cost(cells: Cells, min_cell: int) -> None:
+    """Stop before any linear program when more than MENDING_LIMIT pattern cells are
+    small and they hold most units."""
+    truth = cells.truth[:cells.n_patterns]
+    few = small(truth, min_cell)
+    if few.sum() > MENDING_LIMIT and truth[few].sum() > truth.sum() / 2:
+        raise AuditStopped(f"{int(truth[few].sum()):,} of {int(truth.sum()):,} units have a "
+                           f"response pattern shared by fewer than {min_cell} units")
 
 
 # Counts the audit never withholds (all units, the row accounting): it withholds others.
@@ -503,7 +514,8 @@ def unprotected(bounds: Bounds, targets: list[Target], min_cell: int,
                 first: bool = False, limit: int | None = None) -> list[Target]:
     """The targets the shown counts pin inside 1 .. min_cell - 1 (their ``low`` and
     ``high`` set); every other target gets a witness (``first``: stop at the first
-    pinned one; TooManyPinned when more than ``limit`` are). Every solution of a linear program is a feasible point and settles
+    pinned one; AuditStopped when more than ``limit`` are). Every solution of a linear
+    program is a feasible point and settles
     every target it is a witness for, so the least and the greatest of the targets'
     sum settle most of them at once."""
     pending = list(targets)
@@ -543,7 +555,8 @@ def unprotected(bounds: Bounds, targets: list[Target], min_cell: int,
             if first:
                 break
             if limit is not None and len(weak) > limit:
-                raise TooManyPinned
+                raise AuditStopped(f"the released counts pin more than {limit} counts "
+                                   f"of 1 to {min_cell - 1} units")
     return weak
 
 
@@ -796,9 +809,10 @@ def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
     """Audit one measure's report (and its group reports), withhold what must be
     withheld, and return its ``disclosure`` block."""
     cells = panel_cells(panel, measure)
-    counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
-    coarsened = []
+    counts, coarsened = [], []
     try:
+        check_cost(cells, min_cell)
+        counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
         withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
         if left and (report.get("groups") or {}).get("reports"):
             # the groups' tables cannot be mended count by count: they go (coarsening)
@@ -806,13 +820,12 @@ def protect_report(report: dict, panel, measure: str, min_cell: int) -> dict:
             report["groups"]["reports"], report["groups"]["comparison"] = {}, []
             counts, unmodelled = released_counts(report, cells, panel.wave_times, min_cell)
             withheld, left = protect(counts, cells, min_cell, panel.wave_labels)
-    except TooManyPinned:
+    except AuditStopped as stop:
         return {"audited": False, "min_cell": min_cell, "counts_audited": len(counts),
                 "removed": coarsened, "reason": (
-                    f"stopped: the released counts pin more than {MENDING_LIMIT} counts of "
-                    f"1 to {min_cell - 1} units, as most units have a response pattern of "
-                    "their own; each table still withholds its own small counts, but "
-                    "check the counts by pair of waves and by lag before release")}
+                    f"stopped: {stop}, as in panels of many occasions; each table still "
+                    "withholds its own small counts, but check the counts by pair of waves "
+                    "and by lag before release")}
     done = Protection(checked=len(counts), counts_withheld=len(withheld),
                       unmodelled=unmodelled, coarsened=coarsened)
     for one in withheld:
