@@ -32,13 +32,26 @@ WORKERS_VARIABLE = "PANELDIAG_WORKERS"
 _EXECUTOR: ContextVar[Executor | None] = ContextVar("paneldiag_executor", default=None)
 
 
-def workers() -> int:
-    """Threads a screen uses: 1 (everything on the calling thread, in order), or what
-    the environment variable PANELDIAG_WORKERS says. One by default: on a shared
-    two-core machine the second thread cost CPU and contention (a small grouped panel
-    took 63 s against 42 s serially) and no wall-time gain was measured."""
+# unit-waves from which a screen uses a second thread by default. Large panels spend
+# their time in numpy on long arrays, outside the interpreter lock: 1M x 20 on an idle
+# two-core machine took 14.0-15.0 s with two threads against 17.5-19.2 s serially
+# (byte-identical reports). Small panels spend it in Python and small matrices, where a
+# second thread only contends for the lock: the demo's grouped three-measure screen
+# (19,200 unit-waves) took 27.7-29.4 s with two against 20.9-24.3 s with one.
+THREADED_UNIT_WAVES = 2_000_000
+
+
+def workers(n_unit_waves: int = 0) -> int:
+    """Threads a screen of ``n_unit_waves`` uses: what the environment variable
+    PANELDIAG_WORKERS says, else two on a machine with two or more cores when the panel
+    has at least THREADED_UNIT_WAVES unit-waves, else one (everything on the calling
+    thread, in order)."""
     text = os.environ.get(WORKERS_VARIABLE, "").strip()
-    return max(1, int(text)) if text.isdigit() else 1
+    if text.isdigit():
+        return max(1, int(text))
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") \
+        else os.cpu_count() or 1
+    return 2 if n_unit_waves >= THREADED_UNIT_WAVES and cores > 1 else 1
 
 
 @contextmanager

@@ -46,7 +46,7 @@ class ScreenOptions:
     audit_only: bool = False         # only the audit areas (AUDIT_SECTIONS)
     disclosure_audit: bool = False   # the released counts audited together (protect_report)
     triplet_table: bool = False      # every triplet's reliability, for a file of its own
-    workers: int = field(default_factory=ahead.workers)  # threads (1: a serial run)
+    workers: int | None = None   # threads (1: a serial run; None: ahead.workers decides)
 
 
 @dataclass
@@ -230,9 +230,10 @@ def screen(panel: Panel, ledgers: dict[str, Ledger], input_info: dict,
     """The whole report: the measure's report itself, or ``measures {name: report}``.
     ``summaries`` ({measure: {kind: summary}}) were built and merged elsewhere (the dask
     engine's workers); without them each measure is summarised here. Runs on
-    ``options.workers`` threads (paneldiag.ahead)."""
+    ``options.workers`` threads, or as many as ahead.workers gives for the panel's size."""
     options = options or ScreenOptions()
-    with one_blas_thread(), ahead.threads(options.workers):
+    n_threads = options.workers or ahead.workers(panel.n_units * panel.n_waves)
+    with one_blas_thread(), ahead.threads(n_threads):
         return _screen(panel, ledgers, input_info, options, summaries or {})
 
 

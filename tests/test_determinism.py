@@ -161,6 +161,20 @@ def test_both_threads_take_items_and_results_keep_their_order():
             [threading.current_thread().name] * 3
 
 
+def test_threads_by_default_only_for_large_panels(monkeypatch):
+    # a program property: the default follows the panel's unit-waves and the cores; the
+    # environment variable overrides it (the reasons: paneldiag/ahead.py)
+    from paneldiag import ahead
+    monkeypatch.delenv(ahead.WORKERS_VARIABLE, raising=False)
+    monkeypatch.setattr(ahead.os, "sched_getaffinity", lambda pid: {0, 1}, raising=False)
+    assert ahead.workers(ahead.THREADED_UNIT_WAVES - 1) == 1
+    assert ahead.workers(ahead.THREADED_UNIT_WAVES) == 2
+    monkeypatch.setattr(ahead.os, "sched_getaffinity", lambda pid: {0}, raising=False)
+    assert ahead.workers(ahead.THREADED_UNIT_WAVES) == 1   # one core: serial
+    monkeypatch.setenv(ahead.WORKERS_VARIABLE, "2")
+    assert ahead.workers(10) == 2
+
+
 def test_threaded_screen_of_many_chunks_equals_the_serial_one():
     # every shared list at once (chunks of the summaries, the structures' fits, the EM
     # copies) and the work started ahead, on a panel cut into 7 chunks; simulated
