@@ -515,9 +515,8 @@ def unprotected(bounds: Bounds, targets: list[Target], min_cell: int,
     """The targets the shown counts pin inside 1 .. min_cell - 1 (their ``low`` and
     ``high`` set); every other target gets a witness (``first``: stop at the first
     pinned one; AuditStopped when more than ``limit`` are). Every solution of a linear
-    program is a feasible point and settles
-    every target it is a witness for, so the least and the greatest of the targets'
-    sum settle most of them at once."""
+    program is a feasible point and settles every target it is a witness for, so the
+    least and the greatest of the targets' sum settle most of them at once."""
     pending = list(targets)
 
     def settle(x):
