@@ -31,32 +31,60 @@ def wave_ranks(values: np.ndarray, weights: np.ndarray | None = None) -> np.ndar
     shift of 1/2 that leaves rank correlations unchanged)."""
     if weights is not None:
         return _weighted_ranks(values, weights)
-    ranks = np.empty(values.shape)
-    rank = np.empty(values.shape[0])
+    return chunk_ranks(values, rank_tables(values), 0, len(values))
+
+
+def rank_tables(values: np.ndarray) -> list:
+    """Each wave's ranking: (scale, offset, midrank of each grid position) when its
+    values lie on a counting grid (``_counting_grid``), else the wave's midranks as a
+    column. Grid waves then need no units x waves matrix of ranks (1.6 GB at 10M x 20)."""
+    tables = []
     for t in range(values.shape[1]):  # a loop over waves
         column = np.ascontiguousarray(values[:, t])  # one strided read, then contiguous
         seen = ~np.isnan(column)
         observed = column[seen]
-        rank.fill(np.nan)
-        if observed.size:
-            index = _counting_index(observed)
-            if index is not None:
-                counts = np.bincount(index)
-                below = np.cumsum(counts) - counts
-                rank[seen] = (below + (counts + 1) / 2.0)[index]
-            else:
+        grid = _counting_grid(observed) if observed.size else None
+        if grid is not None:
+            scale, offset, index = grid
+            counts = np.bincount(index)
+            below = np.cumsum(counts) - counts
+            tables.append((scale, offset, below + (counts + 1) / 2.0))
+        else:
+            rank = np.full(len(column), np.nan)
+            if observed.size:
                 rank[seen] = _midranks(observed)
-        ranks[:, t] = rank
+            tables.append(rank)
+    return tables
+
+
+def chunk_ranks(values: np.ndarray, tables: list, start: int, stop: int) -> np.ndarray:
+    """The midranks of units start..stop at every wave, from ``rank_tables``."""
+    ranks = np.full((stop - start, len(tables)), np.nan)
+    for t, table in enumerate(tables):  # a loop over waves
+        if isinstance(table, tuple):
+            scale, offset, midrank = table
+            column = values[start:stop, t]
+            seen = ~np.isnan(column)
+            ranks[seen, t] = midrank[(np.rint(column[seen] * scale) - offset).astype(np.int64)]
+        else:
+            ranks[:, t] = table[start:stop]
     return ranks
 
 
 def _counting_index(observed: np.ndarray) -> np.ndarray | None:
-    """0-based integer positions of the values on a grid of step 10^-d (d = 0..3) when
-    every value is exactly an integer multiple of that step (as values written with
-    at most d decimals are, after parsing) and the grid spans fewer than
-    ``COUNTING_SPAN`` steps; None otherwise. The positions order the values exactly as
-    the values themselves (equal values, equal positions), so counting them gives the
-    same midranks as sorting."""
+    """The grid positions of ``_counting_grid``, or None."""
+    grid = _counting_grid(observed)
+    return None if grid is None else grid[2]
+
+
+def _counting_grid(observed: np.ndarray) -> tuple[float, float, np.ndarray] | None:
+    """(scale, offset, 0-based integer positions) of the values on a grid of step
+    10^-d (d = 0..3), position = rint(value * scale) - offset, when every value is
+    exactly an integer multiple of that step (as values written with at most d
+    decimals are, after parsing) and the grid spans fewer than ``COUNTING_SPAN``
+    steps; None otherwise. The positions order the values exactly as the values
+    themselves (equal values, equal positions), so counting them gives the same
+    midranks as sorting."""
     low, high = observed.min(), observed.max()
     if not (np.isfinite(low) and np.isfinite(high)):
         return None
@@ -71,7 +99,8 @@ def _counting_index(observed: np.ndarray) -> np.ndarray | None:
             continue
         grid = np.rint(observed * scale)
         if np.array_equal(grid / scale, observed):
-            return (grid - np.rint(low * scale)).astype(np.int64)
+            offset = np.rint(low * scale)
+            return scale, offset, (grid - offset).astype(np.int64)
     return None
 
 
@@ -110,11 +139,17 @@ def rank_moments(values: np.ndarray, replicate: np.ndarray, times: np.ndarray,
                  weights: np.ndarray | None = None) -> PairwiseMoments:
     """Pairwise moments of the within-wave ranks, per replicate group, merged over chunks
     (with ``weights``, weighted ranks and weighted moments)."""
-    ranks = wave_ranks(values, weights)
+    # unweighted: each chunk ranked from the waves' tables; weighted: one matrix
+    tables = rank_tables(values) if weights is None else None
+    ranks = None if weights is None else _weighted_ranks(values, weights)
+
+    def ranks_of(start: int, stop: int) -> np.ndarray:
+        return chunk_ranks(values, tables, start, stop) if ranks is None else ranks[start:stop]
+
     merged = None
-    for start in range(0, len(ranks), chunk_units):
-        stop = min(start + chunk_units, len(ranks))
-        part = PairwiseMoments.from_chunk(Chunk(values=ranks[start:stop],
+    for start in range(0, len(values), chunk_units):
+        stop = min(start + chunk_units, len(values))
+        part = PairwiseMoments.from_chunk(Chunk(values=ranks_of(start, stop),
                                                 weights=None if weights is None
                                                 else weights[start:stop],
                                                 replicate=replicate[start:stop], times=times,
