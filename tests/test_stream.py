@@ -10,6 +10,7 @@ blocks, with units running across block ends.
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 import math
 import shlex
 
@@ -292,6 +293,27 @@ def test_a_file_too_large_for_the_default_budget_is_read_in_blocks(tenants_csv, 
                         lambda *a, **k: read_in_blocks.append(a) or original(*a, **k))
     blocks, _ = run_screen(str(tenants_csv), request)
     assert len(read_in_blocks) == 1 and numbers_close(whole, blocks) == []
+
+
+def test_a_screen_read_in_blocks_uses_one_thread(tenants_csv, monkeypatch):
+    # a program property: within a memory budget the screen stays on one thread unless
+    # PANELDIAG_WORKERS asks for more (a second thread holds its own temporaries)
+    import paneldiag.ahead as ahead
+    import paneldiag.pipeline as pipeline
+    from paneldiag.request import ScreenRequest, run_screen
+    monkeypatch.delenv(ahead.WORKERS_VARIABLE, raising=False)
+    monkeypatch.setattr(ahead, "THREADED_UNIT_WAVES", 1)   # this panel counts as large
+    threads = []
+    original = pipeline.screen
+    monkeypatch.setattr(pipeline, "screen", lambda panel, ledgers, info, options, summ:
+                        threads.append(options.workers) or original(panel, ledgers, info,
+                                                                    options, summ))
+    request = ScreenRequest(id=("household",), wave="year", value=("trust",),
+                            missing_codes="-9,-8", audit_only=True)
+    run_screen(str(tenants_csv), request)
+    run_screen(str(tenants_csv), replace(request, max_memory="1.6MB"))
+    assert threads[0] is None   # decided by the panel's size: two threads here
+    assert threads[1] == 1
 
 
 def test_types_that_change_between_blocks(tmp_path):
