@@ -36,7 +36,7 @@ from paneldiag.diagnostics.attrition import (UNIT_TYPES, end_of_follow_up, follo
                                              follow_up_span, response_history,
                                              unit_type_codes)
 from paneldiag.disclosure import small
-from paneldiag.summaries.patterns import pattern_keys
+from paneldiag.summaries.patterns import distinct_patterns, pattern_keys
 
 ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
                            # is an unknown; beyond it the patterns that occur in the panel
@@ -143,10 +143,9 @@ def build_cells(observed: np.ndarray, groups, codes: dict) -> Cells:
         unit_pattern = pattern_keys(observed)
         pattern_observed = ((np.arange(1 << t)[:, None] >> np.arange(t)) & 1).astype(bool)
     else:   # the patterns seen (keys are bytes beyond 62 waves)
-        _, first, unit_pattern = np.unique(pattern_keys(observed), return_index=True,
-                                           return_inverse=True)
+        first, unit_pattern = distinct_patterns(observed)
         pattern_observed = observed[first]
-    counts = np.bincount(gidx * len(pattern_observed) + unit_pattern.reshape(-1),
+    counts = np.bincount(gidx * len(pattern_observed) + unit_pattern,
                          minlength=len(labels) * len(pattern_observed))
     cell_observed = np.tile(pattern_observed, (len(labels), 1))
     cell_group = np.repeat(np.arange(len(labels)), len(pattern_observed))

@@ -47,6 +47,14 @@ def pattern_keys(observed: np.ndarray) -> np.ndarray:
     return packed.view(np.dtype((np.void, packed.shape[1])))[:, 0]
 
 
+def distinct_patterns(observed: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The first row of each distinct pattern of a boolean (n, T) matrix, in key order,
+    and each row's pattern index."""
+    _, first, index = np.unique(pattern_keys(observed), return_index=True,
+                                return_inverse=True)
+    return first, index.reshape(-1)
+
+
 def cell_keys(observed: np.ndarray, replicate: np.ndarray, n_replicates: int) -> np.ndarray:
     """One sortable integer key per row for its cell (pattern, replicate group),
     ordered by pattern key and then by group."""
@@ -420,9 +428,7 @@ class PatternMoments:
         if self.n_patterns == 0:
             return other
         observed = np.concatenate([self.observed, other.observed])
-        _, first, index = np.unique(pattern_keys(observed), return_index=True,
-                                    return_inverse=True)
-        index = index.reshape(-1)
+        first, index = distinct_patterns(observed)
         split, t = self.n_patterns, self.n_waves
         mass, mean, m2 = _pool(len(first), [(index[:split], self.mass, self.mean,
                                              self.m2.reshape(split, t * t)),
