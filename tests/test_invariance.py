@@ -59,14 +59,16 @@ REPLICATE_FIGURES = re.compile(
     r"|^\.stationarity\.(bands\[\d+\]|lag_bands|equal_variances)\.(statistic|p_value|df)"
     r"(\[\d+\])?$)")
 OCCUPIED_GROUPS = re.compile(r"over \d+ replicate groups")
-FIT_FIGURES = re.compile(r"^\.verdict_basis\.statistics\.(slope_share|stable_share|carry_rho|"
-                         r"growth_carry_rho|growth_carry_share)\.")
+# figures cited as printed, to three decimals (the verdicts' statistics, the measurement
+# line, the families' scores): at a rounding edge the last shown digit may turn
+CITED_FIGURES = re.compile(r"^\.verdict_basis\.statistics\.|^\.measurement\.(estimate|ci_low|"
+                           r"ci_high)$|^\.families\[\d+\]\.score$")
 NUMBER = re.compile(r"-?\d[\d,]*(?:\.(\d+))?")
 
 
 def same_text(want: str, got: str) -> bool:
     """The same words, and numbers that differ by at most one unit in their last shown
-    decimal (a text quotes the fits' figures, whose last digit may turn: FIT_FIGURES)."""
+    decimal (a text quotes the fits' figures, whose last digit may turn: CITED_FIGURES)."""
     want, got = OCCUPIED_GROUPS.sub("", want), OCCUPIED_GROUPS.sub("", got)
     if NUMBER.sub("#", want) != NUMBER.sub("#", got):
         return False
@@ -138,11 +140,11 @@ def _within(x, y, scale: float, path: str = "") -> bool:
     # points that agree to about 1e-6: a last shown digit may turn either way
     if path.startswith(".verdict_basis.specifications."):
         return abs(x - y) <= 1.5e-4 * max(abs(x), abs(y), 1.0)
-    # the delta-method figures of the structure fits, shown to three decimals: along a
-    # weakly identified direction (a growth factor near singular) the fits' end points
-    # agree to about 1e-5 relative, so a last shown digit may turn either way
-    if FIT_FIGURES.search(path):
-        return abs(x - y) <= 1.5e-3 * max(abs(x), abs(y), 1.0)
+    # figures cited to three decimals: one unit of the last shown digit, at a rounding
+    # edge (the fits' end points along a weakly identified direction agree to about 1e-6
+    # relative, the rest to 1e-10)
+    if CITED_FIGURES.search(path):
+        return abs(x - y) <= 1e-3 * (1 + 1e-9)
     # units for a power of 0.9: N times a ratio of noncentralities (each a fit's minimum
     # found to a change of 1e-7 in chi-square), rounded up to three significant figures;
     # at a ratio's rounding edge the last shown figure may turn
@@ -261,8 +263,20 @@ def test_wide_column_order_with_labels_changes_nothing(frame, seed):
     assert assert_same(a, b) > 100
 
 
+def panel_of(family: str, n: int, t: int, missing: str, seed: int) -> pd.DataFrame:
+    """A panel as ``simulated`` draws it, for the examples found by earlier runs."""
+    values = family_values(family, n, t, 0.8, missing, np.random.default_rng(seed), "none")
+    frame = pd.DataFrame(values, columns=[f"y{w + 1}" for w in range(t)])
+    return frame.assign(household=[f"H{i:04d}" for i in range(n)])
+
+
 @fuzz_settings(3)
 @given(frame=simulated(), chunk=st.integers(1, 60))
+# found: the trait + quasi-simplex fit stopped where the last bits of the sums put it
+# (chi-square 5.21 or 4.62 by chunk size), and growth + carry-over ended anywhere on the
+# face where carry-over is no carry-over (rho 0 with b 0.09, or b 0 with rho 0.41)
+@example(frame=panel_of("occasion_noise", 117, 5, "none", 1322117304), chunk=3)
+@example(frame=panel_of("occasion_noise", 117, 5, "none", 1322117304), chunk=20)
 def test_chunk_size_changes_nothing(frame, chunk):
     # the figures agree to rounding, not bit for bit: the summaries of each chunk are
     # summed (or merged by Chan, Golub and LeVeque's update) in another order
@@ -324,6 +338,10 @@ MOVED = re.compile(r"^\.wave_profile\[\d+\]\.(mean|sd|min|max)$")
                             columns=[f"y{w + 1}" for w in range(5)])
          .assign(household=[f"H{i:04d}" for i in range(300)]),
          log_scale=-6.0, shift=0.0)
+# found: the delta method through a nearly singular growth factor lost its cancellations
+# to rounding (the slopes' share interval ended at 1.0 or at 0.39 by the measure's unit)
+@example(frame=panel_of("autoregressive", 116, 7, "dependent", 3727568734),
+         log_scale=float(np.log10(0.05006082436335134)), shift=-6254.95)
 def test_affine_change_of_the_measure(frame, log_scale, shift):
     # the shift in units of the new scale (a shift of 1e4 on values of 1e-60 would leave
     # nothing of them in double precision)

@@ -95,6 +95,12 @@ class Part(ABC):
         parts whose map has full rank everywhere."""
         return theta
 
+    def regular_jacobian(self, theta: np.ndarray) -> np.ndarray:
+        """d phi / d theta, where phi are parameters in which the share is linear or
+        well conditioned (the delta method is taken in them): the identity for parts
+        whose own parameters are such."""
+        return np.eye(len(theta))
+
 
 @dataclass(frozen=True)
 class Error(Part):
@@ -181,6 +187,13 @@ class Carry(Part):
     def starts(self, scale):
         return [[0.3 * scale.mean_var, 0.3], [0.3 * scale.mean_var, 0.85]]
 
+    def regular_point(self, theta, sizes) -> np.ndarray:
+        # with no carried-over variance rho is not identified (a fit reports it as 0,
+        # Structure.canonical): the delta method of b's share is taken at a moderate
+        # carry-over, rho 0.5, where b is not confounded with the error variance
+        b, rho = theta
+        return np.array([b, 0.5 if b == 0.0 else rho], dtype=float)
+
     def share(self, theta, times):
         b, rho = theta
         gap = np.abs(times[:, None] - times[None, :])
@@ -208,7 +221,7 @@ class QuasiSimplex(Part):
 
     def starts(self, scale):
         out = []
-        for beta in (0.85, 0.4):
+        for beta in (0.85, 0.4, 0.1):
             true_var = 0.5 * scale.var
             innov = [true_var[0]]
             for w in range(1, len(true_var)):
@@ -337,6 +350,19 @@ class Growth(Part):
             if i == j and np.isfinite(sizes[k]) and sizes[k] > 0:
                 out[k] = max(abs(out[k]), 1e-3 * sizes[k])
         return out
+
+    def regular_jacobian(self, theta) -> np.ndarray:
+        # phi: the entries of Psi = C C' (lower triangle), in which Sigma is linear, so
+        # their information stays well conditioned where C is nearly singular; through C
+        # it has a condition number of about 1 / c_ii^4 there, and the delta method's
+        # cancellations are lost to rounding
+        c = self.factor(theta)
+        pairs = self._cov_names()
+        jac = np.eye(len(theta))
+        for r, (a, b) in enumerate(pairs):
+            for k, (i, j) in enumerate(pairs):
+                jac[r, k] = (a == i) * c[b, j] + (b == i) * c[a, j]
+        return jac
 
     def psi(self, theta) -> np.ndarray:
         c = self.factor(theta)

@@ -50,7 +50,7 @@ import itertools
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, special
+from scipy import linalg, optimize, special
 
 from paneldiag import distributions as dist
 from paneldiag.ahead import share
@@ -127,9 +127,21 @@ class Structure:
                 for combo in itertools.product(*options)]
 
     def canonical(self, theta, t: int) -> np.ndarray:
-        """The reported form of ``theta`` (each part's :meth:`Part.canonical`)."""
-        return np.concatenate([part.canonical(values)
-                               for part, values in zip(self.parts, self.split(theta, t))])
+        """The reported form of ``theta`` (each part's :meth:`Part.canonical`). On the
+        faces where stationary carry-over is no carry-over, any point of the face gives
+        the same Sigma, and a fit stops wherever the last bits of its sums put it: with
+        no variance rho is reported as 0, and at rho = 0 (b I, occasion-specific) its
+        variance is moved into the error variances."""
+        values = [part.canonical(v) for part, v in zip(self.parts, self.split(theta, t))]
+        carry = next((i for i, p in enumerate(self.parts) if isinstance(p, Carry)), None)
+        error = next((i for i, p in enumerate(self.parts) if isinstance(p, Error)), None)
+        if carry is not None and error is not None:
+            b, rho = values[carry]
+            if rho == 0.0:
+                values[error] = values[error] + b
+            if b == 0.0 or rho == 0.0:
+                values[carry] = np.zeros(2)
+        return np.concatenate(values)
 
     def regular_point(self, theta, t: int, sizes) -> np.ndarray:
         """``theta`` moved off the folds of the parameterisation (each part's
@@ -137,6 +149,12 @@ class Structure:
         return np.concatenate([part.regular_point(values, part_sizes) for part, values,
                                part_sizes in zip(self.parts, self.split(theta, t),
                                                  self.split(sizes, t))])
+
+    def regular_jacobian(self, theta, t: int) -> np.ndarray:
+        """d phi / d theta for the well-conditioned parameters phi of the delta method
+        (each part's :meth:`Part.regular_jacobian`, block-diagonal)."""
+        return linalg.block_diag(*[part.regular_jacobian(values) for part, values
+                                   in zip(self.parts, self.split(theta, t))])
 
     def error_variances(self, theta, t: int) -> np.ndarray:
         for part, values in zip(self.parts, self.split(theta, t)):
@@ -321,7 +339,8 @@ class PatternLikelihood:
 class Fit:
     """A fitted structure: parameters by name, discrepancy F, test against the
     saturated model (None when the saturated covariance is singular), fit indices, BIC,
-    and the parameters' covariance matrix from the expected information."""
+    and the covariance matrix of its well-conditioned parameters from the expected
+    information."""
 
     structure: Structure
     params: dict
@@ -334,36 +353,44 @@ class Fit:
     rmsea_ci: tuple
     srmr: float | None
     bic: float | None
-    theta_cov: np.ndarray | None
+    # the inverse expected information of phi, the parameters in which the delta
+    # method is taken (Structure.regular_jacobian: a growth factor's Psi, not its C)
+    regular_cov: np.ndarray | None
     sigma: np.ndarray
     n_params: int = 0
     # where the fit is weakly identified (``flat_likelihood``), or None
     weak_identification: dict | None = None
-    # the parameters at which ``theta_cov`` and the delta method's derivatives are taken:
-    # off the folds of the parameterisation (Structure.regular_point), else ``params``
+    # the parameters at which the delta method's derivatives are taken: off the folds
+    # of the parameterisation (Structure.regular_point), else ``params``
     delta_point: dict | None = None
+    # d phi / d theta at ``delta_point``
+    regular_jacobian: np.ndarray | None = None
 
     def derived(self, fn) -> tuple[float, float, float]:
         """(estimate, ci_low, ci_high) of fn(params) by the delta method, its derivatives
         taken at ``delta_point`` (where a growth factor's Cholesky diagonal is 0 its
         derivatives vanish, and the interval would follow how close to 0 the search
-        stopped)."""
+        stopped) and carried to phi (d fn / d phi = J'^-1 d fn / d theta), where the
+        information is well conditioned."""
         est = _safe(fn, self.params)
-        if self.theta_cov is None or not np.isfinite(est):
+        if self.regular_cov is None or not np.isfinite(est):
             return est, np.nan, np.nan
         point = self.delta_point or self.params
         keys = list(point)
         grad = np.zeros(len(keys))
-        # steps relative to each parameter, or to its typical size when it is 0 (on a
-        # bound): its unit is the measure's, or none
+        # steps relative to each parameter, and at least to its typical size (its unit is
+        # the measure's, or none): a step relative to a factor entry near 0 would leave
+        # a derivative of rounding, which J'^-1 then multiplies by about 1 / entry
         typical = _typical(self.structure, Scale.of(self.sigma))
         for i, key in enumerate(keys):
-            h = 1e-6 * (abs(point[key]) or typical[i])
+            h = 1e-6 * max(abs(point[key]), typical[i])
             up, down = dict(point), dict(point)
             up[key] += h
             down[key] -= h
             grad[i] = (_safe(fn, up) - _safe(fn, down)) / (2 * h)
-        var = float(grad @ self.theta_cov @ grad)
+        if self.regular_jacobian is not None:
+            grad = np.linalg.solve(self.regular_jacobian.T, grad)
+        var = float(grad @ self.regular_cov @ grad)
         if not np.isfinite(var) or var < 0:
             return est, np.nan, np.nan
         se = np.sqrt(var)
@@ -469,15 +496,21 @@ def _expected_hessian(sigma: np.ndarray, grads: list) -> np.ndarray | None:
     return mats.reshape(q, -1) @ np.swapaxes(mats, 1, 2).reshape(q, -1).T
 
 
+SCORING_STEPS = 40         # Fisher scoring steps in a round
+MORE_SCORING_ROUNDS = 9    # further rounds while a round lowers the discrepancy ...
+SCORING_PROGRESS = 1e4     # ... by this many times the fit's tolerance (a chi-square 1e-3)
+
+
 def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: float,
-             max_iter: int = 40):
+             max_iter: int = SCORING_STEPS):
     """Fisher scoring with the complete-data expected Hessian, projected onto the
     bounds (variables at a bound whose gradient points outward stay there), with
     step halving. Converges in tens of steps where a quasi-Newton search needs
     thousands on the quasi-simplex, whose parameters differ in scale by orders of
     magnitude (Lee and Jennrich 1979, Psychometrika 44, 99-113). Converged when the
     predicted decrease of the discrepancy is below ``tol``; returns (theta, value,
-    converged)."""
+    converged, at_limit), at_limit when it stopped at ``max_iter`` steps while still
+    going down."""
     fn = _objective(likelihood, structure, times)
     theta = np.clip(np.asarray(start, dtype=float), lower, upper)
     value, grad = fn(theta)
@@ -513,7 +546,7 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
         # the predicted decrease under the unscaled Hessian: a secant factor above 1
         # shrinks it, and a search slowed by a large factor would pass for converged
         if -0.5 * slope * max(curvature, 1.0) < tol:
-            return theta, value, True
+            return theta, value, True, False
         # a search that needed short steps starts the next one near them (a ridge or a
         # bound along which the full step overshoots), not 20 halvings above
         length, accepted = min(1.0, 4.0 * last_length), False
@@ -531,7 +564,9 @@ def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: 
         if along > 0:
             curvature *= float(np.clip((new_grad - grad) @ moved / along, 0.05, 20.0))
         theta, value, grad, last_length = trial, new_value, new_grad, length
-    return theta, value, False
+    else:
+        return theta, value, False, True
+    return theta, value, False, False
 
 
 @dataclass
@@ -562,16 +597,31 @@ def _minimise(likelihood, structure: Structure, times, starts, scale: Scale, tol
         value, grad = fn(z * typical)
         return value, grad * typical
 
-    best, ends = None, []
-    for start in starts:
-        theta, value, converged = _scoring(likelihood, structure, times, start, lower, upper,
-                                           tol)
+    def search(start):
+        theta, value, converged, at_limit = _scoring(likelihood, structure, times, start,
+                                                     lower, upper, tol)
+        # on a ridge (a weakly identified part, parameters at their bounds) scoring
+        # crawls: a search cut off at its step limit would end where the last bits of the
+        # sums put it, so it goes on while a round of steps still lowers the chi-square
+        for _ in range(MORE_SCORING_ROUNDS):
+            if not at_limit:
+                break
+            before = value
+            theta, value, converged, at_limit = _scoring(likelihood, structure, times,
+                                                         theta, lower, upper, tol)
+            if before - value < SCORING_PROGRESS * tol:
+                break
         if not converged:
             res = optimize.minimize(scaled, theta / typical, jac=True, method="L-BFGS-B",
                                     bounds=list(zip(lower / typical, upper / typical)),
                                     options={"maxiter": 500, "ftol": 1e-13, "gtol": 1e-9})
             if res.fun <= value:
                 theta, value = res.x * typical, float(res.fun)
+        return theta, value
+
+    best, ends = None, []
+    for start in starts:
+        theta, value = search(start)
         ends.append((theta, value))
         if best is None or value < best.fun:
             best = _Result(theta, value)
@@ -641,10 +691,14 @@ def _fit_or_skip(structure: Structure, m: Moments) -> "Fit | Skipped":
     names = structure.names(t)
     point = structure.regular_point(theta, t, _typical(structure, m.scale))
     point_sigma, point_grads = structure.build(point, m.times)
+    jacobian = structure.regular_jacobian(point, t)
+    # dSigma / dphi from dSigma / dtheta = J' dSigma / dphi
+    regular_grads = np.linalg.solve(jacobian.T, point_grads.reshape(q, -1)).reshape(
+        point_grads.shape)
     return Fit(structure, dict(zip(names, map(float, theta))), theta, value,
-               *stats, theta_cov=_information_cov(point_sigma, point_grads, m.n_eff),
+               *stats, regular_cov=_information_cov(point_sigma, regular_grads, m.n_eff),
                sigma=sigma, n_params=q, weak_identification=flat_likelihood(structure, first, m),
-               delta_point=dict(zip(names, map(float, point))))
+               delta_point=dict(zip(names, map(float, point))), regular_jacobian=jacobian)
 
 
 def flat_likelihood(structure: Structure, result: _Result, m: Moments) -> dict | None:
