@@ -19,6 +19,7 @@ from paneldiag.ahead import share
 from paneldiag.panel import Panel
 
 CHUNK_UNITS = 1 << 18
+CHUNKS_AT_ONCE = 4   # chunks summarised before their summaries are merged (a few per thread)
 N_REPLICATES = 20
 
 
@@ -109,10 +110,14 @@ def summarise(panel: Panel, measure: str, kinds: list[type], chunk_units: int = 
                 out[kind] = kind.from_shared(shared[shared_pass])
         return out
 
-    # the chunks are summarised by both threads of the screen (paneldiag.ahead) and
-    # merged here in chunk order, as a serial run merges them
+    # the chunks are summarised by both threads of the screen (paneldiag.ahead), a few
+    # at a time, and merged in chunk order as a serial run merges them; holding every
+    # chunk's summaries until the end kept 1 GB more resident at 10M x 20
     merged: dict[type, object] = {}
-    for part in share(parts, range(0, panel.n_units, chunk_units)):
-        for kind in kinds:
-            merged[kind] = part[kind] if kind not in merged else merged[kind].merge(part[kind])
+    starts = range(0, panel.n_units, chunk_units)
+    for first in range(0, len(starts), CHUNKS_AT_ONCE):
+        for part in share(parts, starts[first:first + CHUNKS_AT_ONCE]):
+            for kind in kinds:
+                merged[kind] = part[kind] if kind not in merged else \
+                    merged[kind].merge(part[kind])
     return merged
