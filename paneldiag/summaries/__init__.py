@@ -21,6 +21,7 @@ from paneldiag.panel import Panel
 CHUNK_UNITS = 1 << 18
 CHUNKS_AT_ONCE = 4   # chunks summarised before their summaries are merged (a few per thread)
 N_REPLICATES = 20
+HASHED_AT_ONCE = 1 << 20   # unit ids turned to text and hashed at a time
 
 
 @dataclass(frozen=True)
@@ -44,13 +45,17 @@ def replicate_groups(unit_ids: np.ndarray, n_replicates: int = N_REPLICATES) -> 
         if k == n_replicates and ref() is unit_ids:
             return groups
     ids = np.asarray(unit_ids)
-    if ids.dtype.kind == "i":  # Arrow writes integers as text as str() does, but faster
-        import pyarrow as pa
-        text = pa.array(ids).cast(pa.string()).to_numpy(zero_copy_only=False)
-    else:
-        text = pd.Series(unit_ids).astype(str).to_numpy(dtype=object)
-    hashed = pd.util.hash_array(text, categorize=False)
-    groups = (hashed % np.uint64(n_replicates)).astype(np.int64)
+    groups = np.empty(len(ids), dtype=np.int64)
+    # a block of ids at a time: each id as a Python string costs about 60 bytes
+    for start in range(0, len(ids), HASHED_AT_ONCE):
+        block = ids[start:start + HASHED_AT_ONCE]
+        if ids.dtype.kind == "i":  # Arrow writes integers as text as str() does, but faster
+            import pyarrow as pa
+            text = pa.array(block).cast(pa.string()).to_numpy(zero_copy_only=False)
+        else:
+            text = pd.Series(block).astype(str).to_numpy(dtype=object)
+        hashed = pd.util.hash_array(text, categorize=False)
+        groups[start:start + len(block)] = hashed % np.uint64(n_replicates)
     groups.flags.writeable = False
     try:
         _LAST_GROUPS[:] = [(weakref.ref(unit_ids), n_replicates, groups)]
