@@ -719,16 +719,19 @@ def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray 
     non-events: (s, units at risk, their values, whether each is an event, the wave's
     mean and SD of the observed values)."""
     n_units, t = values.shape
-    seen = ~np.isnan(values)
+    seen = np.isnan(values)
+    np.logical_not(seen, out=seen)   # in place: a units x waves mask less at once
     if weights is not None:
         seen &= (weights > 0)[:, None]   # a unit of weight 0 adds nothing to the fit
     # the last wave a unit is observed at (-1: never): the event at t is t == last
-    last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
-    last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
+    last = np.argmax(seen[:, ::-1], axis=1)
+    np.subtract(t - 1, last, out=last)
+    last[~seen.any(axis=1)] = -1
+    last = last.astype(np.min_scalar_type(-t))   # int8 up to 127 waves: kept through the loop
     # the last wave each unit is due at, when a cohort's follow-up ends before the panel's
     span = follow_up_span(seen, np.ones(n_units))
     due_end = follow_up_end(seen, span)[1] if span < t else None
-    del seen, last_seen
+    del seen
     for s in range(t - 1):  # a loop over waves
         column = np.ascontiguousarray(values[:, s])   # one strided read, then contiguous
         risk = ~np.isnan(column)
@@ -738,9 +741,9 @@ def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray 
         with np.errstate(invalid="ignore", divide="ignore"):
             if weights is None:
                 mean = observed.mean() if len(observed) else np.nan
-                dev = observed - mean
-                sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
-                    else np.nan
+                observed -= mean   # the deviations, in place (observed is a copy)
+                sd = np.sqrt(np.dot(observed, observed) / (len(observed) - 1)) \
+                    if len(observed) > 1 else np.nan
             else:
                 sd = _weighted_sd(observed, weights[risk]) if len(observed) > 1 else np.nan
                 mean = np.average(observed, weights=weights[risk])
@@ -755,7 +758,9 @@ def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray 
         n_events = int(event.sum())
         if not 0 < n_events < len(rows):
             continue   # no events or no non-events: left out (the exact ML limit)
-        yield s, rows, column[rows], event, mean, sd
+        at = column[rows]
+        del column, risk, observed   # not held while the caller works on this wave
+        yield s, rows, at, event, mean, sd
 
 
 def _person_periods(values, extra, weights, waves_used, any_risk):
