@@ -39,6 +39,7 @@ from paneldiag.disclosure import small
 from paneldiag.summaries.patterns import distinct_patterns, pattern_keys
 
 ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
+PATTERN_BLOCK_UNITS = 1 << 20   # units whose response patterns are sorted at a time
                            # is an unknown; beyond it the patterns that occur in the panel
                            # (in every group: as if an attacker knew which patterns never
                            # occur, a stricter audit that keeps the programs small)
@@ -142,11 +143,11 @@ def build_cells(observed: np.ndarray, groups, codes: dict) -> Cells:
     if len(labels) << t <= ALL_PATTERNS_LIMIT:
         unit_pattern = pattern_keys(observed)
         pattern_observed = ((np.arange(1 << t)[:, None] >> np.arange(t)) & 1).astype(bool)
+        counts = np.bincount(gidx * len(pattern_observed) + unit_pattern,
+                             minlength=len(labels) * len(pattern_observed))
     else:   # the patterns seen (keys are bytes beyond 62 waves)
-        first, unit_pattern = distinct_patterns(observed)
-        pattern_observed = observed[first]
-    counts = np.bincount(gidx * len(pattern_observed) + unit_pattern,
-                         minlength=len(labels) * len(pattern_observed))
+        pattern_observed, by_group = _pattern_counts(observed, gidx, len(labels))
+        counts = by_group.T.reshape(-1)
     cell_observed = np.tile(pattern_observed, (len(labels), 1))
     cell_group = np.repeat(np.arange(len(labels)), len(pattern_observed))
     code_cells = [(code, w) for code in codes for w in range(t)]
@@ -164,8 +165,28 @@ def build_cells(observed: np.ndarray, groups, codes: dict) -> Cells:
                  np.r_[counts, code_truth].astype(float), labels, code_cells, limits)
 
 
+def _pattern_counts(observed: np.ndarray, gidx: np.ndarray, n_groups: int
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct rows of ``observed`` in key order and their units by group, (P, G):
+    a block of units at a time (sorting every unit's key at once took about 0.4 GB at 10M)."""
+    rows = [np.zeros((0, observed.shape[1]), dtype=bool)]   # the empty panel's table
+    counts = [np.zeros((0, n_groups), dtype=np.int64)]
+    for start in range(0, len(observed), PATTERN_BLOCK_UNITS):  # a loop over blocks
+        block = observed[start:start + PATTERN_BLOCK_UNITS]
+        first, index = distinct_patterns(block)
+        rows.append(block[first])
+        counts.append(np.bincount(index * n_groups + gidx[start:start + len(block)],
+                                  minlength=len(first) * n_groups).reshape(-1, n_groups))
+    table = np.concatenate(rows)
+    first, index = distinct_patterns(table)
+    total = np.zeros((len(first), n_groups), dtype=np.int64)
+    np.add.at(total, index, np.concatenate(counts))
+    return table[first], total
+
+
 def panel_cells(panel, measure: str) -> Cells:
-    observed = ~np.isnan(panel.values[measure])
+    observed = np.isnan(panel.values[measure])
+    np.logical_not(observed, out=observed)   # in place: one units x waves mask at a time
     return build_cells(observed, panel.groups, panel.codes.get(measure, {}))
 
 

@@ -265,7 +265,7 @@ def run_screen(data, request: ScreenRequest, stage: Callable[[str], None] = lamb
                             chunk_units=request.chunk_units,
                             # read in blocks or within a budget: one thread unless
                             # asked, as a second holds its own temporaries (10M x 20
-                            # streamed: 4.0 GiB peak on two threads, 3.75 GiB on one)
+                            # streamed: 2.8 GiB peak on two threads, 2.6 GiB on one)
                             workers=ahead_workers() if memory_bound else None)
     return screen(panel, ledgers, input_info, options, summaries), panel
 

@@ -177,18 +177,24 @@ def test_nothing_small_gets_no_extra_suppression(tmp_path):
     assert _reaudit(report, panel) == []
 
 
+@pytest.mark.parametrize("block_units", [1 << 20, 7])
 @pytest.mark.parametrize("n_waves", [8, 20, 70])
-def test_cells_count_the_response_patterns(n_waves):
+def test_cells_count_the_response_patterns(n_waves, block_units, monkeypatch):
     """The audit's unknowns are the units of each (group, response pattern), counted
     here by pandas' value_counts of the rows; beyond 62 waves the patterns no longer fit
     an integer bit code (70 waves failed with an overflow), and three units that differ
-    from the others only after wave 65 must still be a cell of their own."""
+    from the others only after wave 65 must still be a cell of their own. Counted in
+    blocks of 7 units, the cells are the same and in the same order."""
     rng = np.random.default_rng(7)
     observed = rng.random((300, n_waves)) > 0.1
     observed[:, n_waves // 2:] = True
     observed[:3, -2:] = False
     groups = np.array(["north", "south"])[rng.integers(0, 2, 300)]
+    whole = da.build_cells(observed, groups, {})
+    monkeypatch.setattr(da, "PATTERN_BLOCK_UNITS", block_units)
     cells = da.build_cells(observed, groups, {})
+    np.testing.assert_array_equal(cells.observed, whole.observed)
+    np.testing.assert_array_equal(cells.truth, whole.truth)
     found = {(cells.group_labels[g], row.tobytes()): int(n) for g, row, n
              in zip(cells.group, cells.observed, cells.truth) if n > 0}
     rows = pd.DataFrame(observed).assign(group=groups)

@@ -171,3 +171,39 @@ def test_many_waves_cells_use_byte_keys():
     pooled = reps.pooled()
     assert pooled.n.sum() == 300
     assert pooled.n_patterns == len({tuple(r) for r in seen})
+
+
+def test_summaries_merged_a_few_chunks_at_a_time_equal_the_serial_merge():
+    # reference: every chunk summarised alone and merged in chunk order, one by one;
+    # summarise holds only CHUNKS_AT_ONCE chunks' summaries, in the same order
+    import paneldiag.summaries as summaries
+    rng = np.random.default_rng(17)
+    x, _ = _panel_values(rng, n=1300)
+    ids = np.arange(len(x))
+    panel = Panel(unit_ids=ids, wave_labels=tuple("abcdef"), wave_times=np.arange(6.0),
+                  values={"y": x})
+    size = 100   # 13 chunks, more than CHUNKS_AT_ONCE
+    assert len(x) / size > summaries.CHUNKS_AT_ONCE
+    got = summarise(panel, "y", [PatternMoments], chunk_units=size, n_replicates=4)
+    groups = replicate_groups(ids, 4)
+    serial = None
+    for start in range(0, len(x), size):
+        part = PatternMoments.from_chunk(_chunk(x[start:start + size],
+                                                groups[start:start + size], 4))
+        serial = part if serial is None else serial.merge(part)
+    for name in ("observed", "n", "mean", "m2", "replicate_n"):
+        np.testing.assert_array_equal(getattr(got[PatternMoments], name),
+                                      getattr(serial, name))
+
+
+@pytest.mark.parametrize("ids", [np.arange(-5, 40, dtype=np.int64),
+                                 np.array([f"p{i}" for i in range(45)], dtype=object)])
+def test_replicate_groups_hashed_in_blocks_equal_one_hash(ids, monkeypatch):
+    # reference: pandas' hash of every id's text at once, modulo the groups
+    import pandas as pd
+
+    import paneldiag.summaries as summaries
+    whole = pd.util.hash_array(np.array([str(i) for i in ids], dtype=object),
+                               categorize=False) % np.uint64(7)
+    monkeypatch.setattr(summaries, "HASHED_AT_ONCE", 4)
+    np.testing.assert_array_equal(replicate_groups(ids.copy(), 7), whole.astype(np.int64))

@@ -716,19 +716,22 @@ def dropout_model(values: np.ndarray, wave_labels, covariates: dict | None = Non
 
 def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray | None):
     """For each wave s before the last with spread and with both events and
-    non-events: (s, units at risk, their values, whether each is an event, the wave's
-    mean and SD of the observed values)."""
+    non-events: (s, the units at risk as a mask, their values, whether each is an event,
+    the wave's mean and SD of the observed values)."""
     n_units, t = values.shape
-    seen = ~np.isnan(values)
+    seen = np.isnan(values)
+    np.logical_not(seen, out=seen)   # in place: a units x waves mask less at once
     if weights is not None:
         seen &= (weights > 0)[:, None]   # a unit of weight 0 adds nothing to the fit
     # the last wave a unit is observed at (-1: never): the event at t is t == last
-    last_seen = t - 1 - np.argmax(seen[:, ::-1], axis=1)
-    last = np.where(seen[np.arange(n_units), last_seen], last_seen, -1)
+    last = np.argmax(seen[:, ::-1], axis=1)
+    np.subtract(t - 1, last, out=last)
+    last[~seen.any(axis=1)] = -1
+    last = last.astype(np.min_scalar_type(-t))   # int8 up to 127 waves: kept through the loop
     # the last wave each unit is due at, when a cohort's follow-up ends before the panel's
     span = follow_up_span(seen, np.ones(n_units))
     due_end = follow_up_end(seen, span)[1] if span < t else None
-    del seen, last_seen
+    del seen
     for s in range(t - 1):  # a loop over waves
         column = np.ascontiguousarray(values[:, s])   # one strided read, then contiguous
         risk = ~np.isnan(column)
@@ -738,9 +741,9 @@ def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray 
         with np.errstate(invalid="ignore", divide="ignore"):
             if weights is None:
                 mean = observed.mean() if len(observed) else np.nan
-                dev = observed - mean
-                sd = np.sqrt(np.dot(dev, dev) / (len(observed) - 1)) if len(observed) > 1 \
-                    else np.nan
+                observed -= mean   # the deviations, in place (observed is a copy)
+                sd = np.sqrt(np.dot(observed, observed) / (len(observed) - 1)) \
+                    if len(observed) > 1 else np.nan
             else:
                 sd = _weighted_sd(observed, weights[risk]) if len(observed) > 1 else np.nan
                 mean = np.average(observed, weights=weights[risk])
@@ -750,12 +753,13 @@ def _risk_sets(values: np.ndarray, extra: list[np.ndarray], weights: np.ndarray 
             risk &= due_end > s   # no longer at risk after its follow-up
         for w in extra:  # a loop over covariates
             risk &= np.isfinite(w[:, s])
-        rows = np.flatnonzero(risk)
-        event = last[rows] == s
+        event = last[risk] == s   # a mask, not row numbers: 8 times smaller
         n_events = int(event.sum())
-        if not 0 < n_events < len(rows):
+        if not 0 < n_events < len(event):
             continue   # no events or no non-events: left out (the exact ML limit)
-        yield s, rows, column[rows], event, mean, sd
+        at = column[risk]
+        del column, observed   # not held while the caller works on this wave
+        yield s, risk, at, event, mean, sd
 
 
 def _person_periods(values, extra, weights, waves_used, any_risk):
@@ -770,16 +774,16 @@ def _person_periods(values, extra, weights, waves_used, any_risk):
     y = np.empty(n_rows, dtype=bool)
     unit_of_row = np.empty(n_rows, dtype=np.int64)
     bounds = [0]
-    for s, rows, at, event, mean, sd in _risk_sets(values, extra, weights):
+    for s, risk, at, event, mean, sd in _risk_sets(values, extra, weights):
         waves_used[s] = True
-        any_risk[rows] = True
-        lo, hi = bounds[-1], bounds[-1] + len(rows)
+        any_risk |= risk
+        lo, hi = bounds[-1], bounds[-1] + len(at)
         np.subtract(at, mean, out=xt[0, lo:hi])
         xt[0, lo:hi] /= sd
         for j, w in enumerate(extra):
-            xt[j + 1, lo:hi] = w[rows, s]
+            xt[j + 1, lo:hi] = w[risk, s]
         y[lo:hi] = event
-        unit_of_row[lo:hi] = rows
+        unit_of_row[lo:hi] = np.flatnonzero(risk)
         bounds.append(hi)
     end = bounds[-1]
     return xt[:, :end], y[:end], bounds, unit_of_row[:end]
@@ -797,17 +801,17 @@ def _grouped_person_periods(values, weights, replicate, waves_used, any_risk):
     from paneldiag.summaries.ranks import _counting_index
     k = 1 if weights is None else int(replicate.max()) + 1 if len(replicate) else 1
     parts, n_pp, n_ev = [], 0, 0
-    for s, rows, at, event, mean, sd in _risk_sets(values, [], weights):
+    for s, risk, at, event, mean, sd in _risk_sets(values, [], weights):
         index = _counting_index(at)
         if index is None:
             waves_used[:], any_risk[:] = False, False
             return None
         waves_used[s] = True
-        any_risk[rows] = True
-        n_pp, n_ev = n_pp + len(rows), n_ev + int(event.sum())
-        w = None if weights is None else weights[rows]
+        any_risk |= risk
+        n_pp, n_ev = n_pp + len(at), n_ev + int(event.sum())
+        w = None if weights is None else weights[risk]
         if weights is not None:
-            index = index * k + replicate[rows]   # cells of one value and group
+            index = index * k + replicate[risk]   # cells of one value and group
         trials = np.bincount(index, weights=w).astype(float)
         events = np.bincount(index, weights=event if w is None else np.where(event, w, 0.0),
                              minlength=len(trials))

@@ -97,10 +97,12 @@ def _counting_grid(observed: np.ndarray) -> tuple[float, float, np.ndarray] | No
         probe = observed[:PROBE]   # a cheap necessary condition before the full check
         if not np.array_equal(np.rint(probe * scale) / scale, probe):
             continue
-        grid = np.rint(observed * scale)
+        grid = np.multiply(observed, scale)   # in place from here: N-long temporaries
+        np.rint(grid, out=grid)
         if np.array_equal(grid / scale, observed):
             offset = np.rint(low * scale)
-            return scale, offset, (grid - offset).astype(np.int64)
+            grid -= offset
+            return scale, offset, grid.astype(np.int64)
     return None
 
 
