@@ -497,8 +497,8 @@ def _expected_hessian(sigma: np.ndarray, grads: list) -> np.ndarray | None:
 
 
 SCORING_STEPS = 40         # Fisher scoring steps in a round
-MORE_SCORING_ROUNDS = 9    # further rounds while a round lowers the discrepancy ...
-SCORING_PROGRESS = 1e4     # ... by this many times the fit's tolerance (a chi-square 1e-3)
+MORE_SCORING_ROUNDS = 4    # further rounds while a round lowers the discrepancy ...
+SCORING_PROGRESS = 1e5     # ... by this many times the fit's tolerance (a chi-square 0.01)
 
 
 def _scoring(likelihood, structure: Structure, times, start, lower, upper, tol: float,
