@@ -53,6 +53,8 @@ DECAY_FIT = 1e-6     # the correlation-decay fit's figures (``_within``)
 # figures that come from the replicate groups (delete-a-group jackknife)
 REPLICATE_FIGURES = re.compile(
     r"(ci_low|ci_high|\.se$|_se$|_se\[\d+\]$|\.evidence\[|\.n_replicates$|interval_scale$"
+    r"|^\.next_models\[\d+\]\.why$"   # quotes the evidence, jackknife intervals and all
+    r"|^\.reliability\.(alternative_)?summary\.method$"   # the interval's scale: the groups decide
     r"|^\.growth\.mean_shape\..*\.(chi_square|pvalue|df)$"
     r"|^\.growth\.variance_trend\.(t|pvalue|df)$|^\.growth\.residual_autocorrelation\.(z|pvalue)$"
     r"|^\.stationarity\.(lag_bands|equal_variances)\.note$"   # joint or Bonferroni: by groups
