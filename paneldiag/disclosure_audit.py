@@ -39,10 +39,10 @@ from paneldiag.disclosure import small
 from paneldiag.summaries.patterns import distinct_patterns, pattern_keys
 
 ALL_PATTERNS_LIMIT = 512   # cells: up to this many, every possible pattern of every group
-PATTERN_BLOCK_UNITS = 1 << 20   # units whose response patterns are sorted at a time
                            # is an unknown; beyond it the patterns that occur in the panel
                            # (in every group: as if an attacker knew which patterns never
                            # occur, a stricter audit that keeps the programs small)
+PATTERN_BLOCK_UNITS = 1 << 20   # units whose response patterns are sorted at a time
 # Small counts the audit mends one by one, each by its own linear programs (the demo's
 # measures have 21-41 pinned by the released counts). Beyond this many, the audit stops
 # and says so: most units then have a response pattern of their own (panels of many

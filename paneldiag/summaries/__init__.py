@@ -45,16 +45,19 @@ def replicate_groups(unit_ids: np.ndarray, n_replicates: int = N_REPLICATES) -> 
         if k == n_replicates and ref() is unit_ids:
             return groups
     ids = np.asarray(unit_ids)
+    if ids.dtype.kind == "i":  # Arrow writes integers as text as str() does, but faster
+        import pyarrow as pa
+
+        def as_text(block):
+            return pa.array(block).cast(pa.string()).to_numpy(zero_copy_only=False)
+    else:
+        def as_text(block):
+            return pd.Series(block).astype(str).to_numpy(dtype=object)
     groups = np.empty(len(ids), dtype=np.int64)
     # a block of ids at a time: each id as a Python string costs about 60 bytes
     for start in range(0, len(ids), HASHED_AT_ONCE):
         block = ids[start:start + HASHED_AT_ONCE]
-        if ids.dtype.kind == "i":  # Arrow writes integers as text as str() does, but faster
-            import pyarrow as pa
-            text = pa.array(block).cast(pa.string()).to_numpy(zero_copy_only=False)
-        else:
-            text = pd.Series(block).astype(str).to_numpy(dtype=object)
-        hashed = pd.util.hash_array(text, categorize=False)
+        hashed = pd.util.hash_array(as_text(block), categorize=False)
         groups[start:start + len(block)] = hashed % np.uint64(n_replicates)
     groups.flags.writeable = False
     try:
